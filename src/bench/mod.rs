@@ -1,0 +1,1 @@
+//! bench (placeholder; filled in by its issue).

@@ -1,0 +1,90 @@
+//! `isopach check RECIPE [--machine M]`: validate, with the line and reason of each error.
+
+use anyhow::Context;
+use isopach::recipe::{self, schema::PatternSpec, LoadedRecipe};
+use std::path::PathBuf;
+
+/// Arguments of `isopach check`.
+#[derive(clap::Args, Debug)]
+#[command(
+    after_help = "Examples:\n  isopach check recipes/oxide-150-49.toml\n  isopach check recipes/oxide-150-49.toml --machine machine.toml"
+)]
+pub struct Args {
+    /// The recipe file (TOML).
+    recipe: PathBuf,
+    /// A machine file to validate as well.
+    #[arg(long)]
+    machine: Option<PathBuf>,
+}
+
+/// Runs the command: exit 0 with a summary, or 2 with every error as `FILE:LINE:COL: message`.
+pub fn run(args: Args) -> anyhow::Result<u8> {
+    let loaded = match recipe::load(&args.recipe) {
+        Ok(l) => l,
+        Err(recipe::RecipeError::Invalid(problems)) => {
+            for p in &problems {
+                println!("{p}");
+            }
+            eprintln!("{}: {} error(s)", args.recipe.display(), problems.len());
+            return Ok(super::exit::INVALID);
+        }
+        Err(e) => return Err(e).context("check failed"),
+    };
+    if let Some(m) = &args.machine {
+        anyhow::bail!("checking machine file {} is not built yet", m.display());
+    }
+    println!("ok: {}", summary(&loaded));
+    Ok(super::exit::OK)
+}
+
+/// One line: wafer, pattern, site count, stack.
+pub fn summary(loaded: &LoadedRecipe) -> String {
+    let r = &loaded.recipe;
+    let w = &r.wafer;
+    let mark = match w.orientation {
+        recipe::schema::OrientationKind::None => String::new(),
+        o => format!(
+            ", {} at {}°",
+            format!("{o:?}").to_lowercase(),
+            w.orientation_angle_deg
+        ),
+    };
+    let pattern = match &r.pattern {
+        PatternSpec::Polar { rings, center, .. } => {
+            format!(
+                "polar {}rings {:?}",
+                if *center { "centre + " } else { "" },
+                rings
+            )
+        }
+        PatternSpec::Grid { pitch_mm, .. } => format!("grid {pitch_mm} mm"),
+        PatternSpec::Custom { .. } => "custom".to_string(),
+        PatternSpec::Standard { sites } => format!("standard {sites}"),
+    };
+    let layers: Vec<String> = r
+        .film
+        .layers
+        .iter()
+        .map(|l| {
+            format!(
+                "{} {} nm{}",
+                l.material,
+                l.nominal_nm,
+                if l.fit { "" } else { " (fixed)" }
+            )
+        })
+        .collect();
+    format!(
+        "{}: {} mm wafer{mark}, {} mm edge exclusion; {pattern}, {} sites; {} / {} / {}; {}–{} nm, method {}",
+        r.name,
+        w.diameter_mm,
+        w.edge_exclusion_mm,
+        loaded.sites().len(),
+        r.film.ambient,
+        layers.join(" / "),
+        r.film.substrate,
+        r.film.wavelength_nm[0],
+        r.film.wavelength_nm[1],
+        r.film.method.as_str()
+    )
+}

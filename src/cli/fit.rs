@@ -1,0 +1,14 @@
+//! `isopach fit` (not built yet).
+
+/// Arguments of `isopach fit`.
+#[derive(clap::Args, Debug)]
+pub struct Args {
+    /// Arguments (not built yet).
+    #[arg(trailing_var_arg = true, allow_hyphen_values = true)]
+    rest: Vec<String>,
+}
+
+/// Runs the command.
+pub fn run(_args: Args) -> anyhow::Result<u8> {
+    anyhow::bail!("isopach fit is not built yet")
+}

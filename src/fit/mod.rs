@@ -1,0 +1,1 @@
+//! fit (placeholder; filled in by its issue).

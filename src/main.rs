@@ -1,0 +1,6 @@
+//! The `isopach` binary: argument parsing and dispatch only (see `cli`).
+mod cli;
+
+fn main() -> std::process::ExitCode {
+    cli::main()
+}

@@ -1,0 +1,3 @@
+//! Maps: uniformity statistics, interpolation, contours and rendering (SVG/PNG).
+
+pub mod site_plan;
