@@ -125,10 +125,12 @@ mod tests {
         // R = 0.3 + 0.1 cos(2π d x) over an oxide-like x range: the peak is at d.
         let w: Vec<f64> = (0..1500).map(|i| 420.0 + i as f64 * 0.4).collect();
         let x = fringe_coordinate(&w, &vec![1.46; w.len()], &vec![1.0; w.len()]);
-        for d in [800.0, 2345.6, 9000.0] {
+        // Within 2 % at 1.6 fringes (near the resolution limit), 0.2 % with more fringes.
+        for (d, tol) in [(800.0, 0.02), (1500.0, 0.002), (2345.6, 0.002), (9000.0, 0.002)] {
             let r: Vec<f64> = x.iter().map(|x| 0.3 + 0.1 * (2.0 * std::f64::consts::PI * d * x).cos()).collect();
             let e = estimate(&x, &r, 100.0, 20000.0).unwrap();
-            assert!((e.thickness_nm - d).abs() < 0.002 * d, "{d}: {}", e.thickness_nm);
+            eprintln!("{d}: {}", e.thickness_nm);
+            assert!((e.thickness_nm - d).abs() < tol * d, "{d}: {}", e.thickness_nm);
             assert!(e.resolution_nm > 400.0 && e.resolution_nm < 600.0);
         }
     }
