@@ -49,7 +49,7 @@ const MIN_PIXELS: usize = 16;
 /// Grid points per fringe-order basin: the search step is λ_min/(STEPS_PER_WAVE · n).
 const STEPS_PER_WAVE: f64 = 10.0;
 /// Search pixels per fringe at the shortest wavelength and the thickest film.
-const SEARCH_PIXELS_PER_FRINGE: f64 = 8.0;
+const SEARCH_PIXELS_PER_FRINGE: f64 = 5.0;
 /// Fewer pixels per fringe than this and `auto` uses the Fourier method.
 const MODEL_MIN_PIXELS_PER_FRINGE: f64 = 3.0;
 

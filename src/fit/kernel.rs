@@ -130,7 +130,7 @@ impl Prepared {
                 let (rho, beta) = self.block(pixel, c);
                 let mut g = rho[self.layers];
                 for l in (1..=self.layers).rev() {
-                    let w = g * (I * beta[l - 1] * d[l - 1]).exp();
+                    let w = g * phase(beta[l - 1], d[l - 1]);
                     g = (rho[l - 1] + w) / (1.0 + rho[l - 1] * w);
                 }
                 self.channels[c] * g.norm_sqr()
@@ -140,18 +140,30 @@ impl Prepared {
 
     /// R at one pixel and dR/dd_l for every layer (written into `grad`, one per layer).
     pub fn reflectance_grad(&self, pixel: usize, d: &[f64], grad: &mut [f64]) -> f64 {
+        // Buffers sized to the stack: zeroing 16-entry arrays per pixel would cost as much
+        // as the arithmetic for the usual one to three layers.
+        if self.layers <= 4 {
+            self.grad_with::<4>(pixel, d, grad)
+        } else {
+            self.grad_with::<MAX_LAYERS>(pixel, d, grad)
+        }
+    }
+
+    fn grad_with<const M: usize>(&self, pixel: usize, d: &[f64], grad: &mut [f64]) -> f64 {
         let l_n = self.layers;
         grad.iter_mut().for_each(|g| *g = 0.0);
         let mut total = 0.0;
-        let mut w = [Complex64::new(0.0, 0.0); MAX_LAYERS];
-        let mut z = [Complex64::new(0.0, 0.0); MAX_LAYERS];
+        let mut w = [Complex64::new(0.0, 0.0); M];
+        let mut z = [Complex64::new(0.0, 0.0); M];
+        let mut inv_den = [Complex64::new(0.0, 0.0); M];
         for c in 0..self.channels.len() {
             let (rho, beta) = self.block(pixel, c);
             let mut g = rho[l_n];
             for l in (1..=l_n).rev() {
-                z[l - 1] = (I * beta[l - 1] * d[l - 1]).exp();
+                z[l - 1] = phase(beta[l - 1], d[l - 1]);
                 w[l - 1] = g * z[l - 1];
-                g = (rho[l - 1] + w[l - 1]) / (1.0 + rho[l - 1] * w[l - 1]);
+                inv_den[l - 1] = (1.0 + rho[l - 1] * w[l - 1]).inv();
+                g = (rho[l - 1] + w[l - 1]) * inv_den[l - 1];
             }
             let r = g;
             let weight = self.channels[c];
@@ -159,8 +171,8 @@ impl Prepared {
             // Top-down chain rule: dr/dd_l = P·g'_l·w_l·iβ_l, P = Π_{m<l} g'_m z_m.
             let mut p = Complex64::new(1.0, 0.0);
             for l in 1..=l_n {
-                let den = 1.0 + rho[l - 1] * w[l - 1];
-                let gprime = (1.0 - rho[l - 1] * rho[l - 1]) / (den * den);
+                let inv = inv_den[l - 1];
+                let gprime = (1.0 - rho[l - 1] * rho[l - 1]) * inv * inv;
                 let dr = p * gprime * w[l - 1] * I * beta[l - 1];
                 grad[l - 1] += weight * 2.0 * (r.conj() * dr).re;
                 p *= gprime * z[l - 1];
@@ -196,7 +208,7 @@ impl Prepared {
                 // Γ just below layer k (index k+1 in media numbering).
                 let mut g = rho[l_n];
                 for l in (k + 2..=l_n).rev() {
-                    let w = g * (I * beta[l - 1] * d[l - 1]).exp();
+                    let w = g * phase(beta[l - 1], d[l - 1]);
                     g = (rho[l - 1] + w) / (1.0 + rho[l - 1] * w);
                 }
                 // Möbius map [[a, b], [c, e]] of the interface above layer k and every layer
@@ -209,7 +221,7 @@ impl Prepared {
                 );
                 for l in (1..=k).rev() {
                     // Compose T_{l−1}(z_l · ·) ∘ current.
-                    let zl = (I * beta[l - 1] * d[l - 1]).exp();
+                    let zl = phase(beta[l - 1], d[l - 1]);
                     let (ra, rb, rc, re) = (zl, rho[l - 1], rho[l - 1] * zl, Complex64::new(1.0, 0.0));
                     let na = ra * a + rb * cc;
                     let nb = ra * b + rb * e;
@@ -220,13 +232,24 @@ impl Prepared {
                     cc = nc;
                     e = ne;
                 }
-                let mut wk = g * (I * beta[k] * d0).exp();
                 let rot = (I * beta[k] * step).exp();
                 let weight = self.channels[c];
-                for ai in acc.iter_mut() {
-                    let r = (a * wk + b) / (cc * wk + e);
-                    *ai += weight * r.norm_sqr();
-                    wk *= rot;
+                // Four interleaved phase chains, each advanced by rot⁴, so that successive
+                // candidates do not wait on one another's multiplication.
+                let w0 = g * (I * beta[k] * d0).exp();
+                let mut w4 = [w0, w0 * rot, w0 * rot * rot, w0 * rot * rot * rot];
+                let rot4 = (rot * rot) * (rot * rot);
+                // |r|² = |a w + b|²/|c w + e|²: one real division, no complex one.
+                let r2 = |w: Complex64| (a * w + b).norm_sqr() / (cc * w + e).norm_sqr();
+                let mut chunks = acc.chunks_exact_mut(4);
+                for chunk in &mut chunks {
+                    for (slot, w) in chunk.iter_mut().zip(w4.iter_mut()) {
+                        *slot += weight * r2(*w);
+                        *w *= rot4;
+                    }
+                }
+                for (slot, w) in chunks.into_remainder().iter_mut().zip(w4.iter()) {
+                    *slot += weight * r2(*w);
                 }
             }
             let m = measured[j];
@@ -238,6 +261,18 @@ impl Prepared {
                 srm[i] += r * m;
             }
         }
+    }
+}
+
+/// exp(iβd), with the real exponential skipped for a lossless layer (Im β = 0).
+#[inline]
+fn phase(beta: Complex64, d: f64) -> Complex64 {
+    let (sin, cos) = (beta.re * d).sin_cos();
+    if beta.im == 0.0 {
+        Complex64::new(cos, sin)
+    } else {
+        let a = (-beta.im * d).exp();
+        Complex64::new(a * cos, a * sin)
     }
 }
 
