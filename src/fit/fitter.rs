@@ -384,8 +384,13 @@ impl Fitter {
                 Ok((e.thickness_nm, e.sigma_nm, flags))
             }
             _ => {
-                // Smooth over about a tenth of the shortest fringe period of the thickest film.
-                let smooth = ((self.pixels_per_fringe(w) / 10.0).round() as usize).clamp(1, (w.len() / 20).max(1));
+                // Smooth over about an eighth of the shortest fringe period: of the film the
+                // Fourier transform sees, or else of the thickest film searched.
+                let ppf_max = self.pixels_per_fringe(w);
+                let ppf = fourier::estimate(&x, &w.reflectance, l.min, l.max)
+                    .map(|e| ppf_max * self.max_optical_thickness(w.wavelength_nm[0]) / (n[0] * e.thickness_nm))
+                    .unwrap_or(ppf_max);
+                let smooth = ((ppf / 8.0).round() as usize).clamp(1, (w.len() / 20).max(1));
                 let e = extrema::estimate(&w.wavelength_nm, &w.reflectance, &x, l.min, l.max, smooth)
                     .map_err(fail("extrema"))?;
                 Ok((e.thickness_nm, e.sigma_nm, Vec::new()))

@@ -4,7 +4,7 @@
 //! reflectometry). Quadratic detrend, Hann window, zero-padding, real FFT, and a Gaussian
 //! (log-parabolic) sub-bin interpolation of the peak.
 
-use crate::spectrum::quadratic_fit;
+use crate::spectrum::{noise_sigma, quadratic_fit};
 use realfft::RealFftPlanner;
 
 /// A Fourier thickness estimate.
@@ -103,10 +103,8 @@ pub fn estimate(x: &[f64], r: &[f64], min_nm: f64, max_nm: f64) -> Result<Estima
     let offset = if denom < 0.0 { (0.5 * (a - c) / denom).clamp(-0.5, 0.5) } else { 0.0 };
     let thickness_nm = (kp as f64 + offset) * bin_nm;
     // σ: CRLB for the frequency of a sinusoid in white noise, σ_f = √12 σ_n/(2π A √N Δx),
-    // with σ_n from second differences (var = 6σ² for white noise) and A = 2|X|/Σw.
-    let mut d2: Vec<f64> = r.windows(3).map(|w| (w[0] - 2.0 * w[1] + w[2]).abs()).collect();
-    d2.sort_by(f64::total_cmp);
-    let sigma_n = d2.get(d2.len() / 2).copied().unwrap_or(0.0) / 0.6745 / 6f64.sqrt();
+    // with A = 2|X|/Σw.
+    let sigma_n = noise_sigma(r);
     let amplitude = 2.0 * mag[kp] / wsum;
     let sigma_nm = 12f64.sqrt() * sigma_n / (2.0 * std::f64::consts::PI * amplitude.max(1e-12) * (n as f64).sqrt() * span);
     Ok(Estimate {
