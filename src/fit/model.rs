@@ -241,7 +241,7 @@ fn grid_search(setup: &Setup, pixels: &[usize]) -> Grid {
 }
 
 /// Candidates refined on the search pixels before the final polish.
-const CANDIDATES: usize = 4;
+const CANDIDATES: usize = 12;
 /// Δχ² (in units of the residual variance) below which a second minimum is "within noise":
 /// a 3σ likelihood-ratio distinction for one parameter (common practice).
 const AMBIGUITY_DCHI2: f64 = 9.0;
