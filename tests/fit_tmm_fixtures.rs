@@ -28,7 +28,11 @@ fn check_oxide(noisy: bool) {
         let want = truth["sio2"];
         let r = fitter.fit(&s);
         let got = r.layers[0].thickness_nm;
-        let tol = if noisy { (1.0f64).max(0.002 * want) } else { (0.5f64).max(0.0005 * want) };
+        let tol = if noisy {
+            (1.0f64).max(0.002 * want)
+        } else {
+            (0.5f64).max(0.0005 * want)
+        };
         eprintln!(
             "{name}: true {want} nm, fitted {got:.3} ± {:.3} nm, error {:+.3} nm (tol {tol}), gof {:.5}, {} {:?}",
             r.layers[0].sigma_nm,
@@ -73,7 +77,10 @@ method = "model""#,
         let r = fitter.fit(&s);
         for (l, key) in r.layers.iter().zip(["si3n4", "sio2"]) {
             let err = l.thickness_nm - truth[key];
-            eprintln!("{name}: {key} true {} fitted {:.3} ± {:.3} (error {err:+.3}) gof {:.5} {:?}", truth[key], l.thickness_nm, l.sigma_nm, r.gof, r.flags);
+            eprintln!(
+                "{name}: {key} true {} fitted {:.3} ± {:.3} (error {err:+.3}) gof {:.5} {:?}",
+                truth[key], l.thickness_nm, l.sigma_nm, r.gof, r.flags
+            );
             if !(err.abs() <= 2.0) {
                 failures.push(format!("{name} {key}: {err}"));
             }

@@ -3,8 +3,8 @@
 //! One [`Fitter`] is built per recipe and fits every spectrum of a map.
 
 pub mod extrema;
-pub mod fourier;
 mod fitter;
+pub mod fourier;
 pub mod kernel;
 pub mod lm;
 pub mod model;
@@ -27,5 +27,8 @@ pub enum FitError {
     #[error("recipe {}: {message}", recipe.display())]
     Recipe { recipe: PathBuf, message: String },
     #[error("{method} method: {message}")]
-    Method { method: &'static str, message: String },
+    Method {
+        method: &'static str,
+        message: String,
+    },
 }

@@ -7,12 +7,29 @@ use std::fmt::Write;
 
 /// Draws measured (points) and modelled (line) reflectance over wavelength, with the fitted
 /// thicknesses, gof and flags in the title.
-pub fn svg(wavelength_nm: &[f64], measured: &[f64], modelled: &[f64], result: &FitResult) -> String {
+pub fn svg(
+    wavelength_nm: &[f64],
+    measured: &[f64],
+    modelled: &[f64],
+    result: &FitResult,
+) -> String {
     let (w, h) = (800.0, 480.0);
     let (left, right, top, bottom) = (70.0, 20.0, 50.0, 50.0);
-    let finite = |v: &[f64]| v.iter().copied().filter(|x| x.is_finite()).collect::<Vec<_>>();
-    let all: Vec<f64> = finite(measured).into_iter().chain(finite(modelled)).collect();
-    let (mut lo, mut hi) = all.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| (a.min(*v), b.max(*v)));
+    let finite = |v: &[f64]| {
+        v.iter()
+            .copied()
+            .filter(|x| x.is_finite())
+            .collect::<Vec<_>>()
+    };
+    let all: Vec<f64> = finite(measured)
+        .into_iter()
+        .chain(finite(modelled))
+        .collect();
+    let (mut lo, mut hi) = all
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
+            (a.min(*v), b.max(*v))
+        });
     if !(lo.is_finite() && hi > lo) {
         lo = 0.0;
         hi = 1.0;
@@ -21,7 +38,11 @@ pub fn svg(wavelength_nm: &[f64], measured: &[f64], modelled: &[f64], result: &F
     let (lo, hi) = ((lo - pad).max(-0.05), hi + pad);
     let (x0, x1) = (
         wavelength_nm.first().copied().unwrap_or(0.0),
-        wavelength_nm.last().copied().unwrap_or(1.0).max(wavelength_nm.first().copied().unwrap_or(0.0) + 1.0),
+        wavelength_nm
+            .last()
+            .copied()
+            .unwrap_or(1.0)
+            .max(wavelength_nm.first().copied().unwrap_or(0.0) + 1.0),
     );
     let px = |x: f64| left + (x - x0) / (x1 - x0) * (w - left - right);
     let py = |y: f64| top + (hi - y) / (hi - lo) * (h - top - bottom);
@@ -38,9 +59,18 @@ pub fn svg(wavelength_nm: &[f64], measured: &[f64], modelled: &[f64], result: &F
     let layers: Vec<String> = result
         .layers
         .iter()
-        .map(|l| format!("{} {:.2} ± {:.2} nm", l.material, l.thickness_nm, l.sigma_nm))
+        .map(|l| {
+            format!(
+                "{} {:.2} ± {:.2} nm",
+                l.material, l.thickness_nm, l.sigma_nm
+            )
+        })
         .collect();
-    let flags = if result.flags.is_empty() { String::new() } else { format!(" [{}]", result.flags.join(", ")) };
+    let flags = if result.flags.is_empty() {
+        String::new()
+    } else {
+        format!(" [{}]", result.flags.join(", "))
+    };
     let _ = writeln!(
         s,
         r#"<text x="{left}" y="22" font-size="14">{}</text><text x="{left}" y="40">method {}, gof {:.4}{}</text>"#,
@@ -70,17 +100,28 @@ pub fn svg(wavelength_nm: &[f64], measured: &[f64], modelled: &[f64], result: &F
         h / 2.0
     );
     let mut dots = String::new();
-    for (x, y) in wavelength_nm.iter().zip(measured).filter(|(_, y)| y.is_finite()) {
+    for (x, y) in wavelength_nm
+        .iter()
+        .zip(measured)
+        .filter(|(_, y)| y.is_finite())
+    {
         let _ = write!(dots, "M{:.1},{:.1}h0.1", px(*x), py(*y));
     }
-    let _ = writeln!(s, r##"<path d="{dots}" stroke="#1f77b4" stroke-width="2.5" stroke-linecap="round" fill="none"/>"##);
+    let _ = writeln!(
+        s,
+        r##"<path d="{dots}" stroke="#1f77b4" stroke-width="2.5" stroke-linecap="round" fill="none"/>"##
+    );
     let line: Vec<String> = wavelength_nm
         .iter()
         .zip(modelled)
         .filter(|(_, y)| y.is_finite())
         .map(|(x, y)| format!("{:.1},{:.1}", px(*x), py(*y)))
         .collect();
-    let _ = writeln!(s, r##"<polyline points="{}" stroke="#d62728" stroke-width="1.2" fill="none"/>"##, line.join(" "));
+    let _ = writeln!(
+        s,
+        r##"<polyline points="{}" stroke="#d62728" stroke-width="1.2" fill="none"/>"##,
+        line.join(" ")
+    );
     let _ = writeln!(
         s,
         r##"<text x="{}" y="{}" fill="#1f77b4" text-anchor="end">● measured</text><text x="{}" y="{}" fill="#d62728" text-anchor="end">— model</text>"##,

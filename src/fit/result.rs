@@ -32,7 +32,10 @@ impl FitResult {
     pub fn is_valid(&self, min_gof: f64) -> bool {
         self.gof >= min_gof
             && self.layers.iter().all(|l| l.thickness_nm.is_finite())
-            && !self.flags.iter().any(|f| INVALIDATING.contains(&f.as_str()))
+            && !self
+                .flags
+                .iter()
+                .any(|f| INVALIDATING.contains(&f.as_str()))
     }
 
     /// Whether a flag is set.

@@ -22,9 +22,14 @@ pub fn recipe(film: &str) -> LoadedRecipe {
 
 /// A fixture spectrum and its `# truth: name = value` header lines.
 pub fn fixture(name: &str) -> (Spectrum, BTreeMap<String, f64>) {
-    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("fixtures/spectra").join(name);
+    let path = Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("fixtures/spectra")
+        .join(name);
     let text = std::fs::read_to_string(&path).unwrap_or_else(|e| panic!("{}: {e}", path.display()));
-    assert!(text.contains("with tmm "), "fixture header names the reference package");
+    assert!(
+        text.contains("with tmm "),
+        "fixture header names the reference package"
+    );
     let truth = text
         .lines()
         .filter_map(|l| l.strip_prefix("# truth: "))
