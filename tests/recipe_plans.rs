@@ -54,7 +54,10 @@ fn grid_count_150_mm_10_mm_pitch_3_mm_exclusion() {
             }
         }
     }
-    let grid = PatternSpec::Grid { pitch_mm: 10.0, offset_mm: [0.0, 0.0] };
+    let grid = PatternSpec::Grid {
+        pitch_mm: 10.0,
+        offset_mm: [0.0, 0.0],
+    };
     let none = pattern::sites(&grid, &wafer(150.0, 3.0, OrientationKind::None, 270.0));
     assert_eq!(none.len(), disc);
     let flat = pattern::sites(&grid, &wafer(150.0, 3.0, OrientationKind::Flat, 270.0));
@@ -65,32 +68,48 @@ fn grid_count_150_mm_10_mm_pitch_3_mm_exclusion() {
 
 fn wafer_strategy() -> impl Strategy<Value = Wafer> {
     (25.0f64..450.0, 0.0f64..0.3, 0usize..3, 0.0f64..360.0).prop_map(|(d, ef, o, a)| {
-        let o = [OrientationKind::Flat, OrientationKind::Notch, OrientationKind::None][o];
+        let o = [
+            OrientationKind::Flat,
+            OrientationKind::Notch,
+            OrientationKind::None,
+        ][o];
         wafer(d, ef * d / 2.0, o, a)
     })
 }
 
 fn pattern_strategy() -> impl Strategy<Value = PatternSpec> {
     prop_oneof![
-        (any::<bool>(), prop::collection::vec(1u32..40, 1..5), 0.0f64..360.0, any::<bool>()).prop_map(
-            |(center, rings, start_angle_deg, stagger)| PatternSpec::Polar {
-                center,
-                rings,
-                radii_mm: None,
-                start_angle_deg,
-                stagger
-            }
-        ),
-        (0.05f64..0.5, -1.0f64..1.0, -1.0f64..1.0)
-            .prop_map(|(p, ox, oy)| PatternSpec::Grid { pitch_mm: p, offset_mm: [ox, oy] }),
-        prop::sample::select(pattern::STANDARD_COUNTS.to_vec()).prop_map(|sites| PatternSpec::Standard { sites }),
+        (
+            any::<bool>(),
+            prop::collection::vec(1u32..40, 1..5),
+            0.0f64..360.0,
+            any::<bool>()
+        )
+            .prop_map(
+                |(center, rings, start_angle_deg, stagger)| PatternSpec::Polar {
+                    center,
+                    rings,
+                    radii_mm: None,
+                    start_angle_deg,
+                    stagger
+                }
+            ),
+        (0.05f64..0.5, -1.0f64..1.0, -1.0f64..1.0).prop_map(|(p, ox, oy)| PatternSpec::Grid {
+            pitch_mm: p,
+            offset_mm: [ox, oy]
+        }),
+        prop::sample::select(pattern::STANDARD_COUNTS.to_vec())
+            .prop_map(|sites| PatternSpec::Standard { sites }),
     ]
 }
 
 /// Scales a pitch given as a fraction of the radius into mm.
 fn scaled(p: &PatternSpec, w: &Wafer) -> PatternSpec {
     match p {
-        PatternSpec::Grid { pitch_mm, offset_mm } => PatternSpec::Grid {
+        PatternSpec::Grid {
+            pitch_mm,
+            offset_mm,
+        } => PatternSpec::Grid {
             pitch_mm: pitch_mm * w.radius(),
             offset_mm: [offset_mm[0] * 5.0, offset_mm[1] * 5.0],
         },

@@ -61,7 +61,11 @@ fn diameter_outside_limits() {
 fn edge_exclusion_not_smaller_than_radius() {
     let p = one("edge_exclusion_mm", "edge_exclusion_mm = 75");
     assert_eq!((p.line, p.col), (4, 21));
-    assert!(p.message.contains("smaller than the radius 75 mm"), "{}", p.message);
+    assert!(
+        p.message.contains("smaller than the radius 75 mm"),
+        "{}",
+        p.message
+    );
 }
 
 #[test]
@@ -76,7 +80,10 @@ fn empty_rings_and_zero_site_rings() {
 
 #[test]
 fn grid_pitch_zero_or_too_large() {
-    let text = BASE.replace("kind = \"polar\"\nrings = [8, 16]", "kind = \"grid\"\npitch_mm = 0");
+    let text = BASE.replace(
+        "kind = \"polar\"\nrings = [8, 16]",
+        "kind = \"grid\"\npitch_mm = 0",
+    );
     let p = problems(&text);
     assert_eq!(p.len(), 1);
     assert_eq!(p[0].line, 8);
@@ -89,7 +96,11 @@ fn grid_pitch_zero_or_too_large() {
     );
     let p = problems(&text);
     assert_eq!(p.len(), 1, "{p:#?}");
-    assert!(p[0].message.contains("puts no site inside"), "{}", p[0].message);
+    assert!(
+        p[0].message.contains("puts no site inside"),
+        "{}",
+        p[0].message
+    );
 }
 
 #[test]
@@ -102,16 +113,29 @@ fn custom_site_outside_names_site_and_distance() {
     assert_eq!(p.len(), 1, "{p:#?}");
     assert_eq!(p[0].line, 10);
     // Usable radius 75 − 3 = 72 mm, so (74, 0) is 2 mm out.
-    assert!(p[0].message.contains("site 2 at (74, 0) mm lies 2.00 mm outside"), "{}", p[0].message);
+    assert!(
+        p[0].message
+            .contains("site 2 at (74, 0) mm lies 2.00 mm outside"),
+        "{}",
+        p[0].message
+    );
 }
 
 #[test]
 fn custom_site_behind_the_flat() {
     // 150 mm flat at 270°: chord at y = −69.27 mm, usable up to y = −66.27 mm.
-    let text = BASE.replace("kind = \"polar\"\nrings = [8, 16]", "kind = \"custom\"\nsites_mm = [[0, -68]]");
+    let text = BASE.replace(
+        "kind = \"polar\"\nrings = [8, 16]",
+        "kind = \"custom\"\nsites_mm = [[0, -68]]",
+    );
     let p = problems(&text);
     assert_eq!(p.len(), 1, "{p:#?}");
-    assert!(p[0].message.contains("site 1 at (0, -68) mm lies 1.73 mm outside"), "{}", p[0].message);
+    assert!(
+        p[0].message
+            .contains("site 1 at (0, -68) mm lies 1.73 mm outside"),
+        "{}",
+        p[0].message
+    );
 }
 
 #[test]
@@ -125,20 +149,47 @@ fn wavelength_window_reversed_or_outside() {
 
 #[test]
 fn layer_bounds() {
-    let p = one("layers", r#"layers = [ { material = "sio2", nominal_nm = 1000, min_nm = 3000, max_nm = 100 } ]"#);
+    let p = one(
+        "layers",
+        r#"layers = [ { material = "sio2", nominal_nm = 1000, min_nm = 3000, max_nm = 100 } ]"#,
+    );
     assert_eq!(p.line, line_of("layers"));
-    assert!(p.message.contains("min_nm 3000 must be smaller than max_nm 100"), "{}", p.message);
-    let p = one("layers", r#"layers = [ { material = "sio2", nominal_nm = 5000, min_nm = 100, max_nm = 3000 } ]"#);
-    assert!(p.message.contains("nominal_nm 5000 is outside"), "{}", p.message);
+    assert!(
+        p.message
+            .contains("min_nm 3000 must be smaller than max_nm 100"),
+        "{}",
+        p.message
+    );
+    let p = one(
+        "layers",
+        r#"layers = [ { material = "sio2", nominal_nm = 5000, min_nm = 100, max_nm = 3000 } ]"#,
+    );
+    assert!(
+        p.message.contains("nominal_nm 5000 is outside"),
+        "{}",
+        p.message
+    );
 }
 
 #[test]
 fn unknown_material_suggests_nearest() {
-    let p = one("layers", r#"layers = [ { material = "si02", nominal_nm = 1000, min_nm = 100, max_nm = 3000 } ]"#);
+    let p = one(
+        "layers",
+        r#"layers = [ { material = "si02", nominal_nm = 1000, min_nm = 100, max_nm = 3000 } ]"#,
+    );
     assert_eq!((p.line, p.col), (12, 25));
-    assert!(p.message.contains("unknown material \"si02\"; did you mean \"sio2\"?"), "{}", p.message);
+    assert!(
+        p.message
+            .contains("unknown material \"si02\"; did you mean \"sio2\"?"),
+        "{}",
+        p.message
+    );
     let p = one("substrate", r#"substrate = "silicon""#);
-    assert!(p.message.contains("unknown material \"silicon\""), "{}", p.message);
+    assert!(
+        p.message.contains("unknown material \"silicon\""),
+        "{}",
+        p.message
+    );
 }
 
 fn with_material(block: &str) -> Vec<Located> {
@@ -152,7 +203,11 @@ fn sellmeier_pole_inside_window() {
     let p = with_material("[materials.m]\nmodel = \"sellmeier\"\nb = [1.0]\nc = [0.36]\n");
     assert_eq!(p.len(), 1, "{p:#?}");
     assert_eq!(p[0].line, 17);
-    assert!(p[0].message.contains("pole at 600.0 nm"), "{}", p[0].message);
+    assert!(
+        p[0].message.contains("pole at 600.0 nm"),
+        "{}",
+        p[0].message
+    );
 }
 
 #[test]
@@ -164,7 +219,11 @@ fn cauchy_n_below_one_and_negative_k() {
     let p = with_material("[materials.m]\nmodel = \"constant\"\nn = 1.5\nk = -0.1\n");
     assert_eq!(p.len(), 1, "{p:#?}");
     assert_eq!(p[0].line, 17);
-    assert!(p[0].message.contains("k = -0.1 is negative"), "{}", p[0].message);
+    assert!(
+        p[0].message.contains("k = -0.1 is negative"),
+        "{}",
+        p[0].message
+    );
 }
 
 #[test]
@@ -181,10 +240,17 @@ fn all_errors_reported_at_once() {
 
 #[test]
 fn unknown_keys_and_syntax_errors_have_positions() {
-    let p = problems(&BASE.replace("edge_exclusion_mm = 3", "edge_exclusion_mm = 3\nedge_excl = 4"));
+    let p = problems(&BASE.replace(
+        "edge_exclusion_mm = 3",
+        "edge_exclusion_mm = 3\nedge_excl = 4",
+    ));
     assert_eq!(p.len(), 1);
     assert_eq!(p[0].line, 5);
-    assert!(p[0].message.contains("unknown field `edge_excl`"), "{}", p[0].message);
+    assert!(
+        p[0].message.contains("unknown field `edge_excl`"),
+        "{}",
+        p[0].message
+    );
     let p = problems(&BASE.replace("diameter_mm = 150", "diameter_mm = = 150"));
     assert_eq!(p[0].line, 3);
     let shown = p[0].to_string();

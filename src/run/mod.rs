@@ -2,3 +2,6 @@
 
 pub mod files;
 pub mod folder;
+pub mod id;
+pub mod journal;
+pub mod plan;
