@@ -1,5 +1,6 @@
 //! Map runs: plan, sequencer, journal, run folder, history.
 
+pub mod events;
 pub mod files;
 pub mod folder;
 pub mod id;
