@@ -137,23 +137,21 @@ fn pull_inside(points: Vec<(f64, f64)>, wafer: &Wafer) -> Vec<(f64, f64)> {
             if wafer.is_usable(x, y) {
                 return (x, y);
             }
+            // Aim 0.1 µm (1e-4 mm) inside the boundary so rounding the coordinates cannot push it out.
+            let inside =
+                |t: f64| wafer.edge_distance(x * t, y * t) >= wafer.edge_exclusion_mm + 1e-4;
             let (mut lo, mut hi) = (0.0, 1.0);
             for _ in 0..60 {
                 let mid = 0.5 * (lo + hi);
-                if wafer.is_usable(x * mid, y * mid) {
+                if inside(mid) {
                     lo = mid;
                 } else {
                     hi = mid;
                 }
             }
-            (clean_down(x * lo), clean_down(y * lo))
+            (clean(x * lo), clean(y * lo))
         })
         .collect()
-}
-
-/// Like [`clean`], but rounding towards zero so a point on a boundary stays inside it.
-fn clean_down(v: f64) -> f64 {
-    (v * 1e9).trunc() / 1e9
 }
 
 /// Rounds away floating-point dust so that printed coordinates read as the user expects.
@@ -241,7 +239,7 @@ mod tests {
             .find(|p| p.x_mm.abs() < 1e-9 && p.y_mm < -60.0)
             .unwrap();
         let limit = w.flat_distance().unwrap() - 5.0;
-        assert!((bottom.y_mm + limit).abs() < 1e-6, "{bottom:?}");
+        assert!((bottom.y_mm + limit).abs() < 1e-3, "{bottom:?}");
         // Sites away from the flat keep their radius.
         assert!(s
             .iter()
