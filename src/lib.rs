@@ -10,6 +10,7 @@
 #![allow(clippy::neg_cmp_op_on_partial_ord)]
 
 pub mod bench;
+pub mod compare;
 pub mod fit;
 pub mod history;
 pub mod map;

@@ -4,7 +4,10 @@ use isopach::optics::{amplitude, reflectance, transmittance, Material, Polarisat
 use proptest::prelude::*;
 
 fn lossless_stack(ns: &[f64], ds: &[f64], n_sub: f64) -> Stack {
-    let mut s = Stack::bare(Material::constant("air", 1.0, 0.0), Material::constant("sub", n_sub, 0.0));
+    let mut s = Stack::bare(
+        Material::constant("air", 1.0, 0.0),
+        Material::constant("sub", n_sub, 0.0),
+    );
     for (i, (n, d)) in ns.iter().zip(ds).enumerate() {
         s = s.with_layer(Material::constant(format!("l{i}"), *n, 0.0), *d);
     }
@@ -57,8 +60,11 @@ proptest! {
 
 #[test]
 fn small_cone_tends_to_collimated() {
-    let s = Stack::bare(Material::constant("air", 1.0, 0.0), Material::constant("si", 3.8, 0.02))
-        .with_layer(Material::constant("ox", 1.46, 0.0), 2000.0);
+    let s = Stack::bare(
+        Material::constant("air", 1.0, 0.0),
+        Material::constant("si", 3.8, 0.02),
+    )
+    .with_layer(Material::constant("ox", 1.46, 0.0), 2000.0);
     let w = [500.0, 600.0, 700.0];
     let r0 = reflectance(&s, &w, 0.0, 0.0);
     let r1 = reflectance(&s, &w, 0.0, 1e-4);
@@ -67,7 +73,9 @@ fn small_cone_tends_to_collimated() {
         assert!((r0[i] - r1[i]).abs() < 1e-7);
     }
     // a wide cone washes out the fringes of a thick film: the spread of R shrinks
-    let spread = |r: &[f64]| r.iter().cloned().fold(f64::MIN, f64::max) - r.iter().cloned().fold(f64::MAX, f64::min);
+    let spread = |r: &[f64]| {
+        r.iter().cloned().fold(f64::MIN, f64::max) - r.iter().cloned().fold(f64::MAX, f64::min)
+    };
     let w: Vec<f64> = (0..200).map(|i| 500.0 + i as f64).collect();
     assert!(spread(&reflectance(&s, &w, 0.0, 0.6)) < spread(&reflectance(&s, &w, 0.0, 0.0)));
 }

@@ -42,7 +42,9 @@ fn check(text: &str) {
             let r_ref = vec![0.35; raw.sample.counts.len()];
             let _ = normalise_raw(&raw, &r_ref);
         }
-        Err(SpectrumError::Line { line, .. }) => assert!(line >= 1 && line <= text.lines().count().max(1)),
+        Err(SpectrumError::Line { line, .. }) => {
+            assert!(line >= 1 && line <= text.lines().count().max(1))
+        }
         Err(e) => panic!("unexpected error kind {e}"),
     }
 }

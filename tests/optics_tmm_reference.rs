@@ -2,7 +2,9 @@
 //! written by scripts/make_tmm_fixtures.py with the PyPI `tmm` package (version in the
 //! file header) from the same published n,k. Target: agreement to 1e-6.
 
-use isopach::optics::{reflectance, reflectance_p, reflectance_s, Material, MaterialLibrary, Stack};
+use isopach::optics::{
+    reflectance, reflectance_p, reflectance_s, Material, MaterialLibrary, Stack,
+};
 use std::collections::BTreeMap;
 
 fn stack_for(case: &str, lib: &MaterialLibrary) -> Stack {
@@ -13,7 +15,9 @@ fn stack_for(case: &str, lib: &MaterialLibrary) -> Stack {
         "sio2_100" => bare.with_layer(m("sio2"), 100.0),
         "sio2_1000" => bare.with_layer(m("sio2"), 1000.0),
         "sio2_12000" => bare.with_layer(m("sio2"), 12000.0),
-        "si3n4_150_sio2_500" => bare.with_layer(m("si3n4"), 150.0).with_layer(m("sio2"), 500.0),
+        "si3n4_150_sio2_500" => bare
+            .with_layer(m("si3n4"), 150.0)
+            .with_layer(m("sio2"), 500.0),
         "si_40_sio2_300" => bare.with_layer(m("si"), 40.0).with_layer(m("sio2"), 300.0),
         other => panic!("fixture case {other} unknown to this test"),
     }
@@ -48,7 +52,10 @@ fn reflectance_agrees_with_tmm_to_1e6() {
         for ((lam, r_ref), r) in rows.iter().zip(&ours) {
             let err = (r - r_ref).abs();
             worst = worst.max(err);
-            assert!(err < 1e-6, "{case} {mode} at {lam} nm: isopach {r}, tmm {r_ref}");
+            assert!(
+                err < 1e-6,
+                "{case} {mode} at {lam} nm: isopach {r}, tmm {r_ref}"
+            );
         }
     }
     eprintln!("worst |ΔR| vs tmm: {worst:.2e}");

@@ -17,10 +17,12 @@ pub const RESIST_CAUCHY: [f64; 3] = [1.62, 0.010, 0.0];
 pub fn all() -> Vec<Material> {
     vec![
         // Air taken as n = 1 (n − 1 ≈ 2.8e-4 at 589 nm, common practice to neglect).
-        Material::constant("air", 1.0, 0.0).with_source("n = 1 (vacuum; air's n − 1 ≈ 3e-4 neglected)"),
+        Material::constant("air", 1.0, 0.0)
+            .with_source("n = 1 (vacuum; air's n − 1 ≈ 3e-4 neglected)"),
         si(),
-        rii_formula1("sio2", MALITSON_SIO2)
-            .with_source("I. H. Malitson, J. Opt. Soc. Am. 55, 1205 (1965), fused silica Sellmeier"),
+        rii_formula1("sio2", MALITSON_SIO2).with_source(
+            "I. H. Malitson, J. Opt. Soc. Am. 55, 1205 (1965), fused silica Sellmeier",
+        ),
         rii_formula1("si3n4", LUKE_SI3N4)
             .with_source("K. Luke et al., Opt. Lett. 40, 4823 (2015), LPCVD Si3N4 Sellmeier"),
         Material::new(
@@ -33,7 +35,9 @@ pub fn all() -> Vec<Material> {
             },
         )
         .with_range_nm(450.0, 1000.0)
-        .with_source("generic Cauchy resist, approximate: fit real films with their own coefficients"),
+        .with_source(
+            "generic Cauchy resist, approximate: fit real films with their own coefficients",
+        ),
     ]
 }
 
@@ -51,7 +55,11 @@ fn rii_formula1(name: &str, text: &str) -> Material {
     let field = |key: &str| -> Vec<f64> {
         text.lines()
             .find_map(|l| l.trim().strip_prefix(key))
-            .map(|v| v.split_whitespace().filter_map(|c| c.parse().ok()).collect())
+            .map(|v| {
+                v.split_whitespace()
+                    .filter_map(|c| c.parse().ok())
+                    .collect()
+            })
             .unwrap_or_default()
     };
     let coeff = field("coefficients:");
@@ -91,10 +99,17 @@ mod tests {
     fn green_2008_rows() {
         // Rows of M. A. Green (2008), Table 1 as in data/optical/Si_nk_Green-2008.yml.
         let si = get("si");
-        for (w, n, k) in [(400.0, 5.613, 0.296), (500.0, 4.294, 4.4165e-2), (800.0, 3.675, 5.4113e-3), (1000.0, 3.572, 5.093e-4)]
-        {
+        for (w, n, k) in [
+            (400.0, 5.613, 0.296),
+            (500.0, 4.294, 4.4165e-2),
+            (800.0, 3.675, 5.4113e-3),
+            (1000.0, 3.572, 5.093e-4),
+        ] {
             let v = si.index(w);
-            assert!((v.re - n).abs() < 1e-12 && (v.im - k).abs() < 1e-12, "{w}: {v}");
+            assert!(
+                (v.re - n).abs() < 1e-12 && (v.im - k).abs() < 1e-12,
+                "{w}: {v}"
+            );
         }
         assert_eq!(si.range_nm(), Some((250.0, 1450.0)));
     }
@@ -108,8 +123,13 @@ mod tests {
         // Luke (2015) formula evaluated by hand at 1550 nm:
         // n² = 1 + 3.0249·2.4025/(2.4025 − 0.018317) + 40314·2.4025/(2.4025 − 1537208) → n ≈ 1.9963.
         let l2: f64 = 1.55 * 1.55;
-        let n2 = 1.0 + 3.0249 * l2 / (l2 - 0.1353406f64.powi(2)) + 40314.0 * l2 / (l2 - 1239.842f64.powi(2));
+        let n2 = 1.0
+            + 3.0249 * l2 / (l2 - 0.1353406f64.powi(2))
+            + 40314.0 * l2 / (l2 - 1239.842f64.powi(2));
         let n = get("si3n4").index(1550.0).re;
-        assert!((n - n2.sqrt()).abs() < 1e-12 && (n - 1.9963).abs() < 5e-4, "{n}");
+        assert!(
+            (n - n2.sqrt()).abs() < 1e-12 && (n - 1.9963).abs() < 5e-4,
+            "{n}"
+        );
     }
 }

@@ -51,7 +51,12 @@ impl MaterialLibrary {
     pub fn require(&self, name: &str) -> Result<&Material, OpticsError> {
         self.get(name).ok_or_else(|| OpticsError::UnknownMaterial {
             name: name.to_string(),
-            known: self.materials.keys().cloned().collect::<Vec<_>>().join(", "),
+            known: self
+                .materials
+                .keys()
+                .cloned()
+                .collect::<Vec<_>>()
+                .join(", "),
         })
     }
 
@@ -62,7 +67,11 @@ impl MaterialLibrary {
 }
 
 /// A material from its recipe description.
-pub fn from_spec(name: &str, spec: &MaterialSpec, recipe_dir: &Path) -> Result<Material, OpticsError> {
+pub fn from_spec(
+    name: &str,
+    spec: &MaterialSpec,
+    recipe_dir: &Path,
+) -> Result<Material, OpticsError> {
     let dispersion = match spec {
         MaterialSpec::Cauchy { a, b, c, k } => Dispersion::Cauchy {
             a: *a,
@@ -74,7 +83,11 @@ pub fn from_spec(name: &str, spec: &MaterialSpec, recipe_dir: &Path) -> Result<M
             if b.len() != c.len() || b.is_empty() {
                 return Err(OpticsError::BadModel {
                     name: name.to_string(),
-                    message: format!("{} b terms and {} c terms; give one c per b", b.len(), c.len()),
+                    message: format!(
+                        "{} b terms and {} c terms; give one c per b",
+                        b.len(),
+                        c.len()
+                    ),
                 });
             }
             Dispersion::Sellmeier {

@@ -140,6 +140,8 @@ mod tests {
         assert!(m.range_warning(420.0, 880.0).is_none());
         let w = m.range_warning(380.0, 880.0).unwrap();
         assert!(w.contains("400–900"), "{w}");
-        assert!(Material::constant("y", 1.0, 0.0).range_warning(1.0, 1e5).is_none());
+        assert!(Material::constant("y", 1.0, 0.0)
+            .range_warning(1.0, 1e5)
+            .is_none());
     }
 }

@@ -16,8 +16,8 @@ pub use material::{Dispersion, Material};
 pub use stack::{Layer, Stack};
 pub use table::NkTable;
 pub use tmm::{
-    amplitude, cone_samples, reflectance, reflectance_p, reflectance_s, transmittance,
-    AngleSample, Polarisation,
+    amplitude, cone_samples, reflectance, reflectance_p, reflectance_s, transmittance, AngleSample,
+    Polarisation,
 };
 
 use std::path::PathBuf;

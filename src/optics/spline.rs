@@ -58,7 +58,11 @@ impl NaturalSpline {
             return self.y[n - 1];
         }
         // Index of the interval [x[i], x[i+1]] holding x.
-        let i = self.x.partition_point(|k| *k <= x).saturating_sub(1).min(n - 2);
+        let i = self
+            .x
+            .partition_point(|k| *k <= x)
+            .saturating_sub(1)
+            .min(n - 2);
         let h = self.x[i + 1] - self.x[i];
         let a = (self.x[i + 1] - x) / h;
         let b = (x - self.x[i]) / h;

@@ -28,16 +28,16 @@ impl NkTable {
         if rows.len() < 2 {
             return Err(bad(
                 lines.last().copied().unwrap_or(1),
-                format!(
-                    "an n,k table needs at least 2 rows, found {}",
-                    rows.len()
-                ),
+                format!("an n,k table needs at least 2 rows, found {}", rows.len()),
             ));
         }
         for (i, (w, n, k)) in rows.iter().enumerate() {
             let line = lines[i];
             if !(w.is_finite() && *w > 0.0) {
-                return Err(bad(line, format!("wavelength {w} nm must be a positive number")));
+                return Err(bad(
+                    line,
+                    format!("wavelength {w} nm must be a positive number"),
+                ));
             }
             if !(n.is_finite() && *n > 0.0) {
                 return Err(bad(line, format!("n = {n} must be a positive number")));
@@ -102,17 +102,17 @@ impl NkTable {
             let mut v = [0.0; 3];
             for (j, c) in cells.iter().enumerate() {
                 v[j] = c.parse().map_err(|_| {
-                    bad(
-                        line,
-                        format!("\"{c}\" in column {} is not a number", j + 1),
-                    )
+                    bad(line, format!("\"{c}\" in column {} is not a number", j + 1))
                 })?;
             }
             rows.push((v[0], v[1], v[2]));
             lines.push(line);
         }
         if !header_seen {
-            return Err(bad(1, "the file is empty: expected the header wavelength_nm,n,k".into()));
+            return Err(bad(
+                1,
+                "the file is empty: expected the header wavelength_nm,n,k".into(),
+            ));
         }
         NkTable::from_rows(&rows, &lines, source)
     }
@@ -133,7 +133,10 @@ impl NkTable {
 
     /// Interpolated (n, k) at `wavelength_nm`; end values are held outside the table.
     pub fn nk(&self, wavelength_nm: f64) -> (f64, f64) {
-        (self.n.eval(wavelength_nm), self.k.eval(wavelength_nm).max(0.0))
+        (
+            self.n.eval(wavelength_nm),
+            self.k.eval(wavelength_nm).max(0.0),
+        )
     }
 }
 
@@ -150,7 +153,10 @@ pub fn parse_rii_tabulated(text: &str) -> (Vec<(f64, f64, f64)>, Vec<usize>) {
             continue;
         }
         if in_data {
-            let v: Vec<f64> = t.split_whitespace().filter_map(|c| c.parse().ok()).collect();
+            let v: Vec<f64> = t
+                .split_whitespace()
+                .filter_map(|c| c.parse().ok())
+                .collect();
             if v.len() == 3 {
                 rows.push((v[0] * 1000.0, v[1], v[2]));
                 lines.push(i + 1);
@@ -185,17 +191,24 @@ mod tests {
     #[test]
     fn errors_name_the_line() {
         let text = "wavelength_nm,n,k\n400,1.5,0\n400,1.5,0\n";
-        let e = NkTable::parse_csv(text, Path::new("f.csv")).unwrap_err().to_string();
+        let e = NkTable::parse_csv(text, Path::new("f.csv"))
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("f.csv:3"), "{e}");
         let e = NkTable::parse_csv("wavelength_nm,n,k\n400,x,0\n500,1,0\n", Path::new("f.csv"))
             .unwrap_err()
             .to_string();
         assert!(e.contains("f.csv:2") && e.contains("\"x\""), "{e}");
-        let e = NkTable::parse_csv("lambda,n\n", Path::new("f.csv")).unwrap_err().to_string();
-        assert!(e.contains("header"), "{e}");
-        let e = NkTable::parse_csv("wavelength_nm,n,k\n400,1.5,-0.1\n500,1,0\n", Path::new("f.csv"))
+        let e = NkTable::parse_csv("lambda,n\n", Path::new("f.csv"))
             .unwrap_err()
             .to_string();
+        assert!(e.contains("header"), "{e}");
+        let e = NkTable::parse_csv(
+            "wavelength_nm,n,k\n400,1.5,-0.1\n500,1,0\n",
+            Path::new("f.csv"),
+        )
+        .unwrap_err()
+        .to_string();
         assert!(e.contains("k = -0.1"), "{e}");
     }
 }

@@ -100,7 +100,12 @@ fn product(stack: &Stack, wavelength_nm: f64, theta0_rad: f64, pol: Polarisation
 }
 
 /// Complex amplitude reflection coefficient at one wavelength and angle of incidence (rad).
-pub fn amplitude(stack: &Stack, wavelength_nm: f64, theta0_rad: f64, pol: Polarisation) -> Complex64 {
+pub fn amplitude(
+    stack: &Stack,
+    wavelength_nm: f64,
+    theta0_rad: f64,
+    pol: Polarisation,
+) -> Complex64 {
     let p = product(stack, wavelength_nm, theta0_rad, pol);
     (p.eta0 * p.b - p.c) / (p.eta0 * p.b + p.c)
 }
@@ -112,7 +117,12 @@ pub fn transmittance(stack: &Stack, wavelength_nm: f64, theta0_rad: f64, pol: Po
     4.0 * p.eta0.re * p.eta_sub.re / d.norm_sqr() * p.log_scale2.exp()
 }
 
-fn polarised(stack: &Stack, wavelengths_nm: &[f64], incidence_deg: f64, pol: Polarisation) -> Vec<f64> {
+fn polarised(
+    stack: &Stack,
+    wavelengths_nm: &[f64],
+    incidence_deg: f64,
+    pol: Polarisation,
+) -> Vec<f64> {
     let t = incidence_deg.to_radians();
     wavelengths_nm
         .iter()
@@ -165,7 +175,9 @@ pub fn cone_samples(incidence_deg: f64, na: f64, radial: usize) -> Vec<AngleSamp
         let sin_a = (u * u_max).sqrt();
         let cos_a = (1.0 - u * u_max).sqrt();
         for (phi, wphi) in &azimuths {
-            let cos_t = (t0.cos() * cos_a - t0.sin() * sin_a * phi.cos()).abs().min(1.0);
+            let cos_t = (t0.cos() * cos_a - t0.sin() * sin_a * phi.cos())
+                .abs()
+                .min(1.0);
             out.push(AngleSample {
                 theta_rad: cos_t.acos(),
                 weight: wu * wphi,
@@ -239,8 +251,11 @@ mod tests {
         // Quarter-wave layer at normal incidence: R = ((n0 ns − n1²)/(n0 ns + n1²))²
         // (Macleod, Thin-Film Optical Filters, §2 "quarter-wave layer").
         let (n1, ns) = (1.38, 1.52);
-        let s = Stack::bare(Material::constant("a", 1.0, 0.0), Material::constant("g", ns, 0.0))
-            .with_layer(Material::constant("f", n1, 0.0), 550.0 / (4.0 * n1));
+        let s = Stack::bare(
+            Material::constant("a", 1.0, 0.0),
+            Material::constant("g", ns, 0.0),
+        )
+        .with_layer(Material::constant("f", n1, 0.0), 550.0 / (4.0 * n1));
         let r = reflectance(&s, &[550.0], 0.0, 0.0)[0];
         let expect = ((ns - n1 * n1) / (ns + n1 * n1)).powi(2);
         assert!((r - expect).abs() < 1e-12, "{r} vs {expect}");
@@ -249,7 +264,10 @@ mod tests {
     #[test]
     fn brewster_angle_kills_p() {
         // At tan θ_B = n2/n1 the p reflectance of a bare interface vanishes (Brewster).
-        let s = Stack::bare(Material::constant("a", 1.0, 0.0), Material::constant("g", 1.5, 0.0));
+        let s = Stack::bare(
+            Material::constant("a", 1.0, 0.0),
+            Material::constant("g", 1.5, 0.0),
+        );
         let theta = 1.5f64.atan().to_degrees();
         assert!(reflectance_p(&s, &[500.0], theta)[0] < 1e-20);
         assert!(reflectance_s(&s, &[500.0], theta)[0] > 0.1);
@@ -257,11 +275,17 @@ mod tests {
 
     #[test]
     fn thick_absorbing_layer_does_not_overflow() {
-        let s = Stack::bare(Material::constant("a", 1.0, 0.0), Material::constant("g", 1.5, 0.0))
-            .with_layer(Material::constant("m", 2.0, 3.0), 1e6);
+        let s = Stack::bare(
+            Material::constant("a", 1.0, 0.0),
+            Material::constant("g", 1.5, 0.0),
+        )
+        .with_layer(Material::constant("m", 2.0, 3.0), 1e6);
         let r = reflectance(&s, &[500.0], 30.0, 0.0)[0];
         let bulk = reflectance(
-            &Stack::bare(Material::constant("a", 1.0, 0.0), Material::constant("m", 2.0, 3.0)),
+            &Stack::bare(
+                Material::constant("a", 1.0, 0.0),
+                Material::constant("m", 2.0, 3.0),
+            ),
             &[500.0],
             30.0,
             0.0,

@@ -69,11 +69,17 @@ pub fn parse_csv(text: &str, path: &Path) -> Result<SpectrumFile, SpectrumError>
         }
         let mut row = Vec::with_capacity(ncol);
         for (j, c) in cells.iter().enumerate() {
-            let v: f64 = c
-                .parse()
-                .map_err(|_| at(line, format!("\"{}\" in column {} is not a number", short(c), j + 1)))?;
+            let v: f64 = c.parse().map_err(|_| {
+                at(
+                    line,
+                    format!("\"{}\" in column {} is not a number", short(c), j + 1),
+                )
+            })?;
             if !v.is_finite() {
-                return Err(at(line, format!("{c} in column {} is not a finite number", j + 1)));
+                return Err(at(
+                    line,
+                    format!("{c} in column {} is not a finite number", j + 1),
+                ));
             }
             row.push(v);
         }
@@ -85,7 +91,10 @@ pub fn parse_csv(text: &str, path: &Path) -> Result<SpectrumFile, SpectrumError>
             if w == prev[0] {
                 return Err(at(
                     line,
-                    format!("duplicate wavelength {w} nm (also on line {}): each pixel once", lines[lines.len() - 1]),
+                    format!(
+                        "duplicate wavelength {w} nm (also on line {}): each pixel once",
+                        lines[lines.len() - 1]
+                    ),
                 ));
             }
             if w < prev[0] {
@@ -99,16 +108,26 @@ pub fn parse_csv(text: &str, path: &Path) -> Result<SpectrumFile, SpectrumError>
         lines.push(line);
     }
     let Some(ncol) = columns else {
-        return Err(at(1, "no header: the file is empty or only comments".into()));
+        return Err(at(
+            1,
+            "no header: the file is empty or only comments".into(),
+        ));
     };
     if rows.len() < MIN_ROWS {
         return Err(at(
             lines.last().copied().unwrap_or(1),
-            format!("{} data rows; a spectrum needs at least {MIN_ROWS}", rows.len()),
+            format!(
+                "{} data rows; a spectrum needs at least {MIN_ROWS}",
+                rows.len()
+            ),
         ));
     }
     if rows.last().is_some_and(|r| r[0] < 10.0) {
-        return Err(at(lines[0], "every wavelength is below 10: the column is wavelength_nm (nm), these look like µm".into()));
+        return Err(at(
+            lines[0],
+            "every wavelength is below 10: the column is wavelength_nm (nm), these look like µm"
+                .into(),
+        ));
     }
     let col = |j: usize| -> Vec<f64> { rows.iter().map(|r| r[j]).collect() };
     let wavelength_nm = col(0);
@@ -166,7 +185,10 @@ fn check_fraction(
         };
         return Err(at(
             lines[i],
-            format!("reflectance {} is outside {lo}..{hi}: the column is a fraction 0..1{hint}", r[i]),
+            format!(
+                "reflectance {} is outside {lo}..{hi}: the column is a fraction 0..1{hint}",
+                r[i]
+            ),
         ));
     }
     Ok(())
@@ -191,7 +213,11 @@ fn write_comments<W: Write>(out: &mut W, comments: &[String]) -> io::Result<()> 
 }
 
 /// Writes `wavelength_nm,reflectance` with optional `#` comment lines first.
-pub fn write_reflectance_csv<W: Write>(mut out: W, spectrum: &Spectrum, comments: &[String]) -> io::Result<()> {
+pub fn write_reflectance_csv<W: Write>(
+    mut out: W,
+    spectrum: &Spectrum,
+    comments: &[String],
+) -> io::Result<()> {
     write_comments(&mut out, comments)?;
     writeln!(out, "wavelength_nm,reflectance")?;
     for (w, r) in spectrum.wavelength_nm.iter().zip(&spectrum.reflectance) {
@@ -202,9 +228,16 @@ pub fn write_reflectance_csv<W: Write>(mut out: W, spectrum: &Spectrum, comments
 
 /// Writes `wavelength_nm,sample,dark,reference` (the raw spectra a run folder keeps).
 /// The wavelength axis is the sample's; the three must share it.
-pub fn write_counts_csv<W: Write>(mut out: W, raw: &RawSpectrum, comments: &[String]) -> io::Result<()> {
+pub fn write_counts_csv<W: Write>(
+    mut out: W,
+    raw: &RawSpectrum,
+    comments: &[String],
+) -> io::Result<()> {
     let n = raw.sample.counts.len();
-    if raw.dark.counts.len() != n || raw.reference.counts.len() != n || raw.sample.wavelength_nm.len() != n {
+    if raw.dark.counts.len() != n
+        || raw.reference.counts.len() != n
+        || raw.sample.wavelength_nm.len() != n
+    {
         return Err(io::Error::new(
             io::ErrorKind::InvalidInput,
             format!(
@@ -221,7 +254,10 @@ pub fn write_counts_csv<W: Write>(mut out: W, raw: &RawSpectrum, comments: &[Str
         writeln!(
             out,
             "{},{},{},{}",
-            raw.sample.wavelength_nm[i], raw.sample.counts[i], raw.dark.counts[i], raw.reference.counts[i]
+            raw.sample.wavelength_nm[i],
+            raw.sample.counts[i],
+            raw.dark.counts[i],
+            raw.reference.counts[i]
         )?;
     }
     out.flush()
@@ -237,8 +273,14 @@ mod tests {
 
     #[test]
     fn reads_both_forms() {
-        let r = parse_csv("# c\nwavelength_nm,reflectance\n400,0.3\n401,0.31\n402,0.32\n", Path::new("s.csv")).unwrap();
-        assert!(matches!(r, SpectrumFile::Reflectance(ref s) if s.len() == 3 && s.reflectance[1] == 0.31));
+        let r = parse_csv(
+            "# c\nwavelength_nm,reflectance\n400,0.3\n401,0.31\n402,0.32\n",
+            Path::new("s.csv"),
+        )
+        .unwrap();
+        assert!(
+            matches!(r, SpectrumFile::Reflectance(ref s) if s.len() == 3 && s.reflectance[1] == 0.31)
+        );
         let c = parse_csv(
             "Wavelength_nm, Sample, Dark, Reference\n400,100,10,200\n401,110,10,210\n402,120,10,220\n",
             Path::new("s.csv"),
@@ -259,10 +301,15 @@ mod tests {
         assert!(err("wl,r\n").contains("s.csv:1: header"));
         assert!(err("").contains("no header"));
         assert!(err(&format!("{h}400,0.3,1\n")).contains("s.csv:2: 3 fields"));
-        let dark = "wavelength_nm,sample,dark,reference\n400,10,10,200\n401,9,10,210\n402,10,10,220\n";
+        let dark =
+            "wavelength_nm,sample,dark,reference\n400,10,10,200\n401,9,10,210\n402,10,10,220\n";
         assert!(err(dark).contains("sample counts never exceed the dark"));
         let sat = "wavelength_nm,sample,dark,reference\n400,100,10,65535\n401,101,10,65535\n402,102,10,65535\n403,99,10,200\n";
-        assert!(err(sat).contains("s.csv:2: reference counts are saturated"), "{}", err(sat));
+        assert!(
+            err(sat).contains("s.csv:2: reference counts are saturated"),
+            "{}",
+            err(sat)
+        );
     }
 
     #[test]

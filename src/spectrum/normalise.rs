@@ -30,10 +30,19 @@ pub fn assess(sample: &Counts, dark: &Counts, reference: &Counts) -> SignalQuali
         .filter(|(r, d)| **r <= **d)
         .count();
     // Dark noise from successive differences (robust to the dark's slow shape).
-    let mut diffs: Vec<f64> = dark.counts.windows(2).map(|w| (w[1] - w[0]).abs()).collect();
+    let mut diffs: Vec<f64> = dark
+        .counts
+        .windows(2)
+        .map(|w| (w[1] - w[0]).abs())
+        .collect();
     let noise = median(&mut diffs).unwrap_or(0.0) / (std::f64::consts::SQRT_2 * 0.6745);
     let signal = |c: &Counts| {
-        let mut s: Vec<f64> = c.counts.iter().zip(&dark.counts).map(|(v, d)| v - d).collect();
+        let mut s: Vec<f64> = c
+            .counts
+            .iter()
+            .zip(&dark.counts)
+            .map(|(v, d)| v - d)
+            .collect();
         median(&mut s).unwrap_or(0.0)
     };
     // With a noiseless dark (simulated, or a spectrometer that subtracts it) fall back to
@@ -113,7 +122,10 @@ pub fn normalise(
 }
 
 /// [`normalise`] and [`assess`] in one call.
-pub fn normalise_raw(raw: &RawSpectrum, r_ref: &[f64]) -> Result<(Spectrum, SignalQuality), SpectrumError> {
+pub fn normalise_raw(
+    raw: &RawSpectrum,
+    r_ref: &[f64],
+) -> Result<(Spectrum, SignalQuality), SpectrumError> {
     let spectrum = normalise(&raw.sample, &raw.dark, &raw.reference, r_ref)?;
     Ok((spectrum, assess(&raw.sample, &raw.dark, &raw.reference)))
 }
@@ -132,7 +144,13 @@ mod tests {
     #[test]
     fn applies_the_formula() {
         // R = (S − D)/(Ref − D)·R_ref: (510 − 10)/(1010 − 10)·0.4 = 0.2
-        let s = normalise(&c(&[510.0, 260.0]), &c(&[10.0, 10.0]), &c(&[1010.0, 510.0]), &[0.4, 0.3]).unwrap();
+        let s = normalise(
+            &c(&[510.0, 260.0]),
+            &c(&[10.0, 10.0]),
+            &c(&[1010.0, 510.0]),
+            &[0.4, 0.3],
+        )
+        .unwrap();
         assert!((s.reflectance[0] - 0.2).abs() < 1e-15 && (s.reflectance[1] - 0.15).abs() < 1e-15);
     }
 
@@ -142,23 +160,38 @@ mod tests {
         let dark = c(&[10.0; 6]);
         let reference = c(&[5.0, 900.0, 4000.0, 4000.0, 4000.0, 800.0]);
         let r = normalise(&sample, &dark, &reference, &[0.3; 6]).unwrap();
-        assert_eq!(r.wavelength_nm, vec![405.0], "pixel 0 is dark, 0–3 sample-clipped, 2–4 reference-clipped");
+        assert_eq!(
+            r.wavelength_nm,
+            vec![405.0],
+            "pixel 0 is dark, 0–3 sample-clipped, 2–4 reference-clipped"
+        );
         let q = assess(&sample, &dark, &reference);
         assert_eq!(q.dropped_pixels, 1);
-        assert_eq!(q.saturated_pixels, 5, "sample run 0–3 and reference run 2–4 cover pixels 0–4");
+        assert_eq!(
+            q.saturated_pixels, 5,
+            "sample run 0–3 and reference run 2–4 cover pixels 0–4"
+        );
     }
 
     #[test]
     fn errors_on_mismatch_and_darkness() {
         let e = normalise(&c(&[1.0, 2.0]), &c(&[1.0]), &c(&[3.0, 4.0]), &[0.3, 0.3]).unwrap_err();
         assert!(e.to_string().contains("dark has 1 pixels"));
-        let e = normalise(&c(&[1.0, 2.0]), &c(&[5.0, 5.0]), &c(&[3.0, 4.0]), &[0.3, 0.3]).unwrap_err();
+        let e = normalise(
+            &c(&[1.0, 2.0]),
+            &c(&[5.0, 5.0]),
+            &c(&[3.0, 4.0]),
+            &[0.3, 0.3],
+        )
+        .unwrap_err();
         assert!(e.to_string().contains("dark"));
     }
 
     #[test]
     fn weak_signal_is_flagged() {
-        let dark: Vec<f64> = (0..200).map(|i| 1000.0 + if i % 2 == 0 { 5.0 } else { -5.0 }).collect();
+        let dark: Vec<f64> = (0..200)
+            .map(|i| 1000.0 + if i % 2 == 0 { 5.0 } else { -5.0 })
+            .collect();
         let strong: Vec<f64> = dark.iter().map(|d| d + 20000.0).collect();
         let weak: Vec<f64> = dark.iter().map(|d| d + 50.0).collect();
         assert!(!assess(&c(&strong), &c(&dark), &c(&strong)).low_signal);

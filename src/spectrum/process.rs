@@ -59,7 +59,10 @@ fn quadratic_fit(x: &[f64], y: &[f64]) -> [f64; 3] {
     }
     let a = nalgebra::Matrix3::new(s[0], s[1], s[2], s[1], s[2], s[3], s[2], s[3], s[4]);
     let b = nalgebra::Vector3::new(t[0], t[1], t[2]);
-    a.lu().solve(&b).map(|v| [v[0], v[1], v[2]]).unwrap_or([y[0], 0.0, 0.0])
+    a.lu()
+        .solve(&b)
+        .map(|v| [v[0], v[1], v[2]])
+        .unwrap_or([y[0], 0.0, 0.0])
 }
 
 #[cfg(test)]
@@ -69,7 +72,9 @@ mod tests {
     #[test]
     fn keeps_a_parabola_and_averages_noise() {
         // A quadratic SG filter passes any quadratic unchanged (Savitzky & Golay 1964).
-        let v: Vec<f64> = (0..40).map(|i| 0.3 + 0.01 * i as f64 - 2e-4 * (i * i) as f64).collect();
+        let v: Vec<f64> = (0..40)
+            .map(|i| 0.3 + 0.01 * i as f64 - 2e-4 * (i * i) as f64)
+            .collect();
         let s = savitzky_golay(&v, 5);
         for (a, b) in v.iter().zip(&s) {
             assert!((a - b).abs() < 1e-12);
