@@ -7,6 +7,7 @@ use std::process::ExitCode;
 mod check;
 mod compare;
 mod fit;
+mod output;
 mod refit;
 mod remeasure;
 mod render;
