@@ -58,6 +58,7 @@ fn make_run(
             started: started.into(),
             tool_version: "test".into(),
             recipe_path: recipe_file.into(),
+            seed: 0,
         },
         recipe: loaded.recipe,
         machine: None,

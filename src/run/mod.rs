@@ -1,8 +1,10 @@
 //! Map runs: plan, sequencer, journal, run folder, history.
 
+pub mod derive;
 pub mod events;
 pub mod files;
 pub mod folder;
 pub mod id;
 pub mod journal;
 pub mod plan;
+pub mod session;
