@@ -3,14 +3,18 @@
 //! and every fault kind giving its own error without hanging.
 
 use isopach::bench::chuck::ChuckTransform;
-use isopach::bench::gcode::{Command, Controller, ControllerError, LogEntry, Outcome, ProtocolConfig};
+use isopach::bench::gcode::{
+    Command, Controller, ControllerError, LogEntry, Outcome, ProtocolConfig,
+};
 use isopach::bench::limits::Approach;
 use isopach::bench::machine::{self, MachineFile};
 use std::path::Path;
 use std::time::Duration;
 
 fn fixture(name: &str) -> MachineFile {
-    let p = Path::new(env!("CARGO_MANIFEST_DIR")).join("fixtures/machines").join(name);
+    let p = Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("fixtures/machines")
+        .join(name);
     machine::load(&p).unwrap_or_else(|e| panic!("{e}")).machine
 }
 
@@ -22,7 +26,10 @@ struct Harness {
 
 impl Harness {
     fn new(m: &MachineFile) -> Harness {
-        Harness { c: Controller::new(ProtocolConfig::from_spec(&m.stage)), now: Duration::ZERO }
+        Harness {
+            c: Controller::new(ProtocolConfig::from_spec(&m.stage)),
+            now: Duration::ZERO,
+        }
     }
     fn start(&mut self, cmd: Command) {
         self.c.start(cmd, self.now).unwrap();
@@ -33,10 +40,16 @@ impl Harness {
         while let Some(b) = self.c.poll_transmit() {
             match b.strip_suffix(b"\n") {
                 Some(line) => {
-                    assert!(!line.contains(&b'\r') && !line.contains(&b'\n'), "LF only: {b:?}");
+                    assert!(
+                        !line.contains(&b'\r') && !line.contains(&b'\n'),
+                        "LF only: {b:?}"
+                    );
                     out.push(String::from_utf8(line.to_vec()).unwrap())
                 }
-                None => out.push(format!("<raw {}>", String::from_utf8_lossy(&b).escape_debug())),
+                None => out.push(format!(
+                    "<raw {}>",
+                    String::from_utf8_lossy(&b).escape_debug()
+                )),
             }
         }
         out
@@ -66,7 +79,10 @@ impl Harness {
             }
             all.extend(s);
         }
-        assert!(matches!(self.result(), Some(Ok(_))), "{cmd:?} should succeed");
+        assert!(
+            matches!(self.result(), Some(Ok(_))),
+            "{cmd:?} should succeed"
+        );
         all
     }
     /// Connects through a grbl-style banner and lock message.
@@ -76,9 +92,15 @@ impl Harness {
         self.reply("");
         self.reply("Grbl 1.1h ['$' for help]");
         self.reply("[MSG:'$H'|'$X' to unlock]");
-        assert!(self.sent().is_empty(), "nothing is sent while the banner burst is arriving");
+        assert!(
+            self.sent().is_empty(),
+            "nothing is sent while the banner burst is arriving"
+        );
         self.wait_ms(50);
-        assert!(self.sent().is_empty(), "quiet time after the banner not yet over");
+        assert!(
+            self.sent().is_empty(),
+            "quiet time after the banner not yet over"
+        );
         self.wait_ms(60);
         let mut lines = self.sent();
         assert_eq!(lines, vec!["$X"]);
@@ -138,7 +160,10 @@ fn golden_transcript_dwell_3x3() {
     let mut sent = Vec::new();
     for moves in plan_moves(&m) {
         for p in moves {
-            sent.extend(h.ok_all(Command::Move { x_mm: p[0], y_mm: p[1] }));
+            sent.extend(h.ok_all(Command::Move {
+                x_mm: p[0],
+                y_mm: p[1],
+            }));
         }
         // Completion: G4 P0's ok comes only when the motion has ended (here after 0.8 s).
         h.start(Command::WaitIdle);
@@ -146,21 +171,41 @@ fn golden_transcript_dwell_3x3() {
         h.wait_ms(800);
         assert!(h.result().is_none(), "still moving");
         h.reply("ok");
-        let Some(Ok(Outcome::Idle { position })) = h.result() else { panic!() };
+        let Some(Ok(Outcome::Idle { position })) = h.result() else {
+            panic!()
+        };
         assert!(position.is_some());
         sent.extend(w);
     }
     // Golden: chuck centre (100, 100), no rotation; backlash 0.5 mm approached from −x−y.
     let golden = [
-        "G1 X89.500 Y109.500 F3000", "G1 X90.000 Y110.000 F3000", "G4 P0",
-        "G1 X99.500 Y109.500 F3000", "G1 X100.000 Y110.000 F3000", "G4 P0",
-        "G1 X109.500 Y109.500 F3000", "G1 X110.000 Y110.000 F3000", "G4 P0",
-        "G1 X89.500 Y99.500 F3000", "G1 X90.000 Y100.000 F3000", "G4 P0",
-        "G1 X99.500 Y99.500 F3000", "G1 X100.000 Y100.000 F3000", "G4 P0",
-        "G1 X109.500 Y99.500 F3000", "G1 X110.000 Y100.000 F3000", "G4 P0",
-        "G1 X89.500 Y89.500 F3000", "G1 X90.000 Y90.000 F3000", "G4 P0",
-        "G1 X99.500 Y89.500 F3000", "G1 X100.000 Y90.000 F3000", "G4 P0",
-        "G1 X109.500 Y89.500 F3000", "G1 X110.000 Y90.000 F3000", "G4 P0",
+        "G1 X89.500 Y109.500 F3000",
+        "G1 X90.000 Y110.000 F3000",
+        "G4 P0",
+        "G1 X99.500 Y109.500 F3000",
+        "G1 X100.000 Y110.000 F3000",
+        "G4 P0",
+        "G1 X109.500 Y109.500 F3000",
+        "G1 X110.000 Y110.000 F3000",
+        "G4 P0",
+        "G1 X89.500 Y99.500 F3000",
+        "G1 X90.000 Y100.000 F3000",
+        "G4 P0",
+        "G1 X99.500 Y99.500 F3000",
+        "G1 X100.000 Y100.000 F3000",
+        "G4 P0",
+        "G1 X109.500 Y99.500 F3000",
+        "G1 X110.000 Y100.000 F3000",
+        "G4 P0",
+        "G1 X89.500 Y89.500 F3000",
+        "G1 X90.000 Y90.000 F3000",
+        "G4 P0",
+        "G1 X99.500 Y89.500 F3000",
+        "G1 X100.000 Y90.000 F3000",
+        "G4 P0",
+        "G1 X109.500 Y89.500 F3000",
+        "G1 X110.000 Y90.000 F3000",
+        "G4 P0",
     ];
     assert_eq!(sent, golden);
 }
@@ -183,7 +228,10 @@ fn golden_transcript_m400_3x3_with_rotation() {
     let mut sent = Vec::new();
     for moves in plan_moves(&m) {
         for p in moves {
-            sent.extend(h.ok_all(Command::Move { x_mm: p[0], y_mm: p[1] }));
+            sent.extend(h.ok_all(Command::Move {
+                x_mm: p[0],
+                y_mm: p[1],
+            }));
         }
         h.start(Command::WaitIdle);
         sent.extend(h.sent());
@@ -201,15 +249,31 @@ fn golden_transcript_m400_3x3_with_rotation() {
     // wrong side, so an approach point goes first; at a row change, (100, 100) → (120, 110)
     // already moves +x and +y by more than 0.3 mm, so one move suffices.
     let golden = [
-        "G1 X119.700 Y99.700 F2400", "G1 X120.000 Y100.000 F2400", "M400",
-        "G1 X109.700 Y99.700 F2400", "G1 X110.000 Y100.000 F2400", "M400",
-        "G1 X99.700 Y99.700 F2400", "G1 X100.000 Y100.000 F2400", "M400",
-        "G1 X120.000 Y110.000 F2400", "M400",
-        "G1 X109.700 Y109.700 F2400", "G1 X110.000 Y110.000 F2400", "M400",
-        "G1 X99.700 Y109.700 F2400", "G1 X100.000 Y110.000 F2400", "M400",
-        "G1 X120.000 Y120.000 F2400", "M400",
-        "G1 X109.700 Y119.700 F2400", "G1 X110.000 Y120.000 F2400", "M400",
-        "G1 X99.700 Y119.700 F2400", "G1 X100.000 Y120.000 F2400", "M400",
+        "G1 X119.700 Y99.700 F2400",
+        "G1 X120.000 Y100.000 F2400",
+        "M400",
+        "G1 X109.700 Y99.700 F2400",
+        "G1 X110.000 Y100.000 F2400",
+        "M400",
+        "G1 X99.700 Y99.700 F2400",
+        "G1 X100.000 Y100.000 F2400",
+        "M400",
+        "G1 X120.000 Y110.000 F2400",
+        "M400",
+        "G1 X109.700 Y109.700 F2400",
+        "G1 X110.000 Y110.000 F2400",
+        "M400",
+        "G1 X99.700 Y109.700 F2400",
+        "G1 X100.000 Y110.000 F2400",
+        "M400",
+        "G1 X120.000 Y120.000 F2400",
+        "M400",
+        "G1 X109.700 Y119.700 F2400",
+        "G1 X110.000 Y120.000 F2400",
+        "M400",
+        "G1 X99.700 Y119.700 F2400",
+        "G1 X100.000 Y120.000 F2400",
+        "M400",
     ];
     assert_eq!(sent, golden);
 }
@@ -223,24 +287,42 @@ fn golden_transcript_poll_3x3_confirms_position_not_only_state() {
     let mut site = 0;
     for moves in plan_moves(&m) {
         for p in &moves {
-            sent.extend(h.ok_all(Command::Move { x_mm: p[0], y_mm: p[1] }));
+            sent.extend(h.ok_all(Command::Move {
+                x_mm: p[0],
+                y_mm: p[1],
+            }));
         }
         let target = *moves.last().unwrap();
         let here = format!("{:.3},{:.3},0.000", target[0], target[1]);
         h.start(Command::WaitIdle);
-        assert_eq!(h.sent(), vec!["<raw ?>"], "the query is one real-time byte, no line end");
+        assert_eq!(
+            h.sent(),
+            vec!["<raw ?>"],
+            "the query is one real-time byte, no line end"
+        );
         // Just after the move was acknowledged the report may still say Idle, at the old place.
         h.reply("<Idle|MPos:0.000,0.000,0.000|FS:0,0>");
-        assert!(h.result().is_none(), "idle at the wrong place is not arrival");
-        assert!(h.sent().is_empty(), "next query only after the poll interval");
+        assert!(
+            h.result().is_none(),
+            "idle at the wrong place is not arrival"
+        );
+        assert!(
+            h.sent().is_empty(),
+            "next query only after the poll interval"
+        );
         h.wait_ms(100);
         assert_eq!(h.sent(), vec!["<raw ?>"]);
         h.reply(&format!("<Run|MPos:{here}|FS:4000,0>"));
-        assert!(h.result().is_none(), "running at the target is not arrival either");
+        assert!(
+            h.result().is_none(),
+            "running at the target is not arrival either"
+        );
         h.wait_ms(100);
         assert_eq!(h.sent(), vec!["<raw ?>"]);
         h.reply(&format!("<Idle|MPos:{here}|FS:0,0>"));
-        let Some(Ok(Outcome::Idle { position: Some(p) })) = h.result() else { panic!() };
+        let Some(Ok(Outcome::Idle { position: Some(p) })) = h.result() else {
+            panic!()
+        };
         assert!((p[0] - target[0]).abs() < 1e-9 && (p[1] - target[1]).abs() < 1e-9);
         sent.push(format!("site {}", {
             site += 1;
@@ -249,15 +331,33 @@ fn golden_transcript_poll_3x3_confirms_position_not_only_state() {
     }
     // Centre (150, 150), rotated 90° CCW after flipping y: wafer (x, y) → stage (150 + y, 150 + x).
     let golden = [
-        "G1 X159.500 Y139.500 F4000", "G1 X160.000 Y140.000 F4000", "site 1",
-        "G1 X159.500 Y149.500 F4000", "G1 X160.000 Y150.000 F4000", "site 2",
-        "G1 X159.500 Y159.500 F4000", "G1 X160.000 Y160.000 F4000", "site 3",
-        "G1 X149.500 Y139.500 F4000", "G1 X150.000 Y140.000 F4000", "site 4",
-        "G1 X149.500 Y149.500 F4000", "G1 X150.000 Y150.000 F4000", "site 5",
-        "G1 X149.500 Y159.500 F4000", "G1 X150.000 Y160.000 F4000", "site 6",
-        "G1 X139.500 Y139.500 F4000", "G1 X140.000 Y140.000 F4000", "site 7",
-        "G1 X139.500 Y149.500 F4000", "G1 X140.000 Y150.000 F4000", "site 8",
-        "G1 X139.500 Y159.500 F4000", "G1 X140.000 Y160.000 F4000", "site 9",
+        "G1 X159.500 Y139.500 F4000",
+        "G1 X160.000 Y140.000 F4000",
+        "site 1",
+        "G1 X159.500 Y149.500 F4000",
+        "G1 X160.000 Y150.000 F4000",
+        "site 2",
+        "G1 X159.500 Y159.500 F4000",
+        "G1 X160.000 Y160.000 F4000",
+        "site 3",
+        "G1 X149.500 Y139.500 F4000",
+        "G1 X150.000 Y140.000 F4000",
+        "site 4",
+        "G1 X149.500 Y149.500 F4000",
+        "G1 X150.000 Y150.000 F4000",
+        "site 5",
+        "G1 X149.500 Y159.500 F4000",
+        "G1 X150.000 Y160.000 F4000",
+        "site 6",
+        "G1 X139.500 Y139.500 F4000",
+        "G1 X140.000 Y140.000 F4000",
+        "site 7",
+        "G1 X139.500 Y149.500 F4000",
+        "G1 X140.000 Y150.000 F4000",
+        "site 8",
+        "G1 X139.500 Y159.500 F4000",
+        "G1 X140.000 Y160.000 F4000",
+        "site 9",
     ];
     assert_eq!(sent, golden);
 }
@@ -266,14 +366,26 @@ fn golden_transcript_poll_3x3_confirms_position_not_only_state() {
 fn work_offset_is_taken_off_machine_positions() {
     let m = fixture("poll.toml");
     let mut h = Harness::new(&m);
-    h.c.start(Command::Move { x_mm: 10.0, y_mm: 10.0 }, h.now).unwrap();
+    h.c.start(
+        Command::Move {
+            x_mm: 10.0,
+            y_mm: 10.0,
+        },
+        h.now,
+    )
+    .unwrap();
     h.sent();
     h.reply("ok");
     h.result();
     h.start(Command::WaitIdle);
     h.sent();
     h.reply("<Idle|MPos:15.000,12.000,0.000|FS:0,0|WCO:5.000,2.000,0.000>");
-    assert!(matches!(h.result(), Some(Ok(Outcome::Idle { position: Some([10.0, 10.0]) }))));
+    assert!(matches!(
+        h.result(),
+        Some(Ok(Outcome::Idle {
+            position: Some([10.0, 10.0])
+        }))
+    ));
 }
 
 // ----- faults: each its own error, none hangs -----
@@ -288,7 +400,10 @@ fn connected(name: &str) -> Harness {
 #[test]
 fn dropped_ok_times_out_with_no_reply() {
     let mut h = connected("dwell.toml");
-    h.start(Command::Move { x_mm: 50.0, y_mm: 50.0 });
+    h.start(Command::Move {
+        x_mm: 50.0,
+        y_mm: 50.0,
+    });
     assert_eq!(h.sent(), vec!["G1 X50.000 Y50.000 F3000"]);
     h.wait_ms(4900);
     assert!(h.result().is_none());
@@ -303,13 +418,18 @@ fn dropped_ok_times_out_with_no_reply() {
     // A late ok is logged as stray, not taken for the next line.
     h.reply("ok");
     let notes: Vec<_> = std::iter::from_fn(|| h.c.poll_log()).collect();
-    assert!(notes.iter().any(|e| matches!(e, LogEntry::Note(n) if n.contains("stray"))));
+    assert!(notes
+        .iter()
+        .any(|e| matches!(e, LogEntry::Note(n) if n.contains("stray"))));
 }
 
 #[test]
 fn garbage_is_its_own_error() {
     let mut h = connected("dwell.toml");
-    h.start(Command::Move { x_mm: 50.0, y_mm: 50.0 });
+    h.start(Command::Move {
+        x_mm: 50.0,
+        y_mm: 50.0,
+    });
     h.sent();
     h.reply("\u{fffd}\u{fffd}x\u{7}");
     let e = h.result().unwrap().unwrap_err();
@@ -320,7 +440,10 @@ fn garbage_is_its_own_error() {
 #[test]
 fn error_reply_names_line_and_code() {
     let mut h = connected("dwell.toml");
-    h.start(Command::Move { x_mm: 50.0, y_mm: 50.0 });
+    h.start(Command::Move {
+        x_mm: 50.0,
+        y_mm: 50.0,
+    });
     h.sent();
     h.reply("error:22");
     match h.result() {
@@ -335,7 +458,10 @@ fn error_reply_names_line_and_code() {
 #[test]
 fn alarm_mid_move_latches_until_reset() {
     let mut h = connected("poll.toml");
-    h.start(Command::Move { x_mm: 50.0, y_mm: 50.0 });
+    h.start(Command::Move {
+        x_mm: 50.0,
+        y_mm: 50.0,
+    });
     h.sent();
     h.reply("ok");
     h.result();
@@ -347,11 +473,25 @@ fn alarm_mid_move_latches_until_reset() {
     h.reply("ALARM:1");
     h.reply("[MSG:Reset to continue]");
     let e = h.result().unwrap().unwrap_err();
-    assert!(matches!(&e, ControllerError::Alarm { reply, .. } if reply == "ALARM:1"), "{e}");
+    assert!(
+        matches!(&e, ControllerError::Alarm { reply, .. } if reply == "ALARM:1"),
+        "{e}"
+    );
     assert_eq!(h.c.alarm(), Some("ALARM:1"));
     // Nothing more goes out — no motion, no status query — until the user's reset.
-    for cmd in [Command::Move { x_mm: 1.0, y_mm: 1.0 }, Command::Query, Command::Home, Command::Connect] {
-        assert!(matches!(h.c.start(cmd, h.now), Err(ControllerError::Alarmed { .. })));
+    for cmd in [
+        Command::Move {
+            x_mm: 1.0,
+            y_mm: 1.0,
+        },
+        Command::Query,
+        Command::Home,
+        Command::Connect,
+    ] {
+        assert!(matches!(
+            h.c.start(cmd, h.now),
+            Err(ControllerError::Alarmed { .. })
+        ));
     }
     assert!(h.sent().is_empty());
     h.start(Command::Reset);
@@ -365,13 +505,19 @@ fn alarm_state_in_a_status_report_is_an_alarm() {
     h.start(Command::Query);
     h.sent();
     h.reply("<Alarm|MPos:0.000,0.000,0.000>");
-    assert!(matches!(h.result(), Some(Err(ControllerError::Alarm { .. }))));
+    assert!(matches!(
+        h.result(),
+        Some(Err(ControllerError::Alarm { .. }))
+    ));
 }
 
 #[test]
 fn stall_under_dwell_is_a_motion_timeout() {
     let mut h = connected("dwell.toml");
-    h.start(Command::Move { x_mm: 150.0, y_mm: 100.0 });
+    h.start(Command::Move {
+        x_mm: 150.0,
+        y_mm: 100.0,
+    });
     h.sent();
     h.reply("ok");
     h.result();
@@ -390,7 +536,10 @@ fn stall_under_dwell_is_a_motion_timeout() {
 #[test]
 fn stall_under_poll_reports_the_last_status() {
     let mut h = connected("poll.toml");
-    h.start(Command::Move { x_mm: 100.0, y_mm: 100.0 });
+    h.start(Command::Move {
+        x_mm: 100.0,
+        y_mm: 100.0,
+    });
     h.sent();
     h.reply("ok");
     h.result();
@@ -408,7 +557,11 @@ fn stall_under_poll_reports_the_last_status() {
         assert!(polls < 1000, "must not poll forever");
     };
     assert!(matches!(e, ControllerError::MotionTimeout { .. }), "{e}");
-    assert!(e.to_string().contains("last report: Run at (40.000, 40.000)"), "{e}");
+    assert!(
+        e.to_string()
+            .contains("last report: Run at (40.000, 40.000)"),
+        "{e}"
+    );
 }
 
 #[test]
@@ -417,15 +570,24 @@ fn silent_status_is_no_status() {
     h.start(Command::Query);
     assert_eq!(h.sent(), vec!["<raw ?>"]);
     h.wait_ms(3100);
-    assert!(matches!(h.result(), Some(Err(ControllerError::NoStatus { .. }))));
+    assert!(matches!(
+        h.result(),
+        Some(Err(ControllerError::NoStatus { .. }))
+    ));
 }
 
 #[test]
 fn disconnect_fails_the_command_and_stays_closed() {
     let mut h = connected("dwell.toml");
-    h.start(Command::Move { x_mm: 50.0, y_mm: 50.0 });
+    h.start(Command::Move {
+        x_mm: 50.0,
+        y_mm: 50.0,
+    });
     h.c.handle_closed();
-    assert!(matches!(h.result(), Some(Err(ControllerError::Disconnected { .. }))));
+    assert!(matches!(
+        h.result(),
+        Some(Err(ControllerError::Disconnected { .. }))
+    ));
     assert!(matches!(
         h.c.start(Command::Connect, h.now),
         Err(ControllerError::Disconnected { .. })
@@ -438,9 +600,15 @@ fn silent_controller_at_connect_is_no_reply() {
     let mut h = Harness::new(&m);
     h.start(Command::Connect);
     h.wait_ms(2000);
-    assert_eq!(h.sent(), vec!["$X"], "no banner: go on after startup_wait_s");
+    assert_eq!(
+        h.sent(),
+        vec!["$X"],
+        "no banner: go on after startup_wait_s"
+    );
     let notes: Vec<_> = std::iter::from_fn(|| h.c.poll_log()).collect();
-    assert!(notes.iter().any(|e| matches!(e, LogEntry::Note(n) if n.contains("no start-up banner"))));
+    assert!(notes
+        .iter()
+        .any(|e| matches!(e, LogEntry::Note(n) if n.contains("no start-up banner"))));
     h.wait_ms(5000);
     assert!(matches!(h.result(), Some(Err(ControllerError::NoReply { line, .. })) if line == "$X"));
 }
@@ -462,11 +630,17 @@ fn locked_controller_without_unlock_hints_at_unlock() {
 #[test]
 fn stop_sends_the_reset_byte_and_abandons_the_command() {
     let mut h = connected("dwell.toml");
-    h.start(Command::Move { x_mm: 50.0, y_mm: 50.0 });
+    h.start(Command::Move {
+        x_mm: 50.0,
+        y_mm: 50.0,
+    });
     h.sent();
     h.c.stop(h.now);
     assert_eq!(h.sent(), vec!["<raw \\u{18}>"]);
-    assert!(matches!(h.result(), Some(Err(ControllerError::Stopped { .. }))));
+    assert!(matches!(
+        h.result(),
+        Some(Err(ControllerError::Stopped { .. }))
+    ));
     assert_eq!(h.c.position(), None);
 }
 
@@ -483,7 +657,15 @@ fn too_long_a_line_is_refused_before_sending() {
     let mut m = fixture("dwell.toml");
     m.stage.max_line_len = 20;
     let mut h = Harness::new(&m);
-    let e = h.c.start(Command::Move { x_mm: 150.0, y_mm: 100.0 }, h.now).unwrap_err();
+    let e =
+        h.c.start(
+            Command::Move {
+                x_mm: 150.0,
+                y_mm: 100.0,
+            },
+            h.now,
+        )
+        .unwrap_err();
     assert!(matches!(e, ControllerError::LineTooLong { .. }), "{e}");
     assert!(h.sent().is_empty());
 }

@@ -13,4 +13,6 @@ pub mod gcode;
 pub mod kinematics;
 pub mod limits;
 pub mod machine;
+pub mod sim;
+pub mod stage;
 pub mod transport;

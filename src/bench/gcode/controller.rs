@@ -212,6 +212,8 @@ enum Phase {
         deadline: Duration,
         banner: Option<String>,
         last_line: Option<Duration>,
+        /// Send the unlock and init lines afterwards (not after a stop).
+        then_init: bool,
     },
     Lines {
         queue: VecDeque<(String, Await)>,
@@ -321,6 +323,7 @@ impl Controller {
                 deadline,
                 last_line,
                 banner,
+                ..
             } => {
                 let quiet = self
                     .banner_seen(banner)
@@ -424,17 +427,12 @@ impl Controller {
     }
 
     /// Stops at once: sends the reset bytes (or the stop lines), fails the command in progress
-    /// with [`ControllerError::Stopped`] and forgets the position.
-    pub fn stop(&mut self, _now: Duration) {
+    /// with [`ControllerError::Stopped`] and forgets the position. After reset bytes the
+    /// controller restarts: a start-up phase then absorbs its banner (no lines are sent), and
+    /// finishes with [`Outcome::Connected`].
+    pub fn stop(&mut self, now: Duration) {
         if self.phase == Phase::Closed {
             return;
-        }
-        if !self.cfg.reset.is_empty() {
-            self.send_raw(self.cfg.reset.clone());
-        } else {
-            for l in self.cfg.stop.clone() {
-                self.send_line(&l);
-            }
         }
         if self.is_busy() {
             let during = self.doing.clone();
@@ -443,6 +441,18 @@ impl Controller {
         self.position = None;
         self.target = None;
         self.queued_s = 0.0;
+        if self.cfg.reset.is_empty() {
+            for l in self.cfg.stop.clone() {
+                self.send_line(&l);
+            }
+        } else {
+            self.send_raw(self.cfg.reset.clone());
+            self.doing = "waiting for the controller to restart after a stop".into();
+            self.enter_startup(now);
+            if let Phase::Startup { then_init, .. } = &mut self.phase {
+                *then_init = false;
+            }
+        }
     }
 
     /// The connection closed (end of stream, or EIO on a pseudo-terminal).
@@ -474,6 +484,7 @@ impl Controller {
             Phase::Startup {
                 deadline,
                 mut banner,
+                then_init,
                 ..
             } => {
                 match reply {
@@ -489,6 +500,7 @@ impl Controller {
                     deadline,
                     banner,
                     last_line: Some(now),
+                    then_init,
                 }
             }
             Phase::Lines {
@@ -508,17 +520,23 @@ impl Controller {
                 deadline,
                 banner,
                 last_line,
+                then_init,
             } => {
                 let quiet = self.banner_seen(&banner)
                     && last_line.is_some_and(|t| now >= t + STARTUP_QUIET);
-                if now >= deadline || quiet {
-                    self.after_startup(banner, now)
-                } else {
+                if now < deadline && !quiet {
                     Phase::Startup {
                         deadline,
                         banner,
                         last_line,
+                        then_init,
                     }
+                } else if then_init {
+                    self.after_startup(banner, now)
+                } else {
+                    // After a stop: the controller has restarted; nothing more is sent.
+                    self.finish(Ok(Outcome::Connected { banner }));
+                    Phase::Ready
                 }
             }
             Phase::Lines {
@@ -560,6 +578,7 @@ impl Controller {
             deadline: now + self.cfg.startup_wait,
             banner: None,
             last_line: None,
+            then_init: true,
         };
     }
 
@@ -754,7 +773,7 @@ impl Controller {
                 Some(s) => format!(
                     " (last report: {} at {})",
                     s.state.as_deref().unwrap_or("no state"),
-                    self.position_of(s)
+                    self.work_position(s)
                         .map_or("no position".into(), |q| format!(
                             "({:.3}, {:.3})",
                             q[0], q[1]
@@ -839,7 +858,7 @@ impl Controller {
             .state
             .as_deref()
             .is_some_and(|w| self.cfg.vocab.is_idle(w));
-        let pos = self.position_of(&report);
+        let pos = self.work_position(&report);
         let arrived = match (p.target, pos) {
             (None, _) => true,
             (Some(t), Some(q)) => {
@@ -883,7 +902,7 @@ impl Controller {
     }
 
     /// Work position of a report: WPos, else MPos less the last known work offset.
-    fn position_of(&self, s: &StatusReport) -> Option<[f64; 2]> {
+    pub fn work_position(&self, s: &StatusReport) -> Option<[f64; 2]> {
         s.wpos.or_else(|| {
             let m = s.mpos?;
             let o = s.wco.or(self.wco).unwrap_or([0.0, 0.0]);

@@ -75,10 +75,21 @@ impl<S: Port> Link<S> {
         self.epoch.elapsed()
     }
 
-    /// Runs one command to its end (success, fault or timeout).
+    /// Runs one command to its end (success, fault or timeout). A command left unfinished by
+    /// a dropped future is first driven to its end (its outcome discarded), so a stale reply
+    /// is never taken for the new command's.
     pub async fn run(&mut self, cmd: Command) -> Result<Outcome, LinkError> {
+        if self.ctrl.is_busy() {
+            let r = self.drive().await;
+            tracing::info!(port = %self.port, "finished an abandoned command first: {r:?}");
+        }
         let now = self.now();
         self.ctrl.start(cmd, now)?;
+        self.drive().await
+    }
+
+    /// Feeds the state machine until the command in progress has a result.
+    async fn drive(&mut self) -> Result<Outcome, LinkError> {
         loop {
             self.flush().await?;
             if let Some(r) = self.ctrl.poll_result() {
@@ -114,11 +125,15 @@ impl<S: Port> Link<S> {
         }
     }
 
-    /// Stops at once: the reset bytes (or stop lines) go out and any command is abandoned.
+    /// Stops at once: the reset bytes (or stop lines) go out and any command is abandoned;
+    /// after a reset, the controller's start-up lines are absorbed before this returns.
     pub async fn stop(&mut self) -> Result<(), LinkError> {
         let now = self.now();
         self.ctrl.stop(now);
         while self.ctrl.poll_result().is_some() {}
+        if self.ctrl.is_busy() {
+            self.drive().await?;
+        }
         self.flush().await
     }
 
