@@ -20,9 +20,9 @@ impl PtyController {
     /// Opens a pseudo-terminal pair and serves a virtual controller on its controller end.
     /// Must be called inside a tokio runtime.
     pub fn spawn(cfg: VirtualConfig, clock: SimClock) -> std::io::Result<PtyController> {
-        let (device, mut keep_open) = SerialStream::pair().map_err(std::io::Error::other)?;
-        // Let clients open the path even though this end holds it.
-        let _ = keep_open.set_exclusive(false);
+        // The kept-open client end takes no lock (pair() sets none), so a client can open the
+        // path with the exclusive lock a serial port normally takes.
+        let (device, keep_open) = SerialStream::pair().map_err(std::io::Error::other)?;
         let path = keep_open
             .name()
             .ok_or_else(|| std::io::Error::other("pseudo-terminal has no path"))?;
