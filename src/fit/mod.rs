@@ -1,1 +1,5 @@
-//! fit (placeholder; filled in by its issue).
+//! Thickness extraction from reflectance spectra.
+
+pub mod result;
+
+pub use result::{FitResult, LayerResult};

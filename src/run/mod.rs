@@ -1,4 +1,8 @@
 //! Map runs: plan, sequencer, journal, run folder, history.
 
+pub mod events;
 pub mod files;
 pub mod folder;
+pub mod id;
+pub mod journal;
+pub mod plan;
