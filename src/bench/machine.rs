@@ -364,9 +364,10 @@ pub struct SimWaferSpec {
     /// Random short-range roughness, 1σ nm (a seeded smooth noise field).
     #[serde(default = "d_roughness")]
     pub roughness_nm: f64,
-    /// What the chuck beyond the wafer edge reflects like.
-    #[serde(default = "d_chuck_material")]
-    pub chuck_material: String,
+    /// Complex index `[n, k]` of the chuck seen beyond the wafer edge (default: a steel-like
+    /// metal, n ≈ 2.8, k ≈ 3.4 near 600 nm, from memory).
+    #[serde(default = "d_chuck_nk")]
+    pub chuck_nk: [f64; 2],
 }
 
 impl Default for SimWaferSpec {
@@ -380,7 +381,7 @@ impl Default for SimWaferSpec {
             edge_bead_width_mm: d_edge_bead_width(),
             tilt_nm_per_mm: d_tilt(),
             roughness_nm: d_roughness(),
-            chuck_material: d_chuck_material(),
+            chuck_nk: d_chuck_nk(),
         }
     }
 }
@@ -535,8 +536,8 @@ fn d_tilt() -> [f64; 2] {
 fn d_roughness() -> f64 {
     0.3
 }
-fn d_chuck_material() -> String {
-    "al".into()
+fn d_chuck_nk() -> [f64; 2] {
+    [2.8, 3.4]
 }
 fn d_range() -> [f64; 2] {
     [380.0, 1000.0]
@@ -862,6 +863,9 @@ fn check_simulation(s: &SimulationSpec, r: &mut Report) {
         1e3,
         "nm",
     );
+    if !(w.chuck_nk[0] >= 0.0 && w.chuck_nk[1] >= 0.0 && w.chuck_nk[0] + w.chuck_nk[1] > 0.0) {
+        r.at("simulation.wafer.chuck_nk", "n and k of the chuck must be zero or more, not both zero");
+    }
     if !w.tilt_nm_per_mm.iter().all(|v| v.is_finite()) {
         r.at("simulation.wafer.tilt_nm_per_mm", "tilt is not a number");
     }

@@ -14,5 +14,6 @@ pub mod kinematics;
 pub mod limits;
 pub mod machine;
 pub mod sim;
+pub mod spectrometer;
 pub mod stage;
 pub mod transport;

@@ -7,3 +7,4 @@ pub mod controller;
 pub mod pty;
 pub mod server;
 pub mod spectrometer;
+pub mod wafer;
