@@ -19,7 +19,9 @@ async fn serial_adapter_drives_the_virtual_controller_over_a_pty() {
     m.stage.port = pty.path().to_string();
 
     let port = open_serial(&m.stage.port, m.stage.baud).unwrap();
-    let mut stage = GcodeStage::connect(port, &m.stage, &m.stage.port).await.unwrap();
+    let mut stage = GcodeStage::connect(port, &m.stage, &m.stage.port)
+        .await
+        .unwrap();
     for (x, y) in [(120.0, 130.0), (180.0, 130.0), (150.0, 170.0)] {
         stage.move_to(x, y).await.unwrap();
         assert_eq!(stage.wait_idle().await.unwrap(), Some([x, y]));
@@ -27,13 +29,18 @@ async fn serial_adapter_drives_the_virtual_controller_over_a_pty() {
     stage.home().await.unwrap();
     assert_eq!(stage.position().await.unwrap(), Some([0.0, 0.0]));
     let t = stage.transcript();
-    assert!(t.iter().any(|l| l.contains("< Grbl (virtual)")), "banner read through the pty: {t:?}");
+    assert!(
+        t.iter().any(|l| l.contains("< Grbl (virtual)")),
+        "banner read through the pty: {t:?}"
+    );
     assert!(t.iter().any(|l| l.contains("> $X")));
     drop(stage);
 
     // A second client can open the same path after the first has gone.
     let port = open_serial(&m.stage.port, m.stage.baud).unwrap();
-    let mut stage = GcodeStage::connect(port, &m.stage, &m.stage.port).await.unwrap();
+    let mut stage = GcodeStage::connect(port, &m.stage, &m.stage.port)
+        .await
+        .unwrap();
     stage.move_to(100.0, 100.0).await.unwrap();
     assert_eq!(stage.wait_idle().await.unwrap(), Some([100.0, 100.0]));
     pty.abort();
@@ -43,5 +50,8 @@ async fn serial_adapter_drives_the_virtual_controller_over_a_pty() {
 fn opening_a_missing_port_says_what_to_check() {
     let e = open_serial("/dev/isopach-no-such-port", 115200).unwrap_err();
     let msg = e.to_string();
-    assert!(msg.contains("/dev/isopach-no-such-port") && msg.contains("stage.port"), "{msg}");
+    assert!(
+        msg.contains("/dev/isopach-no-such-port") && msg.contains("stage.port"),
+        "{msg}"
+    );
 }

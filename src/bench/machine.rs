@@ -864,7 +864,10 @@ fn check_simulation(s: &SimulationSpec, r: &mut Report) {
         "nm",
     );
     if !(w.chuck_nk[0] >= 0.0 && w.chuck_nk[1] >= 0.0 && w.chuck_nk[0] + w.chuck_nk[1] > 0.0) {
-        r.at("simulation.wafer.chuck_nk", "n and k of the chuck must be zero or more, not both zero");
+        r.at(
+            "simulation.wafer.chuck_nk",
+            "n and k of the chuck must be zero or more, not both zero",
+        );
     }
     if !w.tilt_nm_per_mm.iter().all(|v| v.is_finite()) {
         r.at("simulation.wafer.tilt_nm_per_mm", "tilt is not a number");
@@ -999,8 +1002,8 @@ impl MachineFile {
     }
 }
 
-/// The machine file of the built-in simulated bench: a 300 mm square stage with the chuck in
-/// the middle, confirmed by polling, virtual time 25× faster than real.
+/// The machine file of the built-in simulated bench: a 480 mm square stage (any wafer up to
+/// 450 mm fits) with the chuck in the middle, confirmed by polling, virtual time 25× faster.
 pub const BUILTIN_SIMULATED: &str = r#"
 name = "built-in simulated bench"
 [stage]
@@ -1016,12 +1019,12 @@ banner = "isopach virtual stage"
 startup_wait_s = 0.5
 feed_mm_min = 6000
 accel_mm_s2 = 1000
-travel_x_mm = [0, 320]
-travel_y_mm = [0, 320]
+travel_x_mm = [0, 480]
+travel_y_mm = [0, 480]
 margin_mm = 1
 backlash_mm = 0.5
 [chuck]
-center_mm = [160, 160]
+center_mm = [240, 240]
 [spectrometer]
 kind = "simulated"
 [simulation]

@@ -13,7 +13,13 @@ pub mod gcode;
 pub mod kinematics;
 pub mod limits;
 pub mod machine;
+pub mod open;
 pub mod sim;
 pub mod spectrometer;
 pub mod stage;
 pub mod transport;
+
+pub use machine::{LoadedMachine, MachineError, MachineFile};
+pub use open::{Bench, BenchError};
+pub use spectrometer::{Spectrometer, SpectrometerError};
+pub use stage::{PositionHandle, Stage, StageError};

@@ -63,11 +63,23 @@ pub enum SpectrometerError {
 /// Object-safe (boxed futures) so the sequencer can hold a `Box<dyn Spectrometer>`.
 pub trait Spectrometer: Send {
     /// Counts of the sample under the probe.
-    fn acquire(&mut self, integration_ms: f64, averages: u32) -> BoxFuture<'_, Result<Counts, SpectrometerError>>;
+    fn acquire(
+        &mut self,
+        integration_ms: f64,
+        averages: u32,
+    ) -> BoxFuture<'_, Result<Counts, SpectrometerError>>;
     /// Dark counts (no light).
-    fn dark(&mut self, integration_ms: f64, averages: u32) -> BoxFuture<'_, Result<Counts, SpectrometerError>>;
+    fn dark(
+        &mut self,
+        integration_ms: f64,
+        averages: u32,
+    ) -> BoxFuture<'_, Result<Counts, SpectrometerError>>;
     /// Counts on the reference material.
-    fn reference(&mut self, integration_ms: f64, averages: u32) -> BoxFuture<'_, Result<Counts, SpectrometerError>>;
+    fn reference(
+        &mut self,
+        integration_ms: f64,
+        averages: u32,
+    ) -> BoxFuture<'_, Result<Counts, SpectrometerError>>;
     /// What it is, for messages and run records.
     fn describe(&self) -> String;
 }
@@ -80,7 +92,9 @@ pub fn check_settings(integration_ms: f64, averages: u32) -> Result<(), Spectrom
         )));
     }
     if averages == 0 {
-        return Err(SpectrometerError::Settings("averages must be at least 1".into()));
+        return Err(SpectrometerError::Settings(
+            "averages must be at least 1".into(),
+        ));
     }
     Ok(())
 }
@@ -93,7 +107,12 @@ pub struct CommandSpectrometer {
 }
 
 /// Substitutes the placeholders in every argument.
-pub fn expand_argv(argv: &[String], integration_ms: f64, averages: u32, kind: AcquireKind) -> Vec<String> {
+pub fn expand_argv(
+    argv: &[String],
+    integration_ms: f64,
+    averages: u32,
+    kind: AcquireKind,
+) -> Vec<String> {
     argv.iter()
         .map(|a| {
             a.replace("{integration_ms}", &format!("{integration_ms}"))
@@ -106,10 +125,18 @@ pub fn expand_argv(argv: &[String], integration_ms: f64, averages: u32, kind: Ac
 impl CommandSpectrometer {
     /// The backend a machine file's `[spectrometer]` describes (`command` must be non-empty).
     pub fn from_spec(spec: &SpectrometerSpec) -> CommandSpectrometer {
-        CommandSpectrometer { argv: spec.command.clone(), timeout: Duration::from_secs_f64(spec.timeout_s.max(0.001)) }
+        CommandSpectrometer {
+            argv: spec.command.clone(),
+            timeout: Duration::from_secs_f64(spec.timeout_s.max(0.001)),
+        }
     }
 
-    async fn run(&self, integration_ms: f64, averages: u32, kind: AcquireKind) -> Result<Counts, SpectrometerError> {
+    async fn run(
+        &self,
+        integration_ms: f64,
+        averages: u32,
+        kind: AcquireKind,
+    ) -> Result<Counts, SpectrometerError> {
         check_settings(integration_ms, averages)?;
         let argv = expand_argv(&self.argv, integration_ms, averages, kind);
         let program = argv.first().cloned().unwrap_or_default();
@@ -120,11 +147,20 @@ impl CommandSpectrometer {
             .stderr(Stdio::piped())
             .kill_on_drop(true)
             .spawn()
-            .map_err(|source| SpectrometerError::Start { program: program.clone(), source })?;
+            .map_err(|source| SpectrometerError::Start {
+                program: program.clone(),
+                source,
+            })?;
         let out = match tokio::time::timeout(self.timeout, child.wait_with_output()).await {
-            Ok(r) => r.map_err(|source| SpectrometerError::Start { program: program.clone(), source })?,
+            Ok(r) => r.map_err(|source| SpectrometerError::Start {
+                program: program.clone(),
+                source,
+            })?,
             Err(_) => {
-                return Err(SpectrometerError::Timeout { program, timeout_s: self.timeout.as_secs_f64() });
+                return Err(SpectrometerError::Timeout {
+                    program,
+                    timeout_s: self.timeout.as_secs_f64(),
+                });
             }
         };
         let stderr = String::from_utf8_lossy(&out.stderr).trim().to_string();
@@ -132,21 +168,42 @@ impl CommandSpectrometer {
             tracing::info!(program = %program, kind = kind.as_str(), "spectrometer stderr: {stderr}");
         }
         if !out.status.success() {
-            return Err(SpectrometerError::Failed { program, status: out.status.to_string(), stderr });
+            return Err(SpectrometerError::Failed {
+                program,
+                status: out.status.to_string(),
+                stderr,
+            });
         }
-        parse_counts_csv(&String::from_utf8_lossy(&out.stdout))
-            .map_err(|(line, message)| SpectrometerError::Output { program, line, message })
+        parse_counts_csv(&String::from_utf8_lossy(&out.stdout)).map_err(|(line, message)| {
+            SpectrometerError::Output {
+                program,
+                line,
+                message,
+            }
+        })
     }
 }
 
 impl Spectrometer for CommandSpectrometer {
-    fn acquire(&mut self, integration_ms: f64, averages: u32) -> BoxFuture<'_, Result<Counts, SpectrometerError>> {
+    fn acquire(
+        &mut self,
+        integration_ms: f64,
+        averages: u32,
+    ) -> BoxFuture<'_, Result<Counts, SpectrometerError>> {
         Box::pin(self.run(integration_ms, averages, AcquireKind::Sample))
     }
-    fn dark(&mut self, integration_ms: f64, averages: u32) -> BoxFuture<'_, Result<Counts, SpectrometerError>> {
+    fn dark(
+        &mut self,
+        integration_ms: f64,
+        averages: u32,
+    ) -> BoxFuture<'_, Result<Counts, SpectrometerError>> {
         Box::pin(self.run(integration_ms, averages, AcquireKind::Dark))
     }
-    fn reference(&mut self, integration_ms: f64, averages: u32) -> BoxFuture<'_, Result<Counts, SpectrometerError>> {
+    fn reference(
+        &mut self,
+        integration_ms: f64,
+        averages: u32,
+    ) -> BoxFuture<'_, Result<Counts, SpectrometerError>> {
         Box::pin(self.run(integration_ms, averages, AcquireKind::Reference))
     }
     fn describe(&self) -> String {
@@ -189,7 +246,10 @@ pub fn parse_counts_csv(text: &str) -> Result<Counts, (usize, String)> {
         c.counts.push(v);
     }
     if c.counts.len() < 3 {
-        return Err((last_line.max(1), format!("{} data rows; at least 3 are needed", c.counts.len())));
+        return Err((
+            last_line.max(1),
+            format!("{} data rows; at least 3 are needed", c.counts.len()),
+        ));
     }
     Ok(c)
 }
@@ -200,16 +260,35 @@ mod tests {
 
     #[test]
     fn placeholders_expand() {
-        let argv = vec!["grab".into(), "--ms={integration_ms}".into(), "{averages}".into(), "--{kind}".into()];
-        assert_eq!(expand_argv(&argv, 12.5, 4, AcquireKind::Dark), vec!["grab", "--ms=12.5", "4", "--dark"]);
+        let argv = vec![
+            "grab".into(),
+            "--ms={integration_ms}".into(),
+            "{averages}".into(),
+            "--{kind}".into(),
+        ];
+        assert_eq!(
+            expand_argv(&argv, 12.5, 4, AcquireKind::Dark),
+            vec!["grab", "--ms=12.5", "4", "--dark"]
+        );
     }
 
     #[test]
     fn counts_csv_errors_name_the_line() {
-        let ok = parse_counts_csv("# from a test\nwavelength_nm,counts\n400,10\n401,11\n402,12\n").unwrap();
+        let ok = parse_counts_csv("# from a test\nwavelength_nm,counts\n400,10\n401,11\n402,12\n")
+            .unwrap();
         assert_eq!(ok.counts, vec![10.0, 11.0, 12.0]);
-        assert_eq!(parse_counts_csv("wavelength_nm,counts\n400,1\n399,2\n").unwrap_err().0, 3);
+        assert_eq!(
+            parse_counts_csv("wavelength_nm,counts\n400,1\n399,2\n")
+                .unwrap_err()
+                .0,
+            3
+        );
         assert_eq!(parse_counts_csv("lambda,x\n").unwrap_err().0, 1);
-        assert_eq!(parse_counts_csv("wavelength_nm,counts\n400,abc\n").unwrap_err().0, 2);
+        assert_eq!(
+            parse_counts_csv("wavelength_nm,counts\n400,abc\n")
+                .unwrap_err()
+                .0,
+            2
+        );
     }
 }

@@ -73,10 +73,22 @@ impl VirtualSpectrometer {
     ) -> VirtualSpectrometer {
         let n = spec.pixels.max(2);
         let [a, b] = spec.wavelength_nm;
-        let wavelength_nm: Vec<f64> = (0..n).map(|i| a + (b - a) * i as f64 / (n - 1) as f64).collect();
-        let shape: Vec<f64> = wavelength_nm.iter().map(|&l| planck_relative(l, spec.lamp_k) * detector_response(l)).collect();
-        let peak = shape.iter().cloned().fold(0.0, f64::max).max(f64::MIN_POSITIVE);
-        let rate = shape.iter().map(|s| spec.peak_counts_per_ms * s / peak).collect();
+        let wavelength_nm: Vec<f64> = (0..n)
+            .map(|i| a + (b - a) * i as f64 / (n - 1) as f64)
+            .collect();
+        let shape: Vec<f64> = wavelength_nm
+            .iter()
+            .map(|&l| planck_relative(l, spec.lamp_k) * detector_response(l))
+            .collect();
+        let peak = shape
+            .iter()
+            .cloned()
+            .fold(0.0, f64::max)
+            .max(f64::MIN_POSITIVE);
+        let rate = shape
+            .iter()
+            .map(|s| spec.peak_counts_per_ms * s / peak)
+            .collect();
         let reference = reference.reflectance(0.0, 0.0, &wavelength_nm);
         VirtualSpectrometer {
             spec: spec.clone(),
@@ -98,11 +110,20 @@ impl VirtualSpectrometer {
 
     /// Mean signal counts per ms (above the dark level) for a reflectance, per pixel.
     pub fn signal_rate(&self, reflectance: &[f64]) -> Vec<f64> {
-        self.rate.iter().zip(reflectance).map(|(r, q)| r * q.max(0.0)).collect()
+        self.rate
+            .iter()
+            .zip(reflectance)
+            .map(|(r, q)| r * q.max(0.0))
+            .collect()
     }
 
     /// Draws one acquisition (pure apart from the generator; no waiting).
-    pub fn render(&mut self, target: Target, integration_ms: f64, averages: u32) -> Result<Counts, SpectrometerError> {
+    pub fn render(
+        &mut self,
+        target: Target,
+        integration_ms: f64,
+        averages: u32,
+    ) -> Result<Counts, SpectrometerError> {
         check_settings(integration_ms, averages)?;
         let refl = match target {
             Target::Dark => vec![0.0; self.wavelength_nm.len()],
@@ -124,7 +145,8 @@ impl VirtualSpectrometer {
             for (i, acc) in sum.iter_mut().enumerate() {
                 let signal = self.rate[i] * refl[i].max(0.0) * t;
                 let var = (signal + dark) / s.electrons_per_count + s.read_noise_counts.powi(2);
-                let v = s.dark_offset_counts + dark + signal + var.sqrt() * read.sample(&mut self.rng);
+                let v =
+                    s.dark_offset_counts + dark + signal + var.sqrt() * read.sample(&mut self.rng);
                 *acc += v.round().clamp(0.0, s.full_scale_counts);
             }
         }
@@ -134,27 +156,49 @@ impl VirtualSpectrometer {
         })
     }
 
-    async fn take(&mut self, target: Target, integration_ms: f64, averages: u32) -> Result<Counts, SpectrometerError> {
+    async fn take(
+        &mut self,
+        target: Target,
+        integration_ms: f64,
+        averages: u32,
+    ) -> Result<Counts, SpectrometerError> {
         let c = self.render(target, integration_ms, averages)?;
-        self.clock.sleep(integration_ms * averages as f64 / 1000.0).await;
+        self.clock
+            .sleep(integration_ms * averages as f64 / 1000.0)
+            .await;
         Ok(c)
     }
 }
 
 impl Spectrometer for VirtualSpectrometer {
-    fn acquire(&mut self, integration_ms: f64, averages: u32) -> BoxFuture<'_, Result<Counts, SpectrometerError>> {
+    fn acquire(
+        &mut self,
+        integration_ms: f64,
+        averages: u32,
+    ) -> BoxFuture<'_, Result<Counts, SpectrometerError>> {
         Box::pin(self.take(Target::Sample, integration_ms, averages))
     }
-    fn dark(&mut self, integration_ms: f64, averages: u32) -> BoxFuture<'_, Result<Counts, SpectrometerError>> {
+    fn dark(
+        &mut self,
+        integration_ms: f64,
+        averages: u32,
+    ) -> BoxFuture<'_, Result<Counts, SpectrometerError>> {
         Box::pin(self.take(Target::Dark, integration_ms, averages))
     }
-    fn reference(&mut self, integration_ms: f64, averages: u32) -> BoxFuture<'_, Result<Counts, SpectrometerError>> {
+    fn reference(
+        &mut self,
+        integration_ms: f64,
+        averages: u32,
+    ) -> BoxFuture<'_, Result<Counts, SpectrometerError>> {
         Box::pin(self.take(Target::Reference, integration_ms, averages))
     }
     fn describe(&self) -> String {
         format!(
             "virtual spectrometer {}–{} nm, {} pixels, {} K lamp",
-            self.spec.wavelength_nm[0], self.spec.wavelength_nm[1], self.spec.pixels, self.spec.lamp_k
+            self.spec.wavelength_nm[0],
+            self.spec.wavelength_nm[1],
+            self.spec.pixels,
+            self.spec.lamp_k
         )
     }
 }

@@ -42,10 +42,20 @@ impl ThicknessField {
                 let wavelength = rng.random_range(3.0..15.0);
                 let dir = rng.random_range(0.0..2.0 * PI);
                 let k = 2.0 * PI / wavelength;
-                (k * dir.cos(), k * dir.sin(), rng.random_range(0.0..2.0 * PI), amp)
+                (
+                    k * dir.cos(),
+                    k * dir.sin(),
+                    rng.random_range(0.0..2.0 * PI),
+                    amp,
+                )
             })
             .collect();
-        ThicknessField { nominal_nm, radius_mm, spec: spec.clone(), waves }
+        ThicknessField {
+            nominal_nm,
+            radius_mm,
+            spec: spec.clone(),
+            waves,
+        }
     }
 
     /// Thickness at wafer position (x, y), nm (never below zero).
@@ -54,7 +64,11 @@ impl ThicknessField {
         let r = x_mm.hypot(y_mm);
         let rho = r / self.radius_mm;
         let bead = s.edge_bead_nm * (-(self.radius_mm - r).max(0.0) / s.edge_bead_width_mm).exp();
-        let rough: f64 = self.waves.iter().map(|(kx, ky, ph, a)| a * (kx * x_mm + ky * y_mm + ph).cos()).sum();
+        let rough: f64 = self
+            .waves
+            .iter()
+            .map(|(kx, ky, ph, a)| a * (kx * x_mm + ky * y_mm + ph).cos())
+            .sum();
         let t = self.nominal_nm
             + s.center_offset_nm
             + s.dome_nm * (0.5 - rho * rho)
@@ -81,17 +95,27 @@ pub struct VirtualWafer {
 
 impl VirtualWafer {
     /// The virtual wafer of a recipe (its geometry, stack, incidence and NA).
-    pub fn for_recipe(recipe: &LoadedRecipe, spec: &SimWaferSpec, seed: u64) -> Result<VirtualWafer, OpticsError> {
+    pub fn for_recipe(
+        recipe: &LoadedRecipe,
+        spec: &SimWaferSpec,
+        seed: u64,
+    ) -> Result<VirtualWafer, OpticsError> {
         let r = &recipe.recipe;
         let lib = MaterialLibrary::for_recipe(r, recipe.dir())?;
-        let mut stack = Stack::bare(lib.require(&r.film.ambient)?.clone(), lib.require(&r.film.substrate)?.clone());
+        let mut stack = Stack::bare(
+            lib.require(&r.film.ambient)?.clone(),
+            lib.require(&r.film.substrate)?.clone(),
+        );
         for l in &r.film.layers {
             stack = stack.with_layer(lib.require(&l.material)?.clone(), l.nominal_nm);
         }
         let varied = r.film.layers.iter().position(|l| l.fit).unwrap_or(0);
         let nominal = r.film.layers.get(varied).map_or(0.0, |l| l.nominal_nm);
         let wafer = recipe.wafer();
-        let chuck = Stack::bare(stack.ambient.clone(), Material::constant("chuck", spec.chuck_nk[0], spec.chuck_nk[1]));
+        let chuck = Stack::bare(
+            stack.ambient.clone(),
+            Material::constant("chuck", spec.chuck_nk[0], spec.chuck_nk[1]),
+        );
         Ok(VirtualWafer {
             field: ThicknessField::new(nominal, wafer.radius(), spec, seed),
             wafer,
@@ -105,7 +129,9 @@ impl VirtualWafer {
 
     /// The thickness of the varied layer at (x, y), or `None` off the wafer.
     pub fn thickness_nm(&self, x_mm: f64, y_mm: f64) -> Option<f64> {
-        self.wafer.contains(x_mm, y_mm).then(|| self.field.thickness_nm(x_mm, y_mm))
+        self.wafer
+            .contains(x_mm, y_mm)
+            .then(|| self.field.thickness_nm(x_mm, y_mm))
     }
 
     /// The stack at (x, y), or `None` off the wafer.
@@ -137,7 +163,9 @@ pub struct BareSample {
 impl BareSample {
     /// A bare piece of `material` under `ambient`.
     pub fn new(ambient: Material, material: Material) -> BareSample {
-        BareSample { stack: Stack::bare(ambient, material) }
+        BareSample {
+            stack: Stack::bare(ambient, material),
+        }
     }
 }
 
@@ -153,16 +181,31 @@ mod tests {
 
     #[test]
     fn field_terms_do_what_they_say() {
-        let mut spec = SimWaferSpec { roughness_nm: 0.0, ripple_nm: 0.0, edge_bead_nm: 0.0, tilt_nm_per_mm: [0.0, 0.0], ..SimWaferSpec::default() };
+        let mut spec = SimWaferSpec {
+            roughness_nm: 0.0,
+            ripple_nm: 0.0,
+            edge_bead_nm: 0.0,
+            tilt_nm_per_mm: [0.0, 0.0],
+            ..SimWaferSpec::default()
+        };
         spec.dome_nm = 20.0;
         let f = ThicknessField::new(1000.0, 75.0, &spec, 1);
-        assert!((f.thickness_nm(0.0, 0.0) - 1010.0).abs() < 1e-9, "dome: centre +dome/2");
-        assert!((f.thickness_nm(75.0, 0.0) - 990.0).abs() < 1e-9, "edge −dome/2");
+        assert!(
+            (f.thickness_nm(0.0, 0.0) - 1010.0).abs() < 1e-9,
+            "dome: centre +dome/2"
+        );
+        assert!(
+            (f.thickness_nm(75.0, 0.0) - 990.0).abs() < 1e-9,
+            "edge −dome/2"
+        );
         spec.dome_nm = 0.0;
         spec.roughness_nm = 0.5;
         let f = ThicknessField::new(1000.0, 75.0, &spec, 7);
         // Sample σ of the roughness over a grid is near the set value.
-        let v: Vec<f64> = (0..60).flat_map(|i| (0..60).map(move |j| (i as f64 * 2.1 - 60.0, j as f64 * 2.1 - 60.0))).map(|(x, y)| f.thickness_nm(x, y) - 1000.0).collect();
+        let v: Vec<f64> = (0..60)
+            .flat_map(|i| (0..60).map(move |j| (i as f64 * 2.1 - 60.0, j as f64 * 2.1 - 60.0)))
+            .map(|(x, y)| f.thickness_nm(x, y) - 1000.0)
+            .collect();
         let m = v.iter().sum::<f64>() / v.len() as f64;
         let sd = (v.iter().map(|d| (d - m).powi(2)).sum::<f64>() / v.len() as f64).sqrt();
         assert!((sd - 0.5).abs() < 0.15, "σ = {sd}");
