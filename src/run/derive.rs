@@ -19,8 +19,16 @@ pub fn planned_sites(meta: &RunToml) -> Vec<Site> {
 }
 
 /// Reads the journal and folds it into per-site state.
-pub fn read_states(folder: &RunFolder, meta: &RunToml) -> anyhow::Result<(Vec<Event>, Vec<SiteState>)> {
-    let events: Vec<Event> = journal::read(&folder.journal())?.events;
+pub fn read_states(
+    folder: &RunFolder,
+    meta: &RunToml,
+) -> anyhow::Result<(Vec<Event>, Vec<SiteState>)> {
+    // A run folder whose first session has not journalled anything yet has no journal.
+    let events: Vec<Event> = if folder.journal().exists() {
+        journal::read(&folder.journal())?.events
+    } else {
+        Vec::new()
+    };
     let states = site_states(&planned_sites(meta), &events);
     Ok((events, states))
 }
@@ -33,7 +41,9 @@ pub fn rows(states: &[SiteState], layers: usize) -> Vec<SiteRow> {
             let best = s.best();
             let fit = best.and_then(|a| a.fit.as_ref());
             let pick = |f: &dyn Fn(&crate::fit::LayerResult) -> f64| -> Vec<f64> {
-                (0..layers).map(|k| fit.and_then(|r| r.layers.get(k)).map(f).unwrap_or(f64::NAN)).collect()
+                (0..layers)
+                    .map(|k| fit.and_then(|r| r.layers.get(k)).map(f).unwrap_or(f64::NAN))
+                    .collect()
             };
             SiteRow {
                 site: s.site.number,

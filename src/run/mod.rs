@@ -7,4 +7,5 @@ pub mod folder;
 pub mod id;
 pub mod journal;
 pub mod plan;
+pub mod sequencer;
 pub mod session;

@@ -41,13 +41,24 @@ pub fn create(loaded: &LoadedRecipe, new: &NewRun) -> anyhow::Result<(RunFolder,
     let base = run_id(now, &new.wafer);
     // Two runs of one wafer in the same second get a suffix rather than sharing a folder.
     let (id, root) = (1..1000)
-        .map(|k| if k == 1 { base.clone() } else { format!("{base}-{k}") })
+        .map(|k| {
+            if k == 1 {
+                base.clone()
+            } else {
+                format!("{base}-{k}")
+            }
+        })
         .map(|id| {
             let root = new.runs_dir.join(&id);
             (id, root)
         })
         .find(|(_, root)| std::fs::create_dir(root).is_ok())
-        .with_context(|| format!("cannot create a run folder for {base} in {}", new.runs_dir.display()))?;
+        .with_context(|| {
+            format!(
+                "cannot create a run folder for {base} in {}",
+                new.runs_dir.display()
+            )
+        })?;
     let folder = RunFolder::new(root);
     std::fs::create_dir_all(folder.spectra_dir())?;
     let recipe = freeze_tables(&loaded.recipe, loaded.dir(), &folder.root)?;
@@ -77,7 +88,11 @@ pub fn write_run_toml(folder: &RunFolder, meta: &RunToml) -> anyhow::Result<()> 
 }
 
 /// Copies each `table` material's file into the run folder and points the recipe at the copy.
-pub fn freeze_tables(recipe: &Recipe, recipe_dir: &Path, run_root: &Path) -> anyhow::Result<Recipe> {
+pub fn freeze_tables(
+    recipe: &Recipe,
+    recipe_dir: &Path,
+    run_root: &Path,
+) -> anyhow::Result<Recipe> {
     let mut out = recipe.clone();
     for (name, spec) in out.materials.iter_mut() {
         if let MaterialSpec::Table { file } = spec {
@@ -85,8 +100,12 @@ pub fn freeze_tables(recipe: &Recipe, recipe_dir: &Path, run_root: &Path) -> any
             let rel = format!("{MATERIALS_DIR}/{name}.csv");
             let dst = run_root.join(&rel);
             std::fs::create_dir_all(run_root.join(MATERIALS_DIR))?;
-            std::fs::copy(&src, &dst)
-                .with_context(|| format!("cannot copy n,k table {} into the run folder", src.display()))?;
+            std::fs::copy(&src, &dst).with_context(|| {
+                format!(
+                    "cannot copy n,k table {} into the run folder",
+                    src.display()
+                )
+            })?;
             *file = rel;
         }
     }
