@@ -12,9 +12,9 @@ use isopach::run::derive::{self, planned_sites};
 use isopach::run::events::{now, Event};
 use isopach::run::folder::{RunFolder, RunToml};
 use isopach::run::plan;
+use isopach::run::refit::fit_stored;
 use isopach::run::sequencer::{Outcome, Progress, Sequencer};
 use isopach::run::session::loaded_recipe;
-use isopach::spectrum::{read_csv, SpectrumFile};
 use std::collections::BTreeMap;
 use std::sync::Arc;
 
@@ -163,7 +163,7 @@ async fn session_async(
 }
 
 /// The material the reference spectrum is taken on.
-fn reference_material(machine: &Option<MachineFile>) -> String {
+pub fn reference_material(machine: &Option<MachineFile>) -> String {
     machine
         .as_ref()
         .map(|m| m.reference.material.clone())
@@ -187,34 +187,15 @@ fn refit_unfitted(
     for s in states {
         for a in s.unfitted() {
             let Some(rel) = &a.spectrum else { continue };
-            let event = match read_csv(&folder.root.join(rel)) {
-                Ok(SpectrumFile::Counts(raw)) => match fitter.fit_raw(&raw, &material) {
-                    Ok(fit) => {
-                        let (valid, flag) = isopach::run::events::judge(&fit, &meta.recipe.accept);
-                        Event::SiteFitted {
-                            time: now(),
-                            site: s.site.number,
-                            attempt: a.attempt,
-                            fit,
-                            valid,
-                            flag,
-                        }
-                    }
-                    Err(e) => Event::SiteFailed {
-                        time: now(),
-                        site: s.site.number,
-                        attempt: a.attempt,
-                        reason: e.to_string(),
-                    },
-                },
-                Ok(SpectrumFile::Reflectance(_)) => continue,
-                Err(e) => Event::SiteFailed {
-                    time: now(),
-                    site: s.site.number,
-                    attempt: a.attempt,
-                    reason: e.to_string(),
-                },
-            };
+            let event = fit_stored(
+                folder,
+                s.site.number,
+                a.attempt,
+                rel,
+                fitter,
+                &material,
+                &meta.recipe.accept,
+            );
             seq.log(&event)?;
         }
     }

@@ -7,5 +7,6 @@ pub mod folder;
 pub mod id;
 pub mod journal;
 pub mod plan;
+pub mod refit;
 pub mod sequencer;
 pub mod session;
