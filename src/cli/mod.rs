@@ -4,9 +4,11 @@
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
 
+mod bench;
 mod check;
 mod compare;
 mod fit;
+mod machine_arg;
 mod refit;
 mod remeasure;
 mod render;
@@ -67,6 +69,8 @@ enum Command {
     Check(check::Args),
     /// Bench set-up: home, where, move.
     Stage(stage::Args),
+    /// Simulated bench tools: serve the virtual controller on a pseudo-terminal.
+    Bench(bench::Args),
 }
 
 /// Parses the command line and runs the command.
@@ -84,6 +88,7 @@ pub fn main() -> ExitCode {
         Command::Sites(a) => sites::run(a),
         Command::Check(a) => check::run(a),
         Command::Stage(a) => stage::run(a),
+        Command::Bench(a) => bench::run(a),
     };
     match result {
         Ok(code) => ExitCode::from(code),
