@@ -21,10 +21,10 @@ fn write(dir: &Path, name: &str, text: &str) -> PathBuf {
 
 const SMALL: &str = "name = \"small\"\n[stage]\nport = \"/dev/isopach-none\"\ntravel_x_mm = [0, 120]\ntravel_y_mm = [0, 120]\n[chuck]\ncenter_mm = [60, 60]\n";
 
-#[test]
-fn check_names_sites_outside_the_soft_limits() {
+/// Runs `isopach check` on the 49-site oxide recipe with a machine file of this text.
+fn check_with(machine: &str) -> (Option<i32>, String) {
     let dir = tempfile::tempdir().unwrap();
-    let m = write(dir.path(), "m.toml", SMALL);
+    let m = write(dir.path(), "m.toml", machine);
     let out = bin()
         .arg("check")
         .arg(root().join("recipes/oxide-150-49.toml"))
@@ -32,8 +32,16 @@ fn check_names_sites_outside_the_soft_limits() {
         .arg(&m)
         .output()
         .unwrap();
-    let text = String::from_utf8_lossy(&out.stdout);
-    assert_eq!(out.status.code(), Some(2), "{text}");
+    (
+        out.status.code(),
+        String::from_utf8_lossy(&out.stdout).into_owned(),
+    )
+}
+
+#[test]
+fn check_names_sites_outside_the_soft_limits() {
+    let (code, text) = check_with(SMALL);
+    assert_eq!(code, Some(2), "{text}");
     // 150 mm wafer, 5 mm exclusion: outer ring at r = 70 mm; centre 60 → x = 130 > 119.
     assert!(
         text.contains("site 26 at wafer (70.000, 0.000) mm"),
@@ -47,17 +55,8 @@ fn check_names_sites_outside_the_soft_limits() {
 
 #[test]
 fn check_reports_machine_file_errors_with_lines() {
-    let dir = tempfile::tempdir().unwrap();
-    let m = write(dir.path(), "m.toml", "name = \"x\"\n[stage]\nport = \"/dev/x\"\ntravel_x_mm = [0, 100]\ntravel_y_mm = [0, 100]\nmotion_complete = \"wait\"\n");
-    let out = bin()
-        .arg("check")
-        .arg(root().join("recipes/oxide-150-49.toml"))
-        .arg("--machine")
-        .arg(&m)
-        .output()
-        .unwrap();
-    let text = String::from_utf8_lossy(&out.stdout);
-    assert_eq!(out.status.code(), Some(2));
+    let (code, text) = check_with("name = \"x\"\n[stage]\nport = \"/dev/x\"\ntravel_x_mm = [0, 100]\ntravel_y_mm = [0, 100]\nmotion_complete = \"wait\"\n");
+    assert_eq!(code, Some(2));
     assert!(text.contains("m.toml:6:"), "{text}");
 }
 
