@@ -9,11 +9,14 @@ mod check;
 mod compare;
 mod fit;
 mod machine_arg;
+mod measure;
+mod output;
 mod refit;
 mod remeasure;
 mod render;
 mod resume;
 mod run;
+mod safety;
 mod sites;
 mod stage;
 mod trend;
@@ -101,9 +104,10 @@ pub fn main() -> ExitCode {
 
 /// Invalid input exits 2, everything else 1.
 fn error_code(e: &anyhow::Error) -> u8 {
-    if e.chain()
-        .any(|c| c.downcast_ref::<isopach::recipe::RecipeError>().is_some())
-    {
+    if e.chain().any(|c| {
+        c.downcast_ref::<isopach::recipe::RecipeError>().is_some()
+            || c.downcast_ref::<isopach::bench::MachineError>().is_some()
+    }) {
         exit::INVALID
     } else {
         exit::FAILED

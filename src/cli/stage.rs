@@ -7,7 +7,6 @@ use super::machine_arg;
 use isopach::bench::machine::builtin_simulated;
 use isopach::bench::sim::clock::SimClock;
 use isopach::bench::{open_stage, ChuckTransform, Stage};
-use std::io::{BufRead, IsTerminal, Write};
 use std::path::PathBuf;
 
 /// Arguments of `isopach stage`.
@@ -64,18 +63,12 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         _ => None,
     };
     let moves = !matches!(args.action, Action::Where);
-    if moves && !m.stage_is_simulated() && !args.yes {
-        let what = match target {
-            Some(p) => format!("move to ({:.3}, {:.3}) mm", p[0], p[1]),
-            None => "home".into(),
-        };
-        if !confirm(&format!(
-            "The stage on {} will {what}. Keep hands and objectives clear.",
-            m.stage.port
-        ))? {
-            eprintln!("not confirmed; nothing was sent");
-            return Ok(super::exit::FAILED);
+    if moves && !m.stage_is_simulated() {
+        match target {
+            Some(p) => eprintln!("target: stage ({:.3}, {:.3}) mm", p[0], p[1]),
+            None => eprintln!("target: home ({})", m.stage.home.join(", ")),
         }
+        super::safety::confirm_motion(&m.stage.port, args.yes)?;
     }
     let rt = tokio::runtime::Runtime::new()?;
     rt.block_on(async move {
@@ -122,18 +115,4 @@ fn print_position(stage: &dyn Stage, pos: Option<[f64; 2]>, t: &ChuckTransform) 
             stage.describe()
         ),
     }
-}
-
-/// Asks on the terminal; a non-interactive stdin never confirms.
-fn confirm(message: &str) -> anyhow::Result<bool> {
-    let stdin = std::io::stdin();
-    if !stdin.is_terminal() {
-        eprintln!("{message}\nstdin is not a terminal: pass --yes to confirm motion");
-        return Ok(false);
-    }
-    eprint!("{message}\nType yes to go on: ");
-    std::io::stderr().flush()?;
-    let mut line = String::new();
-    stdin.lock().read_line(&mut line)?;
-    Ok(line.trim().eq_ignore_ascii_case("yes"))
 }

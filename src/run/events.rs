@@ -65,20 +65,20 @@ pub fn now() -> String {
     chrono::Local::now().to_rfc3339_opts(chrono::SecondsFormat::Millis, false)
 }
 
-/// Whether a fit is acceptable, and the flag that goes into `sites.csv` (`ok` when valid).
+/// Whether a fit is acceptable, and the flag that goes into `sites.csv`: `ok` when valid
+/// (warnings such as `ambiguous` stay in the journal), else the reasons joined by `;`.
 pub fn judge(fit: &FitResult, accept: &AcceptSpec) -> (bool, String) {
+    if fit.is_valid(accept.min_gof) {
+        return (true, "ok".to_string());
+    }
     let mut flags = fit.flags.clone();
     if fit.gof < accept.min_gof && !flags.iter().any(|f| f == "poor-fit") {
         flags.push("poor-fit".to_string());
     }
-    if fit.layers.iter().any(|l| !l.thickness_nm.is_finite()) {
-        flags.push("no-result".to_string());
-    }
     if flags.is_empty() {
-        (true, "ok".to_string())
-    } else {
-        (false, flags.join(";"))
+        flags.push("no-fit".to_string());
     }
+    (false, flags.join(";"))
 }
 
 /// Whether the first fitted layer is inside the recipe's specification window.

@@ -149,6 +149,30 @@ pub fn path_length(start: (f64, f64), sites: &[Site]) -> f64 {
     total
 }
 
+/// Lower bound of a map's duration, s: trapezoidal moves along the path (feed, acceleration)
+/// plus `per_site_s` (settle + integration × averages) at every site.
+pub fn duration_lower_bound_s(
+    start: (f64, f64),
+    sites: &[Site],
+    feed_mm_min: f64,
+    accel_mm_s2: f64,
+    per_site_s: f64,
+) -> f64 {
+    let mut here = Site {
+        number: 0,
+        x_mm: start.0,
+        y_mm: start.1,
+    };
+    let mut total = 0.0;
+    for s in sites {
+        total += crate::bench::kinematics::Trapezoid::new(dist(&here, s), feed_mm_min, accel_mm_s2)
+            .duration_s()
+            + per_site_s;
+        here = *s;
+    }
+    total
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -43,8 +43,9 @@ pub fn savitzky_golay(values: &[f64], half: usize) -> Vec<f64> {
     out
 }
 
-/// Least-squares y = a + b x + c x² (normal equations; x is small and well conditioned).
-fn quadratic_fit(x: &[f64], y: &[f64]) -> [f64; 3] {
+/// Least-squares y = a + b x + c x² by the normal equations; keep x small (|x| ≲ 100) and
+/// centred for conditioning. Returns [a, b, c].
+pub fn quadratic_fit(x: &[f64], y: &[f64]) -> [f64; 3] {
     let mut s = [0.0; 5];
     let mut t = [0.0; 3];
     for (xi, yi) in x.iter().zip(y) {
