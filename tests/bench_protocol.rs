@@ -284,8 +284,7 @@ fn golden_transcript_poll_3x3_confirms_position_not_only_state() {
     let mut h = Harness::new(&m);
     assert_eq!(h.connect(), vec!["$X", "G21", "G90", "G94"]);
     let mut sent = Vec::new();
-    let mut site = 0;
-    for moves in plan_moves(&m) {
+    for (site, moves) in plan_moves(&m).into_iter().enumerate() {
         for p in &moves {
             sent.extend(h.ok_all(Command::Move {
                 x_mm: p[0],
@@ -324,10 +323,7 @@ fn golden_transcript_poll_3x3_confirms_position_not_only_state() {
             panic!()
         };
         assert!((p[0] - target[0]).abs() < 1e-9 && (p[1] - target[1]).abs() < 1e-9);
-        sent.push(format!("site {}", {
-            site += 1;
-            site
-        }));
+        sent.push(format!("site {}", site + 1));
     }
     // Centre (150, 150), rotated 90° CCW after flipping y: wafer (x, y) → stage (150 + y, 150 + x).
     let golden = [

@@ -3,9 +3,10 @@
 //! virtual wafer through the optics module.
 
 use isopach::bench::Bench;
+use isopach::fit::Fitter;
 use isopach::optics::{self, MaterialLibrary};
 use isopach::recipe::{self, LoadedRecipe, Site};
-use isopach::spectrum::{normalise, Counts};
+use isopach::spectrum::{normalise, Counts, RawSpectrum};
 use std::path::Path;
 
 fn recipe(name: &str) -> LoadedRecipe {
@@ -75,85 +76,43 @@ async fn seeded_noise_is_reproducible() {
     assert_ne!(x, z);
 }
 
-/// Brute-force thickness scan over the stack (a check on the spectrum, not the product fitter).
-fn scan_thickness(r: &LoadedRecipe, spectrum: &isopach::spectrum::Spectrum, around: f64) -> f64 {
-    let lib = MaterialLibrary::for_recipe(&r.recipe, r.dir()).unwrap();
-    let f = &r.recipe.film;
-    let (wl, meas): (Vec<f64>, Vec<f64>) = spectrum
-        .wavelength_nm
-        .iter()
-        .zip(&spectrum.reflectance)
-        .filter(|(w, _)| **w >= f.wavelength_nm[0] && **w <= f.wavelength_nm[1])
-        .step_by(3)
-        .map(|(w, r)| (*w, *r))
-        .unzip();
-    let cost = |t: f64| {
-        let stack = optics::Stack::bare(
-            lib.require(&f.ambient).unwrap().clone(),
-            lib.require(&f.substrate).unwrap().clone(),
-        )
-        .with_layer(lib.require(&f.layers[0].material).unwrap().clone(), t);
-        optics::reflectance(&stack, &wl, 0.0, 0.0)
-            .iter()
-            .zip(&meas)
-            .map(|(a, b)| (a - b).powi(2))
-            .sum::<f64>()
-    };
-    let mut best = (f64::INFINITY, around);
-    for i in -400..=400 {
-        let t = around + i as f64 * 0.25;
-        let c = cost(t);
-        if c < best.0 {
-            best = (c, t);
-        }
-    }
-    let mut t = best.1;
-    let mut step = 0.125;
-    for _ in 0..12 {
-        for cand in [t - step, t + step] {
-            if cost(cand) < cost(t) {
-                t = cand;
-            }
-        }
-        step /= 2.0;
-    }
-    t
-}
-
 #[tokio::test(start_paused = true)]
-async fn spectrum_at_a_site_carries_the_virtual_wafers_thickness() {
-    let r = recipe("oxide-150-49.toml");
-    let mut b = Bench::open(None, &r, 3).await.unwrap();
-    let site = Site {
-        number: 12,
-        x_mm: 40.0,
-        y_mm: -25.0,
-    };
-    let truth = b
-        .virtual_wafer()
-        .unwrap()
-        .thickness_nm(site.x_mm, site.y_mm)
-        .unwrap();
-    assert!((truth - 1000.0).abs() > 1.0, "the field varies: {truth}");
-    b.move_to_site(&site).await.unwrap();
-    let s = &mut b.spectrometer;
-    let (dark, reference, sample) = (
-        s.dark(20.0, 8).await.unwrap(),
-        s.reference(20.0, 8).await.unwrap(),
-        s.acquire(20.0, 8).await.unwrap(),
-    );
-    let lib = MaterialLibrary::for_recipe(&r.recipe, r.dir()).unwrap();
-    let si = optics::Stack::bare(
-        lib.require("air").unwrap().clone(),
-        lib.require("si").unwrap().clone(),
-    );
-    let r_ref = optics::reflectance(&si, &sample.wavelength_nm, 0.0, 0.0);
-    let spectrum = normalise(&sample, &dark, &reference, &r_ref).unwrap();
-    let found = scan_thickness(&r, &spectrum, 1000.0);
-    assert!(
-        (found - truth).abs() < 0.5,
-        "scan {found:.2} nm vs virtual wafer {truth:.2} nm"
-    );
+async fn fitting_its_spectrum_recovers_the_virtual_wafers_thickness() {
+    for name in ["oxide-150-49.toml", "resist-100-grid.toml"] {
+        let r = recipe(name);
+        let fitter = Fitter::from_recipe(&r).unwrap();
+        let mut b = Bench::open(None, &r, 3).await.unwrap();
+        let sites = r.sites();
+        for site in [sites[0], sites[sites.len() / 2], sites[sites.len() - 1]] {
+            let truth = b
+                .virtual_wafer()
+                .unwrap()
+                .thickness_nm(site.x_mm, site.y_mm)
+                .unwrap();
+            b.move_to_site(&site).await.unwrap();
+            let s = &mut b.spectrometer;
+            let raw = RawSpectrum {
+                dark: s.dark(20.0, 4).await.unwrap(),
+                reference: s.reference(20.0, 4).await.unwrap(),
+                sample: s.acquire(20.0, 4).await.unwrap(),
+            };
+            let fit = fitter.fit_raw(&raw, &b.machine.reference.material).unwrap();
+            let found = fit.layers[0].thickness_nm;
+            // 0.1 % of the thickness: the virtual spectrum is the model plus detector noise.
+            assert!(
+                (found - truth).abs() < 1e-3 * truth,
+                "{name} site {}: fitted {found:.2} nm ({}) vs virtual wafer {truth:.2} nm",
+                site.number,
+                fit.method
+            );
+            assert!(
+                fit.gof > 0.99,
+                "{name} site {}: gof {}",
+                site.number,
+                fit.gof
+            );
+        }
+    }
 }
 
 #[tokio::test(start_paused = true)]

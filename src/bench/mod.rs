@@ -19,7 +19,8 @@ pub mod spectrometer;
 pub mod stage;
 pub mod transport;
 
+pub use chuck::ChuckTransform;
 pub use machine::{LoadedMachine, MachineError, MachineFile};
-pub use open::{Bench, BenchError};
+pub use open::{open_stage, Bench, BenchError};
 pub use spectrometer::{Spectrometer, SpectrometerError};
 pub use stage::{PositionHandle, Stage, StageError};

@@ -37,6 +37,18 @@ fn list(v: &[SiteOutside]) -> String {
         .join("\n")
 }
 
+/// Connects to the stage of a machine file: the virtual controller (in-process, in the
+/// clock's virtual time) when its port is `"simulated"`, else the serial port.
+pub async fn open_stage(m: &MachineFile, clock: SimClock) -> Result<Box<dyn Stage>, StageError> {
+    Ok(if m.stage_is_simulated() {
+        let stream = spawn_duplex(VirtualConfig::from_machine(m), clock);
+        Box::new(GcodeStage::connect(stream, &m.stage, "simulated").await?)
+    } else {
+        let port = open_serial(&m.stage.port, m.stage.baud)?;
+        Box::new(GcodeStage::connect(port, &m.stage, &m.stage.port).await?)
+    })
+}
+
 /// A stage and a spectrometer, with the geometry that ties the wafer to the stage.
 pub struct Bench {
     pub stage: Box<dyn Stage>,
@@ -64,13 +76,7 @@ impl Bench {
         let m = machine.cloned().unwrap_or_else(builtin_simulated);
         let clock = SimClock::new(m.simulation.time_scale);
         let simulated_stage = m.stage_is_simulated();
-        let stage: Box<dyn Stage> = if simulated_stage {
-            let stream = spawn_duplex(VirtualConfig::from_machine(&m), clock);
-            Box::new(GcodeStage::connect(stream, &m.stage, "simulated").await?)
-        } else {
-            let port = open_serial(&m.stage.port, m.stage.baud).map_err(StageError::from)?;
-            Box::new(GcodeStage::connect(port, &m.stage, &m.stage.port).await?)
-        };
+        let stage = open_stage(&m, clock).await?;
         let transform = ChuckTransform::from_spec(&m.chuck);
         let seed = seed.wrapping_add(m.simulation.seed);
         let (spectrometer, wafer): (Box<dyn Spectrometer>, _) = match m.spectrometer.kind {

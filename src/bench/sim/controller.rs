@@ -475,17 +475,18 @@ impl VirtualController {
         let mut motion = false;
         let mut sync: Option<f64> = None;
         for &(l, v) in &words {
-            match (l, v) {
-                ('G', g) if g == 0.0 || g == 1.0 => motion = true,
-                ('G', g) if g == 4.0 => sync = Some(get('P').unwrap_or(0.0).max(0.0)),
-                ('G', g) if g == 20.0 => self.inches = true,
-                ('G', g) if g == 21.0 => self.inches = false,
-                ('G', g) if g == 90.0 => self.absolute = true,
-                ('G', g) if g == 91.0 => self.absolute = false,
-                ('G', g) if g == 17.0 || g == 54.0 || g == 94.0 => {}
-                ('M', m) if m == 400.0 => sync = Some(0.0),
-                ('M', m) if m == 2.0 || m == 30.0 || m == 5.0 || m == 9.0 => {}
-                ('G' | 'M', _) => return self.line("error:20"),
+            // Codes in tenths, so that G38.2-style decimals stay distinct from whole codes.
+            let code = (v * 10.0).round() as i64;
+            match (l, code) {
+                ('G', 0 | 10) => motion = true,
+                ('G', 40) => sync = Some(get('P').unwrap_or(0.0).max(0.0)),
+                ('G', 200) => self.inches = true,
+                ('G', 210) => self.inches = false,
+                ('G', 900) => self.absolute = true,
+                ('G', 910) => self.absolute = false,
+                ('G', 170 | 540 | 940) => {}
+                ('M', 4000) => sync = Some(0.0),
+                ('M', 20 | 300 | 50 | 90) => {}
                 ('X' | 'Y' | 'Z' | 'F' | 'P', _) => {}
                 _ => return self.line("error:20"),
             }
