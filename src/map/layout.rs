@@ -171,7 +171,7 @@ fn header(scene: &mut Scene, input: &MapInput, stats: &LayerSummary) {
         input.unit
     )];
     if !input.time.is_empty() {
-        sub.push(input.time.clone());
+        sub.push(readable_time(&input.time));
     }
     sub.push(format!(
         "{} of {} sites valid",
@@ -179,6 +179,13 @@ fn header(scene: &mut Scene, input: &MapInput, stats: &LayerSummary) {
     ));
     scene.text(28.0, 64.0, sub.join("  ·  "), 13.0, Anchor::Start, MUTED, "subtitle");
     scene.line(vec![(24.0, 76.0), (WIDTH - 24.0, 76.0)], Stroke::solid(RULE, 1.0), "rule");
+}
+
+/// An RFC 3339 time as `2026-12-03 14:22 +01:00`; anything else is shown as given.
+fn readable_time(t: &str) -> String {
+    chrono::DateTime::parse_from_rfc3339(t)
+        .map(|d| d.format("%Y-%m-%d %H:%M %:z").to_string())
+        .unwrap_or_else(|_| t.to_string())
 }
 
 #[allow(clippy::too_many_arguments)]
@@ -360,7 +367,7 @@ fn min_spacing(pts: &[(f64, f64)]) -> f64 {
 
 fn colour_bar(scene: &mut Scene, input: &MapInput, levels: &Levels, colours: &[Rgb], (lo, hi): (f64, f64)) {
     let (x, top, bottom, w) = (MAP_LEFT + MAP_SIDE + 14.0, MAP_TOP + 48.0, MAP_TOP + MAP_SIDE - 40.0, 20.0);
-    scene.text(x, top - 14.0, input.unit.clone(), 12.0, Anchor::Start, INK, "colour-bar-unit");
+    scene.text(x, top - 12.0, input.unit.clone(), 12.0, Anchor::Start, INK, "colour-bar-unit");
     let span = hi - lo;
     let to_y = |v: f64| bottom - (v - lo) / span * (bottom - top);
     let mut edges = vec![lo];
@@ -411,9 +418,6 @@ fn colour_bar(scene: &mut Scene, input: &MapInput, levels: &Levels, colours: &[R
             scene.text(x + w + 7.0, y + 4.0, fmt(v, levels.decimals), 11.0, Anchor::Start, INK, "tick");
         }
     }
-    let d = value_decimals(span / 4.0);
-    scene.text(x, bottom + 16.0, format!("min {}", fmt(lo, d)), 10.0, Anchor::Start, MUTED, "tick");
-    scene.text(x, top - 28.0, format!("max {}", fmt(hi, d)), 10.0, Anchor::Start, MUTED, "tick");
 }
 
 /// Right-hand column: left edge, right edge (px).
