@@ -74,7 +74,10 @@ fn error_on_the_analytic_field_is_below_its_bound_and_below_scipy() {
     let mut agree_cubic = vec![];
     for &[x, y, t, l, c] in &f.grid {
         let v = s.at(x, y);
-        assert!(v.is_finite(), "no value at ({x}, {y}) inside the usable disc");
+        assert!(
+            v.is_finite(),
+            "no value at ({x}, {y}) inside the usable disc"
+        );
         ours_all.push(v - t);
         if l.is_finite() && c.is_finite() {
             ours.push(v - t);

@@ -94,7 +94,12 @@ fn excluded_sites_are_not_counted_but_listed_with_their_flags() {
     assert_eq!(s.first.mean_nm, 102.0);
     assert_eq!(s.first.std_nm, 2.0);
     assert_eq!(s.first.max_site, Some(5));
-    let ex: Vec<(usize, &str)> = s.first.excluded.iter().map(|e| (e.site, e.flag.as_str())).collect();
+    let ex: Vec<(usize, &str)> = s
+        .first
+        .excluded
+        .iter()
+        .map(|e| (e.site, e.flag.as_str()))
+        .collect();
     assert_eq!(ex, vec![(3, "low_signal"), (4, "no value")]);
 }
 
@@ -108,8 +113,18 @@ fn summary_json_has_the_contract_fields_and_layers() {
     let s = Summary::from_rows(&rows, &["si3n4".into(), "sio2".into()], 97.0);
     let json: serde_json::Value = serde_json::from_str(&s.to_json()).unwrap();
     for key in [
-        "sites_total", "sites_valid", "mean_nm", "std_nm", "min_nm", "max_nm", "range_nm",
-        "nu_1sigma_pct", "nu_range_pct", "three_sigma_nm", "excluded", "radial",
+        "sites_total",
+        "sites_valid",
+        "mean_nm",
+        "std_nm",
+        "min_nm",
+        "max_nm",
+        "range_nm",
+        "nu_1sigma_pct",
+        "nu_range_pct",
+        "three_sigma_nm",
+        "excluded",
+        "radial",
     ] {
         assert!(json.get(key).is_some(), "missing {key}");
     }
@@ -124,7 +139,10 @@ fn summary_json_has_the_contract_fields_and_layers() {
     let text = one.to_json();
     assert!(text.contains("\"std_nm\": null"), "{text}");
     let back: Summary = serde_json::from_str(&text).unwrap();
-    assert!(back.first.std_nm.is_nan() && back.first.mean_nm == 7.0, "{back:?}");
+    assert!(
+        back.first.std_nm.is_nan() && back.first.mean_nm == 7.0,
+        "{back:?}"
+    );
     let back2: Summary = serde_json::from_str(&s.to_json()).unwrap();
     assert_eq!(back2.layers.len(), 2);
     assert_eq!(back2.first.mean_nm, s.first.mean_nm);

@@ -77,7 +77,11 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     let s = &layers[layer];
     println!(
         "{}: {} of {} sites valid, mean {:.2} nm, 1σ {:.2} nm ({:.2} %), range {:.2} nm ({:.2} %)",
-        if s.layer.is_empty() { "layer" } else { &s.layer },
+        if s.layer.is_empty() {
+            "layer"
+        } else {
+            &s.layer
+        },
         s.sites_valid,
         s.sites_total,
         s.mean_nm,

@@ -97,7 +97,11 @@ const CHROMA: f64 = 0.115;
 
 /// The scale's colour in Oklab at `t` in 0..1 (clamped), chroma reduced into sRGB gamut.
 pub fn scale_oklab(t: f64) -> Oklab {
-    let t = if t.is_finite() { t.clamp(0.0, 1.0) } else { 0.5 };
+    let t = if t.is_finite() {
+        t.clamp(0.0, 1.0)
+    } else {
+        0.5
+    };
     let l = L_RANGE.0 + (L_RANGE.1 - L_RANGE.0) * t;
     let h = H_RANGE.0 + (H_RANGE.1 - H_RANGE.0) * t;
     let fits = |c: f64| in_gamut(oklab_to_linear_srgb(from_lch(l, c, h)));
@@ -143,10 +147,16 @@ mod tests {
     fn white_is_l1_and_neutral() {
         // Oklab is defined so that D65 white maps to L = 1, a = b = 0 (Ottosson 2020).
         let w = linear_srgb_to_oklab([1.0, 1.0, 1.0]);
-        assert!((w.l - 1.0).abs() < 1e-4 && w.a.abs() < 1e-4 && w.b.abs() < 1e-4, "{w:?}");
+        assert!(
+            (w.l - 1.0).abs() < 1e-4 && w.a.abs() < 1e-4 && w.b.abs() < 1e-4,
+            "{w:?}"
+        );
         // sRGB red: L = 0.628, a = 0.225, b = 0.126 (published worked values, from memory).
         let r = linear_srgb_to_oklab([1.0, 0.0, 0.0]);
-        assert!((r.l - 0.628).abs() < 2e-3 && (r.a - 0.225).abs() < 2e-3, "{r:?}");
+        assert!(
+            (r.l - 0.628).abs() < 2e-3 && (r.a - 0.225).abs() < 2e-3,
+            "{r:?}"
+        );
         assert!((r.b - 0.126).abs() < 2e-3, "{r:?}");
     }
 

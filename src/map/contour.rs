@@ -225,7 +225,11 @@ mod tests {
         assert_eq!(lines.len(), 1);
         assert!(lines[0].closed);
         for &(x, y) in &lines[0].points {
-            assert!((x.hypot(y) - 0.5).abs() < g.step * g.step / 0.5, "r = {}", x.hypot(y));
+            assert!(
+                (x.hypot(y) - 0.5).abs() < g.step * g.step / 0.5,
+                "r = {}",
+                x.hypot(y)
+            );
         }
     }
 
@@ -236,15 +240,18 @@ mod tests {
         let lines = isolines(&g, 0.0);
         assert_eq!(lines.len(), 1);
         assert!(!lines[0].closed);
-        assert!(lines[0].points.iter().all(|p| p.1.abs() < 1e-12 && p.0 <= 0.3));
+        assert!(lines[0]
+            .points
+            .iter()
+            .all(|p| p.1.abs() < 1e-12 && p.0 <= 0.3));
     }
 
     #[test]
     fn two_peaks_give_two_loops_and_saddles_join_consistently() {
-        let g = grid_of(
-            81,
-            |x, y| (-(((x - 0.4).powi(2) + y * y) * 20.0)).exp() + (-(((x + 0.4).powi(2) + y * y) * 20.0)).exp(),
-        );
+        let g = grid_of(81, |x, y| {
+            (-(((x - 0.4).powi(2) + y * y) * 20.0)).exp()
+                + (-(((x + 0.4).powi(2) + y * y) * 20.0)).exp()
+        });
         assert_eq!(isolines(&g, 0.5).len(), 2);
         // Below the saddle value (≈ 2e^{-3.2} ≈ 0.082) the two merge into one loop.
         assert_eq!(isolines(&g, 0.05).len(), 1);

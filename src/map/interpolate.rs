@@ -173,7 +173,11 @@ impl Field {
             for (chunk_idx, chunk) in values.chunks_mut(rows_per * n).enumerate() {
                 // A clone per thread: spade's look-up hint is shared state inside the
                 // triangulation, and threads walking from each other's hints are slow.
-                let local = if threads > 1 { Some(self.clone()) } else { None };
+                let local = if threads > 1 {
+                    Some(self.clone())
+                } else {
+                    None
+                };
                 let wafer = self.wafer;
                 let field_ref: &Field = self;
                 scope.spawn(move || {
@@ -252,9 +256,9 @@ fn merge_duplicates(sites: &[(f64, f64, f64)]) -> Vec<(f64, f64, f64)> {
 /// extrapolated from the sites (see the module doc). `sites` holds (x, y, value) and the
 /// gradient of each site.
 fn ghost_ring(sites: &[([f64; 3], [f64; 2])], r_usable: f64) -> Vec<(f64, f64, f64)> {
-    let (lo, hi) = sites
-        .iter()
-        .fold((f64::MAX, f64::MIN), |(a, b), s| (a.min(s.0[2]), b.max(s.0[2])));
+    let (lo, hi) = sites.iter().fold((f64::MAX, f64::MIN), |(a, b), s| {
+        (a.min(s.0[2]), b.max(s.0[2]))
+    });
     let widen = 0.25 * (hi - lo);
     let r_max = sites
         .iter()
@@ -289,7 +293,11 @@ fn estimate_gradients(tri: &DelaunayTriangulation<Node>) -> Vec<[f64; 2]> {
             .out_edges()
             .map(|e| {
                 let q = e.to();
-                (q.position().x - p.x, q.position().y - p.y, q.data().value - h)
+                (
+                    q.position().x - p.x,
+                    q.position().y - p.y,
+                    q.data().value - h,
+                )
             })
             .collect();
         grads[v.fix().index()] = local_gradient(&nbrs);
@@ -317,7 +325,8 @@ fn local_gradient(nbrs: &[(f64, f64, f64)]) -> [f64; 2] {
     });
     let b = nalgebra::DVector::from_iterator(
         nbrs.len(),
-        nbrs.iter().map(|&(dx, dy, dv)| dv / (dx * dx + dy * dy).sqrt().max(1e-12)),
+        nbrs.iter()
+            .map(|&(dx, dy, dv)| dv / (dx * dx + dy * dy).sqrt().max(1e-12)),
     );
     match a.svd(true, true).solve(&b, 1e-10) {
         Ok(x) if x[0].is_finite() && x[1].is_finite() => [x[0], x[1]],

@@ -88,7 +88,10 @@ pub fn page(input: &MapInput, opts: &RenderOptions) -> Scene {
 
 /// The colour range: given, or the span of the sites and the interpolated grid.
 fn value_range(opts: &RenderOptions, sites: &[(f64, f64, f64)], grid: Option<&Grid>) -> (f64, f64) {
-    if let Some(r) = opts.range.filter(|r| r.lo.is_finite() && r.hi.is_finite() && r.hi > r.lo) {
+    if let Some(r) = opts
+        .range
+        .filter(|r| r.lo.is_finite() && r.hi.is_finite() && r.hi > r.lo)
+    {
         return (r.lo, r.hi);
     }
     let mut lo = f64::INFINITY;
@@ -177,8 +180,20 @@ fn header(scene: &mut Scene, input: &MapInput, stats: &LayerSummary) {
         "{} of {} sites valid",
         stats.sites_valid, stats.sites_total
     ));
-    scene.text(28.0, 64.0, sub.join("  ·  "), 13.0, Anchor::Start, MUTED, "subtitle");
-    scene.line(vec![(24.0, 76.0), (WIDTH - 24.0, 76.0)], Stroke::solid(RULE, 1.0), "rule");
+    scene.text(
+        28.0,
+        64.0,
+        sub.join("  ·  "),
+        13.0,
+        Anchor::Start,
+        MUTED,
+        "subtitle",
+    );
+    scene.line(
+        vec![(24.0, 76.0), (WIDTH - 24.0, 76.0)],
+        Stroke::solid(RULE, 1.0),
+        "rule",
+    );
 }
 
 /// An RFC 3339 time as `2026-12-03 14:22 +01:00`; anything else is shown as given.
@@ -202,7 +217,11 @@ fn wafer_and_field(
     let w = &input.wafer;
     let to_px = |x: f64, y: f64| (origin.0 + x * scale, origin.1 - y * scale);
     let outline: Vec<(f64, f64)> = w.outline(720).iter().map(|&(x, y)| to_px(x, y)).collect();
-    let usable: Vec<(f64, f64)> = w.usable_outline(720).iter().map(|&(x, y)| to_px(x, y)).collect();
+    let usable: Vec<(f64, f64)> = w
+        .usable_outline(720)
+        .iter()
+        .map(|&(x, y)| to_px(x, y))
+        .collect();
     scene.items.push(Item::Path {
         points: outline,
         closed: true,
@@ -254,7 +273,11 @@ fn wafer_and_field(
 
 /// Splits a line where it leaves the usable area, keeping the parts inside.
 fn clip_to_usable(line: &Polyline, w: &crate::recipe::Wafer) -> Vec<Polyline> {
-    let inside: Vec<bool> = line.points.iter().map(|&(x, y)| w.is_usable(x, y)).collect();
+    let inside: Vec<bool> = line
+        .points
+        .iter()
+        .map(|&(x, y)| w.is_usable(x, y))
+        .collect();
     if inside.iter().all(|&b| b) {
         return vec![line.clone()];
     }
@@ -365,9 +388,28 @@ fn min_spacing(pts: &[(f64, f64)]) -> f64 {
     best
 }
 
-fn colour_bar(scene: &mut Scene, input: &MapInput, levels: &Levels, colours: &[Rgb], (lo, hi): (f64, f64)) {
-    let (x, top, bottom, w) = (MAP_LEFT + MAP_SIDE + 14.0, MAP_TOP + 48.0, MAP_TOP + MAP_SIDE - 40.0, 20.0);
-    scene.text(x, top - 12.0, input.unit.clone(), 12.0, Anchor::Start, INK, "colour-bar-unit");
+fn colour_bar(
+    scene: &mut Scene,
+    input: &MapInput,
+    levels: &Levels,
+    colours: &[Rgb],
+    (lo, hi): (f64, f64),
+) {
+    let (x, top, bottom, w) = (
+        MAP_LEFT + MAP_SIDE + 14.0,
+        MAP_TOP + 48.0,
+        MAP_TOP + MAP_SIDE - 40.0,
+        20.0,
+    );
+    scene.text(
+        x,
+        top - 12.0,
+        input.unit.clone(),
+        12.0,
+        Anchor::Start,
+        INK,
+        "colour-bar-unit",
+    );
     let span = hi - lo;
     let to_y = |v: f64| bottom - (v - lo) / span * (bottom - top);
     let mut edges = vec![lo];
@@ -382,7 +424,15 @@ fn colour_bar(scene: &mut Scene, input: &MapInput, levels: &Levels, colours: &[R
             fill: Some(colours[0]),
             stroke: None,
         });
-        scene.text(x + w + 6.0, 0.5 * (top + bottom) + 4.0, fmt(lo, 2), 11.0, Anchor::Start, INK, "tick");
+        scene.text(
+            x + w + 6.0,
+            0.5 * (top + bottom) + 4.0,
+            fmt(lo, 2),
+            11.0,
+            Anchor::Start,
+            INK,
+            "tick",
+        );
         return;
     }
     for (k, win) in edges.windows(2).enumerate() {
@@ -410,12 +460,28 @@ fn colour_bar(scene: &mut Scene, input: &MapInput, levels: &Levels, colours: &[R
     } else {
         f64::INFINITY
     };
-    let every = if gap >= 14.0 { 1 } else { (14.0 / gap).ceil() as usize };
+    let every = if gap >= 14.0 {
+        1
+    } else {
+        (14.0 / gap).ceil() as usize
+    };
     for (k, &v) in levels.values.iter().enumerate() {
         let y = to_y(v);
-        scene.line(vec![(x + w, y), (x + w + 4.0, y)], Stroke::solid(INK, 0.8), "tick");
+        scene.line(
+            vec![(x + w, y), (x + w + 4.0, y)],
+            Stroke::solid(INK, 0.8),
+            "tick",
+        );
         if k % every == 0 {
-            scene.text(x + w + 7.0, y + 4.0, fmt(v, levels.decimals), 11.0, Anchor::Start, INK, "tick");
+            scene.text(
+                x + w + 7.0,
+                y + 4.0,
+                fmt(v, levels.decimals),
+                11.0,
+                Anchor::Start,
+                INK,
+                "tick",
+            );
         }
     }
 }
@@ -429,15 +495,30 @@ fn stats_panel(scene: &mut Scene, input: &MapInput, s: &LayerSummary) {
     let d = value_decimals(s.std_nm);
     let site = |n: Option<usize>| n.map(|n| format!("  (site {n})")).unwrap_or_default();
     let mut rows: Vec<(String, String)> = vec![
-        ("Sites valid".into(), format!("{} of {}", s.sites_valid, s.sites_total)),
+        (
+            "Sites valid".into(),
+            format!("{} of {}", s.sites_valid, s.sites_total),
+        ),
         ("Mean".into(), format!("{} {u}", fmt(s.mean_nm, d))),
         ("1σ".into(), format!("{} {u}", fmt(s.std_nm, d))),
         ("3σ".into(), format!("{} {u}", fmt(s.three_sigma_nm, d))),
-        ("Min".into(), format!("{} {u}{}", fmt(s.min_nm, d), site(s.min_site))),
-        ("Max".into(), format!("{} {u}{}", fmt(s.max_nm, d), site(s.max_site))),
+        (
+            "Min".into(),
+            format!("{} {u}{}", fmt(s.min_nm, d), site(s.min_site)),
+        ),
+        (
+            "Max".into(),
+            format!("{} {u}{}", fmt(s.max_nm, d), site(s.max_site)),
+        ),
         ("Range".into(), format!("{} {u}", fmt(s.range_nm, d))),
-        ("Non-uniformity σ/mean".into(), format!("{} %", fmt(s.nu_1sigma_pct, 2))),
-        ("Non-uniformity range/2·mean".into(), format!("{} %", fmt(s.nu_range_pct, 2))),
+        (
+            "Non-uniformity σ/mean".into(),
+            format!("{} %", fmt(s.nu_1sigma_pct, 2)),
+        ),
+        (
+            "Non-uniformity range/2·mean".into(),
+            format!("{} %", fmt(s.nu_range_pct, 2)),
+        ),
     ];
     if let Some(fit) = &s.radial {
         rows.push((
@@ -470,7 +551,11 @@ fn stats_panel(scene: &mut Scene, input: &MapInput, s: &LayerSummary) {
             vertical: false,
             class: "stat",
         });
-        scene.line(vec![(x0, y + 7.0), (x1, y + 7.0)], Stroke::solid(Rgb(0xe4, 0xe5, 0xe6), 0.6), "rule");
+        scene.line(
+            vec![(x0, y + 7.0), (x1, y + 7.0)],
+            Stroke::solid(Rgb(0xe4, 0xe5, 0xe6), 0.6),
+            "rule",
+        );
         y += 21.0;
     }
     let ex = &s.excluded;
@@ -489,7 +574,15 @@ fn stats_panel(scene: &mut Scene, input: &MapInput, s: &LayerSummary) {
         };
         format!("Excluded {}: {}{more}", ex.len(), shown.join(", "))
     };
-    scene.text(x0, y + 4.0, text, 11.5, Anchor::Start, if ex.is_empty() { MUTED } else { EXCLUDED }, "excluded");
+    scene.text(
+        x0,
+        y + 4.0,
+        text,
+        11.5,
+        Anchor::Start,
+        if ex.is_empty() { MUTED } else { EXCLUDED },
+        "excluded",
+    );
 }
 
 fn radial_plot(scene: &mut Scene, input: &MapInput, s: &LayerSummary, sites: &[(f64, f64, f64)]) {
@@ -517,7 +610,9 @@ fn radial_plot(scene: &mut Scene, input: &MapInput, s: &LayerSummary, sites: &[(
     let r_max = input.wafer.radius();
     let (mut lo, mut hi) = sites
         .iter()
-        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), p| (a.min(p.2), b.max(p.2)));
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), p| {
+            (a.min(p.2), b.max(p.2))
+        });
     if !lo.is_finite() {
         (lo, hi) = (0.0, 1.0);
     }
@@ -531,13 +626,37 @@ fn radial_plot(scene: &mut Scene, input: &MapInput, s: &LayerSummary, sites: &[(
     let grid = Rgb(0xec, 0xed, 0xee);
     let xt = nice_levels(0.0, r_max, 5);
     for &r in std::iter::once(&0.0).chain(&xt.values) {
-        scene.line(vec![(sx(r), top), (sx(r), bottom)], Stroke::solid(grid, 0.8), "grid");
-        scene.text(sx(r), bottom + 15.0, fmt(r, xt.decimals), 10.5, Anchor::Middle, MUTED, "tick");
+        scene.line(
+            vec![(sx(r), top), (sx(r), bottom)],
+            Stroke::solid(grid, 0.8),
+            "grid",
+        );
+        scene.text(
+            sx(r),
+            bottom + 15.0,
+            fmt(r, xt.decimals),
+            10.5,
+            Anchor::Middle,
+            MUTED,
+            "tick",
+        );
     }
     let yt = nice_levels(lo, hi, 5);
     for &v in &yt.values {
-        scene.line(vec![(x0, sy(v)), (x1, sy(v))], Stroke::solid(grid, 0.8), "grid");
-        scene.text(x0 - 5.0, sy(v) + 4.0, fmt(v, decimals_for(yt.step)), 10.5, Anchor::End, MUTED, "tick");
+        scene.line(
+            vec![(x0, sy(v)), (x1, sy(v))],
+            Stroke::solid(grid, 0.8),
+            "grid",
+        );
+        scene.text(
+            x0 - 5.0,
+            sy(v) + 4.0,
+            fmt(v, decimals_for(yt.step)),
+            10.5,
+            Anchor::End,
+            MUTED,
+            "tick",
+        );
     }
     let ru = input.wafer.usable_radius();
     scene.line(
@@ -549,7 +668,15 @@ fn radial_plot(scene: &mut Scene, input: &MapInput, s: &LayerSummary, sites: &[(
         },
         "edge-exclusion",
     );
-    scene.text(sx(r_max / 2.0), bottom + 34.0, "radius (mm)", 11.5, Anchor::Middle, INK, "axis");
+    scene.text(
+        sx(r_max / 2.0),
+        bottom + 34.0,
+        "radius (mm)",
+        11.5,
+        Anchor::Middle,
+        INK,
+        "axis",
+    );
     scene.items.push(Item::Text {
         x: PANEL.0 + 4.0,
         y: 0.5 * (top + bottom),
@@ -569,7 +696,8 @@ fn radial_plot(scene: &mut Scene, input: &MapInput, s: &LayerSummary, sites: &[(
             })
             .collect();
         scene.line(curve, Stroke::solid(colour::scale(0.15), 2.0), "radial-fit");
-        let terms = ["c₀", "c₀ + c₂ρ²", "c₀ + c₂ρ² + c₄ρ⁴"][fit.coefficients_nm.len().clamp(1, 3) - 1];
+        let terms =
+            ["c₀", "c₀ + c₂ρ²", "c₀ + c₂ρ² + c₄ρ⁴"][fit.coefficients_nm.len().clamp(1, 3) - 1];
         scene.text(
             PANEL.0,
             bottom + 56.0,
@@ -609,11 +737,26 @@ fn circle_points(cx: f64, cy: f64, r: f64) -> Vec<(f64, f64)> {
 
 fn footer(scene: &mut Scene, input: &MapInput, levels: &Levels) {
     let w = &input.wafer;
-    let mut parts = vec![format!("⌀ {} mm, edge exclusion {} mm", w.diameter_mm, w.edge_exclusion_mm)];
+    let mut parts = vec![format!(
+        "⌀ {} mm, edge exclusion {} mm",
+        w.diameter_mm, w.edge_exclusion_mm
+    )];
     if levels.step.is_finite() {
-        parts.push(format!("isolines every {} {}", fmt(levels.step, levels.decimals), input.unit));
+        parts.push(format!(
+            "isolines every {} {}",
+            fmt(levels.step, levels.decimals),
+            input.unit
+        ));
     }
     parts.push("x right, y up, viewed from the film side".into());
     parts.push("× excluded site".into());
-    scene.text(28.0, HEIGHT - 18.0, parts.join("  ·  "), 11.0, Anchor::Start, MUTED, "legend");
+    scene.text(
+        28.0,
+        HEIGHT - 18.0,
+        parts.join("  ·  "),
+        11.0,
+        Anchor::Start,
+        MUTED,
+        "legend",
+    );
 }

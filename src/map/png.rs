@@ -46,7 +46,11 @@ pub fn write(scene: &Scene, scale: f64) -> Result<Vec<u8>, MapError> {
 /// The scene as 8-bit RGB pixels: (width, height, data).
 pub fn rasterise(scene: &Scene, scale: f64) -> Result<(u32, u32, Vec<u8>), MapError> {
     register_fonts();
-    let scale = if scale.is_finite() && scale > 0.0 { scale } else { 1.0 };
+    let scale = if scale.is_finite() && scale > 0.0 {
+        scale
+    } else {
+        1.0
+    };
     let out_w = (scene.width * scale).round().max(1.0) as u32;
     let out_h = (scene.height * scale).round().max(1.0) as u32;
     let (bw, bh) = (out_w * SS, out_h * SS);
@@ -72,8 +76,7 @@ fn px(p: (f64, f64), k: f64) -> (i32, i32) {
 }
 
 fn stroke_style(s: &Stroke, k: f64) -> ShapeStyle {
-    rgb(s.colour)
-        .stroke_width((s.width * k).round().max(1.0) as u32)
+    rgb(s.colour).stroke_width((s.width * k).round().max(1.0) as u32)
 }
 
 fn draw_item<DB: DrawingBackend>(
@@ -99,7 +102,8 @@ where
                 b.draw_rect(a, c, &rgb(*f).filled(), true).map_err(wrap)?;
             }
             if let Some(s) = stroke {
-                b.draw_rect(a, c, &stroke_style(s, k), false).map_err(wrap)?;
+                b.draw_rect(a, c, &stroke_style(s, k), false)
+                    .map_err(wrap)?;
             }
         }
         Item::Path {
@@ -111,7 +115,8 @@ where
         } => {
             let pts: Vec<(i32, i32)> = points.iter().map(|&p| px(p, k)).collect();
             if let (Some(f), true) = (fill, pts.len() >= 3) {
-                b.fill_polygon(pts.clone(), &rgb(*f).filled()).map_err(wrap)?;
+                b.fill_polygon(pts.clone(), &rgb(*f).filled())
+                    .map_err(wrap)?;
             }
             if let Some(s) = stroke {
                 let mut line = points.clone();
@@ -148,8 +153,13 @@ where
                 b.draw_path(vec![px((x - a, y + a), k), px((x + a, y - a), k)], &style)
                     .map_err(wrap)?;
             } else {
-                b.draw_circle(c, ((r + 1.0) * k).round() as u32, &rgb(*halo).filled(), true)
-                    .map_err(wrap)?;
+                b.draw_circle(
+                    c,
+                    ((r + 1.0) * k).round() as u32,
+                    &rgb(*halo).filled(),
+                    true,
+                )
+                .map_err(wrap)?;
                 b.draw_circle(c, (r * k).round() as u32, &rgb(*colour).filled(), true)
                     .map_err(wrap)?;
             }
@@ -166,7 +176,11 @@ where
             ..
         } => {
             let glyph_px = size * EM_TO_AB_GLYPH * k;
-            let style = if *bold { FontStyle::Bold } else { FontStyle::Normal };
+            let style = if *bold {
+                FontStyle::Bold
+            } else {
+                FontStyle::Normal
+            };
             let h = match anchor {
                 Anchor::Start => HPos::Left,
                 Anchor::Middle => HPos::Center,

@@ -37,7 +37,9 @@ impl RadialFit {
         if pts.is_empty() || !(r_norm_mm > 0.0) {
             return None;
         }
-        let terms = distinct_radii(&pts, r_norm_mm).min(MAX_TERMS).min(pts.len());
+        let terms = distinct_radii(&pts, r_norm_mm)
+            .min(MAX_TERMS)
+            .min(pts.len());
         let rho2 = |r: f64| (r / r_norm_mm).powi(2);
         let a = nalgebra::DMatrix::from_fn(pts.len(), terms, |i, k| rho2(pts[i].0).powi(k as i32));
         let b = nalgebra::DVector::from_iterator(pts.len(), pts.iter().map(|p| p.1));
@@ -84,7 +86,10 @@ mod tests {
             let p = (r / 70.0).powi(2);
             1000.0 + 20.0 * p - 8.0 * p * p
         };
-        let pts: Vec<_> = [0.0, 17.5, 35.0, 52.5, 70.0].iter().map(|&r| (r, f(r))).collect();
+        let pts: Vec<_> = [0.0, 17.5, 35.0, 52.5, 70.0]
+            .iter()
+            .map(|&r| (r, f(r)))
+            .collect();
         let fit = RadialFit::fit(&pts, 70.0).unwrap();
         assert_eq!(fit.coefficients_nm.len(), 3);
         for (got, want) in fit.coefficients_nm.iter().zip([1000.0, 20.0, -8.0]) {

@@ -42,7 +42,11 @@ pub fn run_map_input(rows: &[SiteRow], meta: &RunToml, layer: usize) -> MapInput
 /// The summary of a run's rows.
 pub fn run_summary(rows: &[SiteRow], meta: &RunToml) -> Summary {
     let wafer = Wafer::from_spec(&meta.recipe.wafer);
-    Summary::from_rows(rows, &fitted_layer_names(&meta.recipe), wafer.usable_radius())
+    Summary::from_rows(
+        rows,
+        &fitted_layer_names(&meta.recipe),
+        wafer.usable_radius(),
+    )
 }
 
 fn put(path: &Path, bytes: &[u8]) -> Result<(), MapError> {

@@ -50,11 +50,17 @@ pub struct FieldFill {
 impl FieldFill {
     /// Pixel position of a wafer point.
     pub fn to_px(&self, x: f64, y: f64) -> (f64, f64) {
-        (self.origin.0 + x * self.scale, self.origin.1 - y * self.scale)
+        (
+            self.origin.0 + x * self.scale,
+            self.origin.1 - y * self.scale,
+        )
     }
     /// Wafer point of a pixel position.
     pub fn to_mm(&self, px: f64, py: f64) -> (f64, f64) {
-        ((px - self.origin.0) / self.scale, (self.origin.1 - py) / self.scale)
+        (
+            (px - self.origin.0) / self.scale,
+            (self.origin.1 - py) / self.scale,
+        )
     }
     /// Band index of a value.
     pub fn band(&self, v: f64) -> usize {

@@ -280,7 +280,9 @@ mod tests {
         ];
         rows[1].gof = f64::NAN;
         let text = write(&rows);
-        assert!(text.starts_with("site,x_mm,y_mm,thickness_nm,sigma_nm,gof,flag,thickness2_nm,sigma2_nm\n"));
+        assert!(text.starts_with(
+            "site,x_mm,y_mm,thickness_nm,sigma_nm,gof,flag,thickness2_nm,sigma2_nm\n"
+        ));
         let back = read(&text, Path::new("sites.csv")).unwrap();
         assert_eq!(back.len(), 3);
         assert_eq!(back[0].thickness_nm, vec![150.25, 501.5]);
@@ -303,10 +305,14 @@ mod tests {
     #[test]
     fn errors_name_file_line_and_column() {
         let text = "site,x_mm,y_mm,thickness_nm,sigma_nm,gof,flag\n1,0,0,1000,0.1,0.99,\n2,abc,0,1000,0.1,0.99,\n";
-        let e = read(text, Path::new("runs/r1/sites.csv")).unwrap_err().to_string();
+        let e = read(text, Path::new("runs/r1/sites.csv"))
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("runs/r1/sites.csv:3"), "{e}");
         assert!(e.contains("x_mm") && e.contains("\"abc\""), "{e}");
-        let e = read("site,x_mm,thickness_nm\n", Path::new("s.csv")).unwrap_err().to_string();
+        let e = read("site,x_mm,thickness_nm\n", Path::new("s.csv"))
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("`y_mm`"), "{e}");
     }
 }

@@ -63,10 +63,6 @@ pub fn make_run_folder(dir: &Path, meta: &RunToml, rows: &[SiteRow]) -> RunFolde
     std::fs::create_dir_all(dir).unwrap();
     let folder = RunFolder::new(dir);
     std::fs::write(folder.run_toml(), toml::to_string(meta).unwrap()).unwrap();
-    std::fs::write(
-        folder.sites_csv(),
-        isopach::map::sites_table::write(rows),
-    )
-    .unwrap();
+    std::fs::write(folder.sites_csv(), isopach::map::sites_table::write(rows)).unwrap();
     folder
 }
