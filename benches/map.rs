@@ -103,8 +103,27 @@ fn bench(c: &mut Criterion) {
             black_box(f.grid(512, 0.0))
         })
     });
+    let field = Field::new(&sites49, &wafer()).unwrap();
+    let grid = field.grid(512, 0.0);
+    let (lo, hi) = grid.min_max().unwrap();
+    let levels = isopach::map::levels::nice_levels(lo, hi, 10);
+    g.bench_function("isolines at 10 levels, 512² grid", |b| {
+        b.iter(|| {
+            for &l in &levels.values {
+                black_box(isopach::map::contour::isolines(&grid, l));
+            }
+        })
+    });
+    g.bench_function("page layout only (scene), 49 sites, 512²", |b| {
+        b.iter(|| black_box(isopach::map::layout::page(&input49, &opts512)))
+    });
     g.finish();
 }
 
-criterion_group!(benches, bench);
+criterion_group! {
+    name = benches;
+    // No HTML plots: criterion's plot backend wants system fonts, which this crate does not use.
+    config = Criterion::default().without_plots();
+    targets = bench
+}
 criterion_main!(benches);

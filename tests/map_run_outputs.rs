@@ -3,7 +3,7 @@
 
 mod map_common;
 
-use isopach::map::{sites_table, write_run_outputs, SiteRow, Summary};
+use isopach::map::{sites_table, write_run_outputs, Summary};
 use map_common::*;
 
 #[test]
@@ -15,21 +15,13 @@ fn two_layer_run_gets_all_files_and_a_layers_array() {
     let rows: Vec<SiteRow> = loaded
         .sites()
         .iter()
-        .map(|s| SiteRow {
-            site: s.number,
-            x_mm: s.x_mm,
-            y_mm: s.y_mm,
-            thickness_nm: vec![
-                150.0 + 0.1 * (analytic(s.x_mm, s.y_mm, r_u) - 1000.0),
-                analytic(s.x_mm, s.y_mm, r_u) / 2.0,
-            ],
-            sigma_nm: vec![0.3, 0.5],
-            gof: 0.99,
-            flag: if s.number == 3 {
-                "poor_fit".into()
-            } else {
-                String::new()
-            },
+        .map(|s| {
+            let t = analytic(s.x_mm, s.y_mm, r_u);
+            let mut row = site_row(s, vec![150.0 + 0.1 * (t - 1000.0), t / 2.0]);
+            if s.number == 3 {
+                row.flag = "poor_fit".into();
+            }
+            row
         })
         .collect();
     let folder = isopach::run::folder::RunFolder::new(dir.path());

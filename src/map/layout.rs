@@ -6,7 +6,7 @@
 //! radial profile plot; a one-line legend at the foot.
 
 use super::colour::{self, ink_on, Rgb};
-use super::contour::{isolines, simplify, Polyline};
+use super::contour::{isolines_many, simplify, Polyline};
 use super::interpolate::{Field, Grid};
 use super::levels::{decimals_for, nice_levels, Levels};
 use super::render::{MapInput, RenderOptions};
@@ -240,22 +240,35 @@ fn wafer_and_field(
         })));
         let tol_mm = 0.35 / scale;
         let span = hi - lo;
-        for &level in &levels.values {
+        let mut labels = Vec::new();
+        let all = isolines_many(grid, &levels.values);
+        for (k, (&level, lines)) in levels.values.iter().zip(all).enumerate() {
             let t = if span > 0.0 { (level - lo) / span } else { 0.5 };
             let ink = ink_on(colour::scale(t));
-            for line in isolines(grid, level) {
+            let mut pieces_px = Vec::new();
+            for line in lines {
                 for piece in clip_to_usable(&line, w) {
                     let piece = simplify(&piece, tol_mm);
+                    let points: Vec<(f64, f64)> =
+                        piece.points.iter().map(|&(x, y)| to_px(x, y)).collect();
                     scene.items.push(Item::Path {
-                        points: piece.points.iter().map(|&(x, y)| to_px(x, y)).collect(),
+                        points: points.clone(),
                         closed: piece.closed,
                         fill: None,
                         stroke: Some(Stroke::solid(ink, 0.9)),
                         class: "isoline",
                     });
+                    pieces_px.push(points);
                 }
             }
+            labels.push((k, level, ink, pieces_px));
         }
+        let sites_px: Vec<(f64, f64)> = input
+            .rows
+            .iter()
+            .map(|r| to_px(r.x_mm, r.y_mm))
+            .collect();
+        isoline_labels(scene, &labels, &sites_px, levels, colours);
     }
     scene.items.push(Item::Path {
         points: usable,
@@ -269,6 +282,55 @@ fn wafer_and_field(
         class: "edge-exclusion",
     });
     orientation_mark(scene, input, origin, scale);
+}
+
+/// One label per level, on its lines at the point farthest from site markers and other
+/// labels (skipped where no point is at least 16 px clear), on a patch of the band colour.
+fn isoline_labels(
+    scene: &mut Scene,
+    labels: &[(usize, f64, Rgb, Vec<Vec<(f64, f64)>>)],
+    sites_px: &[(f64, f64)],
+    levels: &Levels,
+    colours: &[Rgb],
+) {
+    const SIZE: f64 = 9.0;
+    let mut placed: Vec<(f64, f64)> = Vec::new();
+    for (k, level, ink, pieces) in labels {
+        let text = fmt(*level, levels.decimals);
+        let half_w = 0.32 * SIZE * text.chars().count() as f64 + 3.0;
+        let mut best: Option<(f64, (f64, f64))> = None;
+        for piece in pieces.iter().filter(|p| polyline_length(p) > 6.0 * half_w) {
+            let stride = (piece.len() / 24).max(1);
+            for &p in piece.iter().step_by(stride) {
+                let clear = sites_px
+                    .iter()
+                    .chain(&placed)
+                    .map(|q| (q.0 - p.0).hypot(q.1 - p.1))
+                    .fold(f64::INFINITY, f64::min);
+                if best.is_none_or(|(b, _)| clear > b) {
+                    best = Some((clear, p));
+                }
+            }
+        }
+        let Some((clear, (x, y))) = best else { continue };
+        if clear < 16.0 + half_w {
+            continue;
+        }
+        placed.push((x, y));
+        scene.items.push(Item::Rect {
+            x: x - half_w,
+            y: y - 6.5,
+            w: 2.0 * half_w,
+            h: 13.0,
+            fill: Some(colours[k + 1]),
+            stroke: None,
+        });
+        scene.text(x, y + 3.2, text, SIZE, Anchor::Middle, *ink, "isoline-label");
+    }
+}
+
+fn polyline_length(p: &[(f64, f64)]) -> f64 {
+    p.windows(2).map(|w| (w[1].0 - w[0].0).hypot(w[1].1 - w[0].1)).sum()
 }
 
 /// Splits a line where it leaves the usable area, keeping the parts inside.

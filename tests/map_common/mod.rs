@@ -22,6 +22,19 @@ pub fn recipe(name: &str) -> recipe::LoadedRecipe {
     recipe::load(&path).expect("repository recipe loads")
 }
 
+/// A valid site row at a pattern site with the given thickness per layer.
+pub fn site_row(s: &recipe::Site, thickness_nm: Vec<f64>) -> SiteRow {
+    SiteRow {
+        site: s.number,
+        x_mm: s.x_mm,
+        y_mm: s.y_mm,
+        sigma_nm: vec![0.2; thickness_nm.len()],
+        thickness_nm,
+        gof: 0.998,
+        flag: String::new(),
+    }
+}
+
 /// Site rows of a recipe's pattern sampled from the analytic field (one layer, all valid).
 pub fn analytic_rows(loaded: &recipe::LoadedRecipe) -> Vec<SiteRow> {
     let wafer: Wafer = loaded.wafer();
@@ -29,15 +42,7 @@ pub fn analytic_rows(loaded: &recipe::LoadedRecipe) -> Vec<SiteRow> {
     loaded
         .sites()
         .iter()
-        .map(|s| SiteRow {
-            site: s.number,
-            x_mm: s.x_mm,
-            y_mm: s.y_mm,
-            thickness_nm: vec![analytic(s.x_mm, s.y_mm, r_u)],
-            sigma_nm: vec![0.2],
-            gof: 0.998,
-            flag: String::new(),
-        })
+        .map(|s| site_row(s, vec![analytic(s.x_mm, s.y_mm, r_u)]))
         .collect()
 }
 
