@@ -3,7 +3,7 @@
 
 mod map_common;
 
-use isopach::map::{sites_table, write_run_outputs, Summary};
+use isopach::map::{sites_table, write_run_outputs, SiteRow, Summary};
 use map_common::*;
 
 #[test]

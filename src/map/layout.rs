@@ -113,7 +113,7 @@ fn value_range(opts: &RenderOptions, sites: &[(f64, f64, f64)], grid: Option<&Gr
 /// A colour per band: the scale at the band's middle value.
 fn band_colours(lo: f64, hi: f64, bounds: &[f64]) -> Vec<Rgb> {
     let span = hi - lo;
-    if !(span > 0.0) {
+    if span.is_nan() || span <= 0.0 {
         return vec![colour::scale(0.5)];
     }
     let mut edges = vec![lo];
@@ -135,7 +135,7 @@ fn fmt(v: f64, decimals: usize) -> String {
 
 /// Decimals for printing values of this spread: about three significant digits of σ.
 fn value_decimals(spread: f64) -> usize {
-    if !(spread > 0.0) {
+    if spread.is_nan() || spread <= 0.0 {
         return 2;
     }
     (2.0 - spread.log10().floor()).clamp(0.0, 3.0) as usize
@@ -263,11 +263,7 @@ fn wafer_and_field(
             }
             labels.push((k, level, ink, pieces_px));
         }
-        let sites_px: Vec<(f64, f64)> = input
-            .rows
-            .iter()
-            .map(|r| to_px(r.x_mm, r.y_mm))
-            .collect();
+        let sites_px: Vec<(f64, f64)> = input.rows.iter().map(|r| to_px(r.x_mm, r.y_mm)).collect();
         isoline_labels(scene, &labels, &sites_px, levels, colours);
     }
     scene.items.push(Item::Path {
@@ -284,11 +280,14 @@ fn wafer_and_field(
     orientation_mark(scene, input, origin, scale);
 }
 
+/// A level's index, value, ink and drawn pieces (px).
+type LevelLines = (usize, f64, Rgb, Vec<Vec<(f64, f64)>>);
+
 /// One label per level, on its lines at the point farthest from site markers and other
 /// labels (skipped where no point is at least 16 px clear), on a patch of the band colour.
 fn isoline_labels(
     scene: &mut Scene,
-    labels: &[(usize, f64, Rgb, Vec<Vec<(f64, f64)>>)],
+    labels: &[LevelLines],
     sites_px: &[(f64, f64)],
     levels: &Levels,
     colours: &[Rgb],
@@ -312,7 +311,9 @@ fn isoline_labels(
                 }
             }
         }
-        let Some((clear, (x, y))) = best else { continue };
+        let Some((clear, (x, y))) = best else {
+            continue;
+        };
         if clear < 16.0 + half_w {
             continue;
         }
@@ -325,12 +326,22 @@ fn isoline_labels(
             fill: Some(colours[k + 1]),
             stroke: None,
         });
-        scene.text(x, y + 3.2, text, SIZE, Anchor::Middle, *ink, "isoline-label");
+        scene.text(
+            x,
+            y + 3.2,
+            text,
+            SIZE,
+            Anchor::Middle,
+            *ink,
+            "isoline-label",
+        );
     }
 }
 
 fn polyline_length(p: &[(f64, f64)]) -> f64 {
-    p.windows(2).map(|w| (w[1].0 - w[0].0).hypot(w[1].1 - w[0].1)).sum()
+    p.windows(2)
+        .map(|w| (w[1].0 - w[0].0).hypot(w[1].1 - w[0].1))
+        .sum()
 }
 
 /// Splits a line where it leaves the usable area, keeping the parts inside.
@@ -477,7 +488,7 @@ fn colour_bar(
     let mut edges = vec![lo];
     edges.extend_from_slice(&levels.values);
     edges.push(hi);
-    if !(span > 0.0) {
+    if span.is_nan() || span <= 0.0 {
         scene.items.push(Item::Rect {
             x,
             y: top,
