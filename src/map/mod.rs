@@ -16,6 +16,7 @@ pub mod radial;
 pub mod render;
 pub mod run_outputs;
 pub mod scene;
+pub mod sheet;
 pub mod site_plan;
 pub mod sites_table;
 pub mod stats;

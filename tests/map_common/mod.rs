@@ -57,6 +57,7 @@ pub fn run_toml(loaded: &recipe::LoadedRecipe, wafer_id: &str) -> RunToml {
             started: "2026-12-03T14:22:05+01:00".into(),
             tool_version: env!("CARGO_PKG_VERSION").into(),
             recipe_path: loaded.path.display().to_string(),
+            seed: 7,
         },
         recipe: loaded.recipe.clone(),
         machine: None,

@@ -1,0 +1,470 @@
+//! [`Fitter`]: everything a recipe fixes about fitting (materials, stack, window, angles,
+//! bounds) resolved once, then any number of spectra fitted with it, from any thread.
+
+use super::kernel::{channels, Channel, Prepared, MAX_LAYERS};
+use super::model::{self, Setup};
+use super::quality::{self, gof};
+use super::result::{FitResult, LayerResult};
+use super::{extrema, fourier, FitError};
+use crate::optics::tmm::{cone_nodes, cone_samples, cos_theta};
+use crate::optics::{reflectance, Material, MaterialLibrary, Stack};
+use crate::recipe::schema::FitMethod;
+use crate::recipe::LoadedRecipe;
+use crate::spectrum::{normalise_raw, RawSpectrum, SignalQuality, Spectrum};
+use std::sync::{Arc, RwLock};
+
+/// One layer of the recipe's stack, resolved.
+#[derive(Debug, Clone)]
+struct FitLayer {
+    name: String,
+    material: Material,
+    nominal: f64,
+    min: f64,
+    max: f64,
+    fit: bool,
+}
+
+/// Fits spectra for one recipe. `Send + Sync`: share one across threads.
+#[derive(Debug)]
+pub struct Fitter {
+    library: MaterialLibrary,
+    ambient: Material,
+    substrate: Material,
+    layers: Vec<FitLayer>,
+    fitted: Vec<usize>,
+    window: [f64; 2],
+    method: FitMethod,
+    incidence_deg: f64,
+    na: f64,
+    min_gof: f64,
+    channels: Vec<Channel>,
+    fit_scale: bool,
+    warnings: Vec<String>,
+    /// The per-pixel model of the last wavelength grid seen (a map uses one grid).
+    cache: RwLock<Option<Arc<Prepared>>>,
+}
+
+/// Fewest pixels the window must hold.
+const MIN_PIXELS: usize = 16;
+/// Grid points per fringe-order basin: the search step is λ_min/(STEPS_PER_WAVE · n).
+const STEPS_PER_WAVE: f64 = 10.0;
+/// Search pixels per fringe at the shortest wavelength and the thickest film.
+const SEARCH_PIXELS_PER_FRINGE: f64 = 8.0;
+/// Fewer pixels per fringe than this and `auto` uses the Fourier method.
+const MODEL_MIN_PIXELS_PER_FRINGE: f64 = 3.0;
+
+impl Fitter {
+    /// Resolves the recipe's materials and stack; errors name the recipe and what to fix.
+    pub fn from_recipe(loaded: &LoadedRecipe) -> Result<Fitter, FitError> {
+        let recipe = &loaded.recipe;
+        let film = &recipe.film;
+        let bad = |message: String| FitError::Recipe {
+            recipe: loaded.path.clone(),
+            message,
+        };
+        let library = MaterialLibrary::for_recipe(recipe, loaded.dir())?;
+        let ambient = library.require(&film.ambient)?.clone();
+        let substrate = library.require(&film.substrate)?.clone();
+        let mut layers = Vec::new();
+        for l in &film.layers {
+            layers.push(FitLayer {
+                name: l.material.clone(),
+                material: library.require(&l.material)?.clone(),
+                nominal: l.nominal_nm,
+                min: l.min(),
+                max: l.max(),
+                fit: l.fit,
+            });
+        }
+        if layers.len() > MAX_LAYERS {
+            return Err(bad(format!(
+                "{} layers; at most {MAX_LAYERS} can be modelled",
+                layers.len()
+            )));
+        }
+        let fitted: Vec<usize> = (0..layers.len()).filter(|i| layers[*i].fit).collect();
+        if fitted.is_empty() || fitted.len() > 3 {
+            return Err(bad(format!("{} fitted layers; fit 1 to 3", fitted.len())));
+        }
+        for &i in &fitted {
+            let l = &layers[i];
+            if !(l.min >= 0.0 && l.min < l.max) {
+                return Err(bad(format!(
+                    "layer {}: the search range [{}, {}] nm is empty",
+                    i + 1,
+                    l.min,
+                    l.max
+                )));
+            }
+        }
+        if matches!(film.method, FitMethod::Fourier | FitMethod::Extrema) && fitted.len() != 1 {
+            return Err(bad(format!(
+                "method {} fits one layer, the recipe fits {}: use method = \"model\"",
+                film.method.as_str(),
+                fitted.len()
+            )));
+        }
+        let window = film.wavelength_nm;
+        let mut warnings = Vec::new();
+        let mut seen = Vec::new();
+        for m in std::iter::once(&ambient)
+            .chain(layers.iter().map(|l| &l.material))
+            .chain(std::iter::once(&substrate))
+        {
+            if !seen.contains(&m.name()) {
+                seen.push(m.name());
+                warnings.extend(m.range_warning(window[0], window[1]));
+            }
+        }
+        // Angle samples fine enough for the thickest stack the search may try.
+        let thickest = layers
+            .iter()
+            .fold(Stack::bare(ambient.clone(), substrate.clone()), |s, l| {
+                s.with_layer(l.material.clone(), if l.fit { l.max } else { l.nominal })
+            });
+        let nodes = cone_nodes(&thickest, &window, film.na);
+        let channels = channels(&cone_samples(film.incidence_deg, film.na, nodes));
+        Ok(Fitter {
+            library,
+            ambient,
+            substrate,
+            layers,
+            fitted,
+            window,
+            method: film.method,
+            incidence_deg: film.incidence_deg,
+            na: film.na,
+            min_gof: recipe.accept.min_gof,
+            channels,
+            fit_scale: false,
+            warnings,
+            cache: RwLock::new(None),
+        })
+    }
+
+    /// Also fits an intensity scale factor (for spectra whose absolute level is uncertain,
+    /// e.g. a reference taken at another focus). Off by default: it correlates with the
+    /// thickness of very thin films, which are read from the absolute level.
+    pub fn with_scale_factor(mut self, on: bool) -> Fitter {
+        self.fit_scale = on;
+        self
+    }
+
+    /// Warnings found while resolving the recipe (a window outside a material's range).
+    pub fn warnings(&self) -> &[String] {
+        &self.warnings
+    }
+
+    /// The fitting window, nm.
+    pub fn window_nm(&self) -> [f64; 2] {
+        self.window
+    }
+
+    /// Names of the fitted layers' materials, top first.
+    pub fn fitted_materials(&self) -> Vec<&str> {
+        self.fitted
+            .iter()
+            .map(|i| self.layers[*i].name.as_str())
+            .collect()
+    }
+
+    /// Fits one spectrum; a spectrum that cannot be fitted gives a result flagged `no-fit`.
+    pub fn fit(&self, spectrum: &Spectrum) -> FitResult {
+        self.fit_with_quality(spectrum, &SignalQuality::default())
+    }
+
+    /// Fits one spectrum, adding the flags its counts earned (`saturated`, `low-signal`).
+    pub fn fit_with_quality(&self, spectrum: &Spectrum, quality: &SignalQuality) -> FitResult {
+        self.try_fit(spectrum, quality).unwrap_or_else(|_| {
+            let mut r = FitResult {
+                method: self.method.as_str().to_string(),
+                layers: self.failed_layers(),
+                gof: 0.0,
+                flags: vec![quality::NO_FIT.to_string()],
+            };
+            r.flags.extend(quality_flags(quality));
+            r
+        })
+    }
+
+    /// Normalises raw counts against the bare `reference_material` and fits.
+    pub fn fit_raw(
+        &self,
+        raw: &RawSpectrum,
+        reference_material: &str,
+    ) -> Result<FitResult, FitError> {
+        let r_ref = self.reference_reflectance(reference_material, &raw.reference.wavelength_nm)?;
+        let (spectrum, quality) = normalise_raw(raw, &r_ref)?;
+        Ok(self.fit_with_quality(&spectrum, &quality))
+    }
+
+    /// Fits one spectrum, or says why it cannot be fitted.
+    pub fn try_fit(
+        &self,
+        spectrum: &Spectrum,
+        quality: &SignalQuality,
+    ) -> Result<FitResult, FitError> {
+        let w = spectrum.window(self.window[0], self.window[1]);
+        w.validate(MIN_PIXELS).map_err(|e| match e {
+            crate::spectrum::SpectrumError::Invalid(m) => crate::spectrum::SpectrumError::Invalid(
+                format!("window {}–{} nm: {m}", self.window[0], self.window[1]),
+            ),
+            e => e,
+        })?;
+        let prep = self.prepared(&w.wavelength_nm);
+        let method = match self.method {
+            FitMethod::Auto
+                if self.fitted.len() == 1
+                    && self.pixels_per_fringe(&w) < MODEL_MIN_PIXELS_PER_FRINGE =>
+            {
+                FitMethod::Fourier
+            }
+            FitMethod::Auto => FitMethod::Model,
+            m => m,
+        };
+        let mut flags = Vec::new();
+        let (thickness, sigma, chi2) = match method {
+            FitMethod::Fourier | FitMethod::Extrema => {
+                let (d, s, extra) = self.single_layer_method(method, &w)?;
+                flags.extend(extra);
+                let mut all = self.nominal();
+                all[self.fitted[0]] = d;
+                let chi2 = chi2(&prep, &w.reflectance, &all);
+                (all, vec![s], chi2)
+            }
+            _ => {
+                let fit = self.model_fit(&prep, &w);
+                if fit.ambiguous {
+                    flags.push(quality::AMBIGUOUS.to_string());
+                }
+                (fit.thickness, fit.sigma, fit.chi2)
+            }
+        };
+        let g = gof(chi2, &w.reflectance);
+        let at_bound = self.fitted.iter().any(|&i| {
+            let l = &self.layers[i];
+            let tol = (1e-3f64).max(1e-6 * (l.max - l.min));
+            (thickness[i] - l.min).abs() <= tol || (thickness[i] - l.max).abs() <= tol
+        });
+        if at_bound {
+            flags.push(quality::AT_BOUND.to_string());
+        }
+        if g < self.min_gof {
+            flags.push(quality::POOR_FIT.to_string());
+        }
+        flags.extend(quality_flags(quality));
+        Ok(FitResult {
+            method: method.as_str().to_string(),
+            layers: self
+                .fitted
+                .iter()
+                .zip(&sigma)
+                .map(|(&i, s)| LayerResult {
+                    material: self.layers[i].name.clone(),
+                    thickness_nm: thickness[i],
+                    sigma_nm: *s,
+                })
+                .collect(),
+            gof: g,
+            flags,
+        })
+    }
+
+    /// Reflectance of the bare `material` under the recipe's ambient, angle and NA: the
+    /// R_ref of normalisation.
+    pub fn reference_reflectance(
+        &self,
+        material: &str,
+        wavelengths_nm: &[f64],
+    ) -> Result<Vec<f64>, FitError> {
+        let m = self.library.require(material)?.clone();
+        Ok(reflectance(
+            &Stack::bare(self.ambient.clone(), m),
+            wavelengths_nm,
+            self.incidence_deg,
+            self.na,
+        ))
+    }
+
+    /// The modelled reflectance of a result's stack (undetermined thicknesses at nominal),
+    /// for plots and simulations.
+    pub fn model_reflectance(&self, result: &FitResult, wavelengths_nm: &[f64]) -> Vec<f64> {
+        let mut d = self.nominal();
+        for (&i, l) in self.fitted.iter().zip(&result.layers) {
+            if l.thickness_nm.is_finite() {
+                d[i] = l.thickness_nm;
+            }
+        }
+        reflectance(&self.stack(&d), wavelengths_nm, self.incidence_deg, self.na)
+    }
+
+    /// The stack with the given thickness for every layer (top first).
+    pub fn stack(&self, thickness_nm: &[f64]) -> Stack {
+        self.layers.iter().zip(thickness_nm).fold(
+            Stack::bare(self.ambient.clone(), self.substrate.clone()),
+            |s, (l, d)| s.with_layer(l.material.clone(), *d),
+        )
+    }
+
+    /// Smallest thickness of the (first) fitted layer the Fourier method resolves over
+    /// these wavelengths.
+    pub fn fourier_resolution_nm(&self, wavelengths_nm: &[f64]) -> f64 {
+        let (n, c) = self.film_index(wavelengths_nm);
+        fourier::resolution_nm(&fourier::fringe_coordinate(wavelengths_nm, &n, &c))
+    }
+
+    fn failed_layers(&self) -> Vec<LayerResult> {
+        self.fitted
+            .iter()
+            .map(|&i| LayerResult {
+                material: self.layers[i].name.clone(),
+                thickness_nm: f64::NAN,
+                sigma_nm: f64::NAN,
+            })
+            .collect()
+    }
+
+    fn nominal(&self) -> Vec<f64> {
+        self.layers.iter().map(|l| l.nominal).collect()
+    }
+
+    fn prepared(&self, wavelengths: &[f64]) -> Arc<Prepared> {
+        if let Ok(guard) = self.cache.read() {
+            if let Some(p) = guard.as_ref().filter(|p| p.wavelength_nm == wavelengths) {
+                return Arc::clone(p);
+            }
+        }
+        let materials: Vec<Material> = self.layers.iter().map(|l| l.material.clone()).collect();
+        let p = Arc::new(Prepared::new(
+            &self.ambient,
+            &materials,
+            &self.substrate,
+            &self.channels,
+            wavelengths,
+        ));
+        if let Ok(mut guard) = self.cache.write() {
+            *guard = Some(Arc::clone(&p));
+        }
+        p
+    }
+
+    /// Optical thickness Σ n·d of the thickest stack searched, at λ_min.
+    fn max_optical_thickness(&self, l_min: f64) -> f64 {
+        self.layers
+            .iter()
+            .map(|l| l.material.index(l_min).re.max(1.0) * if l.fit { l.max } else { l.nominal })
+            .sum()
+    }
+
+    /// Pixels per fringe at the shortest wavelength for the thickest stack searched.
+    fn pixels_per_fringe(&self, w: &Spectrum) -> f64 {
+        let l_min = w.wavelength_nm[0];
+        let l_max = w.wavelength_nm[w.len() - 1];
+        let spacing = (l_max - l_min) / (w.len() - 1) as f64;
+        l_min * l_min / (2.0 * self.max_optical_thickness(l_min)).max(1e-9) / spacing
+    }
+
+    fn model_fit(&self, prep: &Prepared, w: &Spectrum) -> model::ModelFit {
+        let l_min = w.wavelength_nm[0];
+        let stride = ((self.pixels_per_fringe(w) / SEARCH_PIXELS_PER_FRINGE).floor() as usize)
+            .clamp(1, (w.len() / 48).max(1));
+        let search: Vec<usize> = (0..w.len()).step_by(stride).collect();
+        let setup = Setup {
+            prep,
+            measured: &w.reflectance,
+            base: self.nominal(),
+            fitted: self.fitted.clone(),
+            lower: self.fitted.iter().map(|i| self.layers[*i].min).collect(),
+            upper: self.fitted.iter().map(|i| self.layers[*i].max).collect(),
+            steps: self
+                .fitted
+                .iter()
+                .map(|i| {
+                    l_min / (STEPS_PER_WAVE * self.layers[*i].material.index(l_min).re.max(1.0))
+                })
+                .collect(),
+            scale: self.fit_scale,
+        };
+        model::fit(&setup, &search)
+    }
+
+    /// Re n and Re cos θ of the fitted film at each wavelength (chief ray).
+    fn film_index(&self, wavelengths: &[f64]) -> (Vec<f64>, Vec<f64>) {
+        let m = &self.layers[self.fitted[0]].material;
+        let theta = self.incidence_deg.to_radians();
+        wavelengths
+            .iter()
+            .map(|w| {
+                let n = m.index(*w);
+                let inv = self.ambient.index(*w).re * theta.sin();
+                (n.re, cos_theta(n, inv).re)
+            })
+            .unzip()
+    }
+
+    fn single_layer_method(
+        &self,
+        method: FitMethod,
+        w: &Spectrum,
+    ) -> Result<(f64, f64, Vec<String>), FitError> {
+        let l = &self.layers[self.fitted[0]];
+        let (n, c) = self.film_index(&w.wavelength_nm);
+        let x = fourier::fringe_coordinate(&w.wavelength_nm, &n, &c);
+        let fail = |name: &'static str| {
+            move |message: String| FitError::Method {
+                method: name,
+                message,
+            }
+        };
+        match method {
+            FitMethod::Fourier => {
+                let e =
+                    fourier::estimate(&x, &w.reflectance, l.min, l.max).map_err(fail("fourier"))?;
+                let mut flags = Vec::new();
+                if e.thickness_nm < 1.2 * e.resolution_nm {
+                    flags.push(quality::BELOW_RESOLUTION.to_string());
+                }
+                Ok((e.thickness_nm, e.sigma_nm, flags))
+            }
+            _ => {
+                // Smooth over about a tenth of the shortest fringe period of the thickest film.
+                let smooth = ((self.pixels_per_fringe(w) / 10.0).round() as usize)
+                    .clamp(1, (w.len() / 20).max(1));
+                let e =
+                    extrema::estimate(&w.wavelength_nm, &w.reflectance, &x, l.min, l.max, smooth)
+                        .map_err(fail("extrema"))?;
+                Ok((e.thickness_nm, e.sigma_nm, Vec::new()))
+            }
+        }
+    }
+}
+
+/// Σ (R_model − R_m)² at thicknesses `d`.
+fn chi2(prep: &Prepared, measured: &[f64], d: &[f64]) -> f64 {
+    (0..prep.len())
+        .map(|j| (prep.reflectance(j, d) - measured[j]).powi(2))
+        .sum()
+}
+
+fn quality_flags(q: &SignalQuality) -> Vec<String> {
+    let mut f = Vec::new();
+    if q.saturated_pixels > 0 {
+        f.push(quality::SATURATED.to_string());
+    }
+    if q.low_signal {
+        f.push(quality::LOW_SIGNAL.to_string());
+    }
+    f
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn assert_send_sync<T: Send + Sync>() {}
+
+    #[test]
+    fn fitter_is_send_and_sync() {
+        assert_send_sync::<Fitter>();
+    }
+}

@@ -1,0 +1,199 @@
+//! Levenberg–Marquardt for a few bounded parameters (K. Levenberg 1944, D. W. Marquardt
+//! 1963), on the normal equations with Marquardt's diagonal scaling. Bounds are kept by
+//! projecting each step onto the box. Small and specialised on purpose: the fitters have
+//! 1–4 parameters and evaluate residuals and Jacobian in one pass, which a general solver's
+//! separate callbacks would double.
+
+use nalgebra::{DMatrix, DVector};
+
+/// The problem: fills residuals and the Jacobian (row-major, `residuals.len() × params`)
+/// at `x`, returns Σ residual².
+pub trait Problem {
+    fn params(&self) -> usize;
+    fn eval(&self, x: &[f64], residuals: &mut [f64], jacobian: &mut [f64]) -> f64;
+    fn residuals(&self) -> usize;
+}
+
+/// Outcome of a minimisation.
+#[derive(Debug, Clone)]
+pub struct Solution {
+    pub x: Vec<f64>,
+    pub chi2: f64,
+    /// (JᵀJ)⁻¹ at the solution, if it is invertible (row-major p × p).
+    pub inv_jtj: Option<Vec<f64>>,
+    pub iterations: usize,
+}
+
+/// Stopping rules.
+#[derive(Debug, Clone, Copy)]
+pub struct Settings {
+    pub max_iterations: usize,
+    /// Stop when χ² falls by less than this fraction.
+    pub rel_tol: f64,
+    /// Stop when no parameter moves by more than this.
+    pub x_tol: f64,
+}
+
+impl Default for Settings {
+    fn default() -> Settings {
+        Settings {
+            max_iterations: 60,
+            rel_tol: 1e-12,
+            x_tol: 1e-7,
+        }
+    }
+}
+
+/// Minimises from `x0` inside `[lower, upper]`.
+pub fn minimise(
+    problem: &impl Problem,
+    x0: &[f64],
+    lower: &[f64],
+    upper: &[f64],
+    settings: Settings,
+) -> Solution {
+    let p = problem.params();
+    let m = problem.residuals();
+    let clamp = |x: &mut [f64]| {
+        for i in 0..p {
+            x[i] = x[i].clamp(lower[i], upper[i]);
+        }
+    };
+    let mut x = x0.to_vec();
+    clamp(&mut x);
+    let mut res = vec![0.0; m];
+    let mut jac = vec![0.0; m * p];
+    let mut chi2 = problem.eval(&x, &mut res, &mut jac);
+    let mut trial_res = vec![0.0; m];
+    let mut trial_jac = vec![0.0; m * p];
+    let mut lambda = 1e-3;
+    let mut iterations = 0;
+    let (mut jtj, mut jtr) = normal(&res, &jac, p);
+    while iterations < settings.max_iterations {
+        iterations += 1;
+        let mut improved = false;
+        // Increase damping until a step lowers χ² (or damping is hopeless).
+        while lambda < 1e12 {
+            let mut a = jtj.clone();
+            for i in 0..p {
+                a[(i, i)] += lambda * jtj[(i, i)].max(1e-30);
+            }
+            let Some(step) = a.cholesky().map(|c| c.solve(&(-&jtr))) else {
+                lambda *= 10.0;
+                continue;
+            };
+            let mut xt: Vec<f64> = x.iter().zip(step.iter()).map(|(a, b)| a + b).collect();
+            clamp(&mut xt);
+            let moved = xt.iter().zip(&x).any(|(a, b)| a != b);
+            if !moved {
+                break;
+            }
+            let c = problem.eval(&xt, &mut trial_res, &mut trial_jac);
+            if c < chi2 {
+                let rel = (chi2 - c) / chi2.max(1e-300);
+                let moved_far = xt
+                    .iter()
+                    .zip(&x)
+                    .any(|(a, b)| (a - b).abs() > settings.x_tol);
+                x = xt;
+                chi2 = c;
+                std::mem::swap(&mut res, &mut trial_res);
+                std::mem::swap(&mut jac, &mut trial_jac);
+                (jtj, jtr) = normal(&res, &jac, p);
+                lambda = (lambda * 0.3).max(1e-12);
+                improved = rel > settings.rel_tol && moved_far;
+                break;
+            }
+            lambda *= 4.0;
+        }
+        if !improved {
+            break;
+        }
+    }
+    let inv_jtj = jtj.clone().try_inverse().map(|m| m.as_slice().to_vec());
+    // nalgebra stores column-major; the matrix is symmetric so the layout does not matter.
+    Solution {
+        x,
+        chi2,
+        inv_jtj,
+        iterations,
+    }
+}
+
+fn normal(res: &[f64], jac: &[f64], p: usize) -> (DMatrix<f64>, DVector<f64>) {
+    let mut jtj = DMatrix::zeros(p, p);
+    let mut jtr = DVector::zeros(p);
+    for (i, r) in res.iter().enumerate() {
+        let row = &jac[i * p..(i + 1) * p];
+        for a in 0..p {
+            jtr[a] += row[a] * r;
+            for b in 0..=a {
+                jtj[(a, b)] += row[a] * row[b];
+            }
+        }
+    }
+    for a in 0..p {
+        for b in 0..a {
+            jtj[(b, a)] = jtj[(a, b)];
+        }
+    }
+    (jtj, jtr)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Exponential decay y = A exp(−t/τ): a standard LM test with a known optimum.
+    struct Decay {
+        t: Vec<f64>,
+        y: Vec<f64>,
+    }
+
+    impl Problem for Decay {
+        fn params(&self) -> usize {
+            2
+        }
+        fn residuals(&self) -> usize {
+            self.t.len()
+        }
+        fn eval(&self, x: &[f64], r: &mut [f64], j: &mut [f64]) -> f64 {
+            let mut s = 0.0;
+            for (i, (t, y)) in self.t.iter().zip(&self.y).enumerate() {
+                let e = (-t / x[1]).exp();
+                r[i] = x[0] * e - y;
+                j[2 * i] = e;
+                j[2 * i + 1] = x[0] * e * t / (x[1] * x[1]);
+                s += r[i] * r[i];
+            }
+            s
+        }
+    }
+
+    #[test]
+    fn finds_the_known_optimum_and_respects_bounds() {
+        let t: Vec<f64> = (0..30).map(|i| i as f64 * 0.2).collect();
+        let y = t.iter().map(|t| 3.0 * (-t / 1.7f64).exp()).collect();
+        let p = Decay { t, y };
+        let s = minimise(
+            &p,
+            &[1.0, 0.5],
+            &[0.0, 0.1],
+            &[10.0, 10.0],
+            Settings::default(),
+        );
+        assert!(
+            (s.x[0] - 3.0).abs() < 1e-7 && (s.x[1] - 1.7).abs() < 1e-7,
+            "{:?}",
+            s.x
+        );
+        let s = minimise(
+            &p,
+            &[1.0, 0.5],
+            &[0.0, 0.1],
+            &[2.0, 10.0],
+            Settings::default(),
+        );
+        assert_eq!(s.x[0], 2.0, "held at the upper bound");
+    }
+}

@@ -1,0 +1,320 @@
+//! The `model` method: a global grid search over every fitted thickness, dense enough that
+//! no fringe-order minimum falls between grid points, then Levenberg–Marquardt from the best
+//! local minima; σ from the covariance scaled by the residual variance.
+
+use super::kernel::Prepared;
+use super::lm::{self, Problem, Settings};
+
+/// What to fit: thicknesses of every layer (`base`, nm), which of them vary, their bounds
+/// and grid steps, and whether an intensity scale factor is fitted too.
+#[derive(Debug, Clone)]
+pub struct Setup<'a> {
+    pub prep: &'a Prepared,
+    /// Measured reflectance at every pixel of `prep`.
+    pub measured: &'a [f64],
+    pub base: Vec<f64>,
+    pub fitted: Vec<usize>,
+    pub lower: Vec<f64>,
+    pub upper: Vec<f64>,
+    pub steps: Vec<f64>,
+    pub scale: bool,
+}
+
+/// The outcome of a model fit.
+#[derive(Debug, Clone)]
+pub struct ModelFit {
+    /// Thickness of every layer (fitted ones replaced).
+    pub thickness: Vec<f64>,
+    /// σ of each fitted thickness.
+    pub sigma: Vec<f64>,
+    pub scale: f64,
+    pub chi2: f64,
+    /// Another local minimum fits within the noise.
+    pub ambiguous: bool,
+    /// The runner-up thicknesses (fitted layers), if any other minimum was found.
+    pub runner_up: Option<Vec<f64>>,
+}
+
+/// Least-squares problem over a pixel subset.
+struct Lsq<'a> {
+    setup: &'a Setup<'a>,
+    pixels: &'a [usize],
+}
+
+impl Lsq<'_> {
+    fn thickness(&self, x: &[f64]) -> Vec<f64> {
+        let mut d = self.setup.base.clone();
+        for (a, l) in self.setup.fitted.iter().enumerate() {
+            d[*l] = x[a];
+        }
+        d
+    }
+}
+
+impl Problem for Lsq<'_> {
+    fn params(&self) -> usize {
+        self.setup.fitted.len() + usize::from(self.setup.scale)
+    }
+    fn residuals(&self) -> usize {
+        self.pixels.len()
+    }
+    fn eval(&self, x: &[f64], res: &mut [f64], jac: &mut [f64]) -> f64 {
+        let d = self.thickness(x);
+        let p = self.params();
+        let nf = self.setup.fitted.len();
+        let s = if self.setup.scale { x[nf] } else { 1.0 };
+        let mut grad = vec![0.0; d.len()];
+        let mut chi2 = 0.0;
+        for (i, &j) in self.pixels.iter().enumerate() {
+            let r = self.setup.prep.reflectance_grad(j, &d, &mut grad);
+            res[i] = s * r - self.setup.measured[j];
+            chi2 += res[i] * res[i];
+            let row = &mut jac[i * p..(i + 1) * p];
+            for (a, l) in self.setup.fitted.iter().enumerate() {
+                row[a] = s * grad[*l];
+            }
+            if self.setup.scale {
+                row[nf] = r;
+            }
+        }
+        chi2
+    }
+}
+
+/// χ² at every point of the search grid, with the grid's shape.
+struct Grid {
+    counts: Vec<usize>,
+    chi2: Vec<f64>,
+    lower: Vec<f64>,
+    steps: Vec<f64>,
+    upper: Vec<f64>,
+}
+
+impl Grid {
+    fn value(&self, idx: &[usize]) -> Vec<f64> {
+        idx.iter()
+            .enumerate()
+            .map(|(a, i)| (self.lower[a] + *i as f64 * self.steps[a]).min(self.upper[a]))
+            .collect()
+    }
+
+    fn unflatten(&self, mut flat: usize) -> Vec<usize> {
+        let mut idx = vec![0; self.counts.len()];
+        for a in (0..self.counts.len()).rev() {
+            idx[a] = flat % self.counts[a];
+            flat /= self.counts[a];
+        }
+        idx
+    }
+
+    fn flatten(&self, idx: &[usize]) -> usize {
+        idx.iter().zip(&self.counts).fold(0, |f, (i, c)| f * c + i)
+    }
+
+    /// Grid points lower than every axis neighbour, best first.
+    fn local_minima(&self) -> Vec<usize> {
+        let mut out: Vec<usize> = (0..self.chi2.len())
+            .filter(|&f| {
+                let idx = self.unflatten(f);
+                let v = self.chi2[f];
+                (0..idx.len()).all(|a| {
+                    let mut n = idx.clone();
+                    let lower_ok = idx[a] == 0 || {
+                        n[a] = idx[a] - 1;
+                        self.chi2[self.flatten(&n)] >= v
+                    };
+                    let upper_ok = idx[a] + 1 == self.counts[a] || {
+                        n[a] = idx[a] + 1;
+                        self.chi2[self.flatten(&n)] > v
+                    };
+                    lower_ok && upper_ok
+                })
+            })
+            .collect();
+        out.sort_by(|a, b| self.chi2[*a].total_cmp(&self.chi2[*b]));
+        out
+    }
+}
+
+/// Grid step counts for the setup (at least 2 points per axis).
+fn counts(setup: &Setup) -> Vec<usize> {
+    (0..setup.fitted.len())
+        .map(|a| (((setup.upper[a] - setup.lower[a]) / setup.steps[a]).ceil() as usize + 1).max(2))
+        .collect()
+}
+
+fn grid_search(setup: &Setup, pixels: &[usize]) -> Grid {
+    let mut setup_steps = setup.clone();
+    let counts = counts(setup);
+    for a in 0..counts.len() {
+        setup_steps.steps[a] = (setup.upper[a] - setup.lower[a]) / (counts[a] - 1) as f64;
+    }
+    let setup = &setup_steps;
+    // Sweep the longest axis with the multiplication trick; loop over the others.
+    let sweep = (0..counts.len()).max_by_key(|a| counts[*a]).unwrap_or(0);
+    let n = counts[sweep];
+    let total: usize = counts.iter().product();
+    let mut chi2 = vec![0.0; total];
+    let smm: f64 = pixels.iter().map(|j| setup.measured[*j].powi(2)).sum();
+    let mut outer = vec![0usize; counts.len()];
+    let (mut sse, mut srr, mut srm) = (vec![0.0; n], vec![0.0; n], vec![0.0; n]);
+    let mut grid = Grid {
+        counts: counts.clone(),
+        chi2: Vec::new(),
+        lower: setup.lower.clone(),
+        steps: setup.steps.clone(),
+        upper: setup.upper.clone(),
+    };
+    loop {
+        let mut d = setup.base.clone();
+        for (a, l) in setup.fitted.iter().enumerate() {
+            d[*l] = setup.lower[a] + outer[a] as f64 * setup.steps[a];
+        }
+        for v in [&mut sse, &mut srr, &mut srm] {
+            v.iter_mut().for_each(|x| *x = 0.0);
+        }
+        setup.prep.sweep(
+            pixels,
+            setup.measured,
+            &d,
+            setup.fitted[sweep],
+            setup.lower[sweep],
+            setup.steps[sweep],
+            &mut sse,
+            &mut srr,
+            &mut srm,
+        );
+        for i in 0..n {
+            let mut idx = outer.clone();
+            idx[sweep] = i;
+            chi2[grid.flatten(&idx)] = if setup.scale {
+                // χ² at the best scale s = Σ R R_m / Σ R².
+                (smm - srm[i] * srm[i] / srr[i].max(1e-300)).max(0.0)
+            } else {
+                sse[i]
+            };
+        }
+        // Next outer index (mixed radix, skipping the swept axis).
+        let mut a = counts.len();
+        loop {
+            if a == 0 {
+                grid.chi2 = chi2;
+                return grid;
+            }
+            a -= 1;
+            if a == sweep {
+                continue;
+            }
+            outer[a] += 1;
+            if outer[a] < counts[a] {
+                break;
+            }
+            outer[a] = 0;
+        }
+    }
+}
+
+/// Candidates refined on the search pixels before the final polish.
+const CANDIDATES: usize = 6;
+/// Δχ² (in units of the residual variance) below which a second minimum is "within noise":
+/// a 3σ likelihood-ratio distinction for one parameter (common practice).
+const AMBIGUITY_DCHI2: f64 = 9.0;
+
+/// Fits the model: grid search on `search_pixels`, LM refinement there, then LM on every
+/// pixel from the best (and from the runner-up when it is close).
+pub fn fit(setup: &Setup, search_pixels: &[usize]) -> ModelFit {
+    let all: Vec<usize> = (0..setup.prep.len()).collect();
+    let grid = grid_search(setup, search_pixels);
+    let nf = setup.fitted.len();
+    let x0 = |v: Vec<f64>| -> Vec<f64> {
+        let mut x = v;
+        if setup.scale {
+            x.push(1.0);
+        }
+        x
+    };
+    let (mut lo, mut hi) = (setup.lower.clone(), setup.upper.clone());
+    if setup.scale {
+        lo.push(0.2);
+        hi.push(5.0);
+    }
+    let coarse = Settings {
+        max_iterations: 25,
+        rel_tol: 1e-7,
+        x_tol: 1e-3,
+    };
+    let sub = Lsq {
+        setup,
+        pixels: search_pixels,
+    };
+    let full = Lsq {
+        setup,
+        pixels: &all,
+    };
+    let same_pixels = search_pixels.len() == all.len();
+    // Refine the best local minima on the search pixels.
+    let mut refined: Vec<lm::Solution> = Vec::new();
+    for f in grid.local_minima().into_iter().take(CANDIDATES) {
+        let start = x0(grid.value(&grid.unflatten(f)));
+        let s = lm::minimise(&sub, &start, &lo, &hi, coarse);
+        let dup = refined
+            .iter()
+            .any(|r| (0..nf).all(|a| (r.x[a] - s.x[a]).abs() < (0.2 * setup.steps[a]).max(0.5)));
+        if !dup {
+            refined.push(s);
+        }
+    }
+    refined.sort_by(|a, b| a.chi2.total_cmp(&b.chi2));
+    let dof = |n: usize| (n as f64 - (nf + usize::from(setup.scale)) as f64).max(1.0);
+    let polish = |s: &lm::Solution| lm::minimise(&full, &s.x, &lo, &hi, Settings::default());
+    let best = polish(&refined[0]);
+    let s2 = best.chi2 / dof(all.len());
+    let mut ambiguous = false;
+    let mut runner_up = None;
+    if let Some(second) = refined.get(1) {
+        let s2_sub = refined[0].chi2 / dof(search_pixels.len());
+        let close_on_subset = second.chi2 - refined[0].chi2 < 4.0 * AMBIGUITY_DCHI2 * s2_sub;
+        if close_on_subset || same_pixels {
+            let second = if same_pixels {
+                second.clone()
+            } else {
+                polish(second)
+            };
+            ambiguous = second.chi2 - best.chi2 < AMBIGUITY_DCHI2 * s2
+                && (0..nf).any(|a| (second.x[a] - best.x[a]).abs() > 0.5);
+            runner_up = Some(second.x[..nf].to_vec());
+        } else {
+            runner_up = Some(second.x[..nf].to_vec());
+        }
+    }
+    let sigma = (0..nf)
+        .map(|a| match &best.inv_jtj {
+            Some(inv) => (inv[a * (nf + usize::from(setup.scale)) + a] * s2)
+                .max(0.0)
+                .sqrt(),
+            None => f64::NAN,
+        })
+        .collect();
+    ModelFit {
+        thickness: full.thickness(&best.x),
+        sigma,
+        scale: if setup.scale { best.x[nf] } else { 1.0 },
+        chi2: best.chi2,
+        ambiguous,
+        runner_up,
+    }
+}
+
+/// The residuals and Jacobian of the model at `x` on all pixels, for tests of the analytic
+/// derivatives: (residuals, row-major Jacobian).
+pub fn residuals_and_jacobian(setup: &Setup, x: &[f64]) -> (Vec<f64>, Vec<f64>) {
+    let all: Vec<usize> = (0..setup.prep.len()).collect();
+    let p = Lsq {
+        setup,
+        pixels: &all,
+    };
+    let mut r = vec![0.0; all.len()];
+    let mut j = vec![0.0; all.len() * p.params()];
+    p.eval(x, &mut r, &mut j);
+    (r, j)
+}

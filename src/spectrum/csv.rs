@@ -1,0 +1,339 @@
+//! The spectrum CSV files of DESIGN.md §3: a header line, comma separated, `#` comment lines
+//! allowed; either `wavelength_nm,reflectance` (fraction 0..1) or
+//! `wavelength_nm,sample,dark,reference` (counts). Every problem names its line.
+
+use super::saturation::clipped_pixels;
+use super::{Counts, RawSpectrum, Spectrum, SpectrumError};
+use std::io::{self, Write};
+use std::path::Path;
+
+/// The two forms a spectrum file can take.
+#[derive(Debug, Clone, PartialEq)]
+pub enum SpectrumFile {
+    /// `wavelength_nm,reflectance`.
+    Reflectance(Spectrum),
+    /// `wavelength_nm,sample,dark,reference`.
+    Counts(RawSpectrum),
+}
+
+/// Reflectance values accepted in a file; outside this the column is not a 0..1 fraction.
+const REFLECTANCE_LIMITS: [f64; 2] = [-0.1, 1.5];
+/// Fewest data rows a spectrum file may have.
+const MIN_ROWS: usize = 3;
+
+/// Reads and parses a spectrum file.
+pub fn read_csv(path: &Path) -> Result<SpectrumFile, SpectrumError> {
+    let bytes = std::fs::read(path).map_err(|source| SpectrumError::Io {
+        path: path.to_path_buf(),
+        source,
+    })?;
+    parse_csv(&String::from_utf8_lossy(&bytes), path)
+}
+
+/// Parses spectrum CSV text; `path` is used in messages.
+pub fn parse_csv(text: &str, path: &Path) -> Result<SpectrumFile, SpectrumError> {
+    let at = |line: usize, message: String| SpectrumError::Line {
+        file: path.to_path_buf(),
+        line,
+        message,
+    };
+    let mut columns: Option<usize> = None;
+    let mut rows: Vec<Vec<f64>> = Vec::new();
+    let mut lines: Vec<usize> = Vec::new();
+    for (i, raw) in text.lines().enumerate() {
+        let line = i + 1;
+        let t = raw.trim().trim_start_matches('\u{feff}');
+        if t.is_empty() || t.starts_with('#') {
+            continue;
+        }
+        let cells: Vec<&str> = t.split(',').map(str::trim).collect();
+        let Some(ncol) = columns else {
+            let names: Vec<String> = cells.iter().map(|c| c.to_lowercase()).collect();
+            columns = Some(match names.iter().map(String::as_str).collect::<Vec<_>>()[..] {
+                ["wavelength_nm", "reflectance"] => 2,
+                ["wavelength_nm", "sample", "dark", "reference"] => 4,
+                _ => {
+                    return Err(at(
+                        line,
+                        format!("header \"{}\" is not a spectrum header: use wavelength_nm,reflectance or wavelength_nm,sample,dark,reference", short(t)),
+                    ))
+                }
+            });
+            continue;
+        };
+        if cells.len() != ncol {
+            return Err(at(
+                line,
+                format!("{} fields, the header has {ncol}", cells.len()),
+            ));
+        }
+        let mut row = Vec::with_capacity(ncol);
+        for (j, c) in cells.iter().enumerate() {
+            let v: f64 = c.parse().map_err(|_| {
+                at(
+                    line,
+                    format!("\"{}\" in column {} is not a number", short(c), j + 1),
+                )
+            })?;
+            if !v.is_finite() {
+                return Err(at(
+                    line,
+                    format!("{c} in column {} is not a finite number", j + 1),
+                ));
+            }
+            row.push(v);
+        }
+        let w = row[0];
+        if w <= 0.0 {
+            return Err(at(line, format!("wavelength {w} nm must be positive")));
+        }
+        if let Some(prev) = rows.last() {
+            if w == prev[0] {
+                return Err(at(
+                    line,
+                    format!(
+                        "duplicate wavelength {w} nm (also on line {}): each pixel once",
+                        lines[lines.len() - 1]
+                    ),
+                ));
+            }
+            if w < prev[0] {
+                return Err(at(
+                    line,
+                    format!("wavelength {w} nm is below the previous row's {} nm: wavelengths must increase", prev[0]),
+                ));
+            }
+        }
+        rows.push(row);
+        lines.push(line);
+    }
+    let Some(ncol) = columns else {
+        return Err(at(
+            1,
+            "no header: the file is empty or only comments".into(),
+        ));
+    };
+    if rows.len() < MIN_ROWS {
+        return Err(at(
+            lines.last().copied().unwrap_or(1),
+            format!(
+                "{} data rows; a spectrum needs at least {MIN_ROWS}",
+                rows.len()
+            ),
+        ));
+    }
+    if rows.last().is_some_and(|r| r[0] < 10.0) {
+        return Err(at(
+            lines[0],
+            "every wavelength is below 10: the column is wavelength_nm (nm), these look like µm"
+                .into(),
+        ));
+    }
+    let col = |j: usize| -> Vec<f64> { rows.iter().map(|r| r[j]).collect() };
+    let wavelength_nm = col(0);
+    if ncol == 2 {
+        let reflectance = col(1);
+        check_fraction(&reflectance, &lines, &at)?;
+        return Ok(SpectrumFile::Reflectance(Spectrum {
+            wavelength_nm,
+            reflectance,
+        }));
+    }
+    let (sample, dark, reference) = (col(1), col(2), col(3));
+    for (name, v) in [("sample", &sample), ("reference", &reference)] {
+        let clipped = clipped_pixels(v);
+        let n = clipped.iter().filter(|c| **c).count();
+        if 2 * n > v.len() {
+            let first = clipped.iter().position(|c| *c).unwrap_or(0);
+            return Err(at(
+                lines[first],
+                format!("{name} counts are saturated ({n} of {} rows at {}): shorten the integration time", v.len(), v[first]),
+            ));
+        }
+    }
+    for (name, v) in [("sample", &sample), ("reference", &reference)] {
+        if v.iter().zip(&dark).all(|(s, d)| s <= d) {
+            return Err(at(
+                lines[0],
+                format!("{name} counts never exceed the dark counts: no light reached the detector (lamp, shutter, fibre?)"),
+            ));
+        }
+    }
+    let counts = |c: Vec<f64>| Counts {
+        wavelength_nm: wavelength_nm.clone(),
+        counts: c,
+    };
+    Ok(SpectrumFile::Counts(RawSpectrum {
+        sample: counts(sample),
+        dark: counts(dark),
+        reference: counts(reference),
+    }))
+}
+
+fn check_fraction(
+    r: &[f64],
+    lines: &[usize],
+    at: &impl Fn(usize, String) -> SpectrumError,
+) -> Result<(), SpectrumError> {
+    let [lo, hi] = REFLECTANCE_LIMITS;
+    let max = r.iter().copied().fold(f64::MIN, f64::max);
+    if let Some(i) = r.iter().position(|v| *v < lo || *v > hi) {
+        let hint = if max > 2.0 && max <= 100.0 {
+            "; the column looks like percent: divide by 100"
+        } else {
+            ""
+        };
+        return Err(at(
+            lines[i],
+            format!(
+                "reflectance {} is outside {lo}..{hi}: the column is a fraction 0..1{hint}",
+                r[i]
+            ),
+        ));
+    }
+    Ok(())
+}
+
+/// The first 40 characters of a cell, for messages.
+fn short(s: &str) -> String {
+    let mut out: String = s.chars().take(40).collect();
+    if s.chars().count() > 40 {
+        out.push('…');
+    }
+    out
+}
+
+fn write_comments<W: Write>(out: &mut W, comments: &[String]) -> io::Result<()> {
+    for c in comments {
+        for l in c.lines() {
+            writeln!(out, "# {l}")?;
+        }
+    }
+    Ok(())
+}
+
+/// Writes `wavelength_nm,reflectance` with optional `#` comment lines first.
+pub fn write_reflectance_csv<W: Write>(
+    mut out: W,
+    spectrum: &Spectrum,
+    comments: &[String],
+) -> io::Result<()> {
+    write_comments(&mut out, comments)?;
+    writeln!(out, "wavelength_nm,reflectance")?;
+    for (w, r) in spectrum.wavelength_nm.iter().zip(&spectrum.reflectance) {
+        writeln!(out, "{w},{r}")?;
+    }
+    out.flush()
+}
+
+/// Writes `wavelength_nm,sample,dark,reference` (the raw spectra a run folder keeps).
+/// The wavelength axis is the sample's; the three must share it.
+pub fn write_counts_csv<W: Write>(
+    mut out: W,
+    raw: &RawSpectrum,
+    comments: &[String],
+) -> io::Result<()> {
+    let n = raw.sample.counts.len();
+    if raw.dark.counts.len() != n
+        || raw.reference.counts.len() != n
+        || raw.sample.wavelength_nm.len() != n
+    {
+        return Err(io::Error::new(
+            io::ErrorKind::InvalidInput,
+            format!(
+                "sample, dark and reference have {}, {} and {} pixels: they must share one wavelength axis",
+                n,
+                raw.dark.counts.len(),
+                raw.reference.counts.len()
+            ),
+        ));
+    }
+    write_comments(&mut out, comments)?;
+    writeln!(out, "wavelength_nm,sample,dark,reference")?;
+    for i in 0..n {
+        writeln!(
+            out,
+            "{},{},{},{}",
+            raw.sample.wavelength_nm[i],
+            raw.sample.counts[i],
+            raw.dark.counts[i],
+            raw.reference.counts[i]
+        )?;
+    }
+    out.flush()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn err(text: &str) -> String {
+        parse_csv(text, Path::new("s.csv")).unwrap_err().to_string()
+    }
+
+    #[test]
+    fn reads_both_forms() {
+        let r = parse_csv(
+            "# c\nwavelength_nm,reflectance\n400,0.3\n401,0.31\n402,0.32\n",
+            Path::new("s.csv"),
+        )
+        .unwrap();
+        assert!(
+            matches!(r, SpectrumFile::Reflectance(ref s) if s.len() == 3 && s.reflectance[1] == 0.31)
+        );
+        let c = parse_csv(
+            "Wavelength_nm, Sample, Dark, Reference\n400,100,10,200\n401,110,10,210\n402,120,10,220\n",
+            Path::new("s.csv"),
+        )
+        .unwrap();
+        assert!(matches!(c, SpectrumFile::Counts(ref r) if r.reference.counts[2] == 220.0));
+    }
+
+    #[test]
+    fn errors_name_the_line() {
+        let h = "wavelength_nm,reflectance\n";
+        assert!(err(&format!("{h}400,0.3\n400,0.3\n401,0.3\n")).contains("s.csv:3: duplicate"));
+        assert!(err(&format!("{h}400,0.3\n399,0.3\n401,0.3\n")).contains("s.csv:3:"));
+        assert!(err(&format!("{h}400,0.3\n401,NaN\n402,0.3\n")).contains("s.csv:3:"));
+        assert!(err(&format!("{h}400,0.3\n401,x\n402,0.3\n")).contains("not a number"));
+        assert!(err(&format!("{h}400,30\n401,31\n402,32\n")).contains("percent"));
+        assert!(err(&format!("{h}0.4,0.3\n0.5,0.3\n0.6,0.3\n")).contains("µm"));
+        assert!(err("wl,r\n").contains("s.csv:1: header"));
+        assert!(err("").contains("no header"));
+        assert!(err(&format!("{h}400,0.3,1\n")).contains("s.csv:2: 3 fields"));
+        let dark =
+            "wavelength_nm,sample,dark,reference\n400,10,10,200\n401,9,10,210\n402,10,10,220\n";
+        assert!(err(dark).contains("sample counts never exceed the dark"));
+        let sat = "wavelength_nm,sample,dark,reference\n400,100,10,65535\n401,101,10,65535\n402,102,10,65535\n403,99,10,200\n";
+        assert!(
+            err(sat).contains("s.csv:2: reference counts are saturated"),
+            "{}",
+            err(sat)
+        );
+    }
+
+    #[test]
+    fn written_files_read_back() {
+        let s = Spectrum {
+            wavelength_nm: vec![400.0, 400.5, 401.25],
+            reflectance: vec![0.1, 0.123456789012, 0.3],
+        };
+        let mut buf = Vec::new();
+        write_reflectance_csv(&mut buf, &s, &["site 3".into()]).unwrap();
+        let back = parse_csv(std::str::from_utf8(&buf).unwrap(), Path::new("x")).unwrap();
+        assert_eq!(back, SpectrumFile::Reflectance(s.clone()));
+        let c = |v: Vec<f64>| Counts {
+            wavelength_nm: s.wavelength_nm.clone(),
+            counts: v,
+        };
+        let raw = RawSpectrum {
+            sample: c(vec![100.0, 200.0, 300.0]),
+            dark: c(vec![10.0, 11.0, 12.0]),
+            reference: c(vec![400.0, 500.0, 600.0]),
+        };
+        let mut buf = Vec::new();
+        write_counts_csv(&mut buf, &raw, &[]).unwrap();
+        let back = parse_csv(std::str::from_utf8(&buf).unwrap(), Path::new("x")).unwrap();
+        assert_eq!(back, SpectrumFile::Counts(raw));
+    }
+}
