@@ -25,25 +25,41 @@ enum Edge {
 
 /// The isolines of `grid` at `level` (values ≥ level count as inside).
 pub fn isolines(grid: &Grid, level: f64) -> Vec<Polyline> {
-    let mut segments: Vec<(Edge, Edge)> = Vec::new();
-    for j in 0..grid.ny.saturating_sub(1) {
-        for i in 0..grid.nx.saturating_sub(1) {
-            cell_segments(grid, i, j, level, &mut segments);
-        }
-    }
-    join(grid, level, &segments)
+    isolines_many(grid, &[level]).pop().unwrap_or_default()
 }
 
-fn cell_segments(grid: &Grid, i: usize, j: usize, level: f64, out: &mut Vec<(Edge, Edge)>) {
-    let v = [
-        grid.at(i, j),
-        grid.at(i + 1, j),
-        grid.at(i + 1, j + 1),
-        grid.at(i, j + 1),
-    ];
-    if v.iter().any(|x| x.is_nan()) {
-        return;
+/// The isolines at each of `levels` (ascending), in one pass over the cells: a cell only
+/// produces segments for the levels between its lowest and highest corner.
+pub fn isolines_many(grid: &Grid, levels: &[f64]) -> Vec<Vec<Polyline>> {
+    let mut segments: Vec<Vec<(Edge, Edge)>> = vec![Vec::new(); levels.len()];
+    let nx = grid.nx;
+    for j in 0..grid.ny.saturating_sub(1) {
+        let lower = &grid.values[j * nx..(j + 1) * nx];
+        let upper = &grid.values[(j + 1) * nx..(j + 2) * nx];
+        for i in 0..nx.saturating_sub(1) {
+            let v = [lower[i], lower[i + 1], upper[i + 1], upper[i]];
+            let lo = v[0].min(v[1]).min(v[2].min(v[3]));
+            let hi = v[0].max(v[1]).max(v[2].max(v[3]));
+            if v.iter().any(|x| x.is_nan()) {
+                continue;
+            }
+            // Levels with some corner below and some at or above: lo < level ≤ hi.
+            let first = levels.partition_point(|&l| l <= lo);
+            let last = levels.partition_point(|&l| l <= hi);
+            for (k, &level) in levels.iter().enumerate().take(last).skip(first) {
+                cell_segments(v, i, j, level, &mut segments[k]);
+            }
+        }
     }
+    segments
+        .iter()
+        .zip(levels)
+        .map(|(segs, &level)| join(grid, level, segs))
+        .collect()
+}
+
+/// The segments of one cell; `v` holds the corners counter-clockwise from (i, j).
+fn cell_segments(v: [f64; 4], i: usize, j: usize, level: f64, out: &mut Vec<(Edge, Edge)>) {
     let inside = v.map(|x| x >= level);
     let case = inside
         .iter()
@@ -255,6 +271,17 @@ mod tests {
         assert_eq!(isolines(&g, 0.5).len(), 2);
         // Below the saddle value (≈ 2e^{-3.2} ≈ 0.082) the two merge into one loop.
         assert_eq!(isolines(&g, 0.05).len(), 1);
+    }
+
+    #[test]
+    fn one_pass_over_many_levels_equals_one_level_at_a_time() {
+        let g = grid_of(61, |x, y| (3.0 * x).sin() + y * y);
+        let levels = [-0.5, 0.0, 0.25, 0.9];
+        let many = isolines_many(&g, &levels);
+        for (k, &l) in levels.iter().enumerate() {
+            assert_eq!(many[k], isolines(&g, l));
+            assert!(!many[k].is_empty());
+        }
     }
 
     #[test]

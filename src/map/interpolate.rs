@@ -155,54 +155,216 @@ impl Field {
 
     /// Grid of `n` × `n` nodes spanning the usable disc, filled where
     /// `edge_distance ≥ edge exclusion − pad_mm` (pad 0 = the usable area exactly), empty
-    /// elsewhere. Rows are shared among the available cores.
+    /// elsewhere. Bands of rows are shared among the available cores.
+    ///
+    /// Evaluation is checked-adaptive: the field is evaluated exactly on every
+    /// [`COARSE_STRIDE`]-th node and, for each coarse cell, at its centre and the midpoints of
+    /// its four sides. Where all five agree with the bilinear value of the cell's corners to
+    /// within [`GRID_TOLERANCE`] of the value range, the cell's other nodes are filled
+    /// bilinearly (for a locally quadratic field the bilinear error peaks at those points);
+    /// cells that fail the check, hold a node of the triangulation, or touch the edge of the
+    /// defined area are evaluated node by node.
     pub fn grid(&self, n: usize, pad_mm: f64) -> Grid {
         let n = n.max(2);
         let half = self.wafer.usable_radius() + pad_mm.max(0.0);
         let step = 2.0 * half / (n - 1) as f64;
-        let (x0, y0) = (-half, -half);
-        let mut values = vec![f64::NAN; n * n];
+        let spec = GridSpec {
+            n,
+            x0: -half,
+            y0: -half,
+            step,
+            limit: self.wafer.edge_exclusion_mm - pad_mm - 1e-9,
+            tol: GRID_TOLERANCE * self.value_span().max(1e-9),
+        };
+        let lattice: Vec<usize> = (0..n.div_ceil(COARSE_STRIDE))
+            .map(|k| k * COARSE_STRIDE)
+            .chain(std::iter::once(n - 1))
+            .collect::<std::collections::BTreeSet<_>>()
+            .into_iter()
+            .collect();
+        let cells = lattice.len() - 1;
+        let site_cells = self.site_cells(&spec, &lattice);
         let threads = std::thread::available_parallelism()
             .map(|t| t.get())
             .unwrap_or(1)
             .clamp(1, 8)
-            .min(n);
-        let rows_per = n.div_ceil(threads);
-        let limit = self.wafer.edge_exclusion_mm - pad_mm - 1e-9;
+            .min(cells);
+        let per = cells.div_ceil(threads);
+        let mut values = vec![f64::NAN; n * n];
         std::thread::scope(|scope| {
-            for (chunk_idx, chunk) in values.chunks_mut(rows_per * n).enumerate() {
+            let mut rest: &mut [f64] = &mut values;
+            let mut row0 = 0;
+            for band in (0..cells).step_by(per) {
+                let band_end = (band + per).min(cells);
+                // Fine rows owned: from this band's first lattice row up to the next band's
+                // (the last band also owns the final row).
+                let row_end = if band_end == cells {
+                    n
+                } else {
+                    lattice[band_end]
+                };
+                let (mine, tail) = std::mem::take(&mut rest).split_at_mut((row_end - row0) * n);
+                rest = tail;
+                let (lattice, site_cells, spec) = (&lattice, &site_cells, &spec);
                 // A clone per thread: spade's look-up hint is shared state inside the
                 // triangulation, and threads walking from each other's hints are slow.
-                let local = if threads > 1 {
-                    Some(self.clone())
-                } else {
-                    None
-                };
-                let wafer = self.wafer;
+                let local = (threads > 1).then(|| self.clone());
                 let field_ref: &Field = self;
+                let first_row = row0;
                 scope.spawn(move || {
                     let field = local.as_ref().unwrap_or(field_ref);
-                    let s = field.sampler();
-                    for (r, row) in chunk.chunks_mut(n).enumerate() {
-                        let y = y0 + (chunk_idx * rows_per + r) as f64 * step;
-                        for (i, out) in row.iter_mut().enumerate() {
-                            let x = x0 + i as f64 * step;
-                            if wafer.edge_distance(x, y) >= limit {
-                                *out = s.at(x, y);
-                            }
-                        }
-                    }
+                    field.fill_band(spec, lattice, site_cells, band..band_end, first_row, mine);
                 });
+                row0 = row_end;
             }
         });
         Grid {
             nx: n,
             ny: n,
-            x0,
-            y0,
+            x0: spec.x0,
+            y0: spec.y0,
             step,
             values,
         }
+    }
+
+    /// Range of the node values (sites and ghosts).
+    fn value_span(&self) -> f64 {
+        let (lo, hi) = self.tri.vertices().fold((f64::MAX, f64::MIN), |(a, b), v| {
+            (a.min(v.data().value), b.max(v.data().value))
+        });
+        hi - lo
+    }
+
+    /// Coarse cells (column, row) that hold a site or ghost node.
+    fn site_cells(
+        &self,
+        spec: &GridSpec,
+        lattice: &[usize],
+    ) -> std::collections::HashSet<(usize, usize)> {
+        let mut set = std::collections::HashSet::new();
+        let cell_of = |c: f64| {
+            let node = ((c / spec.step).floor().max(0.0) as usize).min(spec.n - 1);
+            lattice.partition_point(|&l| l <= node).saturating_sub(1)
+        };
+        for v in self.tri.vertices() {
+            let p = v.position();
+            set.insert((cell_of(p.x - spec.x0), cell_of(p.y - spec.y0)));
+        }
+        set
+    }
+
+    /// Fills the fine rows of coarse rows `band` into `out` (which starts at fine row
+    /// `first_row`).
+    fn fill_band(
+        &self,
+        spec: &GridSpec,
+        lattice: &[usize],
+        site_cells: &std::collections::HashSet<(usize, usize)>,
+        band: std::ops::Range<usize>,
+        first_row: usize,
+        out: &mut [f64],
+    ) {
+        let s = self.sampler();
+        let n = spec.n;
+        let cells = lattice.len() - 1;
+        let mid = |k: usize, coord: &dyn Fn(usize) -> f64| {
+            0.5 * (coord(lattice[k]) + coord(lattice[k + 1]))
+        };
+        let xs = |i: usize| spec.x(i);
+        let ys = |j: usize| spec.y(j);
+        // Lattice nodes and midpoints of the horizontal cell sides along lattice row j.
+        let along = |j: usize| -> (Vec<f64>, Vec<f64>) {
+            let y = spec.y(j);
+            (
+                lattice.iter().map(|&i| s.at(spec.x(i), y)).collect(),
+                (0..cells).map(|k| s.at(mid(k, &xs), y)).collect(),
+            )
+        };
+        let (mut below, mut below_mid) = along(lattice[band.start]);
+        for cj in band.clone() {
+            let (j0, j1) = (lattice[cj], lattice[cj + 1]);
+            let (above, above_mid) = along(j1);
+            // Midpoints of the vertical sides and the centres, at the middle height.
+            let ym = mid(cj, &ys);
+            let side_mid: Vec<f64> = lattice.iter().map(|&i| s.at(spec.x(i), ym)).collect();
+            let centre: Vec<f64> = (0..cells).map(|k| s.at(mid(k, &xs), ym)).collect();
+            let rows = if cj + 1 == cells {
+                j0..=j1
+            } else {
+                j0..=j1 - 1
+            };
+            for ci in 0..cells {
+                let (i0, i1) = (lattice[ci], lattice[ci + 1]);
+                let c = [below[ci], below[ci + 1], above[ci], above[ci + 1]];
+                // NaN counts as off: a cell that cannot be checked is evaluated exactly.
+                let off = |got: f64, bilinear: f64| {
+                    let e = (got - bilinear).abs();
+                    e.is_nan() || e > spec.tol
+                };
+                let exact = site_cells.contains(&(ci, cj))
+                    || c.iter().any(|v| !v.is_finite())
+                    || off(centre[ci], 0.25 * (c[0] + c[1] + c[2] + c[3]))
+                    || off(below_mid[ci], 0.5 * (c[0] + c[1]))
+                    || off(above_mid[ci], 0.5 * (c[2] + c[3]))
+                    || off(side_mid[ci], 0.5 * (c[0] + c[2]))
+                    || off(side_mid[ci + 1], 0.5 * (c[1] + c[3]));
+                let cols = if ci + 1 == cells {
+                    i0..=i1
+                } else {
+                    i0..=i1 - 1
+                };
+                for j in rows.clone() {
+                    let y = spec.y(j);
+                    let ty = (j - j0) as f64 / (j1 - j0) as f64;
+                    for i in cols.clone() {
+                        let x = spec.x(i);
+                        if self.wafer.edge_distance(x, y) < spec.limit {
+                            continue;
+                        }
+                        let v = if (i == i0 || i == i1) && (j == j0 || j == j1) {
+                            c[(i == i1) as usize + 2 * (j == j1) as usize]
+                        } else if exact {
+                            s.at(x, y)
+                        } else {
+                            let tx = (i - i0) as f64 / (i1 - i0) as f64;
+                            (c[0] * (1.0 - tx) + c[1] * tx) * (1.0 - ty)
+                                + (c[2] * (1.0 - tx) + c[3] * tx) * ty
+                        };
+                        out[(j - first_row) * n + i] = v;
+                    }
+                }
+            }
+            below = above;
+            below_mid = above_mid;
+        }
+    }
+}
+
+/// Nodes between exact evaluations of [`Field::grid`].
+pub const COARSE_STRIDE: usize = 4;
+/// Largest bilinear error accepted in a coarse cell, as a fraction of the value range
+/// (1e-3: 0.025 nm on a 25 nm range, which moves an isoline by well under a pixel).
+pub const GRID_TOLERANCE: f64 = 1e-3;
+
+/// Geometry of a grid being filled.
+struct GridSpec {
+    n: usize,
+    x0: f64,
+    y0: f64,
+    step: f64,
+    /// Nodes with `edge_distance` below this stay empty.
+    limit: f64,
+    /// Absolute tolerance of the centre check.
+    tol: f64,
+}
+
+impl GridSpec {
+    fn x(&self, i: usize) -> f64 {
+        self.x0 + i as f64 * self.step
+    }
+    fn y(&self, j: usize) -> f64 {
+        self.y0 + j as f64 * self.step
     }
 }
 
@@ -369,6 +531,45 @@ mod tests {
     fn duplicates_are_averaged() {
         let m = merge_duplicates(&[(1.0, 2.0, 10.0), (0.0, 0.0, 5.0), (1.0, 2.0, 14.0)]);
         assert_eq!(m, vec![(0.0, 0.0, 5.0), (1.0, 2.0, 12.0)]);
+    }
+
+    #[test]
+    fn adaptive_grid_matches_exact_evaluation_within_tolerance() {
+        let f = |x: f64, y: f64| {
+            let r2 = (x * x + y * y) / 4900.0;
+            1000.0 + 20.0 * (1.0 - r2) + 0.06 * x + 3.0 * (x / 9.0).sin() * (y / 11.0).cos()
+        };
+        let mut sites = vec![(0.0, 0.0, f(0.0, 0.0))];
+        for ring in 1..=4 {
+            let r = 70.0 * ring as f64 / 4.0;
+            for k in 0..8 * ring {
+                let a = std::f64::consts::TAU * k as f64 / (8 * ring) as f64;
+                sites.push((r * a.cos(), r * a.sin(), f(r * a.cos(), r * a.sin())));
+            }
+        }
+        let field = Field::new(&sites, &wafer()).unwrap();
+        let g = field.grid(512, 0.0);
+        let tol = GRID_TOLERANCE * field.value_span();
+        let s = field.sampler();
+        let (mut worst, mut differ, mut filled) = (0.0f64, 0, 0);
+        for j in 0..g.ny {
+            for i in 0..g.nx {
+                let v = g.at(i, j);
+                if v.is_finite() {
+                    let e = (v - s.at(g.x(i), g.y(j))).abs();
+                    worst = worst.max(e);
+                    differ += (e > 0.0) as usize;
+                    filled += 1;
+                }
+            }
+        }
+        // The bilinear fill was really used (most nodes are not bit-identical to exact).
+        assert!(
+            differ > filled / 2,
+            "{differ} of {filled} nodes interpolated"
+        );
+        // Measured: worst 0.021 nm against a tolerance of 0.031 nm (1e-3 of the range).
+        assert!(worst <= tol, "worst {worst} vs tolerance {tol}");
     }
 
     #[test]

@@ -6,7 +6,7 @@
 //! radial profile plot; a one-line legend at the foot.
 
 use super::colour::{self, ink_on, Rgb};
-use super::contour::{isolines, simplify, Polyline};
+use super::contour::{isolines_many, simplify, Polyline};
 use super::interpolate::{Field, Grid};
 use super::levels::{decimals_for, nice_levels, Levels};
 use super::render::{MapInput, RenderOptions};
@@ -113,7 +113,7 @@ fn value_range(opts: &RenderOptions, sites: &[(f64, f64, f64)], grid: Option<&Gr
 /// A colour per band: the scale at the band's middle value.
 fn band_colours(lo: f64, hi: f64, bounds: &[f64]) -> Vec<Rgb> {
     let span = hi - lo;
-    if !(span > 0.0) {
+    if span.is_nan() || span <= 0.0 {
         return vec![colour::scale(0.5)];
     }
     let mut edges = vec![lo];
@@ -135,7 +135,7 @@ fn fmt(v: f64, decimals: usize) -> String {
 
 /// Decimals for printing values of this spread: about three significant digits of σ.
 fn value_decimals(spread: f64) -> usize {
-    if !(spread > 0.0) {
+    if spread.is_nan() || spread <= 0.0 {
         return 2;
     }
     (2.0 - spread.log10().floor()).clamp(0.0, 3.0) as usize
@@ -174,7 +174,7 @@ fn header(scene: &mut Scene, input: &MapInput, stats: &LayerSummary) {
         input.unit
     )];
     if !input.time.is_empty() {
-        sub.push(input.time.clone());
+        sub.push(readable_time(&input.time));
     }
     sub.push(format!(
         "{} of {} sites valid",
@@ -194,6 +194,13 @@ fn header(scene: &mut Scene, input: &MapInput, stats: &LayerSummary) {
         Stroke::solid(RULE, 1.0),
         "rule",
     );
+}
+
+/// An RFC 3339 time as `2026-12-03 14:22 +01:00`; anything else is shown as given.
+fn readable_time(t: &str) -> String {
+    chrono::DateTime::parse_from_rfc3339(t)
+        .map(|d| d.format("%Y-%m-%d %H:%M %:z").to_string())
+        .unwrap_or_else(|_| t.to_string())
 }
 
 #[allow(clippy::too_many_arguments)]
@@ -233,22 +240,31 @@ fn wafer_and_field(
         })));
         let tol_mm = 0.35 / scale;
         let span = hi - lo;
-        for &level in &levels.values {
+        let mut labels = Vec::new();
+        let all = isolines_many(grid, &levels.values);
+        for (k, (&level, lines)) in levels.values.iter().zip(all).enumerate() {
             let t = if span > 0.0 { (level - lo) / span } else { 0.5 };
             let ink = ink_on(colour::scale(t));
-            for line in isolines(grid, level) {
+            let mut pieces_px = Vec::new();
+            for line in lines {
                 for piece in clip_to_usable(&line, w) {
                     let piece = simplify(&piece, tol_mm);
+                    let points: Vec<(f64, f64)> =
+                        piece.points.iter().map(|&(x, y)| to_px(x, y)).collect();
                     scene.items.push(Item::Path {
-                        points: piece.points.iter().map(|&(x, y)| to_px(x, y)).collect(),
+                        points: points.clone(),
                         closed: piece.closed,
                         fill: None,
                         stroke: Some(Stroke::solid(ink, 0.9)),
                         class: "isoline",
                     });
+                    pieces_px.push(points);
                 }
             }
+            labels.push((k, level, ink, pieces_px));
         }
+        let sites_px: Vec<(f64, f64)> = input.rows.iter().map(|r| to_px(r.x_mm, r.y_mm)).collect();
+        isoline_labels(scene, &labels, &sites_px, levels, colours);
     }
     scene.items.push(Item::Path {
         points: usable,
@@ -262,6 +278,70 @@ fn wafer_and_field(
         class: "edge-exclusion",
     });
     orientation_mark(scene, input, origin, scale);
+}
+
+/// A level's index, value, ink and drawn pieces (px).
+type LevelLines = (usize, f64, Rgb, Vec<Vec<(f64, f64)>>);
+
+/// One label per level, on its lines at the point farthest from site markers and other
+/// labels (skipped where no point is at least 16 px clear), on a patch of the band colour.
+fn isoline_labels(
+    scene: &mut Scene,
+    labels: &[LevelLines],
+    sites_px: &[(f64, f64)],
+    levels: &Levels,
+    colours: &[Rgb],
+) {
+    const SIZE: f64 = 9.0;
+    let mut placed: Vec<(f64, f64)> = Vec::new();
+    for (k, level, ink, pieces) in labels {
+        let text = fmt(*level, levels.decimals);
+        let half_w = 0.32 * SIZE * text.chars().count() as f64 + 3.0;
+        let mut best: Option<(f64, (f64, f64))> = None;
+        for piece in pieces.iter().filter(|p| polyline_length(p) > 6.0 * half_w) {
+            let stride = (piece.len() / 24).max(1);
+            for &p in piece.iter().step_by(stride) {
+                let clear = sites_px
+                    .iter()
+                    .chain(&placed)
+                    .map(|q| (q.0 - p.0).hypot(q.1 - p.1))
+                    .fold(f64::INFINITY, f64::min);
+                if best.is_none_or(|(b, _)| clear > b) {
+                    best = Some((clear, p));
+                }
+            }
+        }
+        let Some((clear, (x, y))) = best else {
+            continue;
+        };
+        if clear < 16.0 + half_w {
+            continue;
+        }
+        placed.push((x, y));
+        scene.items.push(Item::Rect {
+            x: x - half_w,
+            y: y - 6.5,
+            w: 2.0 * half_w,
+            h: 13.0,
+            fill: Some(colours[k + 1]),
+            stroke: None,
+        });
+        scene.text(
+            x,
+            y + 3.2,
+            text,
+            SIZE,
+            Anchor::Middle,
+            *ink,
+            "isoline-label",
+        );
+    }
+}
+
+fn polyline_length(p: &[(f64, f64)]) -> f64 {
+    p.windows(2)
+        .map(|w| (w[1].0 - w[0].0).hypot(w[1].1 - w[0].1))
+        .sum()
 }
 
 /// Splits a line where it leaves the usable area, keeping the parts inside.
@@ -396,7 +476,7 @@ fn colour_bar(
     );
     scene.text(
         x,
-        top - 14.0,
+        top - 12.0,
         input.unit.clone(),
         12.0,
         Anchor::Start,
@@ -408,7 +488,7 @@ fn colour_bar(
     let mut edges = vec![lo];
     edges.extend_from_slice(&levels.values);
     edges.push(hi);
-    if !(span > 0.0) {
+    if span.is_nan() || span <= 0.0 {
         scene.items.push(Item::Rect {
             x,
             y: top,
@@ -477,25 +557,6 @@ fn colour_bar(
             );
         }
     }
-    let d = value_decimals(span / 4.0);
-    scene.text(
-        x,
-        bottom + 16.0,
-        format!("min {}", fmt(lo, d)),
-        10.0,
-        Anchor::Start,
-        MUTED,
-        "tick",
-    );
-    scene.text(
-        x,
-        top - 28.0,
-        format!("max {}", fmt(hi, d)),
-        10.0,
-        Anchor::Start,
-        MUTED,
-        "tick",
-    );
 }
 
 /// Right-hand column: left edge, right edge (px).

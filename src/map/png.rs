@@ -284,7 +284,7 @@ fn fill_field(buf: &mut [u8], bw: u32, bh: u32, f: &FieldFill, k: f64) {
 fn downsample(buf: &[u8], bw: u32, bh: u32) -> Vec<u8> {
     let (w, h) = (bw / SS, bh / SS);
     let mut out = vec![0u8; (w * h * 3) as usize];
-    let n = (SS * SS) as u32;
+    let n = SS * SS;
     for y in 0..h {
         for x in 0..w {
             for c in 0..3 {

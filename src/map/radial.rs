@@ -34,7 +34,7 @@ impl RadialFit {
             .copied()
             .filter(|(r, v)| r.is_finite() && v.is_finite())
             .collect();
-        if pts.is_empty() || !(r_norm_mm > 0.0) {
+        if pts.is_empty() || r_norm_mm.is_nan() || r_norm_mm <= 0.0 {
             return None;
         }
         let terms = distinct_radii(&pts, r_norm_mm)

@@ -11,7 +11,7 @@ use super::MapError;
 use crate::recipe::{Recipe, Wafer};
 use crate::run::files::write_atomic;
 use crate::run::folder::{RunFolder, RunToml};
-use std::path::Path;
+use std::path::{Path, PathBuf};
 
 /// Names of the recipe's fitted layers, top first (the order of the thickness columns).
 pub fn fitted_layer_names(recipe: &Recipe) -> Vec<String> {
@@ -63,20 +63,38 @@ pub fn write_run_outputs(
     put(&folder.sites_csv(), sites_table::write(rows).as_bytes())?;
     let summary = run_summary(rows, meta);
     put(&folder.summary_json(), summary.to_json().as_bytes())?;
-    let opts = RenderOptions::default();
-    for layer in 0..summary.all_layers().len() {
-        let input = run_map_input(rows, meta, layer);
-        let (svg, png) = if layer == 0 {
-            (folder.map_svg(), folder.map_png())
-        } else {
-            let k = layer + 1;
-            (
-                folder.root.join(format!("map-layer{k}.svg")),
-                folder.root.join(format!("map-layer{k}.png")),
-            )
-        };
-        put(&svg, render_svg(&input, &opts).as_bytes())?;
-        put(&png, &render_png(&input, &opts)?)?;
-    }
+    write_run_maps(folder, rows, meta, &RenderOptions::default())?;
     Ok(summary)
+}
+
+/// Where the map of `layer` (0-based) goes in a run folder.
+pub fn map_paths(folder: &RunFolder, layer: usize) -> (PathBuf, PathBuf) {
+    if layer == 0 {
+        (folder.map_svg(), folder.map_png())
+    } else {
+        let k = layer + 1;
+        (
+            folder.root.join(format!("map-layer{k}.svg")),
+            folder.root.join(format!("map-layer{k}.png")),
+        )
+    }
+}
+
+/// Writes the SVG and PNG map of every layer into the run folder; returns the paths written.
+pub fn write_run_maps(
+    folder: &RunFolder,
+    rows: &[SiteRow],
+    meta: &RunToml,
+    opts: &RenderOptions,
+) -> Result<Vec<PathBuf>, MapError> {
+    let layers = sites_table::layer_count(rows).max(fitted_layer_names(&meta.recipe).len());
+    let mut written = Vec::new();
+    for layer in 0..layers {
+        let input = run_map_input(rows, meta, layer);
+        let (svg, png) = map_paths(folder, layer);
+        put(&svg, render_svg(&input, opts).as_bytes())?;
+        put(&png, &render_png(&input, opts)?)?;
+        written.extend([svg, png]);
+    }
+    Ok(written)
 }

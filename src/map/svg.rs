@@ -7,7 +7,7 @@
 //! ground. Painted in ascending order over the lowest band's colour, each point ends up in
 //! the colour of its band; the whole stack is clipped to the usable outline.
 
-use super::contour::{isolines, simplify};
+use super::contour::{isolines_many, simplify};
 use super::interpolate::Grid;
 use super::scene::{Anchor, FieldFill, Item, Scene, Stroke};
 use std::fmt::Write;
@@ -187,9 +187,9 @@ fn write_field(s: &mut String, f: &FieldFill, id: usize) {
     );
     let padded = padded_below(&f.grid, &f.bounds);
     let tol_mm = 0.35 / f.scale;
-    for (k, &level) in f.bounds.iter().enumerate() {
+    for (k, lines) in isolines_many(&padded, &f.bounds).into_iter().enumerate() {
         let mut d = String::new();
-        for line in isolines(&padded, level) {
+        for line in lines {
             let line = simplify(&line, tol_mm);
             if line.points.len() < 3 {
                 continue;
