@@ -1,14 +1,98 @@
-//! `isopach fit` (not built yet).
+//! `isopach fit SPECTRUM.csv --recipe RECIPE [--json] [--plot FILE.svg]`: one spectrum, one
+//! answer. Exit 0 when the fit is valid for the recipe's `min_gof`, 1 when it is flagged
+//! invalid, 2 when the input cannot be read.
+
+use anyhow::Context;
+use isopach::fit::{plot, Fitter};
+use isopach::recipe;
+use isopach::spectrum::{self, SpectrumFile};
+use std::path::PathBuf;
 
 /// Arguments of `isopach fit`.
 #[derive(clap::Args, Debug)]
+#[command(
+    after_help = "Examples:\n  isopach fit site-07.csv --recipe recipes/oxide-150-49.toml\n  isopach fit site-07.csv --recipe recipes/oxide-150-49.toml --json\n  isopach fit raw.csv --recipe recipes/stack-200-diameter.toml --plot fit.svg"
+)]
 pub struct Args {
-    /// Arguments (not built yet).
-    #[arg(trailing_var_arg = true, allow_hyphen_values = true)]
-    rest: Vec<String>,
+    /// The spectrum: wavelength_nm,reflectance or wavelength_nm,sample,dark,reference.
+    spectrum: PathBuf,
+    /// The recipe whose [film] section says what to fit.
+    #[arg(long)]
+    recipe: PathBuf,
+    /// Print the result as one JSON object.
+    #[arg(long)]
+    json: bool,
+    /// Draw measured and modelled spectra to this SVG file.
+    #[arg(long, value_name = "FILE.svg")]
+    plot: Option<PathBuf>,
+    /// Material the reference counts were taken on (counts files only).
+    #[arg(long, default_value = "si", value_name = "MATERIAL")]
+    reference_material: String,
+    /// Also fit an intensity scale factor (when the reference level is uncertain).
+    #[arg(long)]
+    scale: bool,
 }
 
 /// Runs the command.
-pub fn run(_args: Args) -> anyhow::Result<u8> {
-    anyhow::bail!("isopach fit is not built yet")
+pub fn run(args: Args) -> anyhow::Result<u8> {
+    let loaded = recipe::load(&args.recipe)?;
+    let fitter = Fitter::from_recipe(&loaded)
+        .with_context(|| format!("cannot set up fitting for {}", args.recipe.display()))?
+        .with_scale_factor(args.scale);
+    for w in fitter.warnings() {
+        eprintln!("warning: {w}");
+    }
+    let file = match spectrum::read_csv(&args.spectrum) {
+        Ok(f) => f,
+        Err(e) => {
+            eprintln!("error: {e}");
+            return Ok(super::exit::INVALID);
+        }
+    };
+    let (measured, quality) = match file {
+        SpectrumFile::Reflectance(s) => (s, Default::default()),
+        SpectrumFile::Counts(raw) => {
+            let r_ref = fitter.reference_reflectance(&args.reference_material, &raw.reference.wavelength_nm)?;
+            match spectrum::normalise_raw(&raw, &r_ref) {
+                Ok(v) => v,
+                Err(e) => {
+                    eprintln!("error: {}: {e}", args.spectrum.display());
+                    return Ok(super::exit::INVALID);
+                }
+            }
+        }
+    };
+    let result = match fitter.try_fit(&measured, &quality) {
+        Ok(r) => r,
+        Err(e) => {
+            eprintln!("error: {}: {e}", args.spectrum.display());
+            return Ok(super::exit::FAILED);
+        }
+    };
+    if args.json {
+        println!("{}", serde_json::to_string(&result)?);
+    } else {
+        for l in &result.layers {
+            println!("{:<10} {:>10.2} ± {:.2} nm", l.material, l.thickness_nm, l.sigma_nm);
+        }
+        println!("method {}, gof {:.5}", result.method, result.gof);
+        if !result.flags.is_empty() {
+            println!("flags: {}", result.flags.join(", "));
+        }
+    }
+    if let Some(out) = &args.plot {
+        let [lo, hi] = fitter.window_nm();
+        let w = measured.window(lo, hi);
+        let model = fitter.model_reflectance(&result, &w.wavelength_nm);
+        let svg = plot::svg(&w.wavelength_nm, &w.reflectance, &model, &result);
+        isopach::run::files::write_atomic(out, svg.as_bytes())
+            .with_context(|| format!("cannot write {}", out.display()))?;
+        eprintln!("plot written to {}", out.display());
+    }
+    let min_gof = loaded.recipe.accept.min_gof;
+    Ok(if result.is_valid(min_gof) {
+        super::exit::OK
+    } else {
+        super::exit::FAILED
+    })
 }

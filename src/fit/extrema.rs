@@ -5,7 +5,7 @@
 //! form). At an extremum 4 n d cos θ/λ = m (an integer count of half fringes), i.e.
 //! 2 d x = m with x = 2 n cos θ/λ.
 
-use crate::spectrum::{quadratic_fit, savitzky_golay};
+use crate::spectrum::{noise_sigma, quadratic_fit, savitzky_golay};
 
 /// An extrema-method result.
 #[derive(Debug, Clone, PartialEq)]
@@ -31,9 +31,13 @@ pub fn estimate(
 ) -> Result<Estimate, String> {
     let n = r.len();
     let s = savitzky_golay(r, smooth);
-    let noise = noise_sigma(r, &s);
-    // Prominence needed: well above the smoothed noise (common practice: ~6σ).
-    let threshold = (6.0 * noise / ((2 * smooth + 1) as f64).sqrt()).max(1e-6);
+    // Prominence needed: well above the smoothed noise (common practice: ~6σ), and at least
+    // 2 % of the spectrum's whole swing, so that ripples of a dispersion curve (a table's
+    // interpolation, a lamp's shape) never pass for fringes.
+    let (lo, hi) = s.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| (a.min(*v), b.max(*v)));
+    let threshold = (6.0 * noise_sigma(r) / ((2 * smooth + 1) as f64).sqrt())
+        .max(0.02 * (hi - lo))
+        .max(1e-6);
     let mut ext: Vec<(usize, bool)> = (1..n.saturating_sub(1))
         .filter_map(|i| {
             if s[i] > s[i - 1] && s[i] >= s[i + 1] {
@@ -46,6 +50,13 @@ pub fn estimate(
         })
         .collect();
     prune(&mut ext, &s, threshold);
+    // Then against the fringes themselves: a real fringe swings like its neighbours, a
+    // leftover noise wiggle by much less.
+    let mut swings: Vec<f64> = ext.windows(2).map(|p| (s[p[0].0] - s[p[1].0]).abs()).collect();
+    if !swings.is_empty() {
+        swings.sort_by(f64::total_cmp);
+        prune(&mut ext, &s, 0.25 * swings[swings.len() / 2]);
+    }
     // The smoothing distorts the window edges: keep extrema a filter width inside.
     let edge = smooth.max(2);
     ext.retain(|(i, _)| *i >= edge && *i + edge < n);
@@ -63,11 +74,7 @@ pub fn estimate(
             let (a, b) = (i.saturating_sub(half), (*i + half).min(n - 1));
             let u: Vec<f64> = (a..=b).map(|k| k as f64 - *i as f64).collect();
             let q = quadratic_fit(&u, &r[a..=b]);
-            let v = if q[2] != 0.0 {
-                (-q[1] / (2.0 * q[2])).clamp(-1.0, 1.0)
-            } else {
-                0.0
-            };
+            let v = if q[2] != 0.0 { (-q[1] / (2.0 * q[2])).clamp(-1.0, 1.0) } else { 0.0 };
             let p = *i as f64 + v;
             (interp(wavelength_nm, p), interp(x, p))
         })
@@ -79,50 +86,46 @@ pub fn estimate(
     let mut pair: Vec<f64> = xs.windows(2).map(|w| 1.0 / (2.0 * (w[1] - w[0]))).collect();
     pair.sort_by(f64::total_cmp);
     let d0 = pair[pair.len() / 2];
-    let steps: Vec<f64> = xs
-        .iter()
-        .map(|x| (2.0 * d0 * (x - xs[0])).round())
-        .collect();
+    // Order steps between neighbours (1, or 2 across a missed extremum), summed: rounding
+    // each gap keeps an error in d0 from accumulating over many fringes.
+    let mut steps = vec![0.0; xs.len()];
+    for i in 1..xs.len() {
+        steps[i] = steps[i - 1] + (2.0 * d0 * (xs[i] - xs[i - 1])).round().max(1.0);
+    }
     let k_est = (2.0 * d0 * xs[0]).round();
     let sxx: f64 = xs.iter().map(|x| x * x).sum();
     let fit_k = |k: f64| {
         let m: Vec<f64> = steps.iter().map(|s| k + s).collect();
         let d = xs.iter().zip(&m).map(|(x, m)| x * m).sum::<f64>() / (2.0 * sxx);
-        let res: f64 = xs
-            .iter()
-            .zip(&m)
-            .map(|(x, m)| (2.0 * d * x - m).powi(2))
-            .sum();
+        let res: f64 = xs.iter().zip(&m).map(|(x, m)| (2.0 * d * x - m).powi(2)).sum();
         (d, res, m)
     };
-    let (mut best, mut best_in) = (None, None);
+    // A thickness within half an order of a bound belongs to that bound (it is then held
+    // there and flagged), rather than to the neighbouring order inside.
+    let tol = 0.5 * xs.iter().sum::<f64>() / (2.0 * sxx);
+    let (mut best, mut best_in): (Option<(f64, f64, Vec<f64>)>, _) = (None, None);
     for k in (k_est as i64 - 3)..=(k_est as i64 + 3) {
         if k < 0 {
             continue;
         }
         let f = fit_k(k as f64);
-        if best
-            .as_ref()
-            .is_none_or(|b: &(f64, f64, Vec<f64>)| f.1 < b.1)
-        {
+        if best.as_ref().is_none_or(|b: &(f64, f64, Vec<f64>)| f.1 < b.1) {
             best = Some(f.clone());
         }
-        if f.0 >= min_nm
-            && f.0 <= max_nm
-            && best_in
-                .as_ref()
-                .is_none_or(|b: &(f64, f64, Vec<f64>)| f.1 < b.1)
-        {
+        if f.0 >= min_nm - tol && f.0 <= max_nm + tol && best_in.as_ref().is_none_or(|b: &(f64, f64, Vec<f64>)| f.1 < b.1) {
             best_in = Some(f);
         }
     }
-    let (d, res, m) = best_in.or(best).ok_or("no fringe order fits")?;
+    let Some((d, res, m)) = best_in else {
+        let near = best.map(|b| format!(" (the best order gives {:.1} nm)", b.0)).unwrap_or_default();
+        return Err(format!("no fringe order gives a thickness inside [{min_nm}, {max_nm}] nm{near}"));
+    };
+    let d = d.clamp(min_nm, max_nm);
     let count = xs.len() as f64;
     let sigma = (res / (count - 1.0).max(1.0)).sqrt() / (2.0 * sxx.sqrt());
     let per: Vec<f64> = xs.iter().zip(&m).map(|(x, m)| m / (2.0 * x)).collect();
     let mean = per.iter().sum::<f64>() / count;
-    let spread =
-        (per.iter().map(|p| (p - mean).powi(2)).sum::<f64>() / (count - 1.0).max(1.0)).sqrt();
+    let spread = (per.iter().map(|p| (p - mean).powi(2)).sum::<f64>() / (count - 1.0).max(1.0)).sqrt();
     Ok(Estimate {
         thickness_nm: d,
         sigma_nm: sigma,
@@ -163,13 +166,6 @@ fn interp(v: &[f64], p: f64) -> f64 {
     v[i] + t * (v[i + 1] - v[i])
 }
 
-/// Noise σ of the raw spectrum from its residual about the smoothed one (robust, via MAD).
-fn noise_sigma(r: &[f64], smoothed: &[f64]) -> f64 {
-    let mut d: Vec<f64> = r.iter().zip(smoothed).map(|(a, b)| (a - b).abs()).collect();
-    d.sort_by(f64::total_cmp);
-    d.get(d.len() / 2).copied().unwrap_or(0.0) / 0.6745
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -183,11 +179,8 @@ mod tests {
         let (l1, l2, n) = (600.0f64, 500.0f64, 1.5f64);
         assert!((l1 * l2 / (2.0 * n * (l1 - l2)) - 1000.0).abs() < 1e-9);
         // The method finds the same film from its computed spectrum (n = 1.5 on n = 2.2).
-        let s = Stack::bare(
-            Material::constant("a", 1.0, 0.0),
-            Material::constant("s", 2.2, 0.0),
-        )
-        .with_layer(Material::constant("f", 1.5, 0.0), 1000.0);
+        let s = Stack::bare(Material::constant("a", 1.0, 0.0), Material::constant("s", 2.2, 0.0))
+            .with_layer(Material::constant("f", 1.5, 0.0), 1000.0);
         let w: Vec<f64> = (0..1200).map(|i| 420.0 + 0.5 * i as f64).collect();
         let r = reflectance(&s, &w, 0.0, 0.0);
         let x: Vec<f64> = w.iter().map(|w| 3.0 / w).collect();
@@ -195,26 +188,15 @@ mod tests {
         assert!((e.thickness_nm - 1000.0).abs() < 1.0, "{e:?}");
         // 1 < 1.5 < 2.2: both reflections change phase alike, so maxima sit where 2nd = mλ
         for want in [500.0, 600.0, 750.0] {
-            assert!(
-                e.extrema_nm.iter().any(|l| (l - want).abs() < 1.0),
-                "{want} in {:?}",
-                e.extrema_nm
-            );
+            assert!(e.extrema_nm.iter().any(|l| (l - want).abs() < 1.0), "{want} in {:?}", e.extrema_nm);
         }
     }
 
     #[test]
     fn a_flat_spectrum_is_explained() {
         let w: Vec<f64> = (0..300).map(|i| 420.0 + i as f64).collect();
-        let e = estimate(
-            &w,
-            &vec![0.3; 300],
-            &w.iter().map(|w| 3.0 / w).collect::<Vec<_>>(),
-            1.0,
-            100.0,
-            3,
-        )
-        .unwrap_err();
+        let e = estimate(&w, &vec![0.3; 300], &w.iter().map(|w| 3.0 / w).collect::<Vec<_>>(), 1.0, 100.0, 3)
+            .unwrap_err();
         assert!(e.contains("at least 2"), "{e}");
     }
 }

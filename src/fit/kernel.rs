@@ -68,10 +68,7 @@ impl Prepared {
         wavelength_nm: &[f64],
     ) -> Prepared {
         let l = layers.len();
-        assert!(
-            l <= MAX_LAYERS,
-            "the fitter checks the layer count before preparing"
-        );
+        assert!(l <= MAX_LAYERS, "the fitter checks the layer count before preparing");
         let stride = 2 * l + 1;
         let mut coeff = Vec::with_capacity(wavelength_nm.len() * channels.len() * stride);
         let mut etas = vec![Complex64::new(0.0, 0.0); l + 2];
@@ -133,7 +130,7 @@ impl Prepared {
                 let (rho, beta) = self.block(pixel, c);
                 let mut g = rho[self.layers];
                 for l in (1..=self.layers).rev() {
-                    let w = g * (I * beta[l - 1] * d[l - 1]).exp();
+                    let w = g * phase(beta[l - 1], d[l - 1]);
                     g = (rho[l - 1] + w) / (1.0 + rho[l - 1] * w);
                 }
                 self.channels[c] * g.norm_sqr()
@@ -143,18 +140,30 @@ impl Prepared {
 
     /// R at one pixel and dR/dd_l for every layer (written into `grad`, one per layer).
     pub fn reflectance_grad(&self, pixel: usize, d: &[f64], grad: &mut [f64]) -> f64 {
+        // Buffers sized to the stack: zeroing 16-entry arrays per pixel would cost as much
+        // as the arithmetic for the usual one to three layers.
+        if self.layers <= 4 {
+            self.grad_with::<4>(pixel, d, grad)
+        } else {
+            self.grad_with::<MAX_LAYERS>(pixel, d, grad)
+        }
+    }
+
+    fn grad_with<const M: usize>(&self, pixel: usize, d: &[f64], grad: &mut [f64]) -> f64 {
         let l_n = self.layers;
         grad.iter_mut().for_each(|g| *g = 0.0);
         let mut total = 0.0;
-        let mut w = [Complex64::new(0.0, 0.0); MAX_LAYERS];
-        let mut z = [Complex64::new(0.0, 0.0); MAX_LAYERS];
+        let mut w = [Complex64::new(0.0, 0.0); M];
+        let mut z = [Complex64::new(0.0, 0.0); M];
+        let mut inv_den = [Complex64::new(0.0, 0.0); M];
         for c in 0..self.channels.len() {
             let (rho, beta) = self.block(pixel, c);
             let mut g = rho[l_n];
             for l in (1..=l_n).rev() {
-                z[l - 1] = (I * beta[l - 1] * d[l - 1]).exp();
+                z[l - 1] = phase(beta[l - 1], d[l - 1]);
                 w[l - 1] = g * z[l - 1];
-                g = (rho[l - 1] + w[l - 1]) / (1.0 + rho[l - 1] * w[l - 1]);
+                inv_den[l - 1] = (1.0 + rho[l - 1] * w[l - 1]).inv();
+                g = (rho[l - 1] + w[l - 1]) * inv_den[l - 1];
             }
             let r = g;
             let weight = self.channels[c];
@@ -162,8 +171,8 @@ impl Prepared {
             // Top-down chain rule: dr/dd_l = P·g'_l·w_l·iβ_l, P = Π_{m<l} g'_m z_m.
             let mut p = Complex64::new(1.0, 0.0);
             for l in 1..=l_n {
-                let den = 1.0 + rho[l - 1] * w[l - 1];
-                let gprime = (1.0 - rho[l - 1] * rho[l - 1]) / (den * den);
+                let inv = inv_den[l - 1];
+                let gprime = (1.0 - rho[l - 1] * rho[l - 1]) * inv * inv;
                 let dr = p * gprime * w[l - 1] * I * beta[l - 1];
                 grad[l - 1] += weight * 2.0 * (r.conj() * dr).re;
                 p *= gprime * z[l - 1];
@@ -199,7 +208,7 @@ impl Prepared {
                 // Γ just below layer k (index k+1 in media numbering).
                 let mut g = rho[l_n];
                 for l in (k + 2..=l_n).rev() {
-                    let w = g * (I * beta[l - 1] * d[l - 1]).exp();
+                    let w = g * phase(beta[l - 1], d[l - 1]);
                     g = (rho[l - 1] + w) / (1.0 + rho[l - 1] * w);
                 }
                 // Möbius map [[a, b], [c, e]] of the interface above layer k and every layer
@@ -212,9 +221,8 @@ impl Prepared {
                 );
                 for l in (1..=k).rev() {
                     // Compose T_{l−1}(z_l · ·) ∘ current.
-                    let zl = (I * beta[l - 1] * d[l - 1]).exp();
-                    let (ra, rb, rc, re) =
-                        (zl, rho[l - 1], rho[l - 1] * zl, Complex64::new(1.0, 0.0));
+                    let zl = phase(beta[l - 1], d[l - 1]);
+                    let (ra, rb, rc, re) = (zl, rho[l - 1], rho[l - 1] * zl, Complex64::new(1.0, 0.0));
                     let na = ra * a + rb * cc;
                     let nb = ra * b + rb * e;
                     let nc = rc * a + re * cc;
@@ -224,13 +232,24 @@ impl Prepared {
                     cc = nc;
                     e = ne;
                 }
-                let mut wk = g * (I * beta[k] * d0).exp();
                 let rot = (I * beta[k] * step).exp();
                 let weight = self.channels[c];
-                for ai in acc.iter_mut() {
-                    let r = (a * wk + b) / (cc * wk + e);
-                    *ai += weight * r.norm_sqr();
-                    wk *= rot;
+                // Four interleaved phase chains, each advanced by rot⁴, so that successive
+                // candidates do not wait on one another's multiplication.
+                let w0 = g * (I * beta[k] * d0).exp();
+                let mut w4 = [w0, w0 * rot, w0 * rot * rot, w0 * rot * rot * rot];
+                let rot4 = (rot * rot) * (rot * rot);
+                // |r|² = |a w + b|²/|c w + e|²: one real division, no complex one.
+                let r2 = |w: Complex64| (a * w + b).norm_sqr() / (cc * w + e).norm_sqr();
+                let mut chunks = acc.chunks_exact_mut(4);
+                for chunk in &mut chunks {
+                    for (slot, w) in chunk.iter_mut().zip(w4.iter_mut()) {
+                        *slot += weight * r2(*w);
+                        *w *= rot4;
+                    }
+                }
+                for (slot, w) in chunks.into_remainder().iter_mut().zip(w4.iter()) {
+                    *slot += weight * r2(*w);
                 }
             }
             let m = measured[j];
@@ -245,6 +264,18 @@ impl Prepared {
     }
 }
 
+/// exp(iβd), with the real exponential skipped for a lossless layer (Im β = 0).
+#[inline]
+fn phase(beta: Complex64, d: f64) -> Complex64 {
+    let (sin, cos) = (beta.re * d).sin_cos();
+    if beta.im == 0.0 {
+        Complex64::new(cos, sin)
+    } else {
+        let a = (-beta.im * d).exp();
+        Complex64::new(a * cos, a * sin)
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -255,13 +286,7 @@ mod tests {
         let m = |n: &str| lib.get(n).unwrap().clone();
         let w: Vec<f64> = (0..60).map(|i| 400.0 + 10.0 * i as f64).collect();
         let samples = cone_samples(theta, na, 6);
-        let p = Prepared::new(
-            &m("air"),
-            &[m("si3n4"), m("si"), m("sio2")],
-            &m("si"),
-            &channels(&samples),
-            &w,
-        );
+        let p = Prepared::new(&m("air"), &[m("si3n4"), m("si"), m("sio2")], &m("si"), &channels(&samples), &w);
         let s = Stack::bare(m("air"), m("si"))
             .with_layer(m("si3n4"), 150.0)
             .with_layer(m("si"), 20.0)
@@ -290,12 +315,7 @@ mod tests {
             };
             for j in 0..w.len() {
                 let r = p.reflectance(j, &[150.0, 20.0, 900.0]);
-                assert!(
-                    (r - reference[j]).abs() < 1e-12,
-                    "θ={theta} NA={na} λ={}: {r} vs {}",
-                    w[j],
-                    reference[j]
-                );
+                assert!((r - reference[j]).abs() < 1e-12, "θ={theta} NA={na} λ={}: {r} vs {}", w[j], reference[j]);
             }
         }
     }
@@ -304,36 +324,17 @@ mod tests {
     fn sweep_matches_direct_evaluation() {
         let (p, _, w) = setup(10.0, 0.0);
         let d = [150.0, 20.0, 900.0];
-        let measured: Vec<f64> = (0..w.len())
-            .map(|j| p.reflectance(j, &[140.0, 20.0, 905.0]))
-            .collect();
+        let measured: Vec<f64> = (0..w.len()).map(|j| p.reflectance(j, &[140.0, 20.0, 905.0])).collect();
         let pixels: Vec<usize> = (0..w.len()).collect();
         for k in 0..3 {
             let n = 7;
             let (mut sse, mut srr, mut srm) = (vec![0.0; n], vec![0.0; n], vec![0.0; n]);
-            p.sweep(
-                &pixels,
-                &measured,
-                &d,
-                k,
-                d[k] - 30.0,
-                10.0,
-                &mut sse,
-                &mut srr,
-                &mut srm,
-            );
+            p.sweep(&pixels, &measured, &d, k, d[k] - 30.0, 10.0, &mut sse, &mut srr, &mut srm);
             for i in 0..n {
                 let mut di = d;
                 di[k] = d[k] - 30.0 + 10.0 * i as f64;
-                let direct: f64 = pixels
-                    .iter()
-                    .map(|j| (p.reflectance(*j, &di) - measured[*j]).powi(2))
-                    .sum();
-                assert!(
-                    (sse[i] - direct).abs() < 1e-10 * direct.max(1e-6),
-                    "k={k} i={i}: {} vs {direct}",
-                    sse[i]
-                );
+                let direct: f64 = pixels.iter().map(|j| (p.reflectance(*j, &di) - measured[*j]).powi(2)).sum();
+                assert!((sse[i] - direct).abs() < 1e-10 * direct.max(1e-6), "k={k} i={i}: {} vs {direct}", sse[i]);
             }
         }
     }

@@ -14,6 +14,9 @@ pub trait Problem {
     fn residuals(&self) -> usize;
 }
 
+/// Rejected steps tried per iteration before giving up (damping grows 4× each time).
+const MAX_REJECTIONS: usize = 12;
+
 /// Outcome of a minimisation.
 #[derive(Debug, Clone)]
 pub struct Solution {
@@ -22,6 +25,8 @@ pub struct Solution {
     /// (JᵀJ)⁻¹ at the solution, if it is invertible (row-major p × p).
     pub inv_jtj: Option<Vec<f64>>,
     pub iterations: usize,
+    /// Residual evaluations made.
+    pub evaluations: usize,
 }
 
 /// Stopping rules.
@@ -38,20 +43,14 @@ impl Default for Settings {
     fn default() -> Settings {
         Settings {
             max_iterations: 60,
-            rel_tol: 1e-12,
-            x_tol: 1e-7,
+            rel_tol: 1e-10,
+            x_tol: 1e-5,
         }
     }
 }
 
 /// Minimises from `x0` inside `[lower, upper]`.
-pub fn minimise(
-    problem: &impl Problem,
-    x0: &[f64],
-    lower: &[f64],
-    upper: &[f64],
-    settings: Settings,
-) -> Solution {
+pub fn minimise(problem: &impl Problem, x0: &[f64], lower: &[f64], upper: &[f64], settings: Settings) -> Solution {
     let p = problem.params();
     let m = problem.residuals();
     let clamp = |x: &mut [f64]| {
@@ -64,6 +63,7 @@ pub fn minimise(
     let mut res = vec![0.0; m];
     let mut jac = vec![0.0; m * p];
     let mut chi2 = problem.eval(&x, &mut res, &mut jac);
+    let mut evaluations = 1;
     let mut trial_res = vec![0.0; m];
     let mut trial_jac = vec![0.0; m * p];
     let mut lambda = 1e-3;
@@ -72,8 +72,9 @@ pub fn minimise(
     while iterations < settings.max_iterations {
         iterations += 1;
         let mut improved = false;
-        // Increase damping until a step lowers χ² (or damping is hopeless).
-        while lambda < 1e12 {
+        // Raise the damping until a step lowers χ²; a step too small to matter means the
+        // minimum is reached (checked before paying for an evaluation).
+        for _ in 0..MAX_REJECTIONS {
             let mut a = jtj.clone();
             for i in 0..p {
                 a[(i, i)] += lambda * jtj[(i, i)].max(1e-30);
@@ -84,24 +85,20 @@ pub fn minimise(
             };
             let mut xt: Vec<f64> = x.iter().zip(step.iter()).map(|(a, b)| a + b).collect();
             clamp(&mut xt);
-            let moved = xt.iter().zip(&x).any(|(a, b)| a != b);
-            if !moved {
+            if xt.iter().zip(&x).all(|(a, b)| (a - b).abs() <= settings.x_tol) {
                 break;
             }
             let c = problem.eval(&xt, &mut trial_res, &mut trial_jac);
+            evaluations += 1;
             if c < chi2 {
                 let rel = (chi2 - c) / chi2.max(1e-300);
-                let moved_far = xt
-                    .iter()
-                    .zip(&x)
-                    .any(|(a, b)| (a - b).abs() > settings.x_tol);
                 x = xt;
                 chi2 = c;
                 std::mem::swap(&mut res, &mut trial_res);
                 std::mem::swap(&mut jac, &mut trial_jac);
                 (jtj, jtr) = normal(&res, &jac, p);
                 lambda = (lambda * 0.3).max(1e-12);
-                improved = rel > settings.rel_tol && moved_far;
+                improved = rel > settings.rel_tol;
                 break;
             }
             lambda *= 4.0;
@@ -117,6 +114,7 @@ pub fn minimise(
         chi2,
         inv_jtj,
         iterations,
+        evaluations,
     }
 }
 
@@ -175,25 +173,9 @@ mod tests {
         let t: Vec<f64> = (0..30).map(|i| i as f64 * 0.2).collect();
         let y = t.iter().map(|t| 3.0 * (-t / 1.7f64).exp()).collect();
         let p = Decay { t, y };
-        let s = minimise(
-            &p,
-            &[1.0, 0.5],
-            &[0.0, 0.1],
-            &[10.0, 10.0],
-            Settings::default(),
-        );
-        assert!(
-            (s.x[0] - 3.0).abs() < 1e-7 && (s.x[1] - 1.7).abs() < 1e-7,
-            "{:?}",
-            s.x
-        );
-        let s = minimise(
-            &p,
-            &[1.0, 0.5],
-            &[0.0, 0.1],
-            &[2.0, 10.0],
-            Settings::default(),
-        );
+        let s = minimise(&p, &[1.0, 0.5], &[0.0, 0.1], &[10.0, 10.0], Settings::default());
+        assert!((s.x[0] - 3.0).abs() < 1e-7 && (s.x[1] - 1.7).abs() < 1e-7, "{:?}", s.x);
+        let s = minimise(&p, &[1.0, 0.5], &[0.0, 0.1], &[2.0, 10.0], Settings::default());
         assert_eq!(s.x[0], 2.0, "held at the upper bound");
     }
 }

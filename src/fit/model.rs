@@ -98,6 +98,32 @@ impl Grid {
             .collect()
     }
 
+    /// The grid point refined along each axis by the parabola through it and its two
+    /// neighbours (a better start for Levenberg–Marquardt, at no cost), and the χ² the
+    /// parabolas predict there.
+    fn refined(&self, idx: &[usize]) -> (Vec<f64>, f64) {
+        let mut v = self.value(idx);
+        let f0 = self.chi2[self.flatten(idx)];
+        let mut predicted = f0;
+        for a in 0..idx.len() {
+            if idx[a] == 0 || idx[a] + 1 >= self.counts[a] {
+                continue;
+            }
+            let mut n = idx.to_vec();
+            n[a] = idx[a] - 1;
+            let fm = self.chi2[self.flatten(&n)];
+            n[a] = idx[a] + 1;
+            let fp = self.chi2[self.flatten(&n)];
+            let curv = fm - 2.0 * f0 + fp;
+            if curv > 0.0 {
+                let off = (0.5 * (fm - fp) / curv).clamp(-0.5, 0.5);
+                v[a] = (v[a] + off * self.steps[a]).clamp(self.lower[a], self.upper[a]);
+                predicted -= 0.5 * curv * off * off;
+            }
+        }
+        (v, predicted.max(0.0))
+    }
+
     fn unflatten(&self, mut flat: usize) -> Vec<usize> {
         let mut idx = vec![0; self.counts.len()];
         for a in (0..self.counts.len()).rev() {
@@ -215,7 +241,7 @@ fn grid_search(setup: &Setup, pixels: &[usize]) -> Grid {
 }
 
 /// Candidates refined on the search pixels before the final polish.
-const CANDIDATES: usize = 6;
+const CANDIDATES: usize = 4;
 /// Δχ² (in units of the residual variance) below which a second minimum is "within noise":
 /// a 3σ likelihood-ratio distinction for one parameter (common practice).
 const AMBIGUITY_DCHI2: f64 = 9.0;
@@ -239,34 +265,51 @@ pub fn fit(setup: &Setup, search_pixels: &[usize]) -> ModelFit {
         hi.push(5.0);
     }
     let coarse = Settings {
-        max_iterations: 25,
-        rel_tol: 1e-7,
-        x_tol: 1e-3,
+        max_iterations: 15,
+        rel_tol: 1e-6,
+        x_tol: 0.01,
     };
     let sub = Lsq {
         setup,
         pixels: search_pixels,
     };
-    let full = Lsq {
-        setup,
-        pixels: &all,
-    };
+    let full = Lsq { setup, pixels: &all };
     let same_pixels = search_pixels.len() == all.len();
-    // Refine the best local minima on the search pixels.
+    // Refine the best local minima on the search pixels, most promising first. A basin
+    // whose predicted χ² is far above the best refined one can neither win nor be within
+    // noise of it: skip it (the prediction is rough, hence the generous margin).
+    let mut starts: Vec<(Vec<f64>, f64)> = grid
+        .local_minima()
+        .into_iter()
+        .take(CANDIDATES)
+        .map(|f| grid.refined(&grid.unflatten(f)))
+        .collect();
+    starts.sort_by(|a, b| a.1.total_cmp(&b.1));
+    let dof_sub = (search_pixels.len() as f64 - (nf + usize::from(setup.scale)) as f64).max(1.0);
     let mut refined: Vec<lm::Solution> = Vec::new();
-    for f in grid.local_minima().into_iter().take(CANDIDATES) {
-        let start = x0(grid.value(&grid.unflatten(f)));
-        let s = lm::minimise(&sub, &start, &lo, &hi, coarse);
-        let dup = refined
-            .iter()
-            .any(|r| (0..nf).all(|a| (r.x[a] - s.x[a]).abs() < (0.2 * setup.steps[a]).max(0.5)));
+    for (start, predicted) in starts {
+        if let Some(best) = refined.first() {
+            let s2 = best.chi2 / dof_sub;
+            if predicted > 4.0 * best.chi2 + 4.0 * AMBIGUITY_DCHI2 * s2 {
+                continue;
+            }
+        }
+        let s = lm::minimise(&sub, &x0(start), &lo, &hi, coarse);
+        let dup = refined.iter().any(|r| {
+            (0..nf).all(|a| (r.x[a] - s.x[a]).abs() < (0.2 * setup.steps[a]).max(0.5))
+        });
         if !dup {
             refined.push(s);
+            refined.sort_by(|a, b| a.chi2.total_cmp(&b.chi2));
         }
     }
     refined.sort_by(|a, b| a.chi2.total_cmp(&b.chi2));
     let dof = |n: usize| (n as f64 - (nf + usize::from(setup.scale)) as f64).max(1.0);
-    let polish = |s: &lm::Solution| lm::minimise(&full, &s.x, &lo, &hi, Settings::default());
+    let fine = Settings {
+        x_tol: 1e-4,
+        ..Settings::default()
+    };
+    let polish = |s: &lm::Solution| lm::minimise(&full, &s.x, &lo, &hi, fine);
     let best = polish(&refined[0]);
     let s2 = best.chi2 / dof(all.len());
     let mut ambiguous = false;
@@ -275,11 +318,7 @@ pub fn fit(setup: &Setup, search_pixels: &[usize]) -> ModelFit {
         let s2_sub = refined[0].chi2 / dof(search_pixels.len());
         let close_on_subset = second.chi2 - refined[0].chi2 < 4.0 * AMBIGUITY_DCHI2 * s2_sub;
         if close_on_subset || same_pixels {
-            let second = if same_pixels {
-                second.clone()
-            } else {
-                polish(second)
-            };
+            let second = if same_pixels { second.clone() } else { polish(second) };
             ambiguous = second.chi2 - best.chi2 < AMBIGUITY_DCHI2 * s2
                 && (0..nf).any(|a| (second.x[a] - best.x[a]).abs() > 0.5);
             runner_up = Some(second.x[..nf].to_vec());
@@ -289,9 +328,7 @@ pub fn fit(setup: &Setup, search_pixels: &[usize]) -> ModelFit {
     }
     let sigma = (0..nf)
         .map(|a| match &best.inv_jtj {
-            Some(inv) => (inv[a * (nf + usize::from(setup.scale)) + a] * s2)
-                .max(0.0)
-                .sqrt(),
+            Some(inv) => (inv[a * (nf + usize::from(setup.scale)) + a] * s2).max(0.0).sqrt(),
             None => f64::NAN,
         })
         .collect();
@@ -309,10 +346,7 @@ pub fn fit(setup: &Setup, search_pixels: &[usize]) -> ModelFit {
 /// derivatives: (residuals, row-major Jacobian).
 pub fn residuals_and_jacobian(setup: &Setup, x: &[f64]) -> (Vec<f64>, Vec<f64>) {
     let all: Vec<usize> = (0..setup.prep.len()).collect();
-    let p = Lsq {
-        setup,
-        pixels: &all,
-    };
+    let p = Lsq { setup, pixels: &all };
     let mut r = vec![0.0; all.len()];
     let mut j = vec![0.0; all.len() * p.params()];
     p.eval(x, &mut r, &mut j);

@@ -9,7 +9,7 @@ mod saturation;
 
 pub use self::csv::{parse_csv, read_csv, write_counts_csv, write_reflectance_csv, SpectrumFile};
 pub use normalise::{assess, normalise, normalise_raw, SignalQuality};
-pub use process::{quadratic_fit, savitzky_golay};
+pub use process::{noise_sigma, quadratic_fit, savitzky_golay};
 pub use saturation::clipped_pixels;
 
 use std::path::PathBuf;
