@@ -6,8 +6,13 @@
 //! statistics and contour maps ([`map`]). The pure core (recipe, optics, spectrum, fit, map,
 //! the G-code state machine) does no I/O; ports, processes and files live at the edges.
 
+// Checks are written `!(x >= lo)` on purpose: they reject NaN as well as out-of-range values.
+#![allow(clippy::neg_cmp_op_on_partial_ord)]
+
 pub mod bench;
+pub mod compare;
 pub mod fit;
+pub mod history;
 pub mod map;
 pub mod optics;
 pub mod recipe;

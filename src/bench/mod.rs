@@ -1,1 +1,26 @@
-//! bench (placeholder; filled in by its issue).
+//! The bench: a G-code XY stage and a spectrometer, real or simulated.
+//!
+//! - [`machine`]: the machine file (schema, validation with file positions);
+//! - [`gcode`]: the G-code protocol (codec, state machine, async link);
+//! - [`transport`]: opening a serial port as a byte stream;
+//! - [`chuck`], [`limits`]: wafer→stage transform, soft limits, anti-backlash approach;
+//! - [`stage`]: the [`stage::Stage`] trait and the G-code stage;
+//! - [`spectrometer`]: the [`spectrometer::Spectrometer`] trait and the `command` backend;
+//! - [`sim`]: the simulated twins (virtual controller, wafer, spectrometer, pseudo-terminal).
+
+pub mod chuck;
+pub mod gcode;
+pub mod kinematics;
+pub mod limits;
+pub mod machine;
+pub mod open;
+pub mod sim;
+pub mod spectrometer;
+pub mod stage;
+pub mod transport;
+
+pub use chuck::ChuckTransform;
+pub use machine::{LoadedMachine, MachineError, MachineFile};
+pub use open::{open_stage, Bench, BenchError};
+pub use spectrometer::{Spectrometer, SpectrometerError};
+pub use stage::{PositionHandle, Stage, StageError};

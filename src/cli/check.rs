@@ -1,6 +1,8 @@
 //! `isopach check RECIPE [--machine M]`: validate, with the line and reason of each error.
 
 use anyhow::Context;
+use isopach::bench::limits::{check_sites, Approach, SoftLimits};
+use isopach::bench::ChuckTransform;
 use isopach::recipe::{self, schema::PatternSpec, LoadedRecipe};
 use std::path::PathBuf;
 
@@ -30,10 +32,37 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         }
         Err(e) => return Err(e).context("check failed"),
     };
-    if let Some(m) = &args.machine {
-        anyhow::bail!("checking machine file {} is not built yet", m.display());
-    }
     println!("ok: {}", summary(&loaded));
+    if let Some(path) = &args.machine {
+        let m = match super::machine_arg::load(path)? {
+            Ok(m) => m,
+            Err(code) => return Ok(code),
+        };
+        let outside = check_sites(
+            &loaded.sites(),
+            &ChuckTransform::from_spec(&m.chuck),
+            &SoftLimits::from_spec(&m.stage),
+            &Approach::from_spec(&m.stage),
+        );
+        for o in &outside {
+            println!("{}: {o}", args.recipe.display());
+        }
+        if !outside.is_empty() {
+            eprintln!(
+                "{}: {} site(s) outside the soft limits of {}",
+                args.recipe.display(),
+                outside.len(),
+                path.display()
+            );
+            return Ok(super::exit::INVALID);
+        }
+        println!(
+            "ok: {}: every site within the soft limits (stage {}, {} motion check)",
+            m.name,
+            m.stage.port,
+            m.stage.motion_complete.as_str()
+        );
+    }
     Ok(super::exit::OK)
 }
 

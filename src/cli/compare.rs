@@ -1,14 +1,211 @@
-//! `isopach compare` (not built yet).
+//! `isopach compare RUN RUN... [--delta] [--per-min T] [--json] [--out FILE] [--sheet FILE]`.
+
+use anyhow::{bail, Context};
+use isopach::compare::{self, WaferRun};
+use isopach::map::render::{MapInput, RenderOptions, ValueRange};
+use serde_json::{json, Value};
+use std::path::{Path, PathBuf};
 
 /// Arguments of `isopach compare`.
 #[derive(clap::Args, Debug)]
+#[command(after_help = "Examples:
+  isopach compare runs/20261202-0905-W01 runs/20261202-0931-W02 runs/20261202-0958-W03
+  isopach compare runs/*-W07-pre runs/*-W07-post --delta --out delta.svg
+  isopach compare before/ after/ --delta --per-min 12.5 --json      # etch rate in nm/min
+  isopach compare runs/*-L2612-* --sheet lot.svg                   # maps on one colour scale")]
 pub struct Args {
-    /// Arguments (not built yet).
-    #[arg(trailing_var_arg = true, allow_hyphen_values = true)]
-    rest: Vec<String>,
+    /// Run folders to compare (at least two, or one with --sheet).
+    #[arg(required = true, num_args = 1..)]
+    runs: Vec<PathBuf>,
+    /// Difference of two runs, second minus first (site by site, or through interpolation).
+    #[arg(long)]
+    delta: bool,
+    /// With --delta: divide by this process time in minutes to get a rate in nm/min.
+    #[arg(long, value_name = "T", requires = "delta")]
+    per_min: Option<f64>,
+    /// Which fitted layer (1 = top fitted layer).
+    #[arg(long, default_value_t = 1)]
+    layer: usize,
+    /// Print JSON instead of a table.
+    #[arg(long)]
+    json: bool,
+    /// With --delta: draw the delta (or rate) map to this .svg or .png file.
+    #[arg(long, requires = "delta")]
+    out: Option<PathBuf>,
+    /// Draw every run's map on one common colour scale into this SVG file.
+    #[arg(long)]
+    sheet: Option<PathBuf>,
 }
 
 /// Runs the command.
-pub fn run(_args: Args) -> anyhow::Result<u8> {
-    anyhow::bail!("isopach compare is not built yet")
+pub fn run(args: Args) -> anyhow::Result<u8> {
+    if args.runs.len() < 2 && args.sheet.is_none() {
+        bail!("compare needs at least two run folders (or --sheet with one)");
+    }
+    if args.delta && args.runs.len() != 2 {
+        bail!(
+            "--delta takes exactly two run folders (A then B; the delta is B − A), got {}",
+            args.runs.len()
+        );
+    }
+    if let Some(t) = args.per_min {
+        if !(t > 0.0 && t.is_finite()) {
+            bail!("--per-min {t}: the process time must be a positive number of minutes");
+        }
+    }
+    let layer = args.layer.checked_sub(1).context("--layer counts from 1")?;
+    let runs: Vec<WaferRun> = args
+        .runs
+        .iter()
+        .map(|p| WaferRun::load(p))
+        .collect::<Result<_, _>>()?;
+    let figures = |w: &WaferRun| w.summary.all_layers().get(layer).cloned();
+    let mut wafers = Vec::new();
+    for w in &runs {
+        let f = figures(w).with_context(|| {
+            format!(
+                "run {} has no fitted layer {}",
+                w.folder.display(),
+                args.layer
+            )
+        })?;
+        let mut v = serde_json::to_value(&f)?;
+        if let Value::Object(m) = &mut v {
+            m.remove("excluded");
+            m.remove("radial");
+            m.insert("run".into(), json!(w.meta.run.id));
+            m.insert("wafer".into(), json!(w.meta.run.wafer));
+            m.insert("folder".into(), json!(w.folder.display().to_string()));
+        }
+        wafers.push((w, f, v));
+    }
+    let means: Vec<f64> = wafers.iter().map(|(_, f, _)| f.mean_nm).collect();
+    let w2w = compare::wafer_to_wafer(&means);
+    let mut out = json!({
+        "wafers": wafers.iter().map(|(_, _, v)| v.clone()).collect::<Vec<_>>(),
+        "wafer_to_wafer": { "mean_nm": w2w.mean_nm, "std_nm": w2w.std_nm, "nu_pct": w2w.nu_pct, "wafers": w2w.wafers },
+    });
+    let mut delta_text = None;
+    if args.delta {
+        let (a, b) = (&runs[0], &runs[1]);
+        let (rows, basis) = compare::delta(a, b, layer, args.per_min);
+        let (quantity, unit) = if args.per_min.is_some() {
+            ("rate", "nm/min")
+        } else {
+            ("Δ thickness", "nm")
+        };
+        let summary = compare::delta_summary(&rows, &b.wafer(), quantity);
+        let mut d = serde_json::to_value(&summary.first)?;
+        if let Value::Object(m) = &mut d {
+            m.remove("excluded");
+            m.remove("radial");
+            m.insert("basis".into(), serde_json::to_value(basis)?);
+            m.insert("unit".into(), json!(unit));
+            if let Some(t) = args.per_min {
+                m.insert("per_min".into(), json!(t));
+            }
+        }
+        out["delta"] = d;
+        delta_text = Some(format!(
+            "{quantity} {} − {} ({}): mean {} {unit}, 1σ {} {unit}, range {} {unit}, {} of {} sites paired",
+            b.meta.run.wafer,
+            a.meta.run.wafer,
+            match basis {
+                compare::DeltaBasis::SiteBySite => "site by site",
+                compare::DeltaBasis::Interpolated => "B's sites on A's interpolated map",
+            },
+            num(summary.first.mean_nm),
+            num(summary.first.std_nm),
+            num(summary.first.range_nm),
+            summary.first.sites_valid,
+            summary.first.sites_total
+        ));
+        if let Some(path) = &args.out {
+            let mut input = MapInput::thickness(b.wafer(), rows, 0, "");
+            input.quantity = quantity.to_string();
+            input.unit = unit.to_string();
+            input.recipe = b.meta.recipe.name.clone();
+            input.wafer_id = format!("{} − {}", b.meta.run.wafer, a.meta.run.wafer);
+            input.time = b.meta.run.started.clone();
+            write_map(path, &input, &RenderOptions::default())?;
+            eprintln!("{quantity} map written to {}", path.display());
+        }
+    }
+    if let Some(path) = &args.sheet {
+        write_sheet(path, &runs, layer)?;
+        eprintln!("sheet of {} maps written to {}", runs.len(), path.display());
+    }
+    if args.json {
+        println!("{}", serde_json::to_string_pretty(&out)?);
+        return Ok(super::exit::OK);
+    }
+    println!(
+        "{:<24} {:>10} {:>9} {:>8} {:>9} {:>7}",
+        "wafer", "mean_nm", "1σ_nm", "NU_%", "range_nm", "valid"
+    );
+    for (w, f, _) in &wafers {
+        println!(
+            "{:<24} {:>10} {:>9} {:>8} {:>9} {:>3}/{:<3}",
+            w.meta.run.wafer,
+            num(f.mean_nm),
+            num(f.std_nm),
+            num(f.nu_1sigma_pct),
+            num(f.range_nm),
+            f.sites_valid,
+            f.sites_total
+        );
+    }
+    println!(
+        "wafer to wafer: mean of means {} nm, σ of means {} nm, NU {} % over {} wafers",
+        num(w2w.mean_nm),
+        num(w2w.std_nm),
+        num(w2w.nu_pct),
+        w2w.wafers
+    );
+    if let Some(t) = delta_text {
+        println!("{t}");
+    }
+    Ok(super::exit::OK)
+}
+
+/// A number for the table (`-` when it does not exist).
+fn num(v: f64) -> String {
+    if v.is_finite() {
+        format!("{v:.3}")
+    } else {
+        "-".to_string()
+    }
+}
+
+/// Writes a map as SVG or PNG, chosen by the file's extension.
+fn write_map(path: &Path, input: &MapInput, opts: &RenderOptions) -> anyhow::Result<()> {
+    super::output::write_scene(path, &isopach::map::layout::page(input, opts))
+}
+
+/// Every run's map on one common colour scale, tiled two across, as SVG or PNG.
+fn write_sheet(path: &Path, runs: &[WaferRun], layer: usize) -> anyhow::Result<()> {
+    let values: Vec<f64> = runs
+        .iter()
+        .flat_map(|r| r.rows.iter().filter_map(|row| row.valid_value(layer)))
+        .collect();
+    let lo = values.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = values.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    if !lo.is_finite() {
+        bail!("no valid site in any run: nothing to draw");
+    }
+    let opts = RenderOptions {
+        range: Some(ValueRange { lo, hi }),
+        values: false,
+        ..RenderOptions::default()
+    };
+    let pages = runs
+        .iter()
+        .map(|r| {
+            isopach::map::layout::page(
+                &isopach::map::run_outputs::run_map_input(&r.rows, &r.meta, layer),
+                &opts,
+            )
+        })
+        .collect();
+    super::output::write_scene(path, &isopach::map::sheet::tile(pages, 2))
 }

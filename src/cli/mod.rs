@@ -4,14 +4,19 @@
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
 
+mod bench;
 mod check;
 mod compare;
 mod fit;
+mod machine_arg;
+mod measure;
+mod output;
 mod refit;
 mod remeasure;
 mod render;
 mod resume;
 mod run;
+mod safety;
 mod sites;
 mod stage;
 mod trend;
@@ -67,6 +72,8 @@ enum Command {
     Check(check::Args),
     /// Bench set-up: home, where, move.
     Stage(stage::Args),
+    /// Simulated bench tools: serve the virtual controller on a pseudo-terminal.
+    Bench(bench::Args),
 }
 
 /// Parses the command line and runs the command.
@@ -84,6 +91,7 @@ pub fn main() -> ExitCode {
         Command::Sites(a) => sites::run(a),
         Command::Check(a) => check::run(a),
         Command::Stage(a) => stage::run(a),
+        Command::Bench(a) => bench::run(a),
     };
     match result {
         Ok(code) => ExitCode::from(code),
@@ -96,9 +104,10 @@ pub fn main() -> ExitCode {
 
 /// Invalid input exits 2, everything else 1.
 fn error_code(e: &anyhow::Error) -> u8 {
-    if e.chain()
-        .any(|c| c.downcast_ref::<isopach::recipe::RecipeError>().is_some())
-    {
+    if e.chain().any(|c| {
+        c.downcast_ref::<isopach::recipe::RecipeError>().is_some()
+            || c.downcast_ref::<isopach::bench::MachineError>().is_some()
+    }) {
         exit::INVALID
     } else {
         exit::FAILED

@@ -1,14 +1,92 @@
-//! `isopach refit` (not built yet).
+//! `isopach refit RUN [--recipe R]`: fit the stored spectra again, no stage motion.
+
+use super::measure::{machine_of, reference_material};
+use anyhow::Context;
+use indicatif::ProgressBar;
+use isopach::recipe;
+use isopach::run::events::{now, Event};
+use isopach::run::folder::RunFolder;
+use isopach::run::journal::Journal;
+use isopach::run::{derive, refit, session};
+use std::path::PathBuf;
 
 /// Arguments of `isopach refit`.
 #[derive(clap::Args, Debug)]
+#[command(after_help = "Examples:
+  isopach refit runs/20261202-090507-W07
+  isopach refit runs/20261202-090507-W07 --recipe recipes/oxide-150-49-wide-window.toml
+
+With --recipe, the run takes that recipe's [film], [accept] and [materials] (its [wafer] and
+[pattern] must match the run's); the previous run.toml is kept beside it. Every stored spectrum
+is fitted again and the maps are redrawn; nothing moves.")]
 pub struct Args {
-    /// Arguments (not built yet).
-    #[arg(trailing_var_arg = true, allow_hyphen_values = true)]
-    rest: Vec<String>,
+    /// The run folder.
+    run: PathBuf,
+    /// A recipe with a new film model, window or method.
+    #[arg(long)]
+    recipe: Option<PathBuf>,
 }
 
 /// Runs the command.
-pub fn run(_args: Args) -> anyhow::Result<u8> {
-    anyhow::bail!("isopach refit is not built yet")
+pub fn run(args: Args) -> anyhow::Result<u8> {
+    let folder = RunFolder::new(&args.run);
+    let mut meta = folder.read_run_toml()?;
+    if let Some(path) = &args.recipe {
+        let new = recipe::load(path)?;
+        let mut updated = refit::refit_recipe(&meta.recipe, &new.recipe)?;
+        updated = session::freeze_tables(&updated, new.dir(), &folder.root)?;
+        let backup = folder.root.join(format!(
+            "run-before-refit-{}.toml",
+            chrono::Local::now().format("%Y%m%d-%H%M%S")
+        ));
+        std::fs::copy(folder.run_toml(), &backup)
+            .with_context(|| format!("cannot keep the old run.toml as {}", backup.display()))?;
+        meta.recipe = updated;
+        session::write_run_toml(&folder, &meta)?;
+        eprintln!(
+            "run.toml updated from {} (previous kept as {})",
+            path.display(),
+            backup.display()
+        );
+    }
+    let loaded = session::loaded_recipe(&folder, &meta);
+    let fitter = isopach::fit::Fitter::from_recipe(&loaded)?;
+    for w in fitter.warnings() {
+        eprintln!("warning: {w}");
+    }
+    let material = reference_material(&machine_of(&meta)?);
+    let (_, states) = derive::read_states(&folder, &meta)?;
+    let attempts = refit::stored_attempts(&states);
+    let mut journal = Journal::open(&folder.journal())?;
+    journal.append(&Event::RunStarted {
+        time: now(),
+        command: "refit".into(),
+        sites_planned: states.len(),
+    })?;
+    let bar = ProgressBar::new(attempts.len() as u64);
+    let events = refit::fit_all(
+        &folder,
+        &attempts,
+        &fitter,
+        &material,
+        &meta.recipe.accept,
+        &|| bar.inc(1),
+    );
+    bar.finish_and_clear();
+    for e in &events {
+        journal.append(e)?;
+    }
+    let summary = derive::rebuild(&folder)?;
+    let f = &summary.first;
+    println!(
+        "refitted {} spectra of run {}: {} of {} sites valid; mean {:.2} nm, 1σ {:.2} nm ({:.2} %)",
+        attempts.len(),
+        meta.run.id,
+        f.sites_valid,
+        f.sites_total,
+        f.mean_nm,
+        f.std_nm,
+        f.nu_1sigma_pct
+    );
+    Ok(super::exit::OK)
 }

@@ -1,14 +1,53 @@
-//! `isopach remeasure` (not built yet).
+//! `isopach remeasure RUN (--site N ... | --failed) [--yes]`: measure chosen sites again.
+
+use super::measure::{self, Which};
+use anyhow::bail;
+use isopach::run::{derive, folder::RunFolder};
+use std::path::PathBuf;
 
 /// Arguments of `isopach remeasure`.
 #[derive(clap::Args, Debug)]
+#[command(
+    after_help = "Examples:\n  isopach remeasure runs/20261202-090507-W07 --site 17\n  isopach remeasure runs/20261202-090507-W07 --site 3 --site 44\n  isopach remeasure runs/20261202-090507-W07 --failed\n\nNew attempts are added to the journal; a site's newest valid attempt is what the map shows,\nand its earlier attempts stay in the history."
+)]
 pub struct Args {
-    /// Arguments (not built yet).
-    #[arg(trailing_var_arg = true, allow_hyphen_values = true)]
-    rest: Vec<String>,
+    /// The run folder.
+    run: PathBuf,
+    /// Site number to measure again (repeat for several).
+    #[arg(
+        long = "site",
+        value_name = "N",
+        required_unless_present = "failed",
+        conflicts_with = "failed"
+    )]
+    sites: Vec<usize>,
+    /// Every site without a valid result.
+    #[arg(long)]
+    failed: bool,
+    /// Do not ask before the first motion of a real stage.
+    #[arg(long)]
+    yes: bool,
 }
 
 /// Runs the command.
-pub fn run(_args: Args) -> anyhow::Result<u8> {
-    anyhow::bail!("isopach remeasure is not built yet")
+pub fn run(args: Args) -> anyhow::Result<u8> {
+    let folder = RunFolder::new(&args.run);
+    let meta = folder.read_run_toml()?;
+    let planned = derive::planned_sites(&meta);
+    let which = if args.failed {
+        Which::Missing
+    } else {
+        if let Some(bad) = args
+            .sites
+            .iter()
+            .find(|n| !planned.iter().any(|s| s.number == **n))
+        {
+            bail!(
+                "site {bad} is not in this run's plan (sites 1..{})",
+                planned.len()
+            );
+        }
+        Which::Sites(args.sites)
+    };
+    measure::session(folder, meta, which, args.yes, "remeasure")
 }

@@ -1,14 +1,94 @@
-//! `isopach render` (not built yet).
+//! `isopach render RUN [--out FILE.svg|.png] [--levels N] [--no-values] [--layer K]`: draw a
+//! run's map again from its `run.toml` and `sites.csv`.
+
+use anyhow::{bail, Context};
+use isopach::map::run_outputs::{run_map_input, run_summary, write_run_maps};
+use isopach::map::{render_png, render_svg, sites_table, RenderOptions};
+use isopach::run::files::write_atomic;
+use isopach::run::folder::RunFolder;
+use std::path::PathBuf;
 
 /// Arguments of `isopach render`.
 #[derive(clap::Args, Debug)]
+#[command(
+    after_help = "Examples:\n  isopach render runs/oxide-150-49-W07\n  isopach render runs/oxide-150-49-W07 --out w07.png --levels 6 --no-values"
+)]
 pub struct Args {
-    /// Arguments (not built yet).
-    #[arg(trailing_var_arg = true, allow_hyphen_values = true)]
-    rest: Vec<String>,
+    /// The run folder (holds run.toml and sites.csv).
+    run: PathBuf,
+    /// Write only this file (.svg or .png); default: map.svg and map.png in the run folder.
+    #[arg(long)]
+    out: Option<PathBuf>,
+    /// About how many isolines to draw (round levels are chosen near this count).
+    #[arg(long, default_value_t = 10, value_parser = clap::value_parser!(u16).range(1..=60))]
+    levels: u16,
+    /// Do not print site values beside the markers.
+    #[arg(long)]
+    no_values: bool,
+    /// Which fitted layer to map with --out (1 = top); without --out every layer is drawn.
+    #[arg(long, default_value_t = 1, value_parser = clap::value_parser!(u16).range(1..))]
+    layer: u16,
 }
 
 /// Runs the command.
-pub fn run(_args: Args) -> anyhow::Result<u8> {
-    anyhow::bail!("isopach render is not built yet")
+pub fn run(args: Args) -> anyhow::Result<u8> {
+    let folder = RunFolder::new(&args.run);
+    let meta = folder.read_run_toml()?;
+    let rows = sites_table::read_file(&folder.sites_csv())?;
+    let opts = RenderOptions {
+        levels: args.levels as usize,
+        values: !args.no_values,
+        ..RenderOptions::default()
+    };
+    let summary = run_summary(&rows, &meta);
+    let layers = summary.all_layers();
+    let layer = args.layer as usize - 1;
+    if layer >= layers.len() {
+        bail!(
+            "--layer {}: this run has {} fitted layer(s)",
+            args.layer,
+            layers.len()
+        );
+    }
+    match &args.out {
+        Some(out) => {
+            let input = run_map_input(&rows, &meta, layer);
+            let ext = out
+                .extension()
+                .and_then(|e| e.to_str())
+                .map(str::to_ascii_lowercase);
+            let bytes = match ext.as_deref() {
+                Some("svg") => render_svg(&input, &opts).into_bytes(),
+                Some("png") => render_png(&input, &opts)?,
+                _ => bail!(
+                    "--out {}: the file name must end in .svg or .png",
+                    out.display()
+                ),
+            };
+            write_atomic(out, &bytes).with_context(|| format!("cannot write {}", out.display()))?;
+            eprintln!("map written to {}", out.display());
+        }
+        None => {
+            for path in write_run_maps(&folder, &rows, &meta, &opts)? {
+                eprintln!("map written to {}", path.display());
+            }
+        }
+    }
+    let s = &layers[layer];
+    println!(
+        "{}: {} of {} sites valid, mean {:.2} nm, 1σ {:.2} nm ({:.2} %), range {:.2} nm ({:.2} %)",
+        if s.layer.is_empty() {
+            "layer"
+        } else {
+            &s.layer
+        },
+        s.sites_valid,
+        s.sites_total,
+        s.mean_nm,
+        s.std_nm,
+        s.nu_1sigma_pct,
+        s.range_nm,
+        s.nu_range_pct
+    );
+    Ok(super::exit::OK)
 }

@@ -1,14 +1,138 @@
-//! `isopach run` (not built yet).
+//! `isopach run RECIPE [--machine M] [--wafer ID] [--lot L] [--runs DIR] [--yes] [--dry-run]`.
+
+use super::measure::{self, Which};
+use anyhow::Context;
+use isopach::bench::machine;
+use isopach::recipe;
+use isopach::run::{plan, session};
+use std::path::PathBuf;
 
 /// Arguments of `isopach run`.
 #[derive(clap::Args, Debug)]
+#[command(after_help = "Examples:
+  isopach run recipes/oxide-150-49.toml                          # on the built-in simulated bench
+  isopach run recipes/oxide-150-49.toml --wafer W07 --lot L2612 --machine bench-a.toml
+  isopach run recipes/resist-100-grid.toml --machine bench-a.toml --dry-run
+
+A run folder runs/<time>-<wafer>/ keeps the frozen recipe, the journal, every raw spectrum,
+sites.csv, summary.json and the maps. Ctrl-C stops the stage and keeps everything measured;
+`isopach resume RUN` finishes the run.")]
 pub struct Args {
-    /// Arguments (not built yet).
-    #[arg(trailing_var_arg = true, allow_hyphen_values = true)]
-    rest: Vec<String>,
+    /// The recipe file (TOML).
+    recipe: PathBuf,
+    /// The machine file of the bench; without it, the built-in simulated bench.
+    #[arg(long)]
+    machine: Option<PathBuf>,
+    /// Wafer id (goes into the run id: letters, digits, '-', '_', '.').
+    #[arg(long, default_value = "wafer")]
+    wafer: String,
+    /// Lot id.
+    #[arg(long, default_value = "")]
+    lot: String,
+    /// Operator name or initials.
+    #[arg(long, default_value = "")]
+    operator: String,
+    /// Folder holding the run folders.
+    #[arg(long, default_value = "runs")]
+    runs: PathBuf,
+    /// Do not ask before the first motion of a real stage (scripted use on a checked bench).
+    #[arg(long)]
+    yes: bool,
+    /// Print the plan, its path length and estimated duration; move nothing.
+    #[arg(long)]
+    dry_run: bool,
+    /// Seed of the simulated bench (default: from the wafer id, so each wafer differs).
+    #[arg(long)]
+    seed: Option<u64>,
 }
 
 /// Runs the command.
-pub fn run(_args: Args) -> anyhow::Result<u8> {
-    anyhow::bail!("isopach run is not built yet")
+pub fn run(args: Args) -> anyhow::Result<u8> {
+    let loaded = recipe::load(&args.recipe)?;
+    let machine = match &args.machine {
+        Some(p) => Some(machine::load(p)?.machine),
+        None => None,
+    };
+    if args.dry_run {
+        return dry_run(&loaded, machine.as_ref());
+    }
+    let seed = args.seed.unwrap_or_else(|| seed_of(&args.wafer));
+    let table = machine
+        .as_ref()
+        .map(toml::Table::try_from)
+        .transpose()
+        .context("cannot freeze the machine file")?;
+    let new = session::NewRun {
+        wafer: args.wafer,
+        lot: args.lot,
+        operator: args.operator,
+        runs_dir: args.runs,
+        machine: table,
+        seed,
+    };
+    let (folder, meta) = session::create(&loaded, &new)?;
+    eprintln!("run {} in {}", meta.run.id, folder.root.display());
+    measure::session(folder, meta, Which::Missing, args.yes, "run")
+}
+
+/// A stable seed from the wafer id (FNV-1a), so every simulated wafer is its own.
+fn seed_of(wafer: &str) -> u64 {
+    wafer.bytes().fold(0xcbf2_9ce4_8422_2325u64, |h, b| {
+        (h ^ b as u64).wrapping_mul(0x100_0000_01b3)
+    })
+}
+
+/// Prints the plan in measuring order, its path length and its estimated duration.
+fn dry_run(
+    loaded: &recipe::LoadedRecipe,
+    machine: Option<&isopach::bench::MachineFile>,
+) -> anyhow::Result<u8> {
+    let m = machine.cloned().unwrap_or_else(machine::builtin_simulated);
+    let sites = plan::order(&loaded.recipe.pattern, &loaded.sites());
+    let transform = isopach::bench::chuck::ChuckTransform::from_spec(&m.chuck);
+    let limits = isopach::bench::limits::SoftLimits::from_spec(&m.stage);
+    let approach = isopach::bench::limits::Approach::from_spec(&m.stage);
+    let outside = isopach::bench::limits::check_sites(&sites, &transform, &limits, &approach);
+    println!(
+        "{:>5} {:>5} {:>9} {:>9} {:>10} {:>10}",
+        "order", "site", "x_mm", "y_mm", "stage_x", "stage_y"
+    );
+    for (i, s) in sites.iter().enumerate() {
+        let p = transform.to_stage(s.x_mm, s.y_mm);
+        println!(
+            "{:>5} {:>5} {:>9.3} {:>9.3} {:>10.3} {:>10.3}",
+            i + 1,
+            s.number,
+            s.x_mm,
+            s.y_mm,
+            p[0],
+            p[1]
+        );
+    }
+    let a = &loaded.recipe.acquire;
+    let per_site = (a.settle_ms + a.integration_ms * a.averages as f64) / 1000.0;
+    let secs = plan::duration_lower_bound_s(
+        (0.0, 0.0),
+        &sites,
+        m.stage.feed_mm_min,
+        m.stage.accel_mm_s2,
+        per_site,
+    );
+    println!(
+        "{} sites, path {:.1} mm from the wafer centre, at least {:.1} s ({}: feed {} mm/min, accel {} mm/s², {:.0} ms per site)",
+        sites.len(),
+        plan::path_length((0.0, 0.0), &sites),
+        secs,
+        m.name,
+        m.stage.feed_mm_min,
+        m.stage.accel_mm_s2,
+        per_site * 1000.0
+    );
+    if !outside.is_empty() {
+        for o in &outside {
+            println!("outside the soft limits: {o}");
+        }
+        return Ok(super::exit::INVALID);
+    }
+    Ok(super::exit::OK)
 }

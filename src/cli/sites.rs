@@ -28,7 +28,8 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     if args.csv {
         println!("site,x_mm,y_mm,r_mm");
         for s in &sites {
-            println!("{},{:.3},{:.3},{:.3}", s.number, s.x_mm, s.y_mm, s.radius());
+            // Full precision: rounding would push rim sites past the usable radius.
+            println!("{},{},{},{}", s.number, s.x_mm, s.y_mm, s.radius());
         }
     } else {
         println!("{:>5} {:>9} {:>9} {:>9}", "site", "x_mm", "y_mm", "r_mm");

@@ -1,14 +1,146 @@
-//! `isopach trend` (not built yet).
+//! `isopach trend [--recipe NAME] [--lot L] [--runs DIR] [--rebuild] [--out FILE] [--json]`.
+
+use anyhow::Context;
+use isopach::history::{chart, control, db::History, record};
+use serde_json::json;
+use std::path::PathBuf;
 
 /// Arguments of `isopach trend`.
 #[derive(clap::Args, Debug)]
+#[command(after_help = "Examples:
+  isopach trend --recipe oxide-150-49
+  isopach trend --recipe oxide-150-49 --lot L2612 --out trend.svg
+  isopach trend --rebuild                 # re-index every run folder under runs/")]
 pub struct Args {
-    /// Arguments (not built yet).
-    #[arg(trailing_var_arg = true, allow_hyphen_values = true)]
-    rest: Vec<String>,
+    /// Only runs of this recipe (its `name`).
+    #[arg(long)]
+    recipe: Option<String>,
+    /// Only runs of this lot.
+    #[arg(long)]
+    lot: Option<String>,
+    /// The folder holding the run folders and the history database.
+    #[arg(long, default_value = "runs")]
+    runs: PathBuf,
+    /// Rebuild the history from the run folders first.
+    #[arg(long)]
+    rebuild: bool,
+    /// Which fitted layer (1 = top fitted layer).
+    #[arg(long, default_value_t = 1)]
+    layer: usize,
+    /// Draw the run chart to this .svg or .png file.
+    #[arg(long)]
+    out: Option<PathBuf>,
+    /// Print JSON instead of a table.
+    #[arg(long)]
+    json: bool,
 }
 
 /// Runs the command.
-pub fn run(_args: Args) -> anyhow::Result<u8> {
-    anyhow::bail!("isopach trend is not built yet")
+pub fn run(args: Args) -> anyhow::Result<u8> {
+    let layer = args.layer.checked_sub(1).context("--layer counts from 1")?;
+    if !args.runs.is_dir() {
+        anyhow::bail!("no runs folder {} (give --runs DIR)", args.runs.display());
+    }
+    if args.rebuild {
+        let (n, skipped) = record::rebuild(&args.runs)?;
+        eprintln!(
+            "history rebuilt from {n} run folder(s) in {}",
+            args.runs.display()
+        );
+        for (folder, why) in skipped {
+            eprintln!("  skipped {}: {why}", folder.display());
+        }
+    }
+    let history = History::open(&record::db_path(&args.runs))?;
+    let points = history.trend(args.recipe.as_deref(), args.lot.as_deref(), layer)?;
+    let means: Vec<f64> = points.iter().map(|p| p.mean_nm).collect();
+    let nus: Vec<f64> = points.iter().map(|p| p.nu_1sigma_pct).collect();
+    let (lm, ln) = (control::limits(&means), control::limits(&nus));
+    let sm = lm.map(|l| control::signals(&means, &l)).unwrap_or_default();
+    let sn = ln.map(|l| control::signals(&nus, &l)).unwrap_or_default();
+    if let Some(out) = &args.out {
+        let title = format!(
+            "run chart{}{}",
+            args.recipe
+                .as_deref()
+                .map(|r| format!(" — {r}"))
+                .unwrap_or_default(),
+            args.lot
+                .as_deref()
+                .map(|l| format!(", lot {l}"))
+                .unwrap_or_default()
+        );
+        super::output::write_scene(out, &chart::chart(&points, &title))?;
+        eprintln!("run chart written to {}", out.display());
+    }
+    if args.json {
+        let rows: Vec<_> = points
+            .iter()
+            .enumerate()
+            .map(|(i, p)| {
+                json!({"run": p.run_id, "wafer": p.wafer, "lot": p.lot, "started": p.started,
+                       "mean_nm": p.mean_nm, "nu_1sigma_pct": p.nu_1sigma_pct, "sites_valid": p.sites_valid,
+                       "mean_signals": sm.get(i), "nu_signals": sn.get(i)})
+            })
+            .collect();
+        println!(
+            "{}",
+            serde_json::to_string_pretty(
+                &json!({"runs": rows, "mean_limits": lm, "nu_limits": ln})
+            )?
+        );
+        return Ok(super::exit::OK);
+    }
+    if points.is_empty() {
+        println!(
+            "no runs in the history{}",
+            if args.rebuild { "" } else { " (try --rebuild)" }
+        );
+        return Ok(super::exit::OK);
+    }
+    println!(
+        "{:<22} {:<16} {:<10} {:>10} {:>8}  signals",
+        "started", "wafer", "lot", "mean_nm", "NU_%"
+    );
+    for (i, p) in points.iter().enumerate() {
+        let mut s: Vec<String> = Vec::new();
+        s.extend(
+            sm.get(i)
+                .into_iter()
+                .flatten()
+                .map(|x| format!("mean {}", signal(*x))),
+        );
+        s.extend(
+            sn.get(i)
+                .into_iter()
+                .flatten()
+                .map(|x| format!("NU {}", signal(*x))),
+        );
+        println!(
+            "{:<22} {:<16} {:<10} {:>10.3} {:>8.3}  {}",
+            p.started.get(..19).unwrap_or(&p.started),
+            p.wafer,
+            p.lot,
+            p.mean_nm,
+            p.nu_1sigma_pct,
+            s.join(", ")
+        );
+    }
+    for (name, l) in [("mean", lm), ("NU", ln)] {
+        if let Some(l) = l {
+            println!(
+                "{name}: centre {:.3}, LCL {:.3}, UCL {:.3} (MR̄ {:.3})",
+                l.center, l.lcl, l.ucl, l.mr_bar
+            );
+        }
+    }
+    Ok(super::exit::OK)
+}
+
+fn signal(s: control::Signal) -> &'static str {
+    match s {
+        control::Signal::AboveUcl => "above UCL",
+        control::Signal::BelowLcl => "below LCL",
+        control::Signal::Jump => "jump",
+    }
 }

@@ -2,7 +2,7 @@
 //! Plain SVG text: no font files needed, the viewer renders the labels.
 
 use super::result::FitResult;
-use crate::map::site_plan::escape;
+use crate::map::svg::escape;
 use std::fmt::Write;
 
 /// Draws measured (points) and modelled (line) reflectance over wavelength, with the fitted

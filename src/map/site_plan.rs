@@ -3,30 +3,12 @@
 //! Hand-written SVG (text as text, one `<circle class="site">` per site) so that it is small,
 //! exact and easy to check.
 
+use super::svg::{escape, polygon_path};
 use crate::recipe::{Site, Wafer};
 use std::fmt::Write;
 
 /// Pixels per mm are chosen so the drawing is about 640 px wide.
 const SIZE_PX: f64 = 640.0;
-
-/// An SVG path through the points, closed.
-pub fn polygon_path(points: &[(f64, f64)], to_px: impl Fn(f64, f64) -> (f64, f64)) -> String {
-    let mut d = String::new();
-    for (i, &(x, y)) in points.iter().enumerate() {
-        let (px, py) = to_px(x, y);
-        let _ = write!(d, "{}{px:.2},{py:.2} ", if i == 0 { "M" } else { "L" });
-    }
-    d.push('Z');
-    d
-}
-
-/// Escapes text for SVG/XML.
-pub fn escape(s: &str) -> String {
-    s.replace('&', "&amp;")
-        .replace('<', "&lt;")
-        .replace('>', "&gt;")
-        .replace('"', "&quot;")
-}
 
 /// Draws the site plan of a wafer.
 pub fn svg(wafer: &Wafer, sites: &[Site], title: &str) -> String {

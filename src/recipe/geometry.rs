@@ -152,9 +152,9 @@ impl Wafer {
     }
 
     /// Whether (x, y) lies in the usable area: at least the edge exclusion inside every edge,
-    /// the flat and notch included.
+    /// the flat and notch included (to within a micrometre, so computed rim sites count).
     pub fn is_usable(&self, x: f64, y: f64) -> bool {
-        self.edge_distance(x, y) >= self.edge_exclusion_mm - 1e-9
+        self.edge_distance(x, y) >= self.edge_exclusion_mm - 1e-6
     }
 
     /// How far (x, y) lies outside the usable area, mm (0 when inside).

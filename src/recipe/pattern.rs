@@ -5,6 +5,10 @@
 //!   each ring counter-clockwise from its start angle;
 //! - grid: row by row from the top (largest y) down, left to right within a row;
 //! - custom: the order of `sites_mm`.
+//!
+//! Ring sites that a flat or notch puts outside the usable area are moved inwards along their
+//! radius onto its boundary, so a pattern keeps its site count; grid nodes outside are dropped;
+//! custom sites outside are a validation error.
 
 use super::geometry::Wafer;
 use super::schema::PatternSpec;
@@ -83,6 +87,10 @@ pub fn sites(pattern: &PatternSpec, wafer: &Wafer) -> Vec<Site> {
         } => grid_points(*pitch_mm, *offset_mm, wafer),
         PatternSpec::Custom { sites_mm } => sites_mm.iter().map(|p| (p[0], p[1])).collect(),
     };
+    let points = match pattern {
+        PatternSpec::Polar { .. } | PatternSpec::Standard { .. } => pull_inside(points, wafer),
+        _ => points,
+    };
     points
         .into_iter()
         .enumerate()
@@ -119,6 +127,31 @@ fn polar_points(
         }
     }
     pts
+}
+
+/// Moves points outside the usable area inwards along their radius onto its boundary.
+fn pull_inside(points: Vec<(f64, f64)>, wafer: &Wafer) -> Vec<(f64, f64)> {
+    points
+        .into_iter()
+        .map(|(x, y)| {
+            if wafer.is_usable(x, y) {
+                return (x, y);
+            }
+            // Aim 0.1 µm (1e-4 mm) inside the boundary so rounding the coordinates cannot push it out.
+            let inside =
+                |t: f64| wafer.edge_distance(x * t, y * t) >= wafer.edge_exclusion_mm + 1e-4;
+            let (mut lo, mut hi) = (0.0, 1.0);
+            for _ in 0..60 {
+                let mid = 0.5 * (lo + hi);
+                if inside(mid) {
+                    lo = mid;
+                } else {
+                    hi = mid;
+                }
+            }
+            (clean(x * lo), clean(y * lo))
+        })
+        .collect()
 }
 
 /// Rounds away floating-point dust so that printed coordinates read as the user expects.
@@ -166,7 +199,7 @@ mod tests {
 
     #[test]
     fn standard_49_is_centre_plus_8_16_24_on_even_radii() {
-        let w = wafer(200.0, 3.0, OrientationKind::Notch);
+        let w = wafer(200.0, 3.0, OrientationKind::None);
         let s = sites(&PatternSpec::Standard { sites: 49 }, &w);
         assert_eq!(s.len(), 49);
         assert_eq!((s[0].x_mm, s[0].y_mm), (0.0, 0.0));
@@ -185,6 +218,33 @@ mod tests {
             }
         }
         assert!(s.iter().enumerate().all(|(i, x)| x.number == i + 1));
+    }
+
+    #[test]
+    fn ring_sites_behind_a_flat_are_pulled_onto_the_usable_boundary() {
+        // 150 mm, 5 mm exclusion: the outer ring (r = 70 mm) crosses the flat's usable limit at
+        // y = −(69.27 − 5) = −64.27 mm; sites there move inwards along their radius.
+        let w = wafer(150.0, 5.0, OrientationKind::Flat);
+        let s = sites(&PatternSpec::Standard { sites: 49 }, &w);
+        assert_eq!(s.len(), 49);
+        for p in &s {
+            assert!(
+                w.is_usable(p.x_mm, p.y_mm),
+                "{p:?} {}",
+                w.edge_distance(p.x_mm, p.y_mm)
+            );
+        }
+        let bottom = s
+            .iter()
+            .find(|p| p.x_mm.abs() < 1e-9 && p.y_mm < -60.0)
+            .unwrap();
+        let limit = w.flat_distance().unwrap() - 5.0;
+        assert!((bottom.y_mm + limit).abs() < 1e-3, "{bottom:?}");
+        // Sites away from the flat keep their radius.
+        assert!(s
+            .iter()
+            .filter(|p| p.y_mm > 0.0 && p.radius() > 60.0)
+            .all(|p| (p.radius() - 70.0).abs() < 1e-6));
     }
 
     #[test]

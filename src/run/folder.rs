@@ -26,6 +26,9 @@ pub struct RunMeta {
     /// Where the recipe was read from (for messages; the frozen copy below is what counts).
     #[serde(default)]
     pub recipe_path: String,
+    /// Seed of the simulated bench (noise, virtual wafer), so a resumed run sees the same wafer.
+    #[serde(default)]
+    pub seed: u64,
 }
 
 /// The whole `run.toml`: metadata, the recipe as it was, the machine file as it was.

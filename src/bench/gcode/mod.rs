@@ -1,0 +1,10 @@
+//! G-code in three layers: a pure line [`codec`], a pure [`controller`] state machine that
+//! takes the current time as an argument, and one thin async [`link`] over any
+//! `AsyncRead + AsyncWrite` (serial port, pseudo-terminal, in-process duplex).
+
+pub mod codec;
+pub mod controller;
+pub mod link;
+
+pub use controller::{Command, Controller, ControllerError, LogEntry, Outcome, ProtocolConfig};
+pub use link::{Link, LinkError};

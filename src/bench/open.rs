@@ -1,0 +1,166 @@
+//! Assembling a bench from a machine file (or the built-in simulated one) for a recipe: the
+//! stage, the spectrometer, the wafer→stage transform and the soft limits, as the sequencer
+//! and the CLI use them.
+
+use super::chuck::ChuckTransform;
+use super::limits::{check_site, check_sites, Approach, SiteOutside, SoftLimits};
+use super::machine::{builtin_simulated, MachineFile, SpectrometerKind};
+use super::sim::clock::SimClock;
+use super::sim::controller::VirtualConfig;
+use super::sim::server::spawn_duplex;
+use super::sim::spectrometer::VirtualSpectrometer;
+use super::sim::wafer::{BareSample, VirtualWafer};
+use super::spectrometer::{CommandSpectrometer, Spectrometer};
+use super::stage::{GcodeStage, Stage, StageError};
+use super::transport::open_serial;
+use crate::optics::{MaterialLibrary, OpticsError};
+use crate::recipe::{LoadedRecipe, Site};
+use std::sync::Arc;
+
+/// Why a bench could not be opened or used.
+#[derive(Debug, thiserror::Error)]
+pub enum BenchError {
+    #[error(transparent)]
+    Stage(#[from] StageError),
+    #[error("cannot build the simulated wafer or reference: {0}")]
+    Optics(#[from] OpticsError),
+    #[error("{} site(s) lie outside the soft limits; nothing was sent:\n{}", .0.len(), list(.0))]
+    OutsideTravel(Vec<SiteOutside>),
+    #[error("site {site}: {source}")]
+    Site { site: usize, source: StageError },
+}
+
+fn list(v: &[SiteOutside]) -> String {
+    v.iter()
+        .map(|s| format!("  {s}"))
+        .collect::<Vec<_>>()
+        .join("\n")
+}
+
+/// Connects to the stage of a machine file: the virtual controller (in-process, in the
+/// clock's virtual time) when its port is `"simulated"`, else the serial port.
+pub async fn open_stage(m: &MachineFile, clock: SimClock) -> Result<Box<dyn Stage>, StageError> {
+    Ok(if m.stage_is_simulated() {
+        let stream = spawn_duplex(VirtualConfig::from_machine(m), clock);
+        Box::new(GcodeStage::connect(stream, &m.stage, "simulated").await?)
+    } else {
+        let port = open_serial(&m.stage.port, m.stage.baud)?;
+        Box::new(GcodeStage::connect(port, &m.stage, &m.stage.port).await?)
+    })
+}
+
+/// A stage and a spectrometer, with the geometry that ties the wafer to the stage.
+pub struct Bench {
+    pub stage: Box<dyn Stage>,
+    pub spectrometer: Box<dyn Spectrometer>,
+    pub transform: ChuckTransform,
+    pub limits: SoftLimits,
+    pub approach: Approach,
+    /// The machine file in use (the built-in one when none was given).
+    pub machine: MachineFile,
+    simulated_stage: bool,
+    clock: SimClock,
+    wafer: Option<Arc<VirtualWafer>>,
+}
+
+impl Bench {
+    /// Opens the bench of `machine` for `recipe`; `None` means the built-in simulated bench
+    /// (virtual controller over an in-process duplex stream, driven by the real G-code stage
+    /// code; virtual wafer with the recipe's stack; virtual spectrometer). `seed` is added to
+    /// the machine file's simulation seed.
+    pub async fn open(
+        machine: Option<&MachineFile>,
+        recipe: &LoadedRecipe,
+        seed: u64,
+    ) -> Result<Bench, BenchError> {
+        let m = machine.cloned().unwrap_or_else(builtin_simulated);
+        let clock = SimClock::new(m.simulation.time_scale);
+        let simulated_stage = m.stage_is_simulated();
+        let stage = open_stage(&m, clock).await?;
+        let transform = ChuckTransform::from_spec(&m.chuck);
+        let seed = seed.wrapping_add(m.simulation.seed);
+        let (spectrometer, wafer): (Box<dyn Spectrometer>, _) = match m.spectrometer.kind {
+            SpectrometerKind::Command => (
+                Box::new(CommandSpectrometer::from_spec(&m.spectrometer)),
+                None,
+            ),
+            SpectrometerKind::Simulated => {
+                let wafer = Arc::new(VirtualWafer::for_recipe(recipe, &m.simulation.wafer, seed)?);
+                let lib = MaterialLibrary::for_recipe(&recipe.recipe, recipe.dir())?;
+                let reference = BareSample::new(
+                    lib.require(&recipe.recipe.film.ambient)?.clone(),
+                    lib.require(&m.reference.material)?.clone(),
+                );
+                let spec = VirtualSpectrometer::new(
+                    &m.simulation.spectrometer,
+                    wafer.clone(),
+                    &reference,
+                    stage.position_handle(),
+                    transform,
+                    seed.wrapping_add(1),
+                    clock,
+                );
+                (Box::new(spec) as Box<dyn Spectrometer>, Some(wafer))
+            }
+        };
+        Ok(Bench {
+            stage,
+            spectrometer,
+            transform,
+            limits: SoftLimits::from_spec(&m.stage),
+            approach: Approach::from_spec(&m.stage),
+            machine: m,
+            simulated_stage,
+            clock,
+            wafer,
+        })
+    }
+
+    /// Whether the stage is the virtual controller (no real motion: no confirmation needed).
+    pub fn is_simulated(&self) -> bool {
+        self.simulated_stage
+    }
+
+    /// How many times faster than real time the simulated parts run (1 on a real bench);
+    /// divide settle times by it.
+    pub fn time_scale(&self) -> f64 {
+        if self.simulated_stage {
+            self.clock.scale()
+        } else {
+            1.0
+        }
+    }
+
+    /// The virtual wafer, when the spectrometer is simulated (its true thickness field).
+    pub fn virtual_wafer(&self) -> Option<&VirtualWafer> {
+        self.wafer.as_deref()
+    }
+
+    /// The stage position of a site, checked against the soft limits (approach point too).
+    pub fn stage_position(&self, site: &Site) -> Result<[f64; 2], SiteOutside> {
+        check_site(site, &self.transform, &self.limits, &self.approach)
+    }
+
+    /// Checks a whole plan before any motion; every site outside is named.
+    pub fn check_plan(&self, sites: &[Site]) -> Result<(), BenchError> {
+        let out = check_sites(sites, &self.transform, &self.limits, &self.approach);
+        if out.is_empty() {
+            Ok(())
+        } else {
+            Err(BenchError::OutsideTravel(out))
+        }
+    }
+
+    /// Moves to a site (wafer frame) and waits for motion to end; the confirmed position.
+    pub async fn move_to_site(&mut self, site: &Site) -> Result<Option<[f64; 2]>, BenchError> {
+        let p = self
+            .stage_position(site)
+            .map_err(|o| BenchError::OutsideTravel(vec![o]))?;
+        let at = |source| BenchError::Site {
+            site: site.number,
+            source,
+        };
+        self.stage.move_to(p[0], p[1]).await.map_err(at)?;
+        self.stage.wait_idle().await.map_err(at)
+    }
+}

@@ -1,0 +1,296 @@
+//! Isolines by marching squares over a [`Grid`], joined into polylines, and polyline
+//! simplification (Ramer–Douglas–Peucker).
+//!
+//! A cell with an empty (NaN) corner is skipped, so lines simply end at the edge of the
+//! filled area. Saddle cells are resolved by the mean of the four corners. A crossing point is
+//! computed once per grid edge, so the two cells sharing an edge agree exactly and the
+//! segments join into continuous lines; a line that closes on itself is marked closed.
+
+use super::interpolate::Grid;
+use std::collections::HashMap;
+
+/// A connected isoline: points in mm, closed when it returns to its start.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Polyline {
+    pub points: Vec<(f64, f64)>,
+    pub closed: bool,
+}
+
+/// A grid edge: horizontal from node (i, j) to (i+1, j), or vertical to (i, j+1).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+enum Edge {
+    H(usize, usize),
+    V(usize, usize),
+}
+
+/// The isolines of `grid` at `level` (values ≥ level count as inside).
+pub fn isolines(grid: &Grid, level: f64) -> Vec<Polyline> {
+    isolines_many(grid, &[level]).pop().unwrap_or_default()
+}
+
+/// The isolines at each of `levels` (ascending), in one pass over the cells: a cell only
+/// produces segments for the levels between its lowest and highest corner.
+pub fn isolines_many(grid: &Grid, levels: &[f64]) -> Vec<Vec<Polyline>> {
+    let mut segments: Vec<Vec<(Edge, Edge)>> = vec![Vec::new(); levels.len()];
+    let nx = grid.nx;
+    for j in 0..grid.ny.saturating_sub(1) {
+        let lower = &grid.values[j * nx..(j + 1) * nx];
+        let upper = &grid.values[(j + 1) * nx..(j + 2) * nx];
+        for i in 0..nx.saturating_sub(1) {
+            let v = [lower[i], lower[i + 1], upper[i + 1], upper[i]];
+            let lo = v[0].min(v[1]).min(v[2].min(v[3]));
+            let hi = v[0].max(v[1]).max(v[2].max(v[3]));
+            if v.iter().any(|x| x.is_nan()) {
+                continue;
+            }
+            // Levels with some corner below and some at or above: lo < level ≤ hi.
+            let first = levels.partition_point(|&l| l <= lo);
+            let last = levels.partition_point(|&l| l <= hi);
+            for (k, &level) in levels.iter().enumerate().take(last).skip(first) {
+                cell_segments(v, i, j, level, &mut segments[k]);
+            }
+        }
+    }
+    segments
+        .iter()
+        .zip(levels)
+        .map(|(segs, &level)| join(grid, level, segs))
+        .collect()
+}
+
+/// The segments of one cell; `v` holds the corners counter-clockwise from (i, j).
+fn cell_segments(v: [f64; 4], i: usize, j: usize, level: f64, out: &mut Vec<(Edge, Edge)>) {
+    let inside = v.map(|x| x >= level);
+    let case = inside
+        .iter()
+        .enumerate()
+        .fold(0u8, |c, (k, &b)| c | ((b as u8) << k));
+    let (bottom, right, top, left) = (
+        Edge::H(i, j),
+        Edge::V(i + 1, j),
+        Edge::H(i, j + 1),
+        Edge::V(i, j),
+    );
+    let centre_inside = (v[0] + v[1] + v[2] + v[3]) / 4.0 >= level;
+    match case {
+        0 | 15 => {}
+        1 | 14 => out.push((bottom, left)),
+        2 | 13 => out.push((bottom, right)),
+        3 | 12 => out.push((left, right)),
+        4 | 11 => out.push((right, top)),
+        6 | 9 => out.push((bottom, top)),
+        7 | 8 => out.push((left, top)),
+        // Corners 0 and 2 inside: joined through the centre, or cut off one by one.
+        5 if centre_inside => out.extend([(bottom, right), (left, top)]),
+        5 => out.extend([(bottom, left), (right, top)]),
+        // Corners 1 and 3 inside.
+        10 if centre_inside => out.extend([(bottom, left), (right, top)]),
+        _ => out.extend([(bottom, right), (left, top)]),
+    }
+}
+
+/// Where the isoline crosses a grid edge, mm.
+fn crossing(grid: &Grid, e: Edge, level: f64) -> (f64, f64) {
+    let (i, j, i2, j2) = match e {
+        Edge::H(i, j) => (i, j, i + 1, j),
+        Edge::V(i, j) => (i, j, i, j + 1),
+    };
+    let (a, b) = (grid.at(i, j), grid.at(i2, j2));
+    let t = if b != a {
+        ((level - a) / (b - a)).clamp(0.0, 1.0)
+    } else {
+        0.5
+    };
+    (
+        grid.x(i) + t * (grid.x(i2) - grid.x(i)),
+        grid.y(j) + t * (grid.y(j2) - grid.y(j)),
+    )
+}
+
+/// Chains segments that share an edge into polylines.
+fn join(grid: &Grid, level: f64, segments: &[(Edge, Edge)]) -> Vec<Polyline> {
+    let mut by_edge: HashMap<Edge, Vec<usize>> = HashMap::with_capacity(segments.len() * 2);
+    for (k, &(a, b)) in segments.iter().enumerate() {
+        by_edge.entry(a).or_default().push(k);
+        by_edge.entry(b).or_default().push(k);
+    }
+    let mut used = vec![false; segments.len()];
+    let mut lines = Vec::new();
+    // Open lines start at an edge only one segment touches; what is left are loops.
+    let mut starts: Vec<(usize, Edge)> = segments
+        .iter()
+        .enumerate()
+        .flat_map(|(k, &(a, b))| [(k, a), (k, b)])
+        .filter(|(_, e)| by_edge[e].len() == 1)
+        .collect();
+    starts.extend(segments.iter().enumerate().map(|(k, &(a, _))| (k, a)));
+    for (first, start_edge) in starts {
+        if used[first] {
+            continue;
+        }
+        let mut edges = vec![start_edge];
+        let mut k = first;
+        let mut at = start_edge;
+        loop {
+            used[k] = true;
+            let (a, b) = segments[k];
+            let next_edge = if a == at { b } else { a };
+            edges.push(next_edge);
+            at = next_edge;
+            match by_edge[&at].iter().find(|&&s| !used[s]) {
+                Some(&s) => k = s,
+                None => break,
+            }
+        }
+        let closed = edges.len() > 2 && edges.first() == edges.last();
+        if closed {
+            edges.pop();
+        }
+        lines.push(Polyline {
+            points: edges.iter().map(|&e| crossing(grid, e, level)).collect(),
+            closed,
+        });
+    }
+    lines
+}
+
+/// Ramer–Douglas–Peucker simplification: drops points closer than `tol` to the line through
+/// their neighbours that are kept. Closed lines keep their start point.
+pub fn simplify(line: &Polyline, tol: f64) -> Polyline {
+    let mut pts = line.points.clone();
+    if line.closed {
+        if let Some(&p) = pts.first() {
+            pts.push(p);
+        }
+    }
+    if pts.len() < 3 || tol <= 0.0 {
+        return line.clone();
+    }
+    let mut keep = vec![false; pts.len()];
+    keep[0] = true;
+    *keep.last_mut().expect("not empty") = true;
+    let mut stack = vec![(0, pts.len() - 1)];
+    while let Some((a, b)) = stack.pop() {
+        let (mut far, mut dmax) = (a, 0.0);
+        for k in a + 1..b {
+            let d = point_segment_distance(pts[k], pts[a], pts[b]);
+            if d > dmax {
+                (far, dmax) = (k, d);
+            }
+        }
+        if dmax > tol {
+            keep[far] = true;
+            stack.push((a, far));
+            stack.push((far, b));
+        }
+    }
+    let mut out: Vec<(f64, f64)> = pts
+        .iter()
+        .zip(&keep)
+        .filter(|(_, &k)| k)
+        .map(|(p, _)| *p)
+        .collect();
+    if line.closed {
+        out.pop();
+    }
+    Polyline {
+        points: out,
+        closed: line.closed,
+    }
+}
+
+fn point_segment_distance(p: (f64, f64), a: (f64, f64), b: (f64, f64)) -> f64 {
+    let (dx, dy) = (b.0 - a.0, b.1 - a.1);
+    let len2 = dx * dx + dy * dy;
+    let t = if len2 > 0.0 {
+        (((p.0 - a.0) * dx + (p.1 - a.1) * dy) / len2).clamp(0.0, 1.0)
+    } else {
+        0.0
+    };
+    (p.0 - a.0 - t * dx).hypot(p.1 - a.1 - t * dy)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn grid_of(n: usize, f: impl Fn(f64, f64) -> f64) -> Grid {
+        let step = 2.0 / (n - 1) as f64;
+        let mut values = Vec::with_capacity(n * n);
+        for j in 0..n {
+            for i in 0..n {
+                values.push(f(-1.0 + i as f64 * step, -1.0 + j as f64 * step));
+            }
+        }
+        Grid {
+            nx: n,
+            ny: n,
+            x0: -1.0,
+            y0: -1.0,
+            step,
+            values,
+        }
+    }
+
+    #[test]
+    fn a_cone_gives_one_closed_circle_at_the_right_radius() {
+        // f = r is linear along every grid edge's radial direction only approximately; the
+        // crossing error of linear interpolation is below step²/r (computed bound).
+        let g = grid_of(101, |x, y| x.hypot(y));
+        let lines = isolines(&g, 0.5);
+        assert_eq!(lines.len(), 1);
+        assert!(lines[0].closed);
+        for &(x, y) in &lines[0].points {
+            assert!(
+                (x.hypot(y) - 0.5).abs() < g.step * g.step / 0.5,
+                "r = {}",
+                x.hypot(y)
+            );
+        }
+    }
+
+    #[test]
+    fn lines_end_at_empty_nodes() {
+        // A plane cut by the level, right half empty: one open line from bottom to top.
+        let g = grid_of(21, |x, y| if x > 0.3 { f64::NAN } else { y });
+        let lines = isolines(&g, 0.0);
+        assert_eq!(lines.len(), 1);
+        assert!(!lines[0].closed);
+        assert!(lines[0]
+            .points
+            .iter()
+            .all(|p| p.1.abs() < 1e-12 && p.0 <= 0.3));
+    }
+
+    #[test]
+    fn two_peaks_give_two_loops_and_saddles_join_consistently() {
+        let g = grid_of(81, |x, y| {
+            (-(((x - 0.4).powi(2) + y * y) * 20.0)).exp()
+                + (-(((x + 0.4).powi(2) + y * y) * 20.0)).exp()
+        });
+        assert_eq!(isolines(&g, 0.5).len(), 2);
+        // Below the saddle value (≈ 2e^{-3.2} ≈ 0.082) the two merge into one loop.
+        assert_eq!(isolines(&g, 0.05).len(), 1);
+    }
+
+    #[test]
+    fn one_pass_over_many_levels_equals_one_level_at_a_time() {
+        let g = grid_of(61, |x, y| (3.0 * x).sin() + y * y);
+        let levels = [-0.5, 0.0, 0.25, 0.9];
+        let many = isolines_many(&g, &levels);
+        for (k, &l) in levels.iter().enumerate() {
+            assert_eq!(many[k], isolines(&g, l));
+            assert!(!many[k].is_empty());
+        }
+    }
+
+    #[test]
+    fn simplify_keeps_corners_and_drops_collinear_points() {
+        let line = Polyline {
+            points: vec![(0.0, 0.0), (1.0, 0.0), (2.0, 0.001), (3.0, 0.0), (3.0, 3.0)],
+            closed: false,
+        };
+        let s = simplify(&line, 0.01);
+        assert_eq!(s.points, vec![(0.0, 0.0), (3.0, 0.0), (3.0, 3.0)]);
+    }
+}

@@ -1,0 +1,100 @@
+//! A run folder's derived files, rebuilt from its site rows: `sites.csv`, `summary.json`,
+//! `map.svg`, `map.png` (DESIGN.md §3), each written atomically.
+//!
+//! With several fitted layers, `map.svg`/`map.png` show the first one and each further layer
+//! k gets `map-layer{k}.svg`/`.png`.
+
+use super::render::{render_png, render_svg, MapInput, RenderOptions};
+use super::sites_table::{self, SiteRow};
+use super::stats::Summary;
+use super::MapError;
+use crate::recipe::{Recipe, Wafer};
+use crate::run::files::write_atomic;
+use crate::run::folder::{RunFolder, RunToml};
+use std::path::{Path, PathBuf};
+
+/// Names of the recipe's fitted layers, top first (the order of the thickness columns).
+pub fn fitted_layer_names(recipe: &Recipe) -> Vec<String> {
+    recipe
+        .film
+        .layers
+        .iter()
+        .filter(|l| l.fit)
+        .map(|l| l.material.clone())
+        .collect()
+}
+
+/// The map of one layer of a run, titled from its `run.toml`.
+pub fn run_map_input(rows: &[SiteRow], meta: &RunToml, layer: usize) -> MapInput {
+    let names = fitted_layer_names(&meta.recipe);
+    let mut input = MapInput::thickness(
+        Wafer::from_spec(&meta.recipe.wafer),
+        rows.to_vec(),
+        layer,
+        names.get(layer).map(String::as_str).unwrap_or(""),
+    );
+    input.recipe = meta.recipe.name.clone();
+    input.wafer_id = meta.run.wafer.clone();
+    input.time = meta.run.started.clone();
+    input
+}
+
+/// The summary of a run's rows.
+pub fn run_summary(rows: &[SiteRow], meta: &RunToml) -> Summary {
+    let wafer = Wafer::from_spec(&meta.recipe.wafer);
+    Summary::from_rows(
+        rows,
+        &fitted_layer_names(&meta.recipe),
+        wafer.usable_radius(),
+    )
+}
+
+fn put(path: &Path, bytes: &[u8]) -> Result<(), MapError> {
+    write_atomic(path, bytes).map_err(|e| MapError::io("write", path, e))
+}
+
+/// Writes `sites.csv`, `summary.json`, `map.svg` and `map.png` (plus per-layer maps for
+/// further layers) into the run folder and returns the summary.
+pub fn write_run_outputs(
+    folder: &RunFolder,
+    rows: &[SiteRow],
+    meta: &RunToml,
+) -> Result<Summary, MapError> {
+    put(&folder.sites_csv(), sites_table::write(rows).as_bytes())?;
+    let summary = run_summary(rows, meta);
+    put(&folder.summary_json(), summary.to_json().as_bytes())?;
+    write_run_maps(folder, rows, meta, &RenderOptions::default())?;
+    Ok(summary)
+}
+
+/// Where the map of `layer` (0-based) goes in a run folder.
+pub fn map_paths(folder: &RunFolder, layer: usize) -> (PathBuf, PathBuf) {
+    if layer == 0 {
+        (folder.map_svg(), folder.map_png())
+    } else {
+        let k = layer + 1;
+        (
+            folder.root.join(format!("map-layer{k}.svg")),
+            folder.root.join(format!("map-layer{k}.png")),
+        )
+    }
+}
+
+/// Writes the SVG and PNG map of every layer into the run folder; returns the paths written.
+pub fn write_run_maps(
+    folder: &RunFolder,
+    rows: &[SiteRow],
+    meta: &RunToml,
+    opts: &RenderOptions,
+) -> Result<Vec<PathBuf>, MapError> {
+    let layers = sites_table::layer_count(rows).max(fitted_layer_names(&meta.recipe).len());
+    let mut written = Vec::new();
+    for layer in 0..layers {
+        let input = run_map_input(rows, meta, layer);
+        let (svg, png) = map_paths(folder, layer);
+        put(&svg, render_svg(&input, opts).as_bytes())?;
+        put(&png, &render_png(&input, opts)?)?;
+        written.extend([svg, png]);
+    }
+    Ok(written)
+}

@@ -1,0 +1,77 @@
+//! Rebuilding a run folder's derived files from its journal: `sites.csv`, `summary.json`, the
+//! maps, and the run's entry in the history. Deterministic: the same journal gives the same
+//! files, so a rebuild after a crash matches a clean run.
+
+use super::events::{site_states, Event, SiteState};
+use super::folder::{RunFolder, RunToml};
+use super::journal;
+use crate::map::run_outputs::{fitted_layer_names, write_run_outputs};
+use crate::map::sites_table::SiteRow;
+use crate::map::stats::Summary;
+use crate::recipe::{pattern, Site, Wafer};
+
+/// Flag of a planned site that has no attempt yet.
+pub const NOT_MEASURED: &str = "not-measured";
+
+/// The planned sites of a run (from its frozen recipe), in site-number order.
+pub fn planned_sites(meta: &RunToml) -> Vec<Site> {
+    pattern::sites(&meta.recipe.pattern, &Wafer::from_spec(&meta.recipe.wafer))
+}
+
+/// Reads the journal and folds it into per-site state.
+pub fn read_states(
+    folder: &RunFolder,
+    meta: &RunToml,
+) -> anyhow::Result<(Vec<Event>, Vec<SiteState>)> {
+    // A run folder whose first session has not journalled anything yet has no journal.
+    let events: Vec<Event> = if folder.journal().exists() {
+        journal::read(&folder.journal())?.events
+    } else {
+        Vec::new()
+    };
+    let states = site_states(&planned_sites(meta), &events);
+    Ok((events, states))
+}
+
+/// One `sites.csv` row per planned site: its best attempt, or `not-measured`.
+pub fn rows(states: &[SiteState], layers: usize) -> Vec<SiteRow> {
+    states
+        .iter()
+        .map(|s| {
+            let best = s.best();
+            let fit = best.and_then(|a| a.fit.as_ref());
+            let pick = |f: &dyn Fn(&crate::fit::LayerResult) -> f64| -> Vec<f64> {
+                (0..layers)
+                    .map(|k| fit.and_then(|r| r.layers.get(k)).map(f).unwrap_or(f64::NAN))
+                    .collect()
+            };
+            SiteRow {
+                site: s.site.number,
+                x_mm: s.site.x_mm,
+                y_mm: s.site.y_mm,
+                thickness_nm: pick(&|l| l.thickness_nm),
+                sigma_nm: pick(&|l| l.sigma_nm),
+                gof: fit.map(|f| f.gof).unwrap_or(f64::NAN),
+                flag: match best {
+                    None => NOT_MEASURED.to_string(),
+                    Some(a) if a.flag.is_empty() => "not-fitted".to_string(),
+                    Some(a) => a.flag.clone(),
+                },
+            }
+        })
+        .collect()
+}
+
+/// Rewrites every derived file of the run from its journal and updates the history; returns
+/// the summary.
+pub fn rebuild(folder: &RunFolder) -> anyhow::Result<Summary> {
+    let meta = folder.read_run_toml()?;
+    let (_, states) = read_states(folder, &meta)?;
+    let layers = fitted_layer_names(&meta.recipe).len().max(1);
+    let summary = write_run_outputs(folder, &rows(&states, layers), &meta)?;
+    if let Err(e) = crate::history::record::update(&folder.root) {
+        // The history is an index that `trend --rebuild` can recreate; the run itself is safe.
+        tracing::warn!("run history not updated: {e:#}");
+    }
+    Ok(summary)
+}

@@ -1,0 +1,280 @@
+//! Journal events of a map run, and how the state of every site is derived from them.
+//!
+//! The journal is the truth: `sites.csv`, `summary.json` and the maps are rebuilt from these
+//! events. A site can have several attempts (retries, `remeasure`); each attempt can be fitted
+//! several times (`refit`): the newest fit of an attempt counts, and a site's result is its
+//! newest valid attempt, else its newest attempt.
+
+use crate::fit::FitResult;
+use crate::recipe::schema::AcceptSpec;
+use crate::recipe::Site;
+use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
+
+/// One line of `journal.jsonl`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "event", rename_all = "kebab-case")]
+pub enum Event {
+    /// The run began (or a `resume`/`remeasure`/`refit` session began on it).
+    RunStarted {
+        time: String,
+        command: String,
+        sites_planned: usize,
+    },
+    /// Dark and reference spectra were taken; files are relative to the run folder.
+    ReferenceTaken {
+        time: String,
+        dark: String,
+        reference: String,
+    },
+    /// A site's spectrum was acquired and stored.
+    SiteMeasured {
+        time: String,
+        site: usize,
+        attempt: u32,
+        x_mm: f64,
+        y_mm: f64,
+        stage_x_mm: f64,
+        stage_y_mm: f64,
+        spectrum: String,
+    },
+    /// A stored spectrum was fitted.
+    SiteFitted {
+        time: String,
+        site: usize,
+        attempt: u32,
+        fit: FitResult,
+        valid: bool,
+        flag: String,
+    },
+    /// A site could not be measured or fitted at all.
+    SiteFailed {
+        time: String,
+        site: usize,
+        attempt: u32,
+        reason: String,
+    },
+    /// The session stopped early (Ctrl-C, fault); the run can be resumed.
+    RunStopped { time: String, reason: String },
+    /// Every planned site has a result.
+    RunFinished { time: String },
+}
+
+/// Current time, RFC 3339 with the local offset.
+pub fn now() -> String {
+    chrono::Local::now().to_rfc3339_opts(chrono::SecondsFormat::Millis, false)
+}
+
+/// Whether a fit is acceptable, and the flag that goes into `sites.csv`: `ok` when valid
+/// (warnings such as `ambiguous` stay in the journal), else the reasons joined by `;`.
+pub fn judge(fit: &FitResult, accept: &AcceptSpec) -> (bool, String) {
+    if fit.is_valid(accept.min_gof) {
+        return (true, "ok".to_string());
+    }
+    let mut flags = fit.flags.clone();
+    if fit.gof < accept.min_gof && !flags.iter().any(|f| f == "poor-fit") {
+        flags.push("poor-fit".to_string());
+    }
+    if flags.is_empty() {
+        flags.push("no-fit".to_string());
+    }
+    (false, flags.join(";"))
+}
+
+/// Whether the first fitted layer is inside the recipe's specification window.
+pub fn in_spec(fit: &FitResult, accept: &AcceptSpec) -> Option<bool> {
+    let [lo, hi] = accept.spec_nm?;
+    let t = fit.layers.first()?.thickness_nm;
+    Some(t >= lo && t <= hi)
+}
+
+/// One measurement attempt of a site.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Attempt {
+    pub attempt: u32,
+    pub spectrum: Option<String>,
+    pub fit: Option<FitResult>,
+    pub valid: bool,
+    pub flag: String,
+}
+
+/// Everything the journal says about one site.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SiteState {
+    pub site: Site,
+    pub attempts: Vec<Attempt>,
+}
+
+impl SiteState {
+    /// The attempt that represents the site: newest valid, else newest.
+    pub fn best(&self) -> Option<&Attempt> {
+        self.attempts
+            .iter()
+            .rev()
+            .find(|a| a.valid)
+            .or_else(|| self.attempts.last())
+    }
+    /// Whether the site has a valid result.
+    pub fn is_valid(&self) -> bool {
+        self.attempts.iter().any(|a| a.valid)
+    }
+    /// Attempts whose spectrum is stored but not fitted (a kill between the two).
+    pub fn unfitted(&self) -> impl Iterator<Item = &Attempt> {
+        self.attempts
+            .iter()
+            .filter(|a| a.spectrum.is_some() && a.fit.is_none() && a.flag.is_empty())
+    }
+    /// The number the next attempt gets.
+    pub fn next_attempt(&self) -> u32 {
+        self.attempts.iter().map(|a| a.attempt).max().unwrap_or(0) + 1
+    }
+}
+
+/// Folds the journal into per-site state, for the planned sites (in site-number order).
+pub fn site_states(plan: &[Site], events: &[Event]) -> Vec<SiteState> {
+    let mut by_site: BTreeMap<usize, SiteState> = plan
+        .iter()
+        .map(|s| {
+            (
+                s.number,
+                SiteState {
+                    site: *s,
+                    attempts: Vec::new(),
+                },
+            )
+        })
+        .collect();
+    for e in events {
+        let (site, attempt) = match e {
+            Event::SiteMeasured { site, attempt, .. }
+            | Event::SiteFitted { site, attempt, .. }
+            | Event::SiteFailed { site, attempt, .. } => (*site, *attempt),
+            _ => continue,
+        };
+        let Some(state) = by_site.get_mut(&site) else {
+            continue;
+        };
+        let idx = match state.attempts.iter().position(|a| a.attempt == attempt) {
+            Some(i) => i,
+            None => {
+                state.attempts.push(Attempt {
+                    attempt,
+                    spectrum: None,
+                    fit: None,
+                    valid: false,
+                    flag: String::new(),
+                });
+                state.attempts.len() - 1
+            }
+        };
+        let a = &mut state.attempts[idx];
+        match e {
+            Event::SiteMeasured { spectrum, .. } => a.spectrum = Some(spectrum.clone()),
+            Event::SiteFitted {
+                fit, valid, flag, ..
+            } => {
+                a.fit = Some(fit.clone());
+                a.valid = *valid;
+                a.flag = flag.clone();
+            }
+            Event::SiteFailed { reason, .. } => {
+                a.valid = false;
+                a.flag = format!("failed: {reason}");
+            }
+            _ => {}
+        }
+    }
+    for s in by_site.values_mut() {
+        s.attempts.sort_by_key(|a| a.attempt);
+    }
+    by_site.into_values().collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::fit::LayerResult;
+
+    fn fit(t: f64, gof: f64) -> FitResult {
+        FitResult {
+            method: "model".into(),
+            layers: vec![LayerResult {
+                material: "sio2".into(),
+                thickness_nm: t,
+                sigma_nm: 0.1,
+            }],
+            gof,
+            flags: vec![],
+        }
+    }
+
+    fn measured(site: usize, attempt: u32) -> Event {
+        Event::SiteMeasured {
+            time: String::new(),
+            site,
+            attempt,
+            x_mm: 0.0,
+            y_mm: 0.0,
+            stage_x_mm: 0.0,
+            stage_y_mm: 0.0,
+            spectrum: format!("spectra/site-{site}-a{attempt}.csv"),
+        }
+    }
+
+    fn fitted(site: usize, attempt: u32, t: f64, gof: f64) -> Event {
+        let f = fit(t, gof);
+        let (valid, flag) = judge(&f, &AcceptSpec::default());
+        Event::SiteFitted {
+            time: String::new(),
+            site,
+            attempt,
+            fit: f,
+            valid,
+            flag,
+        }
+    }
+
+    #[test]
+    fn newest_valid_attempt_wins_and_refits_supersede() {
+        let plan = [
+            Site {
+                number: 1,
+                x_mm: 0.0,
+                y_mm: 0.0,
+            },
+            Site {
+                number: 2,
+                x_mm: 1.0,
+                y_mm: 0.0,
+            },
+        ];
+        let events = vec![
+            measured(1, 1),
+            fitted(1, 1, 100.0, 0.99),
+            measured(1, 2),
+            fitted(1, 2, 150.0, 0.5), // invalid: the valid first attempt still counts
+            measured(2, 1),
+            fitted(2, 1, 200.0, 0.99),
+            fitted(2, 1, 201.0, 0.99), // a refit of the same attempt
+            measured(2, 2),            // killed before its fit
+        ];
+        let s = site_states(&plan, &events);
+        let t = |i: usize| s[i].best().unwrap().fit.as_ref().unwrap().layers[0].thickness_nm;
+        assert_eq!(t(0), 100.0);
+        assert_eq!(t(1), 201.0);
+        assert_eq!(
+            s[1].unfitted().map(|a| a.attempt).collect::<Vec<_>>(),
+            vec![2]
+        );
+        assert_eq!(s[1].next_attempt(), 3);
+        assert_eq!(s[0].attempts[1].flag, "poor-fit");
+    }
+
+    #[test]
+    fn events_round_trip_as_json_lines() {
+        let e = fitted(3, 1, 99.5, 0.97);
+        let line = serde_json::to_string(&e).unwrap();
+        assert!(line.starts_with("{\"event\":\"site-fitted\""), "{line}");
+        assert_eq!(serde_json::from_str::<Event>(&line).unwrap(), e);
+    }
+}

@@ -1,0 +1,317 @@
+//! `isopach compare` and `isopach trend` on run folders built in a temp dir from analytic
+//! thickness fields; figures checked against values computed independently here.
+
+use isopach::map::sites_table::{self, SiteRow};
+use isopach::recipe::{self, pattern};
+use isopach::run::folder::{RunMeta, RunToml};
+use serde_json::Value;
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+
+fn isopach(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_isopach"))
+        .args(args)
+        .output()
+        .expect("run isopach")
+}
+
+fn json(o: &Output) -> Value {
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    serde_json::from_slice(&o.stdout).expect("JSON output")
+}
+
+/// A run folder whose sites follow `field(x, y)`; `recipe_file` names a shipped recipe.
+fn make_run(
+    dir: &Path,
+    id: &str,
+    recipe_file: &str,
+    started: &str,
+    field: impl Fn(f64, f64) -> f64,
+) -> PathBuf {
+    let loaded = recipe::load(
+        &Path::new(env!("CARGO_MANIFEST_DIR"))
+            .join("recipes")
+            .join(recipe_file),
+    )
+    .unwrap();
+    let sites = pattern::sites(&loaded.recipe.pattern, &loaded.wafer());
+    let rows: Vec<SiteRow> = sites
+        .iter()
+        .map(|s| SiteRow {
+            site: s.number,
+            x_mm: s.x_mm,
+            y_mm: s.y_mm,
+            thickness_nm: vec![field(s.x_mm, s.y_mm)],
+            sigma_nm: vec![0.1],
+            gof: 0.999,
+            flag: "ok".into(),
+        })
+        .collect();
+    let folder = dir.join(id);
+    std::fs::create_dir_all(&folder).unwrap();
+    let meta = RunToml {
+        run: RunMeta {
+            id: id.into(),
+            wafer: id.into(),
+            lot: "L1".into(),
+            operator: String::new(),
+            started: started.into(),
+            tool_version: "test".into(),
+            recipe_path: recipe_file.into(),
+            seed: 0,
+        },
+        recipe: loaded.recipe,
+        machine: None,
+    };
+    std::fs::write(folder.join("run.toml"), toml::to_string(&meta).unwrap()).unwrap();
+    std::fs::write(folder.join("sites.csv"), sites_table::write(&rows)).unwrap();
+    folder
+}
+
+fn mean(v: &[f64]) -> f64 {
+    v.iter().sum::<f64>() / v.len() as f64
+}
+
+fn sample_std(v: &[f64]) -> f64 {
+    let m = mean(v);
+    (v.iter().map(|x| (x - m).powi(2)).sum::<f64>() / (v.len() - 1) as f64).sqrt()
+}
+
+#[test]
+fn compare_gives_per_wafer_and_wafer_to_wafer_figures() {
+    let dir = tempfile::tempdir().unwrap();
+    let a = make_run(
+        dir.path(),
+        "W01",
+        "oxide-150-49.toml",
+        "2026-12-01T08:00:00+00:00",
+        |x, _| 1000.0 + 0.1 * x,
+    );
+    let b = make_run(
+        dir.path(),
+        "W02",
+        "oxide-150-49.toml",
+        "2026-12-01T09:00:00+00:00",
+        |_, y| 1010.0 + 0.05 * y,
+    );
+    let c = make_run(
+        dir.path(),
+        "W03",
+        "oxide-150-49.toml",
+        "2026-12-01T10:00:00+00:00",
+        |x, y| 995.0 + 0.01 * x * y,
+    );
+    let out = json(&isopach(&[
+        "compare",
+        a.to_str().unwrap(),
+        b.to_str().unwrap(),
+        c.to_str().unwrap(),
+        "--json",
+    ]));
+    let wafers = out["wafers"].as_array().unwrap();
+    assert_eq!(wafers.len(), 3);
+    assert_eq!(wafers[1]["wafer"], "W02");
+    // Independent figures from the same analytic fields at the plan's sites.
+    let loaded =
+        recipe::load(&Path::new(env!("CARGO_MANIFEST_DIR")).join("recipes/oxide-150-49.toml"))
+            .unwrap();
+    let sites = loaded.sites();
+    let va: Vec<f64> = sites.iter().map(|s| 1000.0 + 0.1 * s.x_mm).collect();
+    let vb: Vec<f64> = sites.iter().map(|s| 1010.0 + 0.05 * s.y_mm).collect();
+    let vc: Vec<f64> = sites
+        .iter()
+        .map(|s| 995.0 + 0.01 * s.x_mm * s.y_mm)
+        .collect();
+    let means = [mean(&va), mean(&vb), mean(&vc)];
+    for (w, v) in wafers.iter().zip([&va, &vb, &vc]) {
+        assert!((w["mean_nm"].as_f64().unwrap() - mean(v)).abs() < 1e-3); // sites.csv keeps 3 decimals
+        assert!((w["std_nm"].as_f64().unwrap() - sample_std(v)).abs() < 1e-3); // sites.csv keeps 3 decimals
+        assert_eq!(w["sites_valid"], 49);
+    }
+    let w2w = &out["wafer_to_wafer"];
+    assert!((w2w["mean_nm"].as_f64().unwrap() - mean(&means)).abs() < 1e-3); // sites.csv keeps 3 decimals
+    assert!(
+        (w2w["nu_pct"].as_f64().unwrap() - 100.0 * sample_std(&means) / mean(&means)).abs() < 1e-3
+    ); // sites.csv keeps 3 decimals
+}
+
+#[test]
+fn delta_with_itself_is_zero_and_rate_is_delta_over_time() {
+    let dir = tempfile::tempdir().unwrap();
+    let a = make_run(
+        dir.path(),
+        "PRE",
+        "oxide-150-49.toml",
+        "2026-12-01T08:00:00+00:00",
+        |x, y| 1000.0 + 0.1 * x - 0.02 * y,
+    );
+    let b = make_run(
+        dir.path(),
+        "POST",
+        "oxide-150-49.toml",
+        "2026-12-01T09:00:00+00:00",
+        |x, y| 700.0 + 0.05 * x - 0.02 * y,
+    );
+    let (a, b) = (a.to_str().unwrap(), b.to_str().unwrap());
+    let d = json(&isopach(&["compare", a, a, "--delta", "--json"]));
+    assert_eq!(d["delta"]["mean_nm"].as_f64().unwrap(), 0.0);
+    assert_eq!(d["delta"]["range_nm"].as_f64().unwrap(), 0.0);
+    assert_eq!(d["delta"]["basis"], "site-by-site");
+    // B − A = −300 − 0.05 x; over 12.5 min that is (−300 − 0.05 x)/12.5 nm/min per site.
+    let loaded =
+        recipe::load(&Path::new(env!("CARGO_MANIFEST_DIR")).join("recipes/oxide-150-49.toml"))
+            .unwrap();
+    let want: Vec<f64> = loaded
+        .sites()
+        .iter()
+        .map(|s| (-300.0 - 0.05 * s.x_mm) / 12.5)
+        .collect();
+    let dir_out = dir.path().join("rate.svg");
+    let r = json(&isopach(&[
+        "compare",
+        a,
+        b,
+        "--delta",
+        "--per-min",
+        "12.5",
+        "--json",
+        "--out",
+        dir_out.to_str().unwrap(),
+    ]));
+    assert!((r["delta"]["mean_nm"].as_f64().unwrap() - mean(&want)).abs() < 1e-3); // sites.csv keeps 3 decimals
+    assert!((r["delta"]["std_nm"].as_f64().unwrap() - sample_std(&want)).abs() < 1e-3); // sites.csv keeps 3 decimals
+    assert_eq!(r["delta"]["unit"], "nm/min");
+    let svg = std::fs::read_to_string(&dir_out).unwrap();
+    roxmltree::Document::parse(&svg).expect("rate map SVG parses");
+    assert!(svg.contains("nm/min"));
+}
+
+#[test]
+fn delta_across_unmatched_plans_goes_through_interpolation() {
+    let dir = tempfile::tempdir().unwrap();
+    // A: 49-site polar plan on a 150 mm wafer; B: the 5 mm grid of a 100 mm recipe sits inside
+    // A's usable disc. Both carry the same smooth dome, B shifted by +20 nm.
+    let dome = |x: f64, y: f64| 1000.0 - 0.01 * (x * x + y * y) + 0.2 * x;
+    let a = make_run(
+        dir.path(),
+        "A",
+        "oxide-150-49.toml",
+        "2026-12-01T08:00:00+00:00",
+        dome,
+    );
+    let b = make_run(
+        dir.path(),
+        "B",
+        "resist-100-grid.toml",
+        "2026-12-01T09:00:00+00:00",
+        move |x, y| dome(x, y) + 20.0,
+    );
+    let d = json(&isopach(&[
+        "compare",
+        a.to_str().unwrap(),
+        b.to_str().unwrap(),
+        "--delta",
+        "--json",
+    ]));
+    assert_eq!(d["delta"]["basis"], "interpolated");
+    let m = d["delta"]["mean_nm"].as_f64().unwrap();
+    let s = d["delta"]["std_nm"].as_f64().unwrap();
+    // The quadratic dome is reproduced by the interpolant to well under 1 nm between sites
+    // spaced 23 mm apart (curvature 0.02 nm/mm² → error bound ≈ 0.02·23²/8 ≈ 1.3 nm worst case).
+    assert!((m - 20.0).abs() < 0.5, "mean delta {m}");
+    assert!(s < 0.6, "σ of delta {s}");
+}
+
+#[test]
+fn trend_rebuilds_the_history_and_flags_an_outlier() {
+    let dir = tempfile::tempdir().unwrap();
+    let runs = dir.path().join("runs");
+    let offsets = [0.0, 1.0, -0.5, 0.8, -1.0, 0.3, 0.0, -0.6, 0.4, 25.0];
+    for (i, o) in offsets.iter().enumerate() {
+        make_run(
+            &runs,
+            &format!("W{i:02}"),
+            "oxide-150-49.toml",
+            &format!("2026-12-01T{:02}:00:00+00:00", i + 1),
+            move |x, _| 1000.0 + o + 0.01 * x,
+        );
+    }
+    let out = json(&isopach(&[
+        "trend",
+        "--runs",
+        runs.to_str().unwrap(),
+        "--rebuild",
+        "--recipe",
+        "oxide-150-49",
+        "--json",
+    ]));
+    let rows = out["runs"].as_array().unwrap();
+    assert_eq!(rows.len(), 10);
+    assert_eq!(rows[0]["wafer"], "W00");
+    // Independent I-MR limits over the ten means (mean of the field = 1000 + offset + 0.01·x̄).
+    let means: Vec<f64> = rows
+        .iter()
+        .map(|r| r["mean_nm"].as_f64().unwrap())
+        .collect();
+    let center = mean(&means);
+    let mr: Vec<f64> = means.windows(2).map(|w| (w[1] - w[0]).abs()).collect();
+    let ucl = center + 3.0 * mean(&mr) / 1.128;
+    assert!((out["mean_limits"]["ucl"].as_f64().unwrap() - ucl).abs() < 1e-3); // sites.csv keeps 3 decimals
+    assert!(means[9] > ucl, "the last wafer is beyond the limit");
+    assert!(rows[9]["mean_signals"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .any(|s| s == "above-ucl"));
+    assert!(rows[..9]
+        .iter()
+        .all(|r| r["mean_signals"].as_array().unwrap().is_empty()));
+    let chart = dir.path().join("trend.png");
+    let o = isopach(&[
+        "trend",
+        "--runs",
+        runs.to_str().unwrap(),
+        "--out",
+        chart.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert_eq!(&std::fs::read(&chart).unwrap()[..8], b"\x89PNG\r\n\x1a\n");
+}
+
+#[test]
+fn history_survives_a_kill_mid_rebuild() {
+    let dir = tempfile::tempdir().unwrap();
+    let runs = dir.path().join("runs");
+    for i in 0..60 {
+        make_run(
+            &runs,
+            &format!("K{i:03}"),
+            "resist-100-grid.toml",
+            &format!("2026-12-01T00:{:02}:00+00:00", i % 60),
+            move |x, y| 1400.0 + i as f64 + 0.01 * (x + y),
+        );
+    }
+    let r = runs.to_str().unwrap();
+    assert!(isopach(&["trend", "--runs", r, "--rebuild", "--json"])
+        .status
+        .success());
+    let before = json(&isopach(&["trend", "--runs", r, "--json"]));
+    assert_eq!(before["runs"].as_array().unwrap().len(), 60);
+    for delay_ms in [5u64, 20, 40, 80] {
+        let mut child = Command::new(env!("CARGO_BIN_EXE_isopach"))
+            .args(["trend", "--runs", r, "--rebuild", "--json"])
+            .stdout(std::process::Stdio::null())
+            .stderr(std::process::Stdio::null())
+            .spawn()
+            .unwrap();
+        std::thread::sleep(std::time::Duration::from_millis(delay_ms));
+        let _ = child.kill();
+        let _ = child.wait();
+        // Whatever the moment of the kill, the history holds every run, whole.
+        let after = json(&isopach(&["trend", "--runs", r, "--json"]));
+        assert_eq!(
+            after["runs"], before["runs"],
+            "after a kill at {delay_ms} ms"
+        );
+    }
+}
