@@ -172,8 +172,8 @@ fn counts(setup: &Setup) -> Vec<usize> {
 fn grid_search(setup: &Setup, pixels: &[usize]) -> Grid {
     let mut setup_steps = setup.clone();
     let counts = counts(setup);
-    for a in 0..counts.len() {
-        setup_steps.steps[a] = (setup.upper[a] - setup.lower[a]) / (counts[a] - 1) as f64;
+    for (a, c) in counts.iter().enumerate() {
+        setup_steps.steps[a] = (setup.upper[a] - setup.lower[a]) / (c - 1) as f64;
     }
     let setup = &setup_steps;
     // Sweep the longest axis with the multiplication trick; loop over the others.
