@@ -42,7 +42,11 @@ pub struct Fitter {
     warnings: Vec<String>,
     /// The per-pixel model of the last wavelength grid seen (a map uses one grid).
     cache: RwLock<Option<Arc<Prepared>>>,
+    /// The last reference reflectance computed: (material, wavelengths, R_ref).
+    reference_cache: RwLock<Option<ReferenceCache>>,
 }
+
+type ReferenceCache = (String, Vec<f64>, Arc<Vec<f64>>);
 
 /// Fewest pixels the window must hold.
 const MIN_PIXELS: usize = 16;
@@ -139,6 +143,7 @@ impl Fitter {
             fit_scale: false,
             warnings,
             cache: RwLock::new(None),
+            reference_cache: RwLock::new(None),
         })
     }
 
@@ -193,7 +198,7 @@ impl Fitter {
         raw: &RawSpectrum,
         reference_material: &str,
     ) -> Result<FitResult, FitError> {
-        let r_ref = self.reference_reflectance(reference_material, &raw.reference.wavelength_nm)?;
+        let r_ref = self.cached_reference(reference_material, &raw.reference.wavelength_nm)?;
         let (spectrum, quality) = normalise_raw(raw, &r_ref)?;
         Ok(self.fit_with_quality(&spectrum, &quality))
     }
@@ -311,6 +316,27 @@ impl Fitter {
     pub fn fourier_resolution_nm(&self, wavelengths_nm: &[f64]) -> f64 {
         let (n, c) = self.film_index(wavelengths_nm);
         fourier::resolution_nm(&fourier::fringe_coordinate(wavelengths_nm, &n, &c))
+    }
+
+    /// [`Fitter::reference_reflectance`], remembered for the last material and grid (every
+    /// site of a map shares them).
+    fn cached_reference(
+        &self,
+        material: &str,
+        wavelengths: &[f64],
+    ) -> Result<Arc<Vec<f64>>, FitError> {
+        if let Ok(guard) = self.reference_cache.read() {
+            if let Some((m, w, r)) = guard.as_ref() {
+                if m == material && w == wavelengths {
+                    return Ok(Arc::clone(r));
+                }
+            }
+        }
+        let r = Arc::new(self.reference_reflectance(material, wavelengths)?);
+        if let Ok(mut guard) = self.reference_cache.write() {
+            *guard = Some((material.to_string(), wavelengths.to_vec(), Arc::clone(&r)));
+        }
+        Ok(r)
     }
 
     fn failed_layers(&self) -> Vec<LayerResult> {
