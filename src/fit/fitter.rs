@@ -238,7 +238,10 @@ impl Fitter {
                 (all, vec![s], chi2)
             }
             _ => {
-                let fit = self.model_fit(&prep, &w);
+                let fit = self.model_fit(&prep, &w).ok_or_else(|| FitError::Method {
+                    method: "model",
+                    message: "the model gives no finite reflectance over the window: check the materials' formulas".into(),
+                })?;
                 if fit.ambiguous {
                     flags.push(quality::AMBIGUOUS.to_string());
                 }
@@ -390,7 +393,7 @@ impl Fitter {
         l_min * l_min / (2.0 * self.max_optical_thickness(l_min)).max(1e-9) / spacing
     }
 
-    fn model_fit(&self, prep: &Prepared, w: &Spectrum) -> model::ModelFit {
+    fn model_fit(&self, prep: &Prepared, w: &Spectrum) -> Option<model::ModelFit> {
         let l_min = w.wavelength_nm[0];
         let stride = ((self.pixels_per_fringe(w) / SEARCH_PIXELS_PER_FRINGE).floor() as usize)
             .clamp(1, (w.len() / 48).max(1));

@@ -115,7 +115,8 @@ pub fn estimate(x: &[f64], r: &[f64], min_nm: f64, max_nm: f64) -> Result<Estima
     } else {
         0.0
     };
-    let thickness_nm = (kp as f64 + offset) * bin_nm;
+    // The sub-bin step may cross a bound of the range: hold it there (flagged at-bound).
+    let thickness_nm = ((kp as f64 + offset) * bin_nm).clamp(lo, max_nm);
     // σ: CRLB for the frequency of a sinusoid in white noise, σ_f = √12 σ_n/(2π A √N Δx),
     // with A = 2|X|/Σw.
     let sigma_n = noise_sigma(r);
