@@ -135,7 +135,11 @@ fn counts_files_are_normalised_against_the_reference_material() {
 #[test]
 fn a_broken_nk_table_names_its_line_and_exits_2() {
     let dir = tempfile::tempdir().unwrap();
-    std::fs::write(dir.path().join("film.csv"), "wavelength_nm,n,k\n400,1.7,0\n500,one,0\n").unwrap();
+    std::fs::write(
+        dir.path().join("film.csv"),
+        "wavelength_nm,n,k\n400,1.7,0\n500,one,0\n",
+    )
+    .unwrap();
     let recipe = dir.path().join("r.toml");
     std::fs::write(
         &recipe,
@@ -149,5 +153,8 @@ fn a_broken_nk_table_names_its_line_and_exits_2() {
         recipe.to_str().unwrap(),
     ]);
     assert_eq!(code, 2);
-    assert!(err.contains("film.csv:3: \"one\" in column 2 is not a number"), "{err}");
+    assert!(
+        err.contains("film.csv:3: \"one\" in column 2 is not a number"),
+        "{err}"
+    );
 }

@@ -42,6 +42,8 @@ pub struct Fitter {
     warnings: Vec<String>,
     /// The per-pixel model of the last wavelength grid seen (a map uses one grid).
     cache: RwLock<Option<Arc<Prepared>>>,
+    /// FFT plans of the Fourier and extrema methods.
+    fft: fourier::Plans,
     /// The last reference reflectance computed: (material, wavelengths, R_ref).
     reference_cache: RwLock<Option<ReferenceCache>>,
 }
@@ -144,6 +146,7 @@ impl Fitter {
             warnings,
             cache: RwLock::new(None),
             reference_cache: RwLock::new(None),
+            fft: fourier::Plans::default(),
         })
     }
 
@@ -447,8 +450,8 @@ impl Fitter {
         };
         match method {
             FitMethod::Fourier => {
-                let e =
-                    fourier::estimate(&x, &w.reflectance, l.min, l.max).map_err(fail("fourier"))?;
+                let e = fourier::estimate(&self.fft, &x, &w.reflectance, l.min, l.max)
+                    .map_err(fail("fourier"))?;
                 let mut flags = Vec::new();
                 if e.thickness_nm < 1.2 * e.resolution_nm {
                     flags.push(quality::BELOW_RESOLUTION.to_string());
@@ -459,7 +462,7 @@ impl Fitter {
                 // Smooth over about an eighth of the shortest fringe period: of the film the
                 // Fourier transform sees, or else of the thickest film searched.
                 let ppf_max = self.pixels_per_fringe(w);
-                let ppf = fourier::estimate(&x, &w.reflectance, l.min, l.max)
+                let ppf = fourier::estimate(&self.fft, &x, &w.reflectance, l.min, l.max)
                     .map(|e| {
                         ppf_max * self.max_optical_thickness(w.wavelength_nm[0])
                             / (n[0] * e.thickness_nm)
