@@ -83,3 +83,22 @@ fn auto_uses_fourier_when_fringes_are_undersampled() {
     let (s, _) = fixture("sio2_si_005555p5nm.csv");
     assert_eq!(f.fit(&s).method, "model");
 }
+
+#[test]
+fn auto_searches_around_the_fourier_estimate_when_only_the_range_is_undersampled() {
+    // 2 nm pixels: the 15 µm end of the range would have ~2 pixels per fringe, the 9 µm film
+    // itself has ~3.3. auto narrows the model search to ± one Fourier resolution around the
+    // Fourier estimate and fits with the model.
+    let f = oxide("auto", 1.0, 15000.0);
+    let w: Vec<f64> = (0..281).map(|i| 420.0 + 2.0 * i as f64).collect();
+    let s = Spectrum {
+        reflectance: reflectance(&f.stack(&[9000.0]), &w, 0.0, 0.0),
+        wavelength_nm: w,
+    };
+    let out = f.fit(&s);
+    assert_eq!(out.method, "model");
+    assert!(
+        (out.layers[0].thickness_nm - 9000.0).abs() < 0.01,
+        "{out:?}"
+    );
+}

@@ -50,6 +50,9 @@ pub struct Fitter {
 
 type ReferenceCache = (String, Vec<f64>, Arc<Vec<f64>>);
 
+/// What a method returns: thickness of every layer, σ of the fitted ones, χ², flags.
+type Outcome = (Vec<f64>, Vec<f64>, f64, Vec<String>);
+
 /// Fewest pixels the window must hold.
 const MIN_PIXELS: usize = 16;
 /// Grid points per fringe-order basin: the search step is λ_min/(STEPS_PER_WAVE · n).
@@ -220,37 +223,35 @@ impl Fitter {
             e => e,
         })?;
         let prep = self.prepared(&w.wavelength_nm);
-        let method = match self.method {
+        let recipe_bounds = self.bounds();
+        let (mut method, bounds) = match self.method {
             FitMethod::Auto
                 if self.fitted.len() == 1
-                    && self.pixels_per_fringe(&w) < MODEL_MIN_PIXELS_PER_FRINGE =>
+                    && self.pixels_per_fringe(&w, &recipe_bounds) < MODEL_MIN_PIXELS_PER_FRINGE =>
             {
-                FitMethod::Fourier
-            }
-            FitMethod::Auto => FitMethod::Model,
-            m => m,
-        };
-        let mut flags = Vec::new();
-        let (thickness, sigma, chi2) = match method {
-            FitMethod::Fourier | FitMethod::Extrema => {
-                let (d, s, extra) = self.single_layer_method(method, &w)?;
-                flags.extend(extra);
-                let mut all = self.nominal();
-                all[self.fitted[0]] = d;
-                let chi2 = chi2(&prep, &w.reflectance, &all);
-                (all, vec![s], chi2)
-            }
-            _ => {
-                let fit = self.model_fit(&prep, &w).ok_or_else(|| FitError::Method {
-                    method: "model",
-                    message: "the model gives no finite reflectance over the window: check the materials' formulas".into(),
-                })?;
-                if fit.ambiguous {
-                    flags.push(quality::AMBIGUOUS.to_string());
+                // Too few pixels per fringe to search the whole range with the model, but
+                // the film itself may be well sampled: search around the Fourier estimate.
+                match self.fourier_guided_range(&w) {
+                    Some(b) => (FitMethod::Model, vec![b]),
+                    None => (FitMethod::Fourier, recipe_bounds.clone()),
                 }
-                (fit.thickness, fit.sigma, fit.chi2)
             }
+            FitMethod::Auto => (FitMethod::Model, recipe_bounds.clone()),
+            m => (m, recipe_bounds.clone()),
         };
+        let mut outcome = self.run_method(method, &prep, &w, &bounds)?;
+        if method == FitMethod::Model && bounds != recipe_bounds {
+            // Ending on an edge of the narrowed range means the Fourier guess misled the
+            // search: the Fourier answer itself is the safer one.
+            let d = outcome.0[self.fitted[0]];
+            let (lo, hi) = (bounds[0], recipe_bounds[0]);
+            let edge = |x: f64, r: f64| (d - x).abs() <= 1e-3 && (x - r).abs() > 1e-3;
+            if edge(lo.0, hi.0) || edge(lo.1, hi.1) {
+                method = FitMethod::Fourier;
+                outcome = self.run_method(method, &prep, &w, &recipe_bounds)?;
+            }
+        }
+        let (thickness, sigma, chi2, mut flags) = outcome;
         let g = gof(chi2, &w.reflectance);
         let at_bound = self.fitted.iter().any(|&i| {
             let l = &self.layers[i];
@@ -380,25 +381,93 @@ impl Fitter {
         p
     }
 
-    /// Optical thickness Σ n·d of the thickest stack searched, at λ_min.
-    fn max_optical_thickness(&self, l_min: f64) -> f64 {
+    /// The recipe's search range of each fitted layer.
+    fn bounds(&self) -> Vec<(f64, f64)> {
+        self.fitted
+            .iter()
+            .map(|i| (self.layers[*i].min, self.layers[*i].max))
+            .collect()
+    }
+
+    /// Optical thickness Σ n·d of the thickest stack searched within `bounds`, at λ_min.
+    fn max_optical_thickness(&self, l_min: f64, bounds: &[(f64, f64)]) -> f64 {
+        let mut fitted = bounds.iter();
         self.layers
             .iter()
-            .map(|l| l.material.index(l_min).re.max(1.0) * if l.fit { l.max } else { l.nominal })
+            .map(|l| {
+                let d = if l.fit {
+                    fitted.next().map_or(l.max, |b| b.1)
+                } else {
+                    l.nominal
+                };
+                l.material.index(l_min).re.max(1.0) * d
+            })
             .sum()
     }
 
-    /// Pixels per fringe at the shortest wavelength for the thickest stack searched.
-    fn pixels_per_fringe(&self, w: &Spectrum) -> f64 {
+    /// Pixels per fringe at the shortest wavelength for the thickest stack within `bounds`.
+    fn pixels_per_fringe(&self, w: &Spectrum, bounds: &[(f64, f64)]) -> f64 {
         let l_min = w.wavelength_nm[0];
         let l_max = w.wavelength_nm[w.len() - 1];
         let spacing = (l_max - l_min) / (w.len() - 1) as f64;
-        l_min * l_min / (2.0 * self.max_optical_thickness(l_min)).max(1e-9) / spacing
+        l_min * l_min / (2.0 * self.max_optical_thickness(l_min, bounds)).max(1e-9) / spacing
     }
 
-    fn model_fit(&self, prep: &Prepared, w: &Spectrum) -> Option<model::ModelFit> {
+    /// A search range of ± one Fourier resolution (several fringe orders; the estimate is
+    /// typically within a few tenths of a nm) around the Fourier estimate, if the film there
+    /// is sampled well enough for the model.
+    fn fourier_guided_range(&self, w: &Spectrum) -> Option<(f64, f64)> {
+        let l = &self.layers[self.fitted[0]];
+        let (n, c) = self.film_index(&w.wavelength_nm);
+        let x = fourier::fringe_coordinate(&w.wavelength_nm, &n, &c);
+        let e = fourier::estimate(&self.fft, &x, &w.reflectance, l.min, l.max).ok()?;
+        let range = (
+            (e.thickness_nm - e.resolution_nm).max(l.min),
+            (e.thickness_nm + e.resolution_nm).min(l.max),
+        );
+        (self.pixels_per_fringe(w, &[range]) >= MODEL_MIN_PIXELS_PER_FRINGE).then_some(range)
+    }
+
+    /// Thicknesses of every layer, σ of the fitted ones, χ² and method flags.
+    fn run_method(
+        &self,
+        method: FitMethod,
+        prep: &Prepared,
+        w: &Spectrum,
+        bounds: &[(f64, f64)],
+    ) -> Result<Outcome, FitError> {
+        match method {
+            FitMethod::Fourier | FitMethod::Extrema => {
+                let (d, s, flags) = self.single_layer_method(method, w)?;
+                let mut all = self.nominal();
+                all[self.fitted[0]] = d;
+                let chi2 = chi2(prep, &w.reflectance, &all);
+                Ok((all, vec![s], chi2, flags))
+            }
+            _ => {
+                let fit = self.model_fit(prep, w, bounds).ok_or_else(|| FitError::Method {
+                    method: "model",
+                    message: "the model gives no finite reflectance over the window: check the materials' formulas".into(),
+                })?;
+                let flags = if fit.ambiguous {
+                    vec![quality::AMBIGUOUS.to_string()]
+                } else {
+                    Vec::new()
+                };
+                Ok((fit.thickness, fit.sigma, fit.chi2, flags))
+            }
+        }
+    }
+
+    fn model_fit(
+        &self,
+        prep: &Prepared,
+        w: &Spectrum,
+        bounds: &[(f64, f64)],
+    ) -> Option<model::ModelFit> {
         let l_min = w.wavelength_nm[0];
-        let stride = ((self.pixels_per_fringe(w) / SEARCH_PIXELS_PER_FRINGE).floor() as usize)
+        let stride = ((self.pixels_per_fringe(w, bounds) / SEARCH_PIXELS_PER_FRINGE).floor()
+            as usize)
             .clamp(1, (w.len() / 48).max(1));
         let search: Vec<usize> = (0..w.len()).step_by(stride).collect();
         let setup = Setup {
@@ -406,8 +475,8 @@ impl Fitter {
             measured: &w.reflectance,
             base: self.nominal(),
             fitted: self.fitted.clone(),
-            lower: self.fitted.iter().map(|i| self.layers[*i].min).collect(),
-            upper: self.fitted.iter().map(|i| self.layers[*i].max).collect(),
+            lower: bounds.iter().map(|b| b.0).collect(),
+            upper: bounds.iter().map(|b| b.1).collect(),
             steps: self
                 .fitted
                 .iter()
@@ -461,10 +530,11 @@ impl Fitter {
             _ => {
                 // Smooth over about an eighth of the shortest fringe period: of the film the
                 // Fourier transform sees, or else of the thickest film searched.
-                let ppf_max = self.pixels_per_fringe(w);
+                let bounds = self.bounds();
+                let ppf_max = self.pixels_per_fringe(w, &bounds);
                 let ppf = fourier::estimate(&self.fft, &x, &w.reflectance, l.min, l.max)
                     .map(|e| {
-                        ppf_max * self.max_optical_thickness(w.wavelength_nm[0])
+                        ppf_max * self.max_optical_thickness(w.wavelength_nm[0], &bounds)
                             / (n[0] * e.thickness_nm)
                     })
                     .unwrap_or(ppf_max);
