@@ -27,7 +27,9 @@ fn loaded(film: &str) -> LoadedRecipe {
 
 /// A 2048-pixel spectrum across `[lo, hi]` of the stack at `d`, with 0.3 % Gaussian noise.
 fn spectrum(fitter: &Fitter, d: &[f64], lo: f64, hi: f64) -> Spectrum {
-    let w: Vec<f64> = (0..2048).map(|i| lo + (hi - lo) * i as f64 / 2047.0).collect();
+    let w: Vec<f64> = (0..2048)
+        .map(|i| lo + (hi - lo) * i as f64 / 2047.0)
+        .collect();
     let mut r = reflectance(&fitter.stack(d), &w, 0.0, 0.0);
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(7);
     let noise = Normal::new(0.0, 0.003).unwrap();
@@ -45,14 +47,19 @@ fn single(c: &mut Criterion, name: &str, method: &str, min: f64, max: f64, d: f6
     .unwrap();
     let s = spectrum(&fitter, &[d], 420.0, 980.0);
     let r = fitter.fit(&s);
-    assert!((r.layers[0].thickness_nm - d).abs() < 0.01 * d, "{name}: {r:?}");
+    assert!(
+        (r.layers[0].thickness_nm - d).abs() < 0.01 * d,
+        "{name}: {r:?}"
+    );
     measure(c, name, &fitter, &s);
 }
 
 /// Two figures per fit: wall-clock time, and the time the thread spent on a CPU, which is
 /// the one-core cost even when the machine is shared and the wall clock includes waiting.
 fn measure(c: &mut Criterion, name: &str, fitter: &Fitter, s: &Spectrum) {
-    c.bench_function(&format!("{name}/wall"), |b| b.iter(|| fitter.fit(black_box(s))));
+    c.bench_function(&format!("{name}/wall"), |b| {
+        b.iter(|| fitter.fit(black_box(s)))
+    });
     if cpu_ns().is_some() {
         c.bench_function(&format!("{name}/cpu"), |b| {
             b.iter_custom(|iters| {
@@ -79,7 +86,10 @@ fn cpu_ns() -> Option<u64> {
         fn clock_gettime(clock: i32, tp: *mut Timespec) -> i32;
     }
     const CLOCK_THREAD_CPUTIME_ID: i32 = 3;
-    let mut t = Timespec { tv_sec: 0, tv_nsec: 0 };
+    let mut t = Timespec {
+        tv_sec: 0,
+        tv_nsec: 0,
+    };
     // SAFETY: `t` is a valid, writable timespec; the call only writes to it.
     let rc = unsafe { clock_gettime(CLOCK_THREAD_CPUTIME_ID, &mut t) };
     (rc == 0).then(|| t.tv_sec as u64 * 1_000_000_000 + t.tv_nsec as u64)
@@ -91,8 +101,22 @@ fn cpu_ns() -> Option<u64> {
 }
 
 fn benches(c: &mut Criterion) {
-    single(c, "model_sio2_2048px_100-3000nm", "model", 100.0, 3000.0, 1234.0);
-    single(c, "model_sio2_2048px_1-15000nm", "model", 1.0, 15000.0, 7777.0);
+    single(
+        c,
+        "model_sio2_2048px_100-3000nm",
+        "model",
+        100.0,
+        3000.0,
+        1234.0,
+    );
+    single(
+        c,
+        "model_sio2_2048px_1-15000nm",
+        "model",
+        1.0,
+        15000.0,
+        7777.0,
+    );
     single(c, "fourier_sio2_2048px", "fourier", 100.0, 15000.0, 7777.0);
     single(c, "extrema_sio2_2048px", "extrema", 100.0, 15000.0, 7777.0);
     let fitter = Fitter::from_recipe(&loaded(
@@ -102,7 +126,8 @@ fn benches(c: &mut Criterion) {
     let s = spectrum(&fitter, &[163.0, 512.0], 400.0, 1000.0);
     let r = fitter.fit(&s);
     assert!(
-        (r.layers[0].thickness_nm - 163.0).abs() < 2.0 && (r.layers[1].thickness_nm - 512.0).abs() < 2.0,
+        (r.layers[0].thickness_nm - 163.0).abs() < 2.0
+            && (r.layers[1].thickness_nm - 512.0).abs() < 2.0,
         "{r:?}"
     );
     measure(c, "model_si3n4_sio2_2048px", &fitter, &s);

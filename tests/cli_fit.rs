@@ -61,16 +61,31 @@ fn plot_is_written() {
 fn a_broken_spectrum_names_its_line_and_exits_2() {
     let dir = tempfile::tempdir().unwrap();
     let bad = dir.path().join("bad.csv");
-    std::fs::write(&bad, "wavelength_nm,reflectance\n500,0.3\n501,0.31\n501,0.32\n").unwrap();
-    let (code, _, err) = isopach(&["fit", bad.to_str().unwrap(), "--recipe", "recipes/oxide-150-49.toml"]);
+    std::fs::write(
+        &bad,
+        "wavelength_nm,reflectance\n500,0.3\n501,0.31\n501,0.32\n",
+    )
+    .unwrap();
+    let (code, _, err) = isopach(&[
+        "fit",
+        bad.to_str().unwrap(),
+        "--recipe",
+        "recipes/oxide-150-49.toml",
+    ]);
     assert_eq!(code, 2);
-    assert!(err.contains("bad.csv:4: duplicate wavelength 501 nm"), "{err}");
+    assert!(
+        err.contains("bad.csv:4: duplicate wavelength 501 nm"),
+        "{err}"
+    );
 }
 
 #[test]
 fn counts_files_are_normalised_against_the_reference_material() {
     // Counts made from a fixture: reference = bare-Si level, sample = R/R_Si of it.
-    let text = std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("fixtures/spectra/sio2_si_001000p0nm.csv")).unwrap();
+    let text = std::fs::read_to_string(
+        Path::new(env!("CARGO_MANIFEST_DIR")).join("fixtures/spectra/sio2_si_001000p0nm.csv"),
+    )
+    .unwrap();
     let mut csv = String::from("wavelength_nm,sample,dark,reference\n");
     for line in text.lines().filter(|l| !l.starts_with('#')).skip(1) {
         let (w, r) = line.split_once(',').unwrap();
@@ -78,21 +93,41 @@ fn counts_files_are_normalised_against_the_reference_material() {
         // Fresnel reflectance of bare Si is about 0.33–0.5 here; use the library's own value.
         let r_si = isopach::optics::reflectance(
             &isopach::optics::Stack::bare(
-                isopach::optics::MaterialLibrary::builtin().get("air").unwrap().clone(),
-                isopach::optics::MaterialLibrary::builtin().get("si").unwrap().clone(),
+                isopach::optics::MaterialLibrary::builtin()
+                    .get("air")
+                    .unwrap()
+                    .clone(),
+                isopach::optics::MaterialLibrary::builtin()
+                    .get("si")
+                    .unwrap()
+                    .clone(),
             ),
             &[w],
             0.0,
             0.0,
         )[0];
         let reference = 30000.0 + 10.0 * (w / 100.0).sin();
-        csv.push_str(&format!("{w},{},{},{}\n", 100.0 + (reference - 100.0) * r / r_si, 100.0, reference));
+        csv.push_str(&format!(
+            "{w},{},{},{}\n",
+            100.0 + (reference - 100.0) * r / r_si,
+            100.0,
+            reference
+        ));
     }
     let dir = tempfile::tempdir().unwrap();
     let path = dir.path().join("raw.csv");
     std::fs::write(&path, csv).unwrap();
-    let (code, out, err) = isopach(&["fit", path.to_str().unwrap(), "--recipe", "recipes/oxide-150-49.toml", "--json"]);
+    let (code, out, err) = isopach(&[
+        "fit",
+        path.to_str().unwrap(),
+        "--recipe",
+        "recipes/oxide-150-49.toml",
+        "--json",
+    ]);
     assert_eq!(code, 0, "{err}");
     let v: serde_json::Value = serde_json::from_str(out.trim()).unwrap();
-    assert!((v["layers"][0]["thickness_nm"].as_f64().unwrap() - 1000.0).abs() < 0.5, "{out}");
+    assert!(
+        (v["layers"][0]["thickness_nm"].as_f64().unwrap() - 1000.0).abs() < 0.5,
+        "{out}"
+    );
 }

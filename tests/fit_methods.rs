@@ -29,7 +29,10 @@ fn fourier_on_reference_spectra() {
             let r = f.fit(&s);
             let (got, want) = (r.layers[0].thickness_nm, truth["sio2"]);
             assert_eq!(r.method, "fourier");
-            assert!((got - want).abs() <= (1.0f64).max(0.001 * want), "{tag}{noisy}: {got} vs {want}");
+            assert!(
+                (got - want).abs() <= (1.0f64).max(0.001 * want),
+                "{tag}{noisy}: {got} vs {want}"
+            );
         }
     }
     // 600 nm is near the resolution of this window (2/Δx ≈ 500 nm): flagged.
@@ -47,7 +50,10 @@ fn extrema_on_reference_spectra() {
             let r = f.fit(&s);
             let (got, want) = (r.layers[0].thickness_nm, truth["sio2"]);
             assert_eq!(r.method, "extrema");
-            assert!((got - want).abs() <= (2.0f64).max(0.001 * want), "{tag}{noisy}: {got} vs {want}");
+            assert!(
+                (got - want).abs() <= (2.0f64).max(0.001 * want),
+                "{tag}{noisy}: {got} vs {want}"
+            );
         }
     }
     // A 37 nm film has no fringe in this window: no thickness, flagged, never a guess.
@@ -69,7 +75,10 @@ fn auto_uses_fourier_when_fringes_are_undersampled() {
     };
     let out = f.fit(&s);
     assert_eq!(out.method, "fourier");
-    assert!((out.layers[0].thickness_nm - 40000.0).abs() < 0.005 * 40000.0, "{out:?}");
+    assert!(
+        (out.layers[0].thickness_nm - 40000.0).abs() < 0.005 * 40000.0,
+        "{out:?}"
+    );
     // with a well-sampled spectrum, auto uses the model
     let (s, _) = fixture("sio2_si_005555p5nm.csv");
     assert_eq!(f.fit(&s).method, "model");

@@ -29,7 +29,10 @@ settle_ms = 50
 "#;
 
 fn isopach(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_isopach")).args(args).output().expect("run isopach")
+    Command::new(env!("CARGO_BIN_EXE_isopach"))
+        .args(args)
+        .output()
+        .expect("run isopach")
 }
 
 /// A temp dir with the recipe and a simulated machine file (extra TOML appended).
@@ -38,19 +41,26 @@ fn bench_dir(extra_machine: &str) -> (tempfile::TempDir, PathBuf, PathBuf) {
     let recipe = dir.path().join("rel.toml");
     std::fs::write(&recipe, RECIPE).unwrap();
     let machine = dir.path().join("sim.toml");
-    let text = isopach::bench::machine::BUILTIN_SIMULATED.replace("time_scale = 25", "time_scale = 50");
+    let text =
+        isopach::bench::machine::BUILTIN_SIMULATED.replace("time_scale = 25", "time_scale = 50");
     std::fs::write(&machine, format!("{text}\n{extra_machine}")).unwrap();
     (dir, recipe, machine)
 }
 
 fn only_run(runs: &Path) -> PathBuf {
-    let mut v: Vec<PathBuf> = std::fs::read_dir(runs).unwrap().map(|e| e.unwrap().path()).filter(|p| p.is_dir()).collect();
+    let mut v: Vec<PathBuf> = std::fs::read_dir(runs)
+        .unwrap()
+        .map(|e| e.unwrap().path())
+        .filter(|p| p.is_dir())
+        .collect();
     assert_eq!(v.len(), 1, "{v:?}");
     v.pop().unwrap()
 }
 
 fn events(run: &Path) -> Vec<Event> {
-    journal::read(&RunFolder::new(run).journal()).expect("journal parses").events
+    journal::read(&RunFolder::new(run).journal())
+        .expect("journal parses")
+        .events
 }
 
 /// Checks sites.csv: every planned site exactly once.
@@ -66,7 +76,12 @@ fn sites_once(run: &Path, planned: usize) -> Vec<(usize, String)> {
         .collect();
     rows.sort();
     let numbers: Vec<usize> = rows.iter().map(|r| r.0).collect();
-    assert_eq!(numbers, (1..=planned).collect::<Vec<_>>(), "sites.csv of {}", run.display());
+    assert_eq!(
+        numbers,
+        (1..=planned).collect::<Vec<_>>(),
+        "sites.csv of {}",
+        run.display()
+    );
     rows
 }
 
@@ -74,27 +89,62 @@ fn sites_once(run: &Path, planned: usize) -> Vec<(usize, String)> {
 fn a_run_measures_every_site_and_fits_the_virtual_wafer() {
     let (dir, recipe, machine) = bench_dir("");
     let runs = dir.path().join("runs");
-    let o = isopach(&["run", recipe.to_str().unwrap(), "--machine", machine.to_str().unwrap(), "--wafer", "R1", "--runs", runs.to_str().unwrap()]);
+    let o = isopach(&[
+        "run",
+        recipe.to_str().unwrap(),
+        "--machine",
+        machine.to_str().unwrap(),
+        "--wafer",
+        "R1",
+        "--runs",
+        runs.to_str().unwrap(),
+    ]);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     let run = only_run(&runs);
     assert!(run.file_name().unwrap().to_str().unwrap().ends_with("-R1"));
     let rows = sites_once(&run, 9);
     assert!(rows.iter().all(|(_, f)| f == "ok"), "{rows:?}");
-    for f in ["run.toml", "journal.jsonl", "sites.csv", "summary.json", "map.svg", "map.png"] {
+    for f in [
+        "run.toml",
+        "journal.jsonl",
+        "sites.csv",
+        "summary.json",
+        "map.svg",
+        "map.png",
+    ] {
         assert!(run.join(f).is_file(), "{f} missing");
     }
     let ev = events(&run);
     assert!(matches!(ev.last(), Some(Event::RunFinished { .. })));
-    assert_eq!(ev.iter().filter(|e| matches!(e, Event::SiteMeasured { .. })).count(), 9);
+    assert_eq!(
+        ev.iter()
+            .filter(|e| matches!(e, Event::SiteMeasured { .. }))
+            .count(),
+        9
+    );
 }
 
 #[test]
 fn sigkill_at_random_points_then_resume_keeps_every_site_once() {
     let (dir, recipe, machine) = bench_dir("");
-    let (r, m) = (recipe.to_str().unwrap().to_string(), machine.to_str().unwrap().to_string());
+    let (r, m) = (
+        recipe.to_str().unwrap().to_string(),
+        machine.to_str().unwrap().to_string(),
+    );
     let full = dir.path().join("full");
     let t0 = Instant::now();
-    assert!(isopach(&["run", &r, "--machine", &m, "--wafer", "FULL", "--runs", full.to_str().unwrap()]).status.success());
+    assert!(isopach(&[
+        "run",
+        &r,
+        "--machine",
+        &m,
+        "--wafer",
+        "FULL",
+        "--runs",
+        full.to_str().unwrap()
+    ])
+    .status
+    .success());
     let dur = t0.elapsed().as_secs_f64();
     // Deterministic pseudo-random kill points over the whole run (xorshift).
     let mut x: u64 = 0x9e37_79b9_7f4a_7c15;
@@ -105,7 +155,16 @@ fn sigkill_at_random_points_then_resume_keeps_every_site_once() {
         let at = 0.05 + 0.9 * (x % 1000) as f64 / 1000.0;
         let runs = dir.path().join(format!("k{k}"));
         let mut child = Command::new(env!("CARGO_BIN_EXE_isopach"))
-            .args(["run", &r, "--machine", &m, "--wafer", "KILL", "--runs", runs.to_str().unwrap()])
+            .args([
+                "run",
+                &r,
+                "--machine",
+                &m,
+                "--wafer",
+                "KILL",
+                "--runs",
+                runs.to_str().unwrap(),
+            ])
             .stdout(Stdio::null())
             .stderr(Stdio::null())
             .spawn()
@@ -113,21 +172,33 @@ fn sigkill_at_random_points_then_resume_keeps_every_site_once() {
         std::thread::sleep(Duration::from_secs_f64(dur * at));
         let _ = child.kill();
         let _ = child.wait();
-        let Ok(mut entries) = std::fs::read_dir(&runs) else { continue };
+        let Ok(mut entries) = std::fs::read_dir(&runs) else {
+            continue;
+        };
         if entries.next().is_none() {
             continue; // killed before the run folder existed: nothing to resume
         }
         let run = only_run(&runs);
-        let before = if run.join("journal.jsonl").exists() { events(&run) } else { Vec::new() };
+        let before = if run.join("journal.jsonl").exists() {
+            events(&run)
+        } else {
+            Vec::new()
+        };
         let fitted_before: Vec<usize> = before
             .iter()
             .filter_map(|e| match e {
-                Event::SiteFitted { site, valid: true, .. } => Some(*site),
+                Event::SiteFitted {
+                    site, valid: true, ..
+                } => Some(*site),
                 _ => None,
             })
             .collect();
         let o = isopach(&["resume", run.to_str().unwrap()]);
-        assert!(o.status.success(), "resume after a kill at {at:.2}: {}", String::from_utf8_lossy(&o.stderr));
+        assert!(
+            o.status.success(),
+            "resume after a kill at {at:.2}: {}",
+            String::from_utf8_lossy(&o.stderr)
+        );
         let after = events(&run);
         // Append-only: everything journalled before the kill is still there, unchanged.
         assert_eq!(&after[..before.len()], &before[..]);
@@ -139,9 +210,15 @@ fn sigkill_at_random_points_then_resume_keeps_every_site_once() {
                 _ => None,
             })
             .collect();
-        assert!(remeasured.iter().all(|s| !fitted_before.contains(s)), "kill at {at:.2}: {remeasured:?} vs {fitted_before:?}");
+        assert!(
+            remeasured.iter().all(|s| !fitted_before.contains(s)),
+            "kill at {at:.2}: {remeasured:?} vs {fitted_before:?}"
+        );
         let rows = sites_once(&run, 9);
-        assert!(rows.iter().all(|(_, f)| f == "ok"), "kill at {at:.2}: {rows:?}");
+        assert!(
+            rows.iter().all(|(_, f)| f == "ok"),
+            "kill at {at:.2}: {rows:?}"
+        );
         // Derived files rebuild identically from the journal.
         let csv = std::fs::read(run.join("sites.csv")).unwrap();
         let summary = std::fs::read(run.join("summary.json")).unwrap();
@@ -162,12 +239,26 @@ fn every_injected_fault_stops_with_a_clear_message_and_a_resumable_run() {
         ("disconnect", ""),
     ];
     for (kind, words) in cases {
-        let (dir, recipe, machine) = bench_dir(&format!("[[simulation.faults]]\nkind = \"{kind}\"\nat_line = 14\n"));
+        let (dir, recipe, machine) = bench_dir(&format!(
+            "[[simulation.faults]]\nkind = \"{kind}\"\nat_line = 14\n"
+        ));
         let runs = dir.path().join("runs");
         let started = Instant::now();
-        let o = isopach(&["run", recipe.to_str().unwrap(), "--machine", machine.to_str().unwrap(), "--wafer", "F", "--runs", runs.to_str().unwrap()]);
+        let o = isopach(&[
+            "run",
+            recipe.to_str().unwrap(),
+            "--machine",
+            machine.to_str().unwrap(),
+            "--wafer",
+            "F",
+            "--runs",
+            runs.to_str().unwrap(),
+        ]);
         let err = String::from_utf8_lossy(&o.stderr).to_string();
-        assert!(started.elapsed() < Duration::from_secs(60), "{kind}: took too long");
+        assert!(
+            started.elapsed() < Duration::from_secs(60),
+            "{kind}: took too long"
+        );
         if o.status.code() == Some(0) {
             // Some faults can land on a line whose loss the protocol absorbs; the run is whole.
             sites_once(&only_run(&runs), 9);
@@ -175,20 +266,35 @@ fn every_injected_fault_stops_with_a_clear_message_and_a_resumable_run() {
         }
         assert_eq!(o.status.code(), Some(1), "{kind}: {err}");
         assert!(err.contains("run stopped:"), "{kind}: {err}");
-        assert!(err.to_lowercase().contains(&words.to_lowercase()), "{kind}: {err}");
+        assert!(
+            err.to_lowercase().contains(&words.to_lowercase()),
+            "{kind}: {err}"
+        );
         assert!(err.contains("isopach resume"), "{kind}: {err}");
         let run = only_run(&runs);
-        assert!(matches!(events(&run).last(), Some(Event::RunStopped { .. })), "{kind}");
+        assert!(
+            matches!(events(&run).last(), Some(Event::RunStopped { .. })),
+            "{kind}"
+        );
         sites_once(&run, 9);
         // The fault was injected once; with it gone, resume finishes the map.
         let text = std::fs::read_to_string(run.join("run.toml")).unwrap();
         let mut meta: isopach::run::folder::RunToml = toml::from_str(&text).unwrap();
-        if let Some(sim) = meta.machine.as_mut().and_then(|m| m.get_mut("simulation")).and_then(|s| s.as_table_mut()) {
+        if let Some(sim) = meta
+            .machine
+            .as_mut()
+            .and_then(|m| m.get_mut("simulation"))
+            .and_then(|s| s.as_table_mut())
+        {
             sim.remove("faults");
         }
         std::fs::write(run.join("run.toml"), toml::to_string(&meta).unwrap()).unwrap();
         let o = isopach(&["resume", run.to_str().unwrap()]);
-        assert!(o.status.success(), "{kind}: resume: {}", String::from_utf8_lossy(&o.stderr));
+        assert!(
+            o.status.success(),
+            "{kind}: resume: {}",
+            String::from_utf8_lossy(&o.stderr)
+        );
         assert!(sites_once(&run, 9).iter().all(|(_, f)| f == "ok"));
     }
 }
@@ -197,7 +303,18 @@ fn every_injected_fault_stops_with_a_clear_message_and_a_resumable_run() {
 fn remeasure_changes_that_site_only_and_refit_moves_nothing() {
     let (dir, recipe, machine) = bench_dir("");
     let runs = dir.path().join("runs");
-    assert!(isopach(&["run", recipe.to_str().unwrap(), "--machine", machine.to_str().unwrap(), "--wafer", "RM", "--runs", runs.to_str().unwrap()]).status.success());
+    assert!(isopach(&[
+        "run",
+        recipe.to_str().unwrap(),
+        "--machine",
+        machine.to_str().unwrap(),
+        "--wafer",
+        "RM",
+        "--runs",
+        runs.to_str().unwrap()
+    ])
+    .status
+    .success());
     let run = only_run(&runs);
     let before = std::fs::read_to_string(run.join("sites.csv")).unwrap();
     let o = isopach(&["remeasure", run.to_str().unwrap(), "--site", "4"]);
@@ -216,7 +333,9 @@ fn remeasure_changes_that_site_only_and_refit_moves_nothing() {
     let attempts: Vec<u32> = ev
         .iter()
         .filter_map(|e| match e {
-            Event::SiteMeasured { site: 4, attempt, .. } => Some(*attempt),
+            Event::SiteMeasured {
+                site: 4, attempt, ..
+            } => Some(*attempt),
             _ => None,
         })
         .collect();
@@ -225,18 +344,40 @@ fn remeasure_changes_that_site_only_and_refit_moves_nothing() {
     let narrow = dir.path().join("narrow.toml");
     std::fs::write(&narrow, RECIPE.replace("[420, 980]", "[550, 800]")).unwrap();
     let n_before = events(&run).len();
-    let o = isopach(&["refit", run.to_str().unwrap(), "--recipe", narrow.to_str().unwrap()]);
+    let o = isopach(&[
+        "refit",
+        run.to_str().unwrap(),
+        "--recipe",
+        narrow.to_str().unwrap(),
+    ]);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     let ev = events(&run);
-    assert!(ev[n_before..].iter().all(|e| !matches!(e, Event::SiteMeasured { .. } | Event::ReferenceTaken { .. })));
-    assert_eq!(ev[n_before..].iter().filter(|e| matches!(e, Event::SiteFitted { .. })).count(), 10);
+    assert!(ev[n_before..]
+        .iter()
+        .all(|e| !matches!(e, Event::SiteMeasured { .. } | Event::ReferenceTaken { .. })));
+    assert_eq!(
+        ev[n_before..]
+            .iter()
+            .filter(|e| matches!(e, Event::SiteFitted { .. }))
+            .count(),
+        10
+    );
     let refit = std::fs::read_to_string(run.join("sites.csv")).unwrap();
     assert_ne!(refit, after);
     assert_eq!(sites_once(&run, 9).len(), 9);
     // A recipe for another wafer size cannot refit this run.
     let other = dir.path().join("other.toml");
-    std::fs::write(&other, RECIPE.replace("diameter_mm = 150", "diameter_mm = 200")).unwrap();
-    let o = isopach(&["refit", run.to_str().unwrap(), "--recipe", other.to_str().unwrap()]);
+    std::fs::write(
+        &other,
+        RECIPE.replace("diameter_mm = 150", "diameter_mm = 200"),
+    )
+    .unwrap();
+    let o = isopach(&[
+        "refit",
+        run.to_str().unwrap(),
+        "--recipe",
+        other.to_str().unwrap(),
+    ]);
     assert!(!o.status.success());
     assert!(String::from_utf8_lossy(&o.stderr).contains("[wafer] differs"));
 }

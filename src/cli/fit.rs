@@ -52,7 +52,8 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     let (measured, quality) = match file {
         SpectrumFile::Reflectance(s) => (s, Default::default()),
         SpectrumFile::Counts(raw) => {
-            let r_ref = fitter.reference_reflectance(&args.reference_material, &raw.reference.wavelength_nm)?;
+            let r_ref = fitter
+                .reference_reflectance(&args.reference_material, &raw.reference.wavelength_nm)?;
             match spectrum::normalise_raw(&raw, &r_ref) {
                 Ok(v) => v,
                 Err(e) => {
@@ -73,7 +74,10 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         println!("{}", serde_json::to_string(&result)?);
     } else {
         for l in &result.layers {
-            println!("{:<10} {:>10.2} ± {:.2} nm", l.material, l.thickness_nm, l.sigma_nm);
+            println!(
+                "{:<10} {:>10.2} ± {:.2} nm",
+                l.material, l.thickness_nm, l.sigma_nm
+            );
         }
         println!("method {}, gof {:.5}", result.method, result.gof);
         if !result.flags.is_empty() {

@@ -34,7 +34,11 @@ pub fn estimate(
     // Prominence needed: well above the smoothed noise (common practice: ~6σ), and at least
     // 2 % of the spectrum's whole swing, so that ripples of a dispersion curve (a table's
     // interpolation, a lamp's shape) never pass for fringes.
-    let (lo, hi) = s.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| (a.min(*v), b.max(*v)));
+    let (lo, hi) = s
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
+            (a.min(*v), b.max(*v))
+        });
     let threshold = (6.0 * noise_sigma(r) / ((2 * smooth + 1) as f64).sqrt())
         .max(0.02 * (hi - lo))
         .max(1e-6);
@@ -52,7 +56,10 @@ pub fn estimate(
     prune(&mut ext, &s, threshold);
     // Then against the fringes themselves: a real fringe swings like its neighbours, a
     // leftover noise wiggle by much less.
-    let mut swings: Vec<f64> = ext.windows(2).map(|p| (s[p[0].0] - s[p[1].0]).abs()).collect();
+    let mut swings: Vec<f64> = ext
+        .windows(2)
+        .map(|p| (s[p[0].0] - s[p[1].0]).abs())
+        .collect();
     if !swings.is_empty() {
         swings.sort_by(f64::total_cmp);
         prune(&mut ext, &s, 0.25 * swings[swings.len() / 2]);
@@ -74,7 +81,11 @@ pub fn estimate(
             let (a, b) = (i.saturating_sub(half), (*i + half).min(n - 1));
             let u: Vec<f64> = (a..=b).map(|k| k as f64 - *i as f64).collect();
             let q = quadratic_fit(&u, &r[a..=b]);
-            let v = if q[2] != 0.0 { (-q[1] / (2.0 * q[2])).clamp(-1.0, 1.0) } else { 0.0 };
+            let v = if q[2] != 0.0 {
+                (-q[1] / (2.0 * q[2])).clamp(-1.0, 1.0)
+            } else {
+                0.0
+            };
             let p = *i as f64 + v;
             (interp(wavelength_nm, p), interp(x, p))
         })
@@ -97,7 +108,11 @@ pub fn estimate(
     let fit_k = |k: f64| {
         let m: Vec<f64> = steps.iter().map(|s| k + s).collect();
         let d = xs.iter().zip(&m).map(|(x, m)| x * m).sum::<f64>() / (2.0 * sxx);
-        let res: f64 = xs.iter().zip(&m).map(|(x, m)| (2.0 * d * x - m).powi(2)).sum();
+        let res: f64 = xs
+            .iter()
+            .zip(&m)
+            .map(|(x, m)| (2.0 * d * x - m).powi(2))
+            .sum();
         (d, res, m)
     };
     // A thickness within half an order of a bound belongs to that bound (it is then held
@@ -109,23 +124,36 @@ pub fn estimate(
             continue;
         }
         let f = fit_k(k as f64);
-        if best.as_ref().is_none_or(|b: &(f64, f64, Vec<f64>)| f.1 < b.1) {
+        if best
+            .as_ref()
+            .is_none_or(|b: &(f64, f64, Vec<f64>)| f.1 < b.1)
+        {
             best = Some(f.clone());
         }
-        if f.0 >= min_nm - tol && f.0 <= max_nm + tol && best_in.as_ref().is_none_or(|b: &(f64, f64, Vec<f64>)| f.1 < b.1) {
+        if f.0 >= min_nm - tol
+            && f.0 <= max_nm + tol
+            && best_in
+                .as_ref()
+                .is_none_or(|b: &(f64, f64, Vec<f64>)| f.1 < b.1)
+        {
             best_in = Some(f);
         }
     }
     let Some((d, res, m)) = best_in else {
-        let near = best.map(|b| format!(" (the best order gives {:.1} nm)", b.0)).unwrap_or_default();
-        return Err(format!("no fringe order gives a thickness inside [{min_nm}, {max_nm}] nm{near}"));
+        let near = best
+            .map(|b| format!(" (the best order gives {:.1} nm)", b.0))
+            .unwrap_or_default();
+        return Err(format!(
+            "no fringe order gives a thickness inside [{min_nm}, {max_nm}] nm{near}"
+        ));
     };
     let d = d.clamp(min_nm, max_nm);
     let count = xs.len() as f64;
     let sigma = (res / (count - 1.0).max(1.0)).sqrt() / (2.0 * sxx.sqrt());
     let per: Vec<f64> = xs.iter().zip(&m).map(|(x, m)| m / (2.0 * x)).collect();
     let mean = per.iter().sum::<f64>() / count;
-    let spread = (per.iter().map(|p| (p - mean).powi(2)).sum::<f64>() / (count - 1.0).max(1.0)).sqrt();
+    let spread =
+        (per.iter().map(|p| (p - mean).powi(2)).sum::<f64>() / (count - 1.0).max(1.0)).sqrt();
     Ok(Estimate {
         thickness_nm: d,
         sigma_nm: sigma,
@@ -179,8 +207,11 @@ mod tests {
         let (l1, l2, n) = (600.0f64, 500.0f64, 1.5f64);
         assert!((l1 * l2 / (2.0 * n * (l1 - l2)) - 1000.0).abs() < 1e-9);
         // The method finds the same film from its computed spectrum (n = 1.5 on n = 2.2).
-        let s = Stack::bare(Material::constant("a", 1.0, 0.0), Material::constant("s", 2.2, 0.0))
-            .with_layer(Material::constant("f", 1.5, 0.0), 1000.0);
+        let s = Stack::bare(
+            Material::constant("a", 1.0, 0.0),
+            Material::constant("s", 2.2, 0.0),
+        )
+        .with_layer(Material::constant("f", 1.5, 0.0), 1000.0);
         let w: Vec<f64> = (0..1200).map(|i| 420.0 + 0.5 * i as f64).collect();
         let r = reflectance(&s, &w, 0.0, 0.0);
         let x: Vec<f64> = w.iter().map(|w| 3.0 / w).collect();
@@ -188,15 +219,26 @@ mod tests {
         assert!((e.thickness_nm - 1000.0).abs() < 1.0, "{e:?}");
         // 1 < 1.5 < 2.2: both reflections change phase alike, so maxima sit where 2nd = mλ
         for want in [500.0, 600.0, 750.0] {
-            assert!(e.extrema_nm.iter().any(|l| (l - want).abs() < 1.0), "{want} in {:?}", e.extrema_nm);
+            assert!(
+                e.extrema_nm.iter().any(|l| (l - want).abs() < 1.0),
+                "{want} in {:?}",
+                e.extrema_nm
+            );
         }
     }
 
     #[test]
     fn a_flat_spectrum_is_explained() {
         let w: Vec<f64> = (0..300).map(|i| 420.0 + i as f64).collect();
-        let e = estimate(&w, &vec![0.3; 300], &w.iter().map(|w| 3.0 / w).collect::<Vec<_>>(), 1.0, 100.0, 3)
-            .unwrap_err();
+        let e = estimate(
+            &w,
+            &vec![0.3; 300],
+            &w.iter().map(|w| 3.0 / w).collect::<Vec<_>>(),
+            1.0,
+            100.0,
+            3,
+        )
+        .unwrap_err();
         assert!(e.contains("at least 2"), "{e}");
     }
 }

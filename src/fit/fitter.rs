@@ -77,7 +77,10 @@ impl Fitter {
             });
         }
         if layers.len() > MAX_LAYERS {
-            return Err(bad(format!("{} layers; at most {MAX_LAYERS} can be modelled", layers.len())));
+            return Err(bad(format!(
+                "{} layers; at most {MAX_LAYERS} can be modelled",
+                layers.len()
+            )));
         }
         let fitted: Vec<usize> = (0..layers.len()).filter(|i| layers[*i].fit).collect();
         if fitted.is_empty() || fitted.len() > 3 {
@@ -86,7 +89,12 @@ impl Fitter {
         for &i in &fitted {
             let l = &layers[i];
             if !(l.min >= 0.0 && l.min < l.max) {
-                return Err(bad(format!("layer {}: the search range [{}, {}] nm is empty", i + 1, l.min, l.max)));
+                return Err(bad(format!(
+                    "layer {}: the search range [{}, {}] nm is empty",
+                    i + 1,
+                    l.min,
+                    l.max
+                )));
             }
         }
         if matches!(film.method, FitMethod::Fourier | FitMethod::Extrema) && fitted.len() != 1 {
@@ -109,9 +117,11 @@ impl Fitter {
             }
         }
         // Angle samples fine enough for the thickest stack the search may try.
-        let thickest = layers.iter().fold(Stack::bare(ambient.clone(), substrate.clone()), |s, l| {
-            s.with_layer(l.material.clone(), if l.fit { l.max } else { l.nominal })
-        });
+        let thickest = layers
+            .iter()
+            .fold(Stack::bare(ambient.clone(), substrate.clone()), |s, l| {
+                s.with_layer(l.material.clone(), if l.fit { l.max } else { l.nominal })
+            });
         let nodes = cone_nodes(&thickest, &window, film.na);
         let channels = channels(&cone_samples(film.incidence_deg, film.na, nodes));
         Ok(Fitter {
@@ -152,7 +162,10 @@ impl Fitter {
 
     /// Names of the fitted layers' materials, top first.
     pub fn fitted_materials(&self) -> Vec<&str> {
-        self.fitted.iter().map(|i| self.layers[*i].name.as_str()).collect()
+        self.fitted
+            .iter()
+            .map(|i| self.layers[*i].name.as_str())
+            .collect()
     }
 
     /// Fits one spectrum; a spectrum that cannot be fitted gives a result flagged `no-fit`.
@@ -175,25 +188,35 @@ impl Fitter {
     }
 
     /// Normalises raw counts against the bare `reference_material` and fits.
-    pub fn fit_raw(&self, raw: &RawSpectrum, reference_material: &str) -> Result<FitResult, FitError> {
+    pub fn fit_raw(
+        &self,
+        raw: &RawSpectrum,
+        reference_material: &str,
+    ) -> Result<FitResult, FitError> {
         let r_ref = self.reference_reflectance(reference_material, &raw.reference.wavelength_nm)?;
         let (spectrum, quality) = normalise_raw(raw, &r_ref)?;
         Ok(self.fit_with_quality(&spectrum, &quality))
     }
 
     /// Fits one spectrum, or says why it cannot be fitted.
-    pub fn try_fit(&self, spectrum: &Spectrum, quality: &SignalQuality) -> Result<FitResult, FitError> {
+    pub fn try_fit(
+        &self,
+        spectrum: &Spectrum,
+        quality: &SignalQuality,
+    ) -> Result<FitResult, FitError> {
         let w = spectrum.window(self.window[0], self.window[1]);
         w.validate(MIN_PIXELS).map_err(|e| match e {
-            crate::spectrum::SpectrumError::Invalid(m) => crate::spectrum::SpectrumError::Invalid(format!(
-                "window {}–{} nm: {m}",
-                self.window[0], self.window[1]
-            )),
+            crate::spectrum::SpectrumError::Invalid(m) => crate::spectrum::SpectrumError::Invalid(
+                format!("window {}–{} nm: {m}", self.window[0], self.window[1]),
+            ),
             e => e,
         })?;
         let prep = self.prepared(&w.wavelength_nm);
         let method = match self.method {
-            FitMethod::Auto if self.fitted.len() == 1 && self.pixels_per_fringe(&w) < MODEL_MIN_PIXELS_PER_FRINGE => {
+            FitMethod::Auto
+                if self.fitted.len() == 1
+                    && self.pixels_per_fringe(&w) < MODEL_MIN_PIXELS_PER_FRINGE =>
+            {
                 FitMethod::Fourier
             }
             FitMethod::Auto => FitMethod::Model,
@@ -249,7 +272,11 @@ impl Fitter {
 
     /// Reflectance of the bare `material` under the recipe's ambient, angle and NA: the
     /// R_ref of normalisation.
-    pub fn reference_reflectance(&self, material: &str, wavelengths_nm: &[f64]) -> Result<Vec<f64>, FitError> {
+    pub fn reference_reflectance(
+        &self,
+        material: &str,
+        wavelengths_nm: &[f64],
+    ) -> Result<Vec<f64>, FitError> {
         let m = self.library.require(material)?.clone();
         Ok(reflectance(
             &Stack::bare(self.ambient.clone(), m),
@@ -273,12 +300,10 @@ impl Fitter {
 
     /// The stack with the given thickness for every layer (top first).
     pub fn stack(&self, thickness_nm: &[f64]) -> Stack {
-        self.layers
-            .iter()
-            .zip(thickness_nm)
-            .fold(Stack::bare(self.ambient.clone(), self.substrate.clone()), |s, (l, d)| {
-                s.with_layer(l.material.clone(), *d)
-            })
+        self.layers.iter().zip(thickness_nm).fold(
+            Stack::bare(self.ambient.clone(), self.substrate.clone()),
+            |s, (l, d)| s.with_layer(l.material.clone(), *d),
+        )
     }
 
     /// Smallest thickness of the (first) fitted layer the Fourier method resolves over
@@ -310,7 +335,13 @@ impl Fitter {
             }
         }
         let materials: Vec<Material> = self.layers.iter().map(|l| l.material.clone()).collect();
-        let p = Arc::new(Prepared::new(&self.ambient, &materials, &self.substrate, &self.channels, wavelengths));
+        let p = Arc::new(Prepared::new(
+            &self.ambient,
+            &materials,
+            &self.substrate,
+            &self.channels,
+            wavelengths,
+        ));
         if let Ok(mut guard) = self.cache.write() {
             *guard = Some(Arc::clone(&p));
         }
@@ -348,7 +379,9 @@ impl Fitter {
             steps: self
                 .fitted
                 .iter()
-                .map(|i| l_min / (STEPS_PER_WAVE * self.layers[*i].material.index(l_min).re.max(1.0)))
+                .map(|i| {
+                    l_min / (STEPS_PER_WAVE * self.layers[*i].material.index(l_min).re.max(1.0))
+                })
                 .collect(),
             scale: self.fit_scale,
         };
@@ -369,14 +402,24 @@ impl Fitter {
             .unzip()
     }
 
-    fn single_layer_method(&self, method: FitMethod, w: &Spectrum) -> Result<(f64, f64, Vec<String>), FitError> {
+    fn single_layer_method(
+        &self,
+        method: FitMethod,
+        w: &Spectrum,
+    ) -> Result<(f64, f64, Vec<String>), FitError> {
         let l = &self.layers[self.fitted[0]];
         let (n, c) = self.film_index(&w.wavelength_nm);
         let x = fourier::fringe_coordinate(&w.wavelength_nm, &n, &c);
-        let fail = |name: &'static str| move |message: String| FitError::Method { method: name, message };
+        let fail = |name: &'static str| {
+            move |message: String| FitError::Method {
+                method: name,
+                message,
+            }
+        };
         match method {
             FitMethod::Fourier => {
-                let e = fourier::estimate(&x, &w.reflectance, l.min, l.max).map_err(fail("fourier"))?;
+                let e =
+                    fourier::estimate(&x, &w.reflectance, l.min, l.max).map_err(fail("fourier"))?;
                 let mut flags = Vec::new();
                 if e.thickness_nm < 1.2 * e.resolution_nm {
                     flags.push(quality::BELOW_RESOLUTION.to_string());
@@ -388,11 +431,15 @@ impl Fitter {
                 // Fourier transform sees, or else of the thickest film searched.
                 let ppf_max = self.pixels_per_fringe(w);
                 let ppf = fourier::estimate(&x, &w.reflectance, l.min, l.max)
-                    .map(|e| ppf_max * self.max_optical_thickness(w.wavelength_nm[0]) / (n[0] * e.thickness_nm))
+                    .map(|e| {
+                        ppf_max * self.max_optical_thickness(w.wavelength_nm[0])
+                            / (n[0] * e.thickness_nm)
+                    })
                     .unwrap_or(ppf_max);
                 let smooth = ((ppf / 8.0).round() as usize).clamp(1, (w.len() / 20).max(1));
-                let e = extrema::estimate(&w.wavelength_nm, &w.reflectance, &x, l.min, l.max, smooth)
-                    .map_err(fail("extrema"))?;
+                let e =
+                    extrema::estimate(&w.wavelength_nm, &w.reflectance, &x, l.min, l.max, smooth)
+                        .map_err(fail("extrema"))?;
                 Ok((e.thickness_nm, e.sigma_nm, Vec::new()))
             }
         }
@@ -401,7 +448,9 @@ impl Fitter {
 
 /// Σ (R_model − R_m)² at thicknesses `d`.
 fn chi2(prep: &Prepared, measured: &[f64], d: &[f64]) -> f64 {
-    (0..prep.len()).map(|j| (prep.reflectance(j, d) - measured[j]).powi(2)).sum()
+    (0..prep.len())
+        .map(|j| (prep.reflectance(j, d) - measured[j]).powi(2))
+        .sum()
 }
 
 fn quality_flags(q: &SignalQuality) -> Vec<String> {

@@ -32,7 +32,11 @@ pub fn fringe_coordinate(wavelength_nm: &[f64], n: &[f64], cos_t: &[f64]) -> Vec
 
 /// The smallest thickness the window resolves, 2/(x_max − x_min).
 pub fn resolution_nm(x: &[f64]) -> f64 {
-    let (lo, hi) = x.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| (a.min(*v), b.max(*v)));
+    let (lo, hi) = x
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
+            (a.min(*v), b.max(*v))
+        });
     2.0 / (hi - lo)
 }
 
@@ -73,7 +77,9 @@ pub fn estimate(x: &[f64], r: &[f64], min_nm: f64, max_nm: f64) -> Result<Estima
         y.push(a.1 + t * (b.1 - a.1));
     }
     // Detrend by a quadratic on u ∈ [−1, 1], then the Hann window.
-    let u: Vec<f64> = (0..m).map(|i| 2.0 * i as f64 / (m - 1) as f64 - 1.0).collect();
+    let u: Vec<f64> = (0..m)
+        .map(|i| 2.0 * i as f64 / (m - 1) as f64 - 1.0)
+        .collect();
     let q = quadratic_fit(&u, &y);
     let padded = PAD * m;
     let mut buf = vec![0.0; padded];
@@ -98,15 +104,24 @@ pub fn estimate(x: &[f64], r: &[f64], min_nm: f64, max_nm: f64) -> Result<Estima
     let kp = (k_lo..=k_hi)
         .max_by(|a, b| mag[*a].total_cmp(&mag[*b]))
         .unwrap_or(k_lo);
-    let (a, b, c) = (mag[kp - 1].max(1e-300).ln(), mag[kp].max(1e-300).ln(), mag[kp + 1].max(1e-300).ln());
+    let (a, b, c) = (
+        mag[kp - 1].max(1e-300).ln(),
+        mag[kp].max(1e-300).ln(),
+        mag[kp + 1].max(1e-300).ln(),
+    );
     let denom = a - 2.0 * b + c;
-    let offset = if denom < 0.0 { (0.5 * (a - c) / denom).clamp(-0.5, 0.5) } else { 0.0 };
+    let offset = if denom < 0.0 {
+        (0.5 * (a - c) / denom).clamp(-0.5, 0.5)
+    } else {
+        0.0
+    };
     let thickness_nm = (kp as f64 + offset) * bin_nm;
     // σ: CRLB for the frequency of a sinusoid in white noise, σ_f = √12 σ_n/(2π A √N Δx),
     // with A = 2|X|/Σw.
     let sigma_n = noise_sigma(r);
     let amplitude = 2.0 * mag[kp] / wsum;
-    let sigma_nm = 12f64.sqrt() * sigma_n / (2.0 * std::f64::consts::PI * amplitude.max(1e-12) * (n as f64).sqrt() * span);
+    let sigma_nm = 12f64.sqrt() * sigma_n
+        / (2.0 * std::f64::consts::PI * amplitude.max(1e-12) * (n as f64).sqrt() * span);
     Ok(Estimate {
         thickness_nm,
         sigma_nm,
@@ -124,11 +139,23 @@ mod tests {
         let w: Vec<f64> = (0..1500).map(|i| 420.0 + i as f64 * 0.4).collect();
         let x = fringe_coordinate(&w, &vec![1.46; w.len()], &vec![1.0; w.len()]);
         // Within 2 % at 1.6 fringes (near the resolution limit), 0.2 % with more fringes.
-        for (d, tol) in [(800.0, 0.02), (1500.0, 0.002), (2345.6, 0.002), (9000.0, 0.002)] {
-            let r: Vec<f64> = x.iter().map(|x| 0.3 + 0.1 * (2.0 * std::f64::consts::PI * d * x).cos()).collect();
+        for (d, tol) in [
+            (800.0, 0.02),
+            (1500.0, 0.002),
+            (2345.6, 0.002),
+            (9000.0, 0.002),
+        ] {
+            let r: Vec<f64> = x
+                .iter()
+                .map(|x| 0.3 + 0.1 * (2.0 * std::f64::consts::PI * d * x).cos())
+                .collect();
             let e = estimate(&x, &r, 100.0, 20000.0).unwrap();
             eprintln!("{d}: {}", e.thickness_nm);
-            assert!((e.thickness_nm - d).abs() < tol * d, "{d}: {}", e.thickness_nm);
+            assert!(
+                (e.thickness_nm - d).abs() < tol * d,
+                "{d}: {}",
+                e.thickness_nm
+            );
             assert!(e.resolution_nm > 400.0 && e.resolution_nm < 600.0);
         }
     }

@@ -68,7 +68,10 @@ impl Prepared {
         wavelength_nm: &[f64],
     ) -> Prepared {
         let l = layers.len();
-        assert!(l <= MAX_LAYERS, "the fitter checks the layer count before preparing");
+        assert!(
+            l <= MAX_LAYERS,
+            "the fitter checks the layer count before preparing"
+        );
         let stride = 2 * l + 1;
         let mut coeff = Vec::with_capacity(wavelength_nm.len() * channels.len() * stride);
         let mut etas = vec![Complex64::new(0.0, 0.0); l + 2];
@@ -222,7 +225,8 @@ impl Prepared {
                 for l in (1..=k).rev() {
                     // Compose T_{l−1}(z_l · ·) ∘ current.
                     let zl = phase(beta[l - 1], d[l - 1]);
-                    let (ra, rb, rc, re) = (zl, rho[l - 1], rho[l - 1] * zl, Complex64::new(1.0, 0.0));
+                    let (ra, rb, rc, re) =
+                        (zl, rho[l - 1], rho[l - 1] * zl, Complex64::new(1.0, 0.0));
                     let na = ra * a + rb * cc;
                     let nb = ra * b + rb * e;
                     let nc = rc * a + re * cc;
@@ -286,7 +290,13 @@ mod tests {
         let m = |n: &str| lib.get(n).unwrap().clone();
         let w: Vec<f64> = (0..60).map(|i| 400.0 + 10.0 * i as f64).collect();
         let samples = cone_samples(theta, na, 6);
-        let p = Prepared::new(&m("air"), &[m("si3n4"), m("si"), m("sio2")], &m("si"), &channels(&samples), &w);
+        let p = Prepared::new(
+            &m("air"),
+            &[m("si3n4"), m("si"), m("sio2")],
+            &m("si"),
+            &channels(&samples),
+            &w,
+        );
         let s = Stack::bare(m("air"), m("si"))
             .with_layer(m("si3n4"), 150.0)
             .with_layer(m("si"), 20.0)
@@ -315,7 +325,12 @@ mod tests {
             };
             for j in 0..w.len() {
                 let r = p.reflectance(j, &[150.0, 20.0, 900.0]);
-                assert!((r - reference[j]).abs() < 1e-12, "θ={theta} NA={na} λ={}: {r} vs {}", w[j], reference[j]);
+                assert!(
+                    (r - reference[j]).abs() < 1e-12,
+                    "θ={theta} NA={na} λ={}: {r} vs {}",
+                    w[j],
+                    reference[j]
+                );
             }
         }
     }
@@ -324,17 +339,36 @@ mod tests {
     fn sweep_matches_direct_evaluation() {
         let (p, _, w) = setup(10.0, 0.0);
         let d = [150.0, 20.0, 900.0];
-        let measured: Vec<f64> = (0..w.len()).map(|j| p.reflectance(j, &[140.0, 20.0, 905.0])).collect();
+        let measured: Vec<f64> = (0..w.len())
+            .map(|j| p.reflectance(j, &[140.0, 20.0, 905.0]))
+            .collect();
         let pixels: Vec<usize> = (0..w.len()).collect();
         for k in 0..3 {
             let n = 7;
             let (mut sse, mut srr, mut srm) = (vec![0.0; n], vec![0.0; n], vec![0.0; n]);
-            p.sweep(&pixels, &measured, &d, k, d[k] - 30.0, 10.0, &mut sse, &mut srr, &mut srm);
+            p.sweep(
+                &pixels,
+                &measured,
+                &d,
+                k,
+                d[k] - 30.0,
+                10.0,
+                &mut sse,
+                &mut srr,
+                &mut srm,
+            );
             for i in 0..n {
                 let mut di = d;
                 di[k] = d[k] - 30.0 + 10.0 * i as f64;
-                let direct: f64 = pixels.iter().map(|j| (p.reflectance(*j, &di) - measured[*j]).powi(2)).sum();
-                assert!((sse[i] - direct).abs() < 1e-10 * direct.max(1e-6), "k={k} i={i}: {} vs {direct}", sse[i]);
+                let direct: f64 = pixels
+                    .iter()
+                    .map(|j| (p.reflectance(*j, &di) - measured[*j]).powi(2))
+                    .sum();
+                assert!(
+                    (sse[i] - direct).abs() < 1e-10 * direct.max(1e-6),
+                    "k={k} i={i}: {} vs {direct}",
+                    sse[i]
+                );
             }
         }
     }

@@ -50,7 +50,13 @@ impl Default for Settings {
 }
 
 /// Minimises from `x0` inside `[lower, upper]`.
-pub fn minimise(problem: &impl Problem, x0: &[f64], lower: &[f64], upper: &[f64], settings: Settings) -> Solution {
+pub fn minimise(
+    problem: &impl Problem,
+    x0: &[f64],
+    lower: &[f64],
+    upper: &[f64],
+    settings: Settings,
+) -> Solution {
     let p = problem.params();
     let m = problem.residuals();
     let clamp = |x: &mut [f64]| {
@@ -85,7 +91,11 @@ pub fn minimise(problem: &impl Problem, x0: &[f64], lower: &[f64], upper: &[f64]
             };
             let mut xt: Vec<f64> = x.iter().zip(step.iter()).map(|(a, b)| a + b).collect();
             clamp(&mut xt);
-            if xt.iter().zip(&x).all(|(a, b)| (a - b).abs() <= settings.x_tol) {
+            if xt
+                .iter()
+                .zip(&x)
+                .all(|(a, b)| (a - b).abs() <= settings.x_tol)
+            {
                 break;
             }
             let c = problem.eval(&xt, &mut trial_res, &mut trial_jac);
@@ -173,9 +183,25 @@ mod tests {
         let t: Vec<f64> = (0..30).map(|i| i as f64 * 0.2).collect();
         let y = t.iter().map(|t| 3.0 * (-t / 1.7f64).exp()).collect();
         let p = Decay { t, y };
-        let s = minimise(&p, &[1.0, 0.5], &[0.0, 0.1], &[10.0, 10.0], Settings::default());
-        assert!((s.x[0] - 3.0).abs() < 1e-7 && (s.x[1] - 1.7).abs() < 1e-7, "{:?}", s.x);
-        let s = minimise(&p, &[1.0, 0.5], &[0.0, 0.1], &[2.0, 10.0], Settings::default());
+        let s = minimise(
+            &p,
+            &[1.0, 0.5],
+            &[0.0, 0.1],
+            &[10.0, 10.0],
+            Settings::default(),
+        );
+        assert!(
+            (s.x[0] - 3.0).abs() < 1e-7 && (s.x[1] - 1.7).abs() < 1e-7,
+            "{:?}",
+            s.x
+        );
+        let s = minimise(
+            &p,
+            &[1.0, 0.5],
+            &[0.0, 0.1],
+            &[2.0, 10.0],
+            Settings::default(),
+        );
         assert_eq!(s.x[0], 2.0, "held at the upper bound");
     }
 }

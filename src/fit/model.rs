@@ -273,7 +273,10 @@ pub fn fit(setup: &Setup, search_pixels: &[usize]) -> ModelFit {
         setup,
         pixels: search_pixels,
     };
-    let full = Lsq { setup, pixels: &all };
+    let full = Lsq {
+        setup,
+        pixels: &all,
+    };
     let same_pixels = search_pixels.len() == all.len();
     // Refine the best local minima on the search pixels, most promising first. A basin
     // whose predicted χ² is far above the best refined one can neither win nor be within
@@ -295,9 +298,9 @@ pub fn fit(setup: &Setup, search_pixels: &[usize]) -> ModelFit {
             }
         }
         let s = lm::minimise(&sub, &x0(start), &lo, &hi, coarse);
-        let dup = refined.iter().any(|r| {
-            (0..nf).all(|a| (r.x[a] - s.x[a]).abs() < (0.2 * setup.steps[a]).max(0.5))
-        });
+        let dup = refined
+            .iter()
+            .any(|r| (0..nf).all(|a| (r.x[a] - s.x[a]).abs() < (0.2 * setup.steps[a]).max(0.5)));
         if !dup {
             refined.push(s);
             refined.sort_by(|a, b| a.chi2.total_cmp(&b.chi2));
@@ -318,7 +321,11 @@ pub fn fit(setup: &Setup, search_pixels: &[usize]) -> ModelFit {
         let s2_sub = refined[0].chi2 / dof(search_pixels.len());
         let close_on_subset = second.chi2 - refined[0].chi2 < 4.0 * AMBIGUITY_DCHI2 * s2_sub;
         if close_on_subset || same_pixels {
-            let second = if same_pixels { second.clone() } else { polish(second) };
+            let second = if same_pixels {
+                second.clone()
+            } else {
+                polish(second)
+            };
             ambiguous = second.chi2 - best.chi2 < AMBIGUITY_DCHI2 * s2
                 && (0..nf).any(|a| (second.x[a] - best.x[a]).abs() > 0.5);
             runner_up = Some(second.x[..nf].to_vec());
@@ -328,7 +335,9 @@ pub fn fit(setup: &Setup, search_pixels: &[usize]) -> ModelFit {
     }
     let sigma = (0..nf)
         .map(|a| match &best.inv_jtj {
-            Some(inv) => (inv[a * (nf + usize::from(setup.scale)) + a] * s2).max(0.0).sqrt(),
+            Some(inv) => (inv[a * (nf + usize::from(setup.scale)) + a] * s2)
+                .max(0.0)
+                .sqrt(),
             None => f64::NAN,
         })
         .collect();
@@ -346,7 +355,10 @@ pub fn fit(setup: &Setup, search_pixels: &[usize]) -> ModelFit {
 /// derivatives: (residuals, row-major Jacobian).
 pub fn residuals_and_jacobian(setup: &Setup, x: &[f64]) -> (Vec<f64>, Vec<f64>) {
     let all: Vec<usize> = (0..setup.prep.len()).collect();
-    let p = Lsq { setup, pixels: &all };
+    let p = Lsq {
+        setup,
+        pixels: &all,
+    };
     let mut r = vec![0.0; all.len()];
     let mut j = vec![0.0; all.len() * p.params()];
     p.eval(x, &mut r, &mut j);

@@ -94,7 +94,10 @@ mod tests {
         let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(3);
         let n = Normal::new(0.0, 0.003).unwrap();
         let v: Vec<f64> = (0..4000)
-            .map(|i| 0.3 + 0.1 * (i as f64 * 2.0 * std::f64::consts::PI / 20.0).sin() + n.sample(&mut rng))
+            .map(|i| {
+                0.3 + 0.1 * (i as f64 * 2.0 * std::f64::consts::PI / 20.0).sin()
+                    + n.sample(&mut rng)
+            })
             .collect();
         let s = noise_sigma(&v);
         assert!((s - 0.003).abs() < 0.0004, "{s}");
