@@ -18,6 +18,7 @@ pub fn session(
     assume_yes: bool,
     command: &str,
 ) -> anyhow::Result<u8> {
+    log_to(&folder);
     let runtime = tokio::runtime::Builder::new_multi_thread()
         .enable_all()
         .build()?;
@@ -66,6 +67,25 @@ pub fn session(
         report
     })?;
     Ok(print(&folder, &meta, report))
+}
+
+/// Sends the library's tracing log to `log.txt` in the run folder (appended per session).
+fn log_to(folder: &RunFolder) {
+    let Ok(file) = std::fs::OpenOptions::new()
+        .create(true)
+        .append(true)
+        .open(folder.root.join("log.txt"))
+    else {
+        return;
+    };
+    let _ = tracing_subscriber::fmt()
+        .with_writer(std::sync::Mutex::new(file))
+        .with_ansi(false)
+        .with_env_filter(
+            tracing_subscriber::EnvFilter::try_from_env("ISOPACH_LOG")
+                .unwrap_or_else(|_| "info".into()),
+        )
+        .try_init();
 }
 
 /// Prints the outcome and figures; returns the exit code.

@@ -132,6 +132,7 @@ pub async fn session(
         Outcome::Finished
     } else {
         let mut bench = Bench::open(machine.as_ref(), &loaded, meta.run.seed).await?;
+        tracing::info!(stage = %bench.stage.describe(), spectrometer = %bench.spectrometer.describe(), sites = todo.len(), "{command}: bench open");
         bench.check_plan(&todo)?;
         if !bench.is_simulated() {
             (hooks.confirm)(&bench.stage.describe())?;
@@ -140,7 +141,7 @@ pub async fn session(
         if let Some(p) = hooks.prompt {
             seq = seq.with_prompt(p);
         }
-        match seq.prepare(&mut bench).await {
+        let outcome = match seq.prepare(&mut bench).await {
             Ok(()) => {
                 seq.measure(&mut bench, &todo, |site| {
                     let n = next.entry(site).or_insert(1);
@@ -150,7 +151,15 @@ pub async fn session(
                 .await
             }
             Err(e) => Outcome::Failed(e),
+        };
+        if let Outcome::Failed(e) = &outcome {
+            // The last lines exchanged with the controller say most about a fault.
+            tracing::error!(
+                "{command} stopped: {e:#}\nrecent G-code conversation:\n{}",
+                bench.stage.transcript().join("\n")
+            );
         }
+        outcome
     };
     let (_, states) = derive::read_states(folder, meta)?;
     if matches!(outcome, Outcome::Finished) && states.iter().all(|s| !s.attempts.is_empty()) {
