@@ -364,6 +364,10 @@ pub struct SimWaferSpec {
     /// Random short-range roughness, 1σ nm (a seeded smooth noise field).
     #[serde(default = "d_roughness")]
     pub roughness_nm: f64,
+    /// Wafer-to-wafer spread of the mean thickness, 1σ in % of nominal (drawn from the seed,
+    /// so each simulated wafer of a lot comes out a little thicker or thinner).
+    #[serde(default = "d_wafer_to_wafer")]
+    pub wafer_to_wafer_pct: f64,
     /// Complex index `[n, k]` of the chuck seen beyond the wafer edge (default: a steel-like
     /// metal, n ≈ 2.8, k ≈ 3.4 near 600 nm, from memory).
     #[serde(default = "d_chuck_nk")]
@@ -381,6 +385,7 @@ impl Default for SimWaferSpec {
             edge_bead_width_mm: d_edge_bead_width(),
             tilt_nm_per_mm: d_tilt(),
             roughness_nm: d_roughness(),
+            wafer_to_wafer_pct: d_wafer_to_wafer(),
             chuck_nk: d_chuck_nk(),
         }
     }
@@ -534,6 +539,9 @@ fn d_tilt() -> [f64; 2] {
     [0.03, -0.02]
 }
 fn d_roughness() -> f64 {
+    0.3
+}
+fn d_wafer_to_wafer() -> f64 {
     0.3
 }
 fn d_chuck_nk() -> [f64; 2] {
@@ -862,6 +870,13 @@ fn check_simulation(s: &SimulationSpec, r: &mut Report) {
         0.0,
         1e3,
         "nm",
+    );
+    r.range(
+        "simulation.wafer.wafer_to_wafer_pct",
+        w.wafer_to_wafer_pct,
+        0.0,
+        50.0,
+        "%",
     );
     if !(w.chuck_nk[0] >= 0.0 && w.chuck_nk[1] >= 0.0 && w.chuck_nk[0] + w.chuck_nk[1] > 0.0) {
         r.at(

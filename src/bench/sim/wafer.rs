@@ -2,10 +2,11 @@
 //! stack, rendered through the transfer-matrix model; off the wafer the probe sees the chuck.
 //!
 //! Field, wafer frame, ρ = r / R (R the wafer radius):
-//! `t(x, y) = nominal + centre offset + dome·(½ − ρ²) + ripple·cos(2π r / period)
+//! `t(x, y) = nominal + wafer offset + centre offset + dome·(½ − ρ²) + ripple·cos(2π r / period)
 //!            + bead·exp(−(R − r) / width) + tilt·(x, y) + roughness(x, y)`,
 //! where the dome term averages to zero over the disc (positive = dome, negative = bowl) and
-//! the roughness is a seeded sum of plane waves with 3–15 mm wavelengths and the set 1σ.
+//! the roughness is a seeded sum of plane waves with 3–15 mm wavelengths and the set 1σ; the
+//! wafer offset is drawn once per seed (1σ = `wafer_to_wafer_pct` of nominal).
 
 use crate::bench::machine::SimWaferSpec;
 use crate::optics::{self, Material, MaterialLibrary, OpticsError, Stack};
@@ -30,6 +31,8 @@ pub struct ThicknessField {
     spec: SimWaferSpec,
     /// (kx, ky, phase, amplitude) of each roughness wave.
     waves: Vec<(f64, f64, f64, f64)>,
+    /// This wafer's offset of the mean from nominal (wafer-to-wafer spread), nm.
+    wafer_offset_nm: f64,
 }
 
 impl ThicknessField {
@@ -50,11 +53,13 @@ impl ThicknessField {
                 )
             })
             .collect();
+        let z: f64 = rng.sample(rand_distr::StandardNormal);
         ThicknessField {
             nominal_nm,
             radius_mm,
             spec: spec.clone(),
             waves,
+            wafer_offset_nm: z * spec.wafer_to_wafer_pct / 100.0 * nominal_nm,
         }
     }
 
@@ -70,6 +75,7 @@ impl ThicknessField {
             .map(|(kx, ky, ph, a)| a * (kx * x_mm + ky * y_mm + ph).cos())
             .sum();
         let t = self.nominal_nm
+            + self.wafer_offset_nm
             + s.center_offset_nm
             + s.dome_nm * (0.5 - rho * rho)
             + s.ripple_nm * (2.0 * PI * r / s.ripple_period_mm).cos()
