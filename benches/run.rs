@@ -129,22 +129,7 @@ fn real_time_run(recipe_path: &Path) -> (usize, f64, f64) {
     ));
     let (start, end) = *marks.lock().unwrap();
     let wall = (end.unwrap() - start.unwrap()).as_secs_f64();
-    // The stage starts the pass at home (the travel's lower corner).
-    let transform = isopach::bench::chuck::ChuckTransform::from_spec(&machine.chuck);
-    let approach = isopach::bench::limits::Approach::from_spec(&machine.stage);
-    let home = [machine.stage.travel_x_mm[0], machine.stage.travel_y_mm[0]];
     let sites = plan::order(&loaded.recipe.pattern, &loaded.sites());
-    let a = &loaded.recipe.acquire;
-    let per_site = (a.settle_ms + a.integration_ms * a.averages as f64) / 1000.0;
-    let legs = plan::stage_waypoints(home, &sites, &transform, &approach);
-    let s = &machine.stage;
-    let bound = plan::duration_lower_bound_s(
-        home,
-        &legs,
-        s.feed_mm_min,
-        s.accel_mm_s2,
-        sites.len(),
-        per_site,
-    );
+    let bound = plan::duration_estimate_s(&sites, &loaded.recipe.acquire, &machine);
     (sites.len(), wall, bound)
 }

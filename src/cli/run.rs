@@ -111,17 +111,7 @@ fn dry_run(
     }
     let a = &loaded.recipe.acquire;
     let per_site = (a.settle_ms + a.integration_ms * a.averages as f64) / 1000.0;
-    let home = [m.stage.travel_x_mm[0], m.stage.travel_y_mm[0]];
-    let legs = plan::stage_waypoints(home, &sites, &transform, &approach);
-    let st = &m.stage;
-    let secs = plan::duration_lower_bound_s(
-        home,
-        &legs,
-        st.feed_mm_min,
-        st.accel_mm_s2,
-        sites.len(),
-        per_site,
-    );
+    let secs = plan::duration_estimate_s(&sites, a, &m);
     println!(
         "{} sites, path {:.1} mm from the wafer centre, at least {:.1} s from the stage's home corner ({}: feed {} mm/min, accel {} mm/s², {:.0} ms per site)",
         sites.len(),

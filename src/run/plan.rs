@@ -190,6 +190,30 @@ pub fn duration_lower_bound_s(
     total
 }
 
+/// Lower bound of the duration of measuring `sites` (in measuring order) on a bench, s: from
+/// the stage's home corner through every commanded leg, plus settle and integration × averages
+/// at each site.
+pub fn duration_estimate_s(
+    sites: &[Site],
+    acquire: &crate::recipe::schema::AcquireSpec,
+    machine: &crate::bench::MachineFile,
+) -> f64 {
+    let st = &machine.stage;
+    let transform = crate::bench::chuck::ChuckTransform::from_spec(&machine.chuck);
+    let approach = crate::bench::limits::Approach::from_spec(st);
+    let home = [st.travel_x_mm[0], st.travel_y_mm[0]];
+    let legs = stage_waypoints(home, sites, &transform, &approach);
+    let per_site = (acquire.settle_ms + acquire.integration_ms * acquire.averages as f64) / 1000.0;
+    duration_lower_bound_s(
+        home,
+        &legs,
+        st.feed_mm_min,
+        st.accel_mm_s2,
+        sites.len(),
+        per_site,
+    )
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -186,12 +186,30 @@ mod tests {
     use super::*;
 
     #[test]
+    fn wafers_of_a_lot_differ_by_the_set_spread() {
+        let spec = SimWaferSpec {
+            wafer_to_wafer_pct: 1.0,
+            ..SimWaferSpec::default()
+        };
+        let means: Vec<f64> = (0..400)
+            .map(|seed| ThicknessField::new(1000.0, 75.0, &spec, seed).wafer_offset_nm)
+            .collect();
+        let m = means.iter().sum::<f64>() / means.len() as f64;
+        let sd =
+            (means.iter().map(|v| (v - m).powi(2)).sum::<f64>() / (means.len() - 1) as f64).sqrt();
+        // 1 % of 1000 nm = 10 nm; 400 draws put the sample σ within about ±10 % of it.
+        assert!((sd - 10.0).abs() < 1.5, "σ of wafer means {sd}");
+        assert!(m.abs() < 2.0, "mean offset {m}");
+    }
+
+    #[test]
     fn field_terms_do_what_they_say() {
         let mut spec = SimWaferSpec {
             roughness_nm: 0.0,
             ripple_nm: 0.0,
             edge_bead_nm: 0.0,
             tilt_nm_per_mm: [0.0, 0.0],
+            wafer_to_wafer_pct: 0.0,
             ..SimWaferSpec::default()
         };
         spec.dome_nm = 20.0;
