@@ -41,7 +41,8 @@ fn check_oxide(noisy: bool) {
             r.method,
             r.flags
         );
-        if !((got - want).abs() <= tol) {
+        let within = (got - want).abs() <= tol; // false for NaN too
+        if !within {
             failures.push(format!("{name}: {got} vs {want}"));
         }
     }
@@ -81,7 +82,8 @@ method = "model""#,
                 "{name}: {key} true {} fitted {:.3} ± {:.3} (error {err:+.3}) gof {:.5} {:?}",
                 truth[key], l.thickness_nm, l.sigma_nm, r.gof, r.flags
             );
-            if !(err.abs() <= 2.0) {
+            let within = err.abs() <= 2.0;
+            if !within {
                 failures.push(format!("{name} {key}: {err}"));
             }
         }

@@ -36,9 +36,17 @@ pub struct Args {
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
     let loaded = recipe::load(&args.recipe)?;
-    let fitter = Fitter::from_recipe(&loaded)
-        .with_context(|| format!("cannot set up fitting for {}", args.recipe.display()))?
-        .with_scale_factor(args.scale);
+    let fitter = match Fitter::from_recipe(&loaded) {
+        Ok(f) => f.with_scale_factor(args.scale),
+        Err(e) => {
+            // A material or stack the recipe describes but that cannot be built is bad input.
+            eprintln!(
+                "error: cannot set up fitting for {}: {e}",
+                args.recipe.display()
+            );
+            return Ok(super::exit::INVALID);
+        }
+    };
     for w in fitter.warnings() {
         eprintln!("warning: {w}");
     }
@@ -80,6 +88,14 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             );
         }
         println!("method {}, gof {:.5}", result.method, result.gof);
+        if result.method == "fourier" {
+            let [lo, hi] = fitter.window_nm();
+            let w = measured.window(lo, hi);
+            println!(
+                "smallest thickness this window resolves: {:.0} nm",
+                fitter.fourier_resolution_nm(&w.wavelength_nm)
+            );
+        }
         if !result.flags.is_empty() {
             println!("flags: {}", result.flags.join(", "));
         }

@@ -42,7 +42,13 @@ pub struct Fitter {
     warnings: Vec<String>,
     /// The per-pixel model of the last wavelength grid seen (a map uses one grid).
     cache: RwLock<Option<Arc<Prepared>>>,
+    /// FFT plans of the Fourier and extrema methods.
+    fft: fourier::Plans,
+    /// The last reference reflectance computed: (material, wavelengths, R_ref).
+    reference_cache: RwLock<Option<ReferenceCache>>,
 }
+
+type ReferenceCache = (String, Vec<f64>, Arc<Vec<f64>>);
 
 /// Fewest pixels the window must hold.
 const MIN_PIXELS: usize = 16;
@@ -139,6 +145,8 @@ impl Fitter {
             fit_scale: false,
             warnings,
             cache: RwLock::new(None),
+            reference_cache: RwLock::new(None),
+            fft: fourier::Plans::default(),
         })
     }
 
@@ -193,7 +201,7 @@ impl Fitter {
         raw: &RawSpectrum,
         reference_material: &str,
     ) -> Result<FitResult, FitError> {
-        let r_ref = self.reference_reflectance(reference_material, &raw.reference.wavelength_nm)?;
+        let r_ref = self.cached_reference(reference_material, &raw.reference.wavelength_nm)?;
         let (spectrum, quality) = normalise_raw(raw, &r_ref)?;
         Ok(self.fit_with_quality(&spectrum, &quality))
     }
@@ -233,7 +241,10 @@ impl Fitter {
                 (all, vec![s], chi2)
             }
             _ => {
-                let fit = self.model_fit(&prep, &w);
+                let fit = self.model_fit(&prep, &w).ok_or_else(|| FitError::Method {
+                    method: "model",
+                    message: "the model gives no finite reflectance over the window: check the materials' formulas".into(),
+                })?;
                 if fit.ambiguous {
                     flags.push(quality::AMBIGUOUS.to_string());
                 }
@@ -313,6 +324,27 @@ impl Fitter {
         fourier::resolution_nm(&fourier::fringe_coordinate(wavelengths_nm, &n, &c))
     }
 
+    /// [`Fitter::reference_reflectance`], remembered for the last material and grid (every
+    /// site of a map shares them).
+    fn cached_reference(
+        &self,
+        material: &str,
+        wavelengths: &[f64],
+    ) -> Result<Arc<Vec<f64>>, FitError> {
+        if let Ok(guard) = self.reference_cache.read() {
+            if let Some((m, w, r)) = guard.as_ref() {
+                if m == material && w == wavelengths {
+                    return Ok(Arc::clone(r));
+                }
+            }
+        }
+        let r = Arc::new(self.reference_reflectance(material, wavelengths)?);
+        if let Ok(mut guard) = self.reference_cache.write() {
+            *guard = Some((material.to_string(), wavelengths.to_vec(), Arc::clone(&r)));
+        }
+        Ok(r)
+    }
+
     fn failed_layers(&self) -> Vec<LayerResult> {
         self.fitted
             .iter()
@@ -364,7 +396,7 @@ impl Fitter {
         l_min * l_min / (2.0 * self.max_optical_thickness(l_min)).max(1e-9) / spacing
     }
 
-    fn model_fit(&self, prep: &Prepared, w: &Spectrum) -> model::ModelFit {
+    fn model_fit(&self, prep: &Prepared, w: &Spectrum) -> Option<model::ModelFit> {
         let l_min = w.wavelength_nm[0];
         let stride = ((self.pixels_per_fringe(w) / SEARCH_PIXELS_PER_FRINGE).floor() as usize)
             .clamp(1, (w.len() / 48).max(1));
@@ -418,8 +450,8 @@ impl Fitter {
         };
         match method {
             FitMethod::Fourier => {
-                let e =
-                    fourier::estimate(&x, &w.reflectance, l.min, l.max).map_err(fail("fourier"))?;
+                let e = fourier::estimate(&self.fft, &x, &w.reflectance, l.min, l.max)
+                    .map_err(fail("fourier"))?;
                 let mut flags = Vec::new();
                 if e.thickness_nm < 1.2 * e.resolution_nm {
                     flags.push(quality::BELOW_RESOLUTION.to_string());
@@ -430,7 +462,7 @@ impl Fitter {
                 // Smooth over about an eighth of the shortest fringe period: of the film the
                 // Fourier transform sees, or else of the thickest film searched.
                 let ppf_max = self.pixels_per_fringe(w);
-                let ppf = fourier::estimate(&x, &w.reflectance, l.min, l.max)
+                let ppf = fourier::estimate(&self.fft, &x, &w.reflectance, l.min, l.max)
                     .map(|e| {
                         ppf_max * self.max_optical_thickness(w.wavelength_nm[0])
                             / (n[0] * e.thickness_nm)

@@ -5,7 +5,29 @@
 //! (log-parabolic) sub-bin interpolation of the peak.
 
 use crate::spectrum::{noise_sigma, quadratic_fit};
-use realfft::RealFftPlanner;
+use realfft::{RealFftPlanner, RealToComplex};
+use std::sync::{Arc, Mutex};
+
+/// FFT plans kept across spectra (planning a 32k-point transform costs about as much as
+/// running it). Shareable between threads.
+#[derive(Default)]
+pub struct Plans(Mutex<RealFftPlanner<f64>>);
+
+impl std::fmt::Debug for Plans {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str("Plans")
+    }
+}
+
+impl Plans {
+    fn forward(&self, n: usize) -> Arc<dyn RealToComplex<f64>> {
+        match self.0.lock() {
+            Ok(mut p) => p.plan_fft_forward(n),
+            // A poisoned lock only means another thread panicked mid-plan: plan afresh.
+            Err(_) => RealFftPlanner::<f64>::new().plan_fft_forward(n),
+        }
+    }
+}
 
 /// A Fourier thickness estimate.
 #[derive(Debug, Clone, PartialEq)]
@@ -42,7 +64,13 @@ pub fn resolution_nm(x: &[f64]) -> f64 {
 
 /// Estimates the thickness within `[min_nm, max_nm]` from reflectance `r` at fringe
 /// coordinates `x` (one per pixel, monotonic). Errors say why no peak could be taken.
-pub fn estimate(x: &[f64], r: &[f64], min_nm: f64, max_nm: f64) -> Result<Estimate, String> {
+pub fn estimate(
+    plans: &Plans,
+    x: &[f64],
+    r: &[f64],
+    min_nm: f64,
+    max_nm: f64,
+) -> Result<Estimate, String> {
     let n = x.len();
     if n < 16 {
         return Err(format!("{n} pixels; the Fourier method needs at least 16"));
@@ -89,7 +117,7 @@ pub fn estimate(x: &[f64], r: &[f64], min_nm: f64, max_nm: f64) -> Result<Estima
         wsum += w;
         buf[i] = (y[i] - (q[0] + q[1] * u[i] + q[2] * u[i] * u[i])) * w;
     }
-    let fft = RealFftPlanner::<f64>::new().plan_fft_forward(padded);
+    let fft = plans.forward(padded);
     let mut spec = fft.make_output_vec();
     fft.process(&mut buf, &mut spec)
         .map_err(|e| format!("FFT failed: {e}"))?;
@@ -115,7 +143,8 @@ pub fn estimate(x: &[f64], r: &[f64], min_nm: f64, max_nm: f64) -> Result<Estima
     } else {
         0.0
     };
-    let thickness_nm = (kp as f64 + offset) * bin_nm;
+    // The sub-bin step may cross a bound of the range: hold it there (flagged at-bound).
+    let thickness_nm = ((kp as f64 + offset) * bin_nm).clamp(lo, max_nm);
     // σ: CRLB for the frequency of a sinusoid in white noise, σ_f = √12 σ_n/(2π A √N Δx),
     // with A = 2|X|/Σw.
     let sigma_n = noise_sigma(r);
@@ -149,7 +178,7 @@ mod tests {
                 .iter()
                 .map(|x| 0.3 + 0.1 * (2.0 * std::f64::consts::PI * d * x).cos())
                 .collect();
-            let e = estimate(&x, &r, 100.0, 20000.0).unwrap();
+            let e = estimate(&Plans::default(), &x, &r, 100.0, 20000.0).unwrap();
             eprintln!("{d}: {}", e.thickness_nm);
             assert!(
                 (e.thickness_nm - d).abs() < tol * d,
@@ -164,7 +193,7 @@ mod tests {
     fn explains_a_range_below_resolution() {
         let w: Vec<f64> = (0..500).map(|i| 420.0 + i as f64).collect();
         let x = fringe_coordinate(&w, &vec![1.46; w.len()], &vec![1.0; w.len()]);
-        let e = estimate(&x, &vec![0.3; w.len()], 1.0, 200.0).unwrap_err();
+        let e = estimate(&Plans::default(), &x, &vec![0.3; w.len()], 1.0, 200.0).unwrap_err();
         assert!(e.contains("model method"), "{e}");
     }
 }

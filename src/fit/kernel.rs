@@ -357,7 +357,7 @@ mod tests {
                 &mut srr,
                 &mut srm,
             );
-            for i in 0..n {
+            for (i, sse_i) in sse.iter().enumerate() {
                 let mut di = d;
                 di[k] = d[k] - 30.0 + 10.0 * i as f64;
                 let direct: f64 = pixels
@@ -365,7 +365,7 @@ mod tests {
                     .map(|j| (p.reflectance(*j, &di) - measured[*j]).powi(2))
                     .sum();
                 assert!(
-                    (sse[i] - direct).abs() < 1e-10 * direct.max(1e-6),
+                    (sse_i - direct).abs() < 1e-10 * direct.max(1e-6),
                     "k={k} i={i}: {} vs {direct}",
                     sse[i]
                 );

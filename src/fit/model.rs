@@ -172,8 +172,8 @@ fn counts(setup: &Setup) -> Vec<usize> {
 fn grid_search(setup: &Setup, pixels: &[usize]) -> Grid {
     let mut setup_steps = setup.clone();
     let counts = counts(setup);
-    for a in 0..counts.len() {
-        setup_steps.steps[a] = (setup.upper[a] - setup.lower[a]) / (counts[a] - 1) as f64;
+    for (a, c) in counts.iter().enumerate() {
+        setup_steps.steps[a] = (setup.upper[a] - setup.lower[a]) / (c - 1) as f64;
     }
     let setup = &setup_steps;
     // Sweep the longest axis with the multiplication trick; loop over the others.
@@ -241,14 +241,15 @@ fn grid_search(setup: &Setup, pixels: &[usize]) -> Grid {
 }
 
 /// Candidates refined on the search pixels before the final polish.
-const CANDIDATES: usize = 4;
+const CANDIDATES: usize = 12;
 /// Δχ² (in units of the residual variance) below which a second minimum is "within noise":
 /// a 3σ likelihood-ratio distinction for one parameter (common practice).
 const AMBIGUITY_DCHI2: f64 = 9.0;
 
 /// Fits the model: grid search on `search_pixels`, LM refinement there, then LM on every
-/// pixel from the best (and from the runner-up when it is close).
-pub fn fit(setup: &Setup, search_pixels: &[usize]) -> ModelFit {
+/// pixel from the best (and from the runner-up when it is close). `None` when the grid holds
+/// no finite χ² (a material whose index is not finite over the window).
+pub fn fit(setup: &Setup, search_pixels: &[usize]) -> Option<ModelFit> {
     let all: Vec<usize> = (0..setup.prep.len()).collect();
     let grid = grid_search(setup, search_pixels);
     let nf = setup.fitted.len();
@@ -313,13 +314,14 @@ pub fn fit(setup: &Setup, search_pixels: &[usize]) -> ModelFit {
         ..Settings::default()
     };
     let polish = |s: &lm::Solution| lm::minimise(&full, &s.x, &lo, &hi, fine);
-    let best = polish(&refined[0]);
+    let first = refined.first().filter(|r| r.chi2.is_finite())?;
+    let best = polish(first);
     let s2 = best.chi2 / dof(all.len());
     let mut ambiguous = false;
     let mut runner_up = None;
     if let Some(second) = refined.get(1) {
-        let s2_sub = refined[0].chi2 / dof(search_pixels.len());
-        let close_on_subset = second.chi2 - refined[0].chi2 < 4.0 * AMBIGUITY_DCHI2 * s2_sub;
+        let s2_sub = first.chi2 / dof(search_pixels.len());
+        let close_on_subset = second.chi2 - first.chi2 < 4.0 * AMBIGUITY_DCHI2 * s2_sub;
         if close_on_subset || same_pixels {
             let second = if same_pixels {
                 second.clone()
@@ -341,14 +343,14 @@ pub fn fit(setup: &Setup, search_pixels: &[usize]) -> ModelFit {
             None => f64::NAN,
         })
         .collect();
-    ModelFit {
+    Some(ModelFit {
         thickness: full.thickness(&best.x),
         sigma,
         scale: if setup.scale { best.x[nf] } else { 1.0 },
         chi2: best.chi2,
         ambiguous,
         runner_up,
-    }
+    })
 }
 
 /// The residuals and Jacobian of the model at `x` on all pixels, for tests of the analytic

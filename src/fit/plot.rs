@@ -79,14 +79,17 @@ pub fn svg(
         result.gof,
         escape(&flags)
     );
-    for i in 0..=5 {
-        let y = lo + (hi - lo) * i as f64 / 5.0;
-        let x = x0 + (x1 - x0) * i as f64 / 5.0;
+    for y in nice_ticks(lo, hi) {
+        let (tx, ty, gy, gx) = (left - 6.0, py(y) + 4.0, py(y), w - right);
         let _ = writeln!(
             s,
-            r##"<text x="{}" y="{}" text-anchor="end">{y:.3}</text><text x="{}" y="{}" text-anchor="middle">{x:.0}</text>"##,
-            left - 6.0,
-            py(y) + 4.0,
+            r##"<line x1="{left}" x2="{gx}" y1="{gy:.1}" y2="{gy:.1}" stroke="#e4e4e4"/><text x="{tx}" y="{ty:.1}" text-anchor="end">{y:.2}</text>"##
+        );
+    }
+    for x in nice_ticks(x0, x1) {
+        let _ = writeln!(
+            s,
+            r##"<text x="{}" y="{}" text-anchor="middle">{x:.0}</text>"##,
             px(x),
             h - bottom + 16.0
         );
@@ -132,4 +135,39 @@ pub fn svg(
     );
     s.push_str("</svg>\n");
     s
+}
+
+/// Round tick values (1, 2 or 5 × 10ⁿ apart, about five of them) inside `[lo, hi]`.
+fn nice_ticks(lo: f64, hi: f64) -> Vec<f64> {
+    let span = hi - lo;
+    if !(span.is_finite() && span > 0.0) {
+        return Vec::new();
+    }
+    let raw = span / 5.0;
+    let mag = 10f64.powf(raw.log10().floor());
+    let step = [1.0, 2.0, 5.0, 10.0]
+        .iter()
+        .map(|m| m * mag)
+        .find(|s| *s >= raw)
+        .unwrap_or(10.0 * mag);
+    let first = (lo / step).ceil() as i64;
+    let last = (hi / step).floor() as i64;
+    (first..=last).map(|i| i as f64 * step).collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn ticks_are_round() {
+        assert_eq!(nice_ticks(400.0, 1000.0), vec![400.0, 600.0, 800.0, 1000.0]);
+        let t = nice_ticks(-0.03, 0.72);
+        assert_eq!(t.len(), 4);
+        assert!(
+            (t[0] - 0.0).abs() < 1e-12 && (t[3] - 0.6).abs() < 1e-12,
+            "{t:?}"
+        );
+        assert!(nice_ticks(1.0, 1.0).is_empty());
+    }
 }

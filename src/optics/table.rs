@@ -75,13 +75,7 @@ impl NkTable {
         let mut header_seen = false;
         let mut rows = Vec::new();
         let mut lines = Vec::new();
-        for (i, raw) in text.lines().enumerate() {
-            let line = i + 1;
-            let t = raw.trim().trim_start_matches('\u{feff}');
-            if t.is_empty() || t.starts_with('#') {
-                continue;
-            }
-            let cells: Vec<&str> = t.split(',').map(str::trim).collect();
+        for (line, t, cells) in csv_records(text) {
             if !header_seen {
                 let names: Vec<String> = cells.iter().map(|c| c.to_lowercase()).collect();
                 if names != ["wavelength_nm", "n", "k"] {
@@ -138,6 +132,17 @@ impl NkTable {
             self.k.eval(wavelength_nm).max(0.0),
         )
     }
+}
+
+/// The records of a small CSV text as `(line number, trimmed line, trimmed cells)`, skipping
+/// blank and `#` comment lines and a leading byte-order mark (the rules every isopach CSV
+/// input follows).
+pub fn csv_records(text: &str) -> impl Iterator<Item = (usize, &str, Vec<&str>)> {
+    text.lines().enumerate().filter_map(|(i, raw)| {
+        let t = raw.trim().trim_start_matches('\u{feff}');
+        (!t.is_empty() && !t.starts_with('#'))
+            .then(|| (i + 1, t, t.split(',').map(str::trim).collect()))
+    })
 }
 
 /// Rows of a refractiveindex.info `tabulated nk` block (wavelength in µm) as nm rows, with

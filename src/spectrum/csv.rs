@@ -4,6 +4,7 @@
 
 use super::saturation::clipped_pixels;
 use super::{Counts, RawSpectrum, Spectrum, SpectrumError};
+use crate::optics::table::csv_records;
 use std::io::{self, Write};
 use std::path::Path;
 
@@ -40,13 +41,7 @@ pub fn parse_csv(text: &str, path: &Path) -> Result<SpectrumFile, SpectrumError>
     let mut columns: Option<usize> = None;
     let mut rows: Vec<Vec<f64>> = Vec::new();
     let mut lines: Vec<usize> = Vec::new();
-    for (i, raw) in text.lines().enumerate() {
-        let line = i + 1;
-        let t = raw.trim().trim_start_matches('\u{feff}');
-        if t.is_empty() || t.starts_with('#') {
-            continue;
-        }
-        let cells: Vec<&str> = t.split(',').map(str::trim).collect();
+    for (line, t, cells) in csv_records(text) {
         let Some(ncol) = columns else {
             let names: Vec<String> = cells.iter().map(|c| c.to_lowercase()).collect();
             columns = Some(match names.iter().map(String::as_str).collect::<Vec<_>>()[..] {

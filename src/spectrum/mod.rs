@@ -107,7 +107,7 @@ impl Spectrum {
             )));
         }
         for (i, (w, r)) in self.wavelength_nm.iter().zip(&self.reflectance).enumerate() {
-            if !(w.is_finite() && *w > 0.0) || !r.is_finite() {
+            if !(w.is_finite() && *w > 0.0 && r.is_finite()) {
                 return Err(SpectrumError::Invalid(format!(
                     "pixel {i}: wavelength {w} nm, reflectance {r} is not a finite value"
                 )));

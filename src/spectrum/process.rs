@@ -37,9 +37,9 @@ pub fn savitzky_golay(values: &[f64], half: usize) -> Vec<f64> {
     };
     let w = 2 * half + 1;
     let head: Vec<usize> = (0..half).collect();
-    fit_end(&values[..w].to_vec(), &head, &mut out, 0);
+    fit_end(&values[..w], &head, &mut out, 0);
     let tail: Vec<usize> = (n - half..n).collect();
-    fit_end(&values[n - w..].to_vec(), &tail, &mut out, n - w);
+    fit_end(&values[n - w..], &tail, &mut out, n - w);
     out
 }
 
