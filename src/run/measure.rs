@@ -28,10 +28,13 @@ pub enum Which {
     Sites(Vec<usize>),
 }
 
+/// Asks before the first motion of a real stage, given its port; an error aborts the session.
+pub type Confirm = Box<dyn FnOnce(&str) -> anyhow::Result<()> + Send>;
+
 /// The human side of a session.
 pub struct Hooks {
-    /// Called once before the first motion of a real stage, with the port; an error aborts.
-    pub confirm: Box<dyn FnOnce(&str) -> anyhow::Result<()> + Send>,
+    /// Called once before the first motion of a real stage.
+    pub confirm: Confirm,
     /// Asks the operator for a hand step (placing the reference); `None` makes it an error.
     pub prompt: Option<Prompt>,
     /// Where progress goes.
