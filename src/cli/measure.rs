@@ -114,7 +114,7 @@ fn print(folder: &RunFolder, meta: &RunToml, report: Report) -> u8 {
         .filter(|s| !s.is_valid())
         .map(|s| s.site.number.to_string())
         .collect();
-    if !bad.is_empty() {
+    if !bad.is_empty() && matches!(report.outcome, Outcome::Finished) {
         println!(
             "  sites without a valid result: {} (isopach remeasure {} --failed)",
             bad.join(", "),
