@@ -315,3 +315,43 @@ fn history_survives_a_kill_mid_rebuild() {
         );
     }
 }
+
+#[test]
+fn sheet_puts_every_map_on_one_colour_scale() {
+    let dir = tempfile::tempdir().unwrap();
+    let a = make_run(
+        dir.path(),
+        "S1",
+        "oxide-150-49.toml",
+        "2026-12-01T08:00:00+00:00",
+        |x, _| 1000.0 + 0.1 * x,
+    );
+    let b = make_run(
+        dir.path(),
+        "S2",
+        "oxide-150-49.toml",
+        "2026-12-01T09:00:00+00:00",
+        |x, _| 1030.0 + 0.1 * x,
+    );
+    let sheet = dir.path().join("sheet.svg");
+    let o = isopach(&[
+        "compare",
+        a.to_str().unwrap(),
+        b.to_str().unwrap(),
+        "--sheet",
+        sheet.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let text = std::fs::read_to_string(&sheet).unwrap();
+    let doc = roxmltree::Document::parse(&text).expect("sheet SVG parses");
+    let outlines = doc
+        .descendants()
+        .filter(|n| n.attribute("class").is_some_and(|c| c.contains("outline")))
+        .count();
+    assert!(outlines >= 2, "one wafer outline per map, got {outlines}");
+    // S1 spans about 993–1007 nm and S2 1023–1037 nm: only on a common scale does each colour
+    // bar carry both the 1000 and the 1030 tick.
+    assert!(text.contains("S1") && text.contains("S2"));
+    let tick = |t: &str| text.matches(&format!(">{t}<")).count();
+    assert!(tick("1000") >= 2 && tick("1030") >= 2, "common scale ticks");
+}

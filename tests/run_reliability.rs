@@ -381,3 +381,61 @@ fn remeasure_changes_that_site_only_and_refit_moves_nothing() {
     assert!(!o.status.success());
     assert!(String::from_utf8_lossy(&o.stderr).contains("[wafer] differs"));
 }
+
+#[test]
+fn ctrl_c_stops_the_stage_keeps_the_data_and_resume_finishes() {
+    let (dir, recipe, machine) = bench_dir("");
+    let runs = dir.path().join("runs");
+    let child = Command::new(env!("CARGO_BIN_EXE_isopach"))
+        .args([
+            "run",
+            recipe.to_str().unwrap(),
+            "--machine",
+            machine.to_str().unwrap(),
+            "--wafer",
+            "INT",
+            "--runs",
+            runs.to_str().unwrap(),
+        ])
+        .stdout(Stdio::null())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    // Wait until the first site is journalled, then press Ctrl-C (SIGINT).
+    let deadline = Instant::now() + Duration::from_secs(60);
+    loop {
+        let measured = std::fs::read_dir(&runs)
+            .ok()
+            .and_then(|mut d| d.next())
+            .and_then(|e| std::fs::read_to_string(e.ok()?.path().join("journal.jsonl")).ok())
+            .is_some_and(|j| j.contains("site-measured"));
+        if measured || Instant::now() > deadline {
+            break;
+        }
+        std::thread::sleep(Duration::from_millis(5));
+    }
+    let pid = child.id().to_string();
+    assert!(Command::new("kill")
+        .args(["-INT", &pid])
+        .status()
+        .unwrap()
+        .success());
+    let out = child.wait_with_output().unwrap();
+    let err = String::from_utf8_lossy(&out.stderr);
+    let run = only_run(&runs);
+    let ev = events(&run);
+    if out.status.code() == Some(0) {
+        // The run finished before the signal arrived: nothing to stop.
+        assert!(matches!(ev.last(), Some(Event::RunFinished { .. })));
+        return;
+    }
+    assert_eq!(out.status.code(), Some(130), "{err}");
+    assert!(err.contains("isopach resume"), "{err}");
+    assert!(
+        matches!(ev.last(), Some(Event::RunStopped { reason, .. }) if reason.contains("Ctrl-C"))
+    );
+    sites_once(&run, 9);
+    let o = isopach(&["resume", run.to_str().unwrap()]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(sites_once(&run, 9).iter().all(|(_, f)| f == "ok"));
+}

@@ -7,7 +7,7 @@
 //! [`crate::recipe::locate`]). Every firmware-specific line lives here, never in code.
 
 use crate::recipe::locate;
-use crate::recipe::validate::{KeyPath, Problem};
+use crate::recipe::validate::{Problem, Report};
 use crate::recipe::Located;
 use serde::{Deserialize, Serialize};
 use std::path::{Path, PathBuf};
@@ -364,6 +364,10 @@ pub struct SimWaferSpec {
     /// Random short-range roughness, 1σ nm (a seeded smooth noise field).
     #[serde(default = "d_roughness")]
     pub roughness_nm: f64,
+    /// Wafer-to-wafer spread of the mean thickness, 1σ in % of nominal (drawn from the seed,
+    /// so each simulated wafer of a lot comes out a little thicker or thinner).
+    #[serde(default = "d_wafer_to_wafer")]
+    pub wafer_to_wafer_pct: f64,
     /// Complex index `[n, k]` of the chuck seen beyond the wafer edge (default: a steel-like
     /// metal, n ≈ 2.8, k ≈ 3.4 near 600 nm, from memory).
     #[serde(default = "d_chuck_nk")]
@@ -381,6 +385,7 @@ impl Default for SimWaferSpec {
             edge_bead_width_mm: d_edge_bead_width(),
             tilt_nm_per_mm: d_tilt(),
             roughness_nm: d_roughness(),
+            wafer_to_wafer_pct: d_wafer_to_wafer(),
             chuck_nk: d_chuck_nk(),
         }
     }
@@ -536,6 +541,9 @@ fn d_tilt() -> [f64; 2] {
 fn d_roughness() -> f64 {
     0.3
 }
+fn d_wafer_to_wafer() -> f64 {
+    0.3
+}
 fn d_chuck_nk() -> [f64; 2] {
     [2.8, 3.4]
 }
@@ -575,16 +583,8 @@ pub enum MachineError {
         path: PathBuf,
         source: std::io::Error,
     },
-    #[error("{}", list(.0))]
+    #[error("{}", locate::join(.0))]
     Invalid(Vec<Located>),
-}
-
-fn list(problems: &[Located]) -> String {
-    problems
-        .iter()
-        .map(|p| p.to_string())
-        .collect::<Vec<_>>()
-        .join("\n")
 }
 
 /// A machine file read from disk, with its text (frozen into run folders).
@@ -610,55 +610,7 @@ pub fn load(path: &Path) -> Result<LoadedMachine, MachineError> {
 
 /// Parses and validates machine-file text; `path` is used in messages.
 pub fn parse(text: &str, path: &Path) -> Result<MachineFile, MachineError> {
-    let machine: MachineFile = toml::from_str(text).map_err(|e| {
-        let lc = locate::line_col(text, e.span().map(|s| s.start).unwrap_or(0));
-        MachineError::Invalid(vec![Located {
-            file: path.into(),
-            line: lc.line,
-            col: lc.col,
-            message: e.message().trim().to_string(),
-        }])
-    })?;
-    let mut problems: Vec<Located> = validate(&machine)
-        .into_iter()
-        .map(|p| {
-            let lc = locate::locate(text, &p.path).unwrap_or(locate::LineCol { line: 1, col: 1 });
-            Located {
-                file: path.into(),
-                line: lc.line,
-                col: lc.col,
-                message: format!("{}: {}", p.path, p.message),
-            }
-        })
-        .collect();
-    if problems.is_empty() {
-        Ok(machine)
-    } else {
-        problems.sort_by_key(|p| (p.line, p.col));
-        Err(MachineError::Invalid(problems))
-    }
-}
-
-/// Collects problems with their key paths.
-#[derive(Default)]
-struct Report(Vec<Problem>);
-
-impl Report {
-    fn at(&mut self, path: &str, message: impl Into<String>) {
-        self.0.push(Problem {
-            path: KeyPath::parse(path),
-            message: message.into(),
-        });
-    }
-    /// `value` must be finite and inside `[lo, hi]`.
-    fn range(&mut self, path: &str, value: f64, lo: f64, hi: f64, unit: &str) {
-        if !(value >= lo && value <= hi) {
-            self.at(
-                path,
-                format!("{value} {unit} is outside [{lo}, {hi}] {unit}"),
-            );
-        }
-    }
+    locate::parse_validated(text, path, validate).map_err(MachineError::Invalid)
 }
 
 /// Validates a machine file; an empty list means it is good.
@@ -862,6 +814,13 @@ fn check_simulation(s: &SimulationSpec, r: &mut Report) {
         0.0,
         1e3,
         "nm",
+    );
+    r.range(
+        "simulation.wafer.wafer_to_wafer_pct",
+        w.wafer_to_wafer_pct,
+        0.0,
+        50.0,
+        "%",
     );
     if !(w.chuck_nk[0] >= 0.0 && w.chuck_nk[1] >= 0.0 && w.chuck_nk[0] + w.chuck_nk[1] > 0.0) {
         r.at(

@@ -1,42 +1,14 @@
-//! The measuring session shared by `run`, `resume` and `remeasure`: open the bench, check the
-//! plan against the soft limits, confirm real motion, measure with a progress bar, stop cleanly
-//! on Ctrl-C, rebuild the derived files.
+//! The CLI side of a measuring session (`run`, `resume`, `remeasure`): the confirmation before
+//! real motion, the progress bar, Ctrl-C, and the printed outcome. The session itself is
+//! `isopach::run::measure::session`.
 
 use super::safety::{confirm_motion, wait_for_operator};
-use anyhow::Context;
 use indicatif::{ProgressBar, ProgressStyle};
-use isopach::bench::{Bench, MachineFile};
-use isopach::fit::Fitter;
-use isopach::recipe::Site;
-use isopach::run::derive::{self, planned_sites};
-use isopach::run::events::{now, Event};
 use isopach::run::folder::{RunFolder, RunToml};
-use isopach::run::plan;
-use isopach::run::refit::fit_stored;
-use isopach::run::sequencer::{Outcome, Progress, Sequencer};
-use isopach::run::session::loaded_recipe;
-use std::collections::BTreeMap;
-use std::sync::Arc;
+use isopach::run::measure::{self, Hooks, Report};
+use isopach::run::sequencer::{Outcome, Progress};
 
-/// Which sites a session measures.
-#[derive(Debug, Clone)]
-pub enum Which {
-    /// Every planned site without a valid result (a new run, or `resume`).
-    Missing,
-    /// These site numbers (`remeasure --site`).
-    Sites(Vec<usize>),
-}
-
-/// The machine file frozen in a run (`None`: the built-in simulated bench).
-pub fn machine_of(meta: &RunToml) -> anyhow::Result<Option<MachineFile>> {
-    meta.machine
-        .clone()
-        .map(|t| {
-            t.try_into()
-                .context("the machine file frozen in run.toml does not parse")
-        })
-        .transpose()
-}
+pub use isopach::run::measure::Which;
 
 /// Runs one measuring session on the run in `folder`; returns the exit code.
 pub fn session(
@@ -46,177 +18,85 @@ pub fn session(
     assume_yes: bool,
     command: &str,
 ) -> anyhow::Result<u8> {
+    log_to(&folder);
     let runtime = tokio::runtime::Builder::new_multi_thread()
         .enable_all()
         .build()?;
-    runtime.block_on(session_async(folder, meta, which, assume_yes, command))
+    let report = runtime.block_on(async {
+        let (cancel_tx, cancel_rx) = tokio::sync::watch::channel(false);
+        tokio::spawn(async move {
+            if tokio::signal::ctrl_c().await.is_ok() {
+                eprintln!("\nCtrl-C: stopping the stage and saving what was measured…");
+                let _ = cancel_tx.send(true);
+            }
+        });
+        let bar = ProgressBar::new(0);
+        bar.set_style(
+            ProgressStyle::with_template("{spinner} site {pos}/{len} [{bar:30}] ETA {eta} {msg}")
+                .unwrap_or_else(|_| ProgressStyle::default_bar())
+                .progress_chars("=> "),
+        );
+        let pb = bar.clone();
+        let hooks = Hooks {
+            confirm: Box::new(move |port| confirm_motion(port, assume_yes)),
+            prompt: Some(Box::new(wait_for_operator)),
+            progress: Box::new(move |p| match p {
+                Progress::Pass { sites, .. } => {
+                    pb.set_length(pb.length().unwrap_or(0) + sites as u64)
+                }
+                Progress::Site {
+                    site,
+                    thickness_nm,
+                    valid,
+                    flag,
+                    ..
+                } => {
+                    pb.inc(1);
+                    pb.set_message(if valid {
+                        format!("site {site}: {thickness_nm:.1} nm")
+                    } else {
+                        format!("site {site}: {flag}")
+                    });
+                }
+                Progress::Note(n) => pb.println(n),
+            }),
+            cancel: cancel_rx,
+        };
+        let report = measure::session(&folder, &meta, &which, command, hooks).await;
+        bar.finish_and_clear();
+        report
+    })?;
+    Ok(print(&folder, &meta, report))
 }
 
-async fn session_async(
-    folder: RunFolder,
-    meta: RunToml,
-    which: Which,
-    assume_yes: bool,
-    command: &str,
-) -> anyhow::Result<u8> {
-    let loaded = loaded_recipe(&folder, &meta);
-    let fitter = Arc::new(Fitter::from_recipe(&loaded)?);
-    for w in fitter.warnings() {
+/// Sends the library's tracing log to `log.txt` in the run folder (appended per session).
+fn log_to(folder: &RunFolder) {
+    let Ok(file) = std::fs::OpenOptions::new()
+        .create(true)
+        .append(true)
+        .open(folder.root.join("log.txt"))
+    else {
+        return;
+    };
+    let _ = tracing_subscriber::fmt()
+        .with_writer(std::sync::Mutex::new(file))
+        .with_ansi(false)
+        .with_env_filter(
+            tracing_subscriber::EnvFilter::try_from_env("ISOPACH_LOG")
+                .unwrap_or_else(|_| "info".into()),
+        )
+        .try_init();
+}
+
+/// Prints the outcome and figures; returns the exit code.
+fn print(folder: &RunFolder, meta: &RunToml, report: Report) -> u8 {
+    let f = &report.summary.first;
+    for w in &report.warnings {
         eprintln!("warning: {w}");
     }
-    let machine = machine_of(&meta)?;
-    let plan_sites = plan::order(&meta.recipe.pattern, &planned_sites(&meta));
-    let (_, states) = derive::read_states(&folder, &meta)?;
-    let valid: BTreeMap<usize, bool> = states
-        .iter()
-        .map(|s| (s.site.number, s.is_valid()))
-        .collect();
-    let mut next: BTreeMap<usize, u32> = states
-        .iter()
-        .map(|s| (s.site.number, s.next_attempt()))
-        .collect();
-    let todo: Vec<Site> = match &which {
-        Which::Missing => plan_sites
-            .iter()
-            .filter(|s| !valid.get(&s.number).copied().unwrap_or(false))
-            .copied()
-            .collect(),
-        Which::Sites(n) => plan_sites
-            .iter()
-            .filter(|s| n.contains(&s.number))
-            .copied()
-            .collect(),
-    };
-    let (cancel_tx, cancel_rx) = tokio::sync::watch::channel(false);
-    let mut seq = Sequencer::new(
-        folder.clone(),
-        &meta,
-        fitter.clone(),
-        reference_material(&machine),
-        cancel_rx,
-    )?;
-    seq.log(&Event::RunStarted {
-        time: now(),
-        command: command.to_string(),
-        sites_planned: plan_sites.len(),
-    })?;
-    refit_unfitted(&mut seq, &folder, &states, &fitter, &meta, &machine)?;
-    if todo.is_empty() {
-        eprintln!("every planned site already has a valid result: nothing to measure");
-        return finish(&folder, &meta, &mut seq, Outcome::Finished);
+    if report.measured == 0 {
+        eprintln!("every site asked for already has a valid result: nothing to measure");
     }
-    let mut bench = Bench::open(machine.as_ref(), &loaded, meta.run.seed).await?;
-    bench.check_plan(&todo)?;
-    if !bench.is_simulated() {
-        confirm_motion(&bench.stage.describe(), assume_yes)?;
-    }
-    tokio::spawn(async move {
-        if tokio::signal::ctrl_c().await.is_ok() {
-            eprintln!("\nCtrl-C: stopping the stage and saving what was measured…");
-            let _ = cancel_tx.send(true);
-        }
-    });
-    let bar = ProgressBar::new(todo.len() as u64);
-    bar.set_style(
-        ProgressStyle::with_template("{spinner} site {pos}/{len} [{bar:30}] ETA {eta} {msg}")
-            .unwrap_or_else(|_| ProgressStyle::default_bar())
-            .progress_chars("=> "),
-    );
-    let pb = bar.clone();
-    let mut seq = seq.on_progress(move |p| match p {
-        Progress::Pass { pass, sites } if pass > 0 => {
-            pb.set_length(pb.length().unwrap_or(0) + sites as u64);
-        }
-        Progress::Pass { .. } => {}
-        Progress::Site {
-            site,
-            thickness_nm,
-            valid,
-            flag,
-            ..
-        } => {
-            pb.inc(1);
-            pb.set_message(if valid {
-                format!("site {site}: {thickness_nm:.1} nm")
-            } else {
-                format!("site {site}: {flag}")
-            });
-        }
-        Progress::Note(n) => pb.println(n),
-    });
-    if !bench.is_simulated() {
-        seq = seq.with_prompt(Box::new(wait_for_operator));
-    }
-    let outcome = match seq.prepare(&mut bench).await {
-        Ok(()) => {
-            seq.measure(&mut bench, &todo, |site| {
-                let n = next.entry(site).or_insert(1);
-                *n += 1;
-                *n - 1
-            })
-            .await
-        }
-        Err(e) => Outcome::Failed(e),
-    };
-    bar.finish_and_clear();
-    finish(&folder, &meta, &mut seq, outcome)
-}
-
-/// The material the reference spectrum is taken on.
-pub fn reference_material(machine: &Option<MachineFile>) -> String {
-    machine
-        .as_ref()
-        .map(|m| m.reference.material.clone())
-        .unwrap_or_else(|| {
-            isopach::bench::machine::builtin_simulated()
-                .reference
-                .material
-        })
-}
-
-/// Fits spectra that were stored but not fitted before a stop (no motion needed).
-fn refit_unfitted(
-    seq: &mut Sequencer,
-    folder: &RunFolder,
-    states: &[isopach::run::events::SiteState],
-    fitter: &Fitter,
-    meta: &RunToml,
-    machine: &Option<MachineFile>,
-) -> anyhow::Result<()> {
-    let material = reference_material(machine);
-    for s in states {
-        for a in s.unfitted() {
-            let Some(rel) = &a.spectrum else { continue };
-            let event = fit_stored(
-                folder,
-                s.site.number,
-                a.attempt,
-                rel,
-                fitter,
-                &material,
-                &meta.recipe.accept,
-            );
-            seq.log(&event)?;
-        }
-    }
-    Ok(())
-}
-
-/// Journals the end, rebuilds the derived files and prints the outcome.
-fn finish(
-    folder: &RunFolder,
-    meta: &RunToml,
-    seq: &mut Sequencer,
-    outcome: Outcome,
-) -> anyhow::Result<u8> {
-    let (_, states) = derive::read_states(folder, meta)?;
-    let all_valid = states.iter().all(|s| s.is_valid());
-    let all_tried = states.iter().all(|s| !s.attempts.is_empty());
-    if matches!(outcome, Outcome::Finished) && all_tried {
-        seq.log(&Event::RunFinished { time: now() })?;
-    }
-    let summary = derive::rebuild(folder)?;
-    let f = &summary.first;
     println!("run {}: {}", meta.run.id, folder.root.display());
     println!(
         "  {} of {} sites valid; mean {:.2} nm, 1σ {:.2} nm ({:.2} %), range {:.2} nm ({:.2} %)",
@@ -228,12 +108,13 @@ fn finish(
         f.range_nm,
         f.nu_range_pct
     );
-    if !all_valid {
-        let bad: Vec<String> = states
-            .iter()
-            .filter(|s| !s.is_valid())
-            .map(|s| s.site.number.to_string())
-            .collect();
+    let bad: Vec<String> = report
+        .states
+        .iter()
+        .filter(|s| !s.is_valid())
+        .map(|s| s.site.number.to_string())
+        .collect();
+    if !bad.is_empty() && matches!(report.outcome, Outcome::Finished) {
         println!(
             "  sites without a valid result: {} (isopach remeasure {} --failed)",
             bad.join(", "),
@@ -241,31 +122,35 @@ fn finish(
         );
     }
     if let Some([lo, hi]) = meta.recipe.accept.spec_nm {
-        let out: Vec<String> = states
+        let out: Vec<String> = report
+            .states
             .iter()
+            .filter(|s| s.is_valid())
             .filter_map(|s| {
                 let fit = s.best()?.fit.as_ref()?;
-                (s.is_valid()
-                    && isopach::run::events::in_spec(fit, &meta.recipe.accept) == Some(false))
-                .then(|| s.site.number.to_string())
+                (isopach::run::events::in_spec(fit, &meta.recipe.accept) == Some(false))
+                    .then(|| s.site.number.to_string())
             })
             .collect();
         if !out.is_empty() {
             println!("  out of spec [{lo}, {hi}] nm: site {}", out.join(", "));
         }
     }
-    match outcome {
-        Outcome::Finished => Ok(super::exit::OK),
+    match report.outcome {
+        Outcome::Finished => super::exit::OK,
         Outcome::Interrupted => {
             eprintln!(
                 "stopped; resume with: isopach resume {}",
                 folder.root.display()
             );
-            Ok(super::exit::INTERRUPTED)
+            super::exit::INTERRUPTED
         }
         Outcome::Failed(e) => {
-            eprintln!("run stopped: {e:#}\nthe measurements so far are kept; after fixing the cause: isopach resume {}", folder.root.display());
-            Ok(super::exit::FAILED)
+            eprintln!(
+                "run stopped: {e:#}\nthe measurements so far are kept; after fixing the cause: isopach resume {}",
+                folder.root.display()
+            );
+            super::exit::FAILED
         }
     }
 }

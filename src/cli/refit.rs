@@ -1,12 +1,12 @@
 //! `isopach refit RUN [--recipe R]`: fit the stored spectra again, no stage motion.
 
-use super::measure::{machine_of, reference_material};
 use anyhow::Context;
 use indicatif::ProgressBar;
 use isopach::recipe;
 use isopach::run::events::{now, Event};
 use isopach::run::folder::RunFolder;
 use isopach::run::journal::Journal;
+use isopach::run::measure::{machine_of, reference_material};
 use isopach::run::{derive, refit, session};
 use std::path::PathBuf;
 

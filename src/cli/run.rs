@@ -111,15 +111,9 @@ fn dry_run(
     }
     let a = &loaded.recipe.acquire;
     let per_site = (a.settle_ms + a.integration_ms * a.averages as f64) / 1000.0;
-    let secs = plan::duration_lower_bound_s(
-        (0.0, 0.0),
-        &sites,
-        m.stage.feed_mm_min,
-        m.stage.accel_mm_s2,
-        per_site,
-    );
+    let secs = plan::duration_estimate_s(&sites, a, &m);
     println!(
-        "{} sites, path {:.1} mm from the wafer centre, at least {:.1} s ({}: feed {} mm/min, accel {} mm/s², {:.0} ms per site)",
+        "{} sites, path {:.1} mm from the wafer centre, at least {:.1} s from the stage's home corner ({}: feed {} mm/min, accel {} mm/s², {:.0} ms per site)",
         sites.len(),
         plan::path_length((0.0, 0.0), &sites),
         secs,

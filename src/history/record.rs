@@ -4,9 +4,9 @@ use super::db::{History, HistoryError, LayerRecord, RunRecord, SiteRecord};
 use crate::compare::WaferRun;
 use std::path::{Path, PathBuf};
 
-/// The history database of a runs folder.
+/// The history database of a runs folder (a dot file, so `runs/*` lists only run folders).
 pub fn db_path(runs_dir: &Path) -> PathBuf {
-    runs_dir.join("history.sqlite")
+    runs_dir.join(".history.sqlite")
 }
 
 /// The history record of a run read back from its folder.

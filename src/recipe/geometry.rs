@@ -197,18 +197,21 @@ impl Wafer {
     }
 }
 
+/// A wafer with its mark at 270°, for tests.
+#[cfg(test)]
+pub(crate) fn test_wafer(d: f64, e: f64, o: OrientationKind) -> Wafer {
+    Wafer::from_spec(&WaferSpec {
+        diameter_mm: d,
+        edge_exclusion_mm: e,
+        orientation: o,
+        orientation_angle_deg: 270.0,
+    })
+}
+
 #[cfg(test)]
 mod tests {
+    use super::test_wafer as wafer;
     use super::*;
-
-    fn wafer(d: f64, e: f64, o: OrientationKind) -> Wafer {
-        Wafer::from_spec(&WaferSpec {
-            diameter_mm: d,
-            edge_exclusion_mm: e,
-            orientation: o,
-            orientation_angle_deg: 270.0,
-        })
-    }
 
     #[test]
     fn flat_length_follows_semi_m1_for_150_mm() {

@@ -1,7 +1,80 @@
 //! Turns key paths and byte offsets into file positions (line and column, 1-based).
 
-use super::validate::{KeyPath, Seg};
+use super::validate::{KeyPath, Problem, Seg};
+use serde::de::DeserializeOwned;
+use std::fmt;
+use std::path::{Path, PathBuf};
 use toml::de::{DeTable, DeValue};
+
+/// A problem located in a file: `FILE:LINE:COL: message`.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Located {
+    pub file: PathBuf,
+    pub line: usize,
+    pub col: usize,
+    pub message: String,
+}
+
+impl fmt::Display for Located {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(
+            f,
+            "{}:{}:{}: {}",
+            self.file.display(),
+            self.line,
+            self.col,
+            self.message
+        )
+    }
+}
+
+/// Located problems, one per line.
+pub fn join(problems: &[Located]) -> String {
+    problems
+        .iter()
+        .map(|p| p.to_string())
+        .collect::<Vec<_>>()
+        .join("\n")
+}
+
+/// A validation problem placed in `text` (read from `file`), its key path in the message.
+pub fn place(text: &str, file: &Path, problem: &Problem) -> Located {
+    let lc = locate(text, &problem.path).unwrap_or(LineCol { line: 1, col: 1 });
+    Located {
+        file: file.into(),
+        line: lc.line,
+        col: lc.col,
+        message: format!("{}: {}", problem.path, problem.message),
+    }
+}
+
+/// Parses TOML `text` into `T` (a syntax or schema error is one located problem) and runs
+/// `validate` on it; every problem comes back with its position, sorted.
+pub fn parse_validated<T: DeserializeOwned>(
+    text: &str,
+    file: &Path,
+    validate: impl Fn(&T) -> Vec<Problem>,
+) -> Result<T, Vec<Located>> {
+    let value: T = toml::from_str(text).map_err(|e| {
+        let lc = line_col(text, e.span().map(|s| s.start).unwrap_or(0));
+        vec![Located {
+            file: file.into(),
+            line: lc.line,
+            col: lc.col,
+            message: e.message().trim().to_string(),
+        }]
+    })?;
+    let mut problems: Vec<Located> = validate(&value)
+        .iter()
+        .map(|p| place(text, file, p))
+        .collect();
+    if problems.is_empty() {
+        Ok(value)
+    } else {
+        problems.sort_by_key(|p| (p.line, p.col));
+        Err(problems)
+    }
+}
 
 /// A 1-based line and column in a text.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]

@@ -8,33 +8,11 @@ pub mod schema;
 pub mod validate;
 
 pub use geometry::Wafer;
+pub use locate::Located;
 pub use pattern::Site;
 pub use schema::Recipe;
 
-use std::fmt;
 use std::path::{Path, PathBuf};
-
-/// A problem located in a file: `FILE:LINE:COL: message`.
-#[derive(Debug, Clone, PartialEq)]
-pub struct Located {
-    pub file: PathBuf,
-    pub line: usize,
-    pub col: usize,
-    pub message: String,
-}
-
-impl fmt::Display for Located {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        write!(
-            f,
-            "{}:{}:{}: {}",
-            self.file.display(),
-            self.line,
-            self.col,
-            self.message
-        )
-    }
-}
 
 /// Why a recipe could not be loaded.
 #[derive(Debug, thiserror::Error)]
@@ -44,16 +22,8 @@ pub enum RecipeError {
         path: PathBuf,
         source: std::io::Error,
     },
-    #[error("{}", list(.0))]
+    #[error("{}", locate::join(.0))]
     Invalid(Vec<Located>),
-}
-
-fn list(problems: &[Located]) -> String {
-    problems
-        .iter()
-        .map(|p| p.to_string())
-        .collect::<Vec<_>>()
-        .join("\n")
 }
 
 /// A recipe read from a file, with where it came from.
@@ -97,56 +67,21 @@ pub fn load(path: &Path) -> Result<LoadedRecipe, RecipeError> {
 
 /// Parses and validates recipe text; `path` is used in messages and to find table files.
 pub fn parse(text: &str, path: &Path) -> Result<Recipe, RecipeError> {
-    let at = |offset: usize, message: String| {
-        let lc = locate::line_col(text, offset);
-        Located {
-            file: path.into(),
-            line: lc.line,
-            col: lc.col,
-            message,
-        }
-    };
-    let recipe: Recipe = match toml::from_str(text) {
-        Ok(r) => r,
-        Err(e) => {
-            let offset = e.span().map(|s| s.start).unwrap_or(0);
-            return Err(RecipeError::Invalid(vec![at(
-                offset,
-                e.message().trim().to_string(),
-            )]));
-        }
-    };
-    let mut problems: Vec<Located> = validate::validate(&recipe)
-        .into_iter()
-        .map(|p| {
-            let lc = locate::locate(text, &p.path).unwrap_or(locate::LineCol { line: 1, col: 1 });
-            Located {
-                file: path.into(),
-                line: lc.line,
-                col: lc.col,
-                message: format!("{}: {}", p.path, p.message),
-            }
-        })
-        .collect();
     let dir = path.parent().unwrap_or(Path::new("."));
-    for (name, spec) in &recipe.materials {
-        if let schema::MaterialSpec::Table { file } = spec {
-            if !file.trim().is_empty() && !dir.join(file).is_file() {
-                let key = validate::KeyPath::parse(&format!("materials.{name}.file"));
-                let lc = locate::locate(text, &key).unwrap_or(locate::LineCol { line: 1, col: 1 });
-                problems.push(Located {
-                    file: path.into(),
-                    line: lc.line,
-                    col: lc.col,
-                    message: format!("{key}: table file {} not found", dir.join(file).display()),
-                });
+    locate::parse_validated(text, path, |recipe: &Recipe| {
+        let mut problems = validate::validate(recipe);
+        // Table files are the one check that looks outside the text.
+        for (name, spec) in &recipe.materials {
+            if let schema::MaterialSpec::Table { file } = spec {
+                if !file.trim().is_empty() && !dir.join(file).is_file() {
+                    problems.push(validate::Problem {
+                        path: validate::KeyPath::parse(&format!("materials.{name}.file")),
+                        message: format!("table file {} not found", dir.join(file).display()),
+                    });
+                }
             }
         }
-    }
-    if problems.is_empty() {
-        Ok(recipe)
-    } else {
-        problems.sort_by_key(|p| (p.line, p.col));
-        Err(RecipeError::Invalid(problems))
-    }
+        problems
+    })
+    .map_err(RecipeError::Invalid)
 }

@@ -186,16 +186,8 @@ fn grid_points(pitch: f64, offset: [f64; 2], wafer: &Wafer) -> Vec<(f64, f64)> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::recipe::schema::{OrientationKind, WaferSpec};
-
-    fn wafer(d: f64, e: f64, o: OrientationKind) -> Wafer {
-        Wafer::from_spec(&WaferSpec {
-            diameter_mm: d,
-            edge_exclusion_mm: e,
-            orientation: o,
-            orientation_angle_deg: 270.0,
-        })
-    }
+    use crate::recipe::geometry::test_wafer as wafer;
+    use crate::recipe::schema::OrientationKind;
 
     #[test]
     fn standard_49_is_centre_plus_8_16_24_on_even_radii() {

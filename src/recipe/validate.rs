@@ -66,10 +66,21 @@ pub struct Problem {
 
 /// Collects problems with less ceremony.
 #[derive(Default)]
-struct Report(Vec<Problem>);
+pub struct Report(pub Vec<Problem>);
 
 impl Report {
-    fn at(&mut self, path: &str, message: impl Into<String>) {
+    /// Adds a problem unless `value` is finite and inside `[lo, hi]`.
+    pub fn range(&mut self, path: &str, value: f64, lo: f64, hi: f64, unit: &str) {
+        if !(value >= lo && value <= hi) {
+            self.at(
+                path,
+                format!("{value} {unit} is outside [{lo}, {hi}] {unit}"),
+            );
+        }
+    }
+
+    /// Adds a problem at a key path written like `film.layers[0].material`.
+    pub fn at(&mut self, path: &str, message: impl Into<String>) {
         self.0.push(Problem {
             path: KeyPath::parse(path),
             message: message.into(),

@@ -6,6 +6,7 @@ pub mod files;
 pub mod folder;
 pub mod id;
 pub mod journal;
+pub mod measure;
 pub mod plan;
 pub mod refit;
 pub mod sequencer;

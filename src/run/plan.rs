@@ -149,28 +149,69 @@ pub fn path_length(start: (f64, f64), sites: &[Site]) -> f64 {
     total
 }
 
-/// Lower bound of a map's duration, s: trapezoidal moves along the path (feed, acceleration)
-/// plus `per_site_s` (settle + integration × averages) at every site.
-pub fn duration_lower_bound_s(
-    start: (f64, f64),
+/// Every point the stage is commanded to, in stage coordinates, from `start`: each site's
+/// anti-backlash approach point (where one is needed) and the site itself.
+pub fn stage_waypoints(
+    start: [f64; 2],
     sites: &[Site],
+    transform: &crate::bench::chuck::ChuckTransform,
+    approach: &crate::bench::limits::Approach,
+) -> Vec<[f64; 2]> {
+    let mut here = start;
+    let mut out = Vec::new();
+    for s in sites {
+        let target = transform.to_stage(s.x_mm, s.y_mm);
+        for p in approach.moves(Some(here), target) {
+            out.push(p);
+            here = p;
+        }
+    }
+    out
+}
+
+/// Lower bound of a map's duration, s: a trapezoidal move (feed, acceleration) along every leg
+/// from `start` through `waypoints`, plus `per_site_s` (settle + integration × averages) for
+/// each of `sites` sites.
+pub fn duration_lower_bound_s(
+    start: [f64; 2],
+    waypoints: &[[f64; 2]],
     feed_mm_min: f64,
     accel_mm_s2: f64,
+    sites: usize,
     per_site_s: f64,
 ) -> f64 {
-    let mut here = Site {
-        number: 0,
-        x_mm: start.0,
-        y_mm: start.1,
-    };
-    let mut total = 0.0;
-    for s in sites {
-        total += crate::bench::kinematics::Trapezoid::new(dist(&here, s), feed_mm_min, accel_mm_s2)
-            .duration_s()
-            + per_site_s;
-        here = *s;
+    let mut here = start;
+    let mut total = sites as f64 * per_site_s;
+    for p in waypoints {
+        let d = (p[0] - here[0]).hypot(p[1] - here[1]);
+        total += crate::bench::kinematics::Trapezoid::new(d, feed_mm_min, accel_mm_s2).duration_s();
+        here = *p;
     }
     total
+}
+
+/// Lower bound of the duration of measuring `sites` (in measuring order) on a bench, s: from
+/// the stage's home corner through every commanded leg, plus settle and integration × averages
+/// at each site.
+pub fn duration_estimate_s(
+    sites: &[Site],
+    acquire: &crate::recipe::schema::AcquireSpec,
+    machine: &crate::bench::MachineFile,
+) -> f64 {
+    let st = &machine.stage;
+    let transform = crate::bench::chuck::ChuckTransform::from_spec(&machine.chuck);
+    let approach = crate::bench::limits::Approach::from_spec(st);
+    let home = [st.travel_x_mm[0], st.travel_y_mm[0]];
+    let legs = stage_waypoints(home, sites, &transform, &approach);
+    let per_site = (acquire.settle_ms + acquire.integration_ms * acquire.averages as f64) / 1000.0;
+    duration_lower_bound_s(
+        home,
+        &legs,
+        st.feed_mm_min,
+        st.accel_mm_s2,
+        sites.len(),
+        per_site,
+    )
 }
 
 #[cfg(test)]

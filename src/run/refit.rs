@@ -17,6 +17,17 @@ pub fn fit_stored(
     reference_material: &str,
     accept: &AcceptSpec,
 ) -> Event {
+    let fitted = |fit: crate::fit::FitResult| {
+        let (valid, flag) = judge(&fit, accept);
+        Event::SiteFitted {
+            time: now(),
+            site,
+            attempt,
+            fit,
+            valid,
+            flag,
+        }
+    };
     let failed = |reason: String| Event::SiteFailed {
         time: now(),
         site,
@@ -25,31 +36,10 @@ pub fn fit_stored(
     };
     match read_csv(&folder.root.join(rel)) {
         Ok(SpectrumFile::Counts(raw)) => match fitter.fit_raw(&raw, reference_material) {
-            Ok(fit) => {
-                let (valid, flag) = judge(&fit, accept);
-                Event::SiteFitted {
-                    time: now(),
-                    site,
-                    attempt,
-                    fit,
-                    valid,
-                    flag,
-                }
-            }
+            Ok(fit) => fitted(fit),
             Err(e) => failed(e.to_string()),
         },
-        Ok(SpectrumFile::Reflectance(spectrum)) => {
-            let fit = fitter.fit(&spectrum);
-            let (valid, flag) = judge(&fit, accept);
-            Event::SiteFitted {
-                time: now(),
-                site,
-                attempt,
-                fit,
-                valid,
-                flag,
-            }
-        }
+        Ok(SpectrumFile::Reflectance(spectrum)) => fitted(fitter.fit(&spectrum)),
         Err(e) => failed(e.to_string()),
     }
 }

@@ -240,6 +240,7 @@ impl Sequencer {
 
     /// Journals a stop and halts the stage.
     async fn stopped(&mut self, bench: &mut Bench, reason: &str) -> Outcome {
+        tracing::warn!(%reason, "run stopped");
         let _ = bench.stage.stop().await;
         if let Err(e) = self.log(&Event::RunStopped {
             time: now(),
@@ -339,6 +340,7 @@ impl Sequencer {
                     invalid.push(site);
                 }
                 let thickness_nm = fit.thickness_nm();
+                tracing::info!(site, attempt, thickness_nm, gof = fit.gof, %flag, "site fitted");
                 self.log(&Event::SiteFitted {
                     time: now(),
                     site,
@@ -357,6 +359,7 @@ impl Sequencer {
                 });
             }
             Err(reason) => {
+                tracing::warn!(site, attempt, %reason, "site not fitted");
                 invalid.push(site);
                 self.log(&Event::SiteFailed {
                     time: now(),

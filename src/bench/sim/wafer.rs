@@ -2,10 +2,11 @@
 //! stack, rendered through the transfer-matrix model; off the wafer the probe sees the chuck.
 //!
 //! Field, wafer frame, ρ = r / R (R the wafer radius):
-//! `t(x, y) = nominal + centre offset + dome·(½ − ρ²) + ripple·cos(2π r / period)
+//! `t(x, y) = nominal + wafer offset + centre offset + dome·(½ − ρ²) + ripple·cos(2π r / period)
 //!            + bead·exp(−(R − r) / width) + tilt·(x, y) + roughness(x, y)`,
 //! where the dome term averages to zero over the disc (positive = dome, negative = bowl) and
-//! the roughness is a seeded sum of plane waves with 3–15 mm wavelengths and the set 1σ.
+//! the roughness is a seeded sum of plane waves with 3–15 mm wavelengths and the set 1σ; the
+//! wafer offset is drawn once per seed (1σ = `wafer_to_wafer_pct` of nominal).
 
 use crate::bench::machine::SimWaferSpec;
 use crate::optics::{self, Material, MaterialLibrary, OpticsError, Stack};
@@ -30,6 +31,8 @@ pub struct ThicknessField {
     spec: SimWaferSpec,
     /// (kx, ky, phase, amplitude) of each roughness wave.
     waves: Vec<(f64, f64, f64, f64)>,
+    /// This wafer's offset of the mean from nominal (wafer-to-wafer spread), nm.
+    wafer_offset_nm: f64,
 }
 
 impl ThicknessField {
@@ -50,11 +53,13 @@ impl ThicknessField {
                 )
             })
             .collect();
+        let z: f64 = rng.sample(rand_distr::StandardNormal);
         ThicknessField {
             nominal_nm,
             radius_mm,
             spec: spec.clone(),
             waves,
+            wafer_offset_nm: z * spec.wafer_to_wafer_pct / 100.0 * nominal_nm,
         }
     }
 
@@ -70,6 +75,7 @@ impl ThicknessField {
             .map(|(kx, ky, ph, a)| a * (kx * x_mm + ky * y_mm + ph).cos())
             .sum();
         let t = self.nominal_nm
+            + self.wafer_offset_nm
             + s.center_offset_nm
             + s.dome_nm * (0.5 - rho * rho)
             + s.ripple_nm * (2.0 * PI * r / s.ripple_period_mm).cos()
@@ -180,12 +186,30 @@ mod tests {
     use super::*;
 
     #[test]
+    fn wafers_of_a_lot_differ_by_the_set_spread() {
+        let spec = SimWaferSpec {
+            wafer_to_wafer_pct: 1.0,
+            ..SimWaferSpec::default()
+        };
+        let means: Vec<f64> = (0..400)
+            .map(|seed| ThicknessField::new(1000.0, 75.0, &spec, seed).wafer_offset_nm)
+            .collect();
+        let m = means.iter().sum::<f64>() / means.len() as f64;
+        let sd =
+            (means.iter().map(|v| (v - m).powi(2)).sum::<f64>() / (means.len() - 1) as f64).sqrt();
+        // 1 % of 1000 nm = 10 nm; 400 draws put the sample σ within about ±10 % of it.
+        assert!((sd - 10.0).abs() < 1.5, "σ of wafer means {sd}");
+        assert!(m.abs() < 2.0, "mean offset {m}");
+    }
+
+    #[test]
     fn field_terms_do_what_they_say() {
         let mut spec = SimWaferSpec {
             roughness_nm: 0.0,
             ripple_nm: 0.0,
             edge_bead_nm: 0.0,
             tilt_nm_per_mm: [0.0, 0.0],
+            wafer_to_wafer_pct: 0.0,
             ..SimWaferSpec::default()
         };
         spec.dome_nm = 20.0;
