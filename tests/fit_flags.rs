@@ -185,3 +185,40 @@ fn a_window_without_pixels_is_a_no_fit_not_a_panic() {
     let e = f.try_fit(&s, &Default::default()).unwrap_err().to_string();
     assert!(e.contains("window 420–980 nm"), "{e}");
 }
+
+#[test]
+fn scale_factor_absorbs_a_reference_level_error() {
+    // The sample level is 4 % low (reference taken at another focus): without the scale
+    // factor the fit is poor; with it the thickness is exact and the fit perfect.
+    let f = oxide("", 100.0, 3000.0, [420.0, 980.0]);
+    let mut s = synth(&f, 1500.0, [420.0, 980.0], 1200, 0.0, 0.0, 1);
+    s.reflectance.iter_mut().for_each(|r| *r *= 0.96);
+    let plain = f.fit(&s);
+    let scaled = oxide("", 100.0, 3000.0, [420.0, 980.0])
+        .with_scale_factor(true)
+        .fit(&s);
+    assert!(
+        scaled.gof > 0.999_999 && (scaled.layers[0].thickness_nm - 1500.0).abs() < 0.01,
+        "{scaled:?}"
+    );
+    assert!(plain.gof < scaled.gof, "{plain:?}");
+}
+
+#[test]
+fn three_fitted_layers() {
+    // Oxide–nitride–oxide on Si, all three fitted.
+    let f = Fitter::from_recipe(&recipe(
+        "ambient = \"air\"\nsubstrate = \"si\"\nlayers = [\n { material = \"sio2\", nominal_nm = 60, min_nm = 20, max_nm = 120 },\n { material = \"si3n4\", nominal_nm = 80, min_nm = 40, max_nm = 140 },\n { material = \"sio2\", nominal_nm = 300, min_nm = 200, max_nm = 500 },\n]\nwavelength_nm = [400, 1000]\nmethod = \"model\"",
+    ))
+    .unwrap();
+    let w: Vec<f64> = (0..1200).map(|i| 400.0 + 0.5 * i as f64).collect();
+    let truth = [47.0, 95.0, 321.0];
+    let s = Spectrum {
+        reflectance: reflectance(&f.stack(&truth), &w, 0.0, 0.0),
+        wavelength_nm: w,
+    };
+    let r = f.fit(&s);
+    for (l, t) in r.layers.iter().zip(truth) {
+        assert!((l.thickness_nm - t).abs() < 0.05, "{r:?}");
+    }
+}

@@ -15,10 +15,8 @@ pub struct SignalQuality {
 }
 
 /// Signal-to-noise below which a measurement is `low-signal`: the median signal must be at
-/// least this many times the noise floor (common practice: about 3 % noise per pixel still
-/// fits well, since a fit uses hundreds of pixels; the √counts floor ignores averaging, so it
-/// errs on the strict side).
-const MIN_SNR: f64 = 30.0;
+/// least this many times the noise, i.e. about 2 % noise per pixel (common practice).
+const MIN_SNR: f64 = 50.0;
 
 /// Checks the counts for saturation and weak signal.
 pub fn assess(sample: &Counts, dark: &Counts, reference: &Counts) -> SignalQuality {
@@ -47,9 +45,10 @@ pub fn assess(sample: &Counts, dark: &Counts, reference: &Counts) -> SignalQuali
             .collect();
         median(&mut s).unwrap_or(0.0)
     };
-    // With a noiseless dark (simulated, or a spectrometer that subtracts it) fall back to
-    // shot noise of the signal itself: √counts.
-    let floor = |s: f64| noise.max(s.max(0.0).sqrt());
+    // The dark's read noise is the noise floor. Only when the dark carries no noise at all
+    // (a spectrometer that subtracts it, rounded to zero) is the signal's own shot noise,
+    // √counts, the best guess left.
+    let floor = |s: f64| if noise > 0.0 { noise } else { s.max(0.0).sqrt() };
     let (ss, sr) = (signal(sample), signal(reference));
     let low_signal = ss < MIN_SNR * floor(ss) || sr < MIN_SNR * floor(sr);
     SignalQuality {
