@@ -48,7 +48,13 @@ pub fn assess(sample: &Counts, dark: &Counts, reference: &Counts) -> SignalQuali
     // The dark's read noise is the noise floor. Only when the dark carries no noise at all
     // (a spectrometer that subtracts it, rounded to zero) is the signal's own shot noise,
     // √counts, the best guess left.
-    let floor = |s: f64| if noise > 0.0 { noise } else { s.max(0.0).sqrt() };
+    let floor = |s: f64| {
+        if noise > 0.0 {
+            noise
+        } else {
+            s.max(0.0).sqrt()
+        }
+    };
     let (ss, sr) = (signal(sample), signal(reference));
     let low_signal = ss < MIN_SNR * floor(ss) || sr < MIN_SNR * floor(sr);
     SignalQuality {
