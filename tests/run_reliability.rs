@@ -35,6 +35,30 @@ fn isopach(args: &[&str]) -> Output {
         .expect("run isopach")
 }
 
+/// Arguments of `isopach run` for the test recipe on the test machine.
+fn run_args(recipe: &Path, machine: &Path, wafer: &str, runs: &Path) -> Vec<String> {
+    [
+        "run",
+        recipe.to_str().unwrap(),
+        "--machine",
+        machine.to_str().unwrap(),
+        "--wafer",
+        wafer,
+        "--runs",
+        runs.to_str().unwrap(),
+    ]
+    .map(String::from)
+    .to_vec()
+}
+
+/// Runs `isopach run` for the test recipe and machine.
+fn run_map(recipe: &Path, machine: &Path, wafer: &str, runs: &Path) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_isopach"))
+        .args(run_args(recipe, machine, wafer, runs))
+        .output()
+        .expect("run isopach")
+}
+
 /// A temp dir with the recipe and a simulated machine file (extra TOML appended).
 fn bench_dir(extra_machine: &str) -> (tempfile::TempDir, PathBuf, PathBuf) {
     let dir = tempfile::tempdir().unwrap();
@@ -89,16 +113,7 @@ fn sites_once(run: &Path, planned: usize) -> Vec<(usize, String)> {
 fn a_run_measures_every_site_and_fits_the_virtual_wafer() {
     let (dir, recipe, machine) = bench_dir("");
     let runs = dir.path().join("runs");
-    let o = isopach(&[
-        "run",
-        recipe.to_str().unwrap(),
-        "--machine",
-        machine.to_str().unwrap(),
-        "--wafer",
-        "R1",
-        "--runs",
-        runs.to_str().unwrap(),
-    ]);
+    let o = run_map(&recipe, &machine, "R1", &runs);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     let run = only_run(&runs);
     assert!(run.file_name().unwrap().to_str().unwrap().ends_with("-R1"));
@@ -154,24 +169,9 @@ fn a_run_measures_every_site_and_fits_the_virtual_wafer() {
 #[test]
 fn sigkill_at_random_points_then_resume_keeps_every_site_once() {
     let (dir, recipe, machine) = bench_dir("");
-    let (r, m) = (
-        recipe.to_str().unwrap().to_string(),
-        machine.to_str().unwrap().to_string(),
-    );
     let full = dir.path().join("full");
     let t0 = Instant::now();
-    assert!(isopach(&[
-        "run",
-        &r,
-        "--machine",
-        &m,
-        "--wafer",
-        "FULL",
-        "--runs",
-        full.to_str().unwrap()
-    ])
-    .status
-    .success());
+    assert!(run_map(&recipe, &machine, "FULL", &full).status.success());
     let dur = t0.elapsed().as_secs_f64();
     // Deterministic pseudo-random kill points over the whole run (xorshift).
     let mut x: u64 = 0x9e37_79b9_7f4a_7c15;
@@ -182,16 +182,7 @@ fn sigkill_at_random_points_then_resume_keeps_every_site_once() {
         let at = 0.05 + 0.9 * (x % 1000) as f64 / 1000.0;
         let runs = dir.path().join(format!("k{k}"));
         let mut child = Command::new(env!("CARGO_BIN_EXE_isopach"))
-            .args([
-                "run",
-                &r,
-                "--machine",
-                &m,
-                "--wafer",
-                "KILL",
-                "--runs",
-                runs.to_str().unwrap(),
-            ])
+            .args(run_args(&recipe, &machine, "KILL", &runs))
             .stdout(Stdio::null())
             .stderr(Stdio::null())
             .spawn()
@@ -271,16 +262,7 @@ fn every_injected_fault_stops_with_a_clear_message_and_a_resumable_run() {
         ));
         let runs = dir.path().join("runs");
         let started = Instant::now();
-        let o = isopach(&[
-            "run",
-            recipe.to_str().unwrap(),
-            "--machine",
-            machine.to_str().unwrap(),
-            "--wafer",
-            "F",
-            "--runs",
-            runs.to_str().unwrap(),
-        ]);
+        let o = run_map(&recipe, &machine, "F", &runs);
         let err = String::from_utf8_lossy(&o.stderr).to_string();
         assert!(
             started.elapsed() < Duration::from_secs(60),
@@ -330,18 +312,7 @@ fn every_injected_fault_stops_with_a_clear_message_and_a_resumable_run() {
 fn remeasure_changes_that_site_only_and_refit_moves_nothing() {
     let (dir, recipe, machine) = bench_dir("");
     let runs = dir.path().join("runs");
-    assert!(isopach(&[
-        "run",
-        recipe.to_str().unwrap(),
-        "--machine",
-        machine.to_str().unwrap(),
-        "--wafer",
-        "RM",
-        "--runs",
-        runs.to_str().unwrap()
-    ])
-    .status
-    .success());
+    assert!(run_map(&recipe, &machine, "RM", &runs).status.success());
     let run = only_run(&runs);
     let before = std::fs::read_to_string(run.join("sites.csv")).unwrap();
     let o = isopach(&["remeasure", run.to_str().unwrap(), "--site", "4"]);
@@ -414,16 +385,7 @@ fn ctrl_c_stops_the_stage_keeps_the_data_and_resume_finishes() {
     let (dir, recipe, machine) = bench_dir("");
     let runs = dir.path().join("runs");
     let child = Command::new(env!("CARGO_BIN_EXE_isopach"))
-        .args([
-            "run",
-            recipe.to_str().unwrap(),
-            "--machine",
-            machine.to_str().unwrap(),
-            "--wafer",
-            "INT",
-            "--runs",
-            runs.to_str().unwrap(),
-        ])
+        .args(run_args(&recipe, &machine, "INT", &runs))
         .stdout(Stdio::null())
         .stderr(Stdio::piped())
         .spawn()
