@@ -8,6 +8,7 @@
 
 use super::interpolate::Grid;
 use std::collections::HashMap;
+use std::hash::{BuildHasherDefault, Hash, Hasher};
 
 /// A connected isoline: points in mm, closed when it returns to its start.
 #[derive(Debug, Clone, PartialEq)]
@@ -17,11 +18,44 @@ pub struct Polyline {
 }
 
 /// A grid edge: horizontal from node (i, j) to (i+1, j), or vertical to (i, j+1).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
 enum Edge {
     H(usize, usize),
     V(usize, usize),
 }
+
+impl Hash for Edge {
+    fn hash<S: Hasher>(&self, state: &mut S) {
+        // One word per edge: the join's map is hit a few times per segment, so hashing cost
+        // matters more than anything else in it.
+        let (tag, i, j) = match *self {
+            Edge::H(i, j) => (0u64, i, j),
+            Edge::V(i, j) => (1u64, i, j),
+        };
+        state.write_u64(tag | (i as u64) << 1 | (j as u64) << 33);
+    }
+}
+
+/// A multiplicative hasher for edge keys (they are not attacker-controlled).
+#[derive(Default)]
+struct EdgeHasher(u64);
+
+impl Hasher for EdgeHasher {
+    fn write(&mut self, bytes: &[u8]) {
+        for &b in bytes {
+            self.write_u64(b as u64);
+        }
+    }
+    fn write_u64(&mut self, n: u64) {
+        self.0 = (self.0.rotate_left(5) ^ n).wrapping_mul(0x517c_c1b7_2722_0a95);
+    }
+    fn finish(&self) -> u64 {
+        self.0
+    }
+}
+
+/// Segments touching an edge: at most the two cells on either side of it.
+const NONE: usize = usize::MAX;
 
 /// The isolines of `grid` at `level` (values ≥ level count as inside).
 pub fn isolines(grid: &Grid, level: f64) -> Vec<Polyline> {
@@ -109,11 +143,19 @@ fn crossing(grid: &Grid, e: Edge, level: f64) -> (f64, f64) {
 
 /// Chains segments that share an edge into polylines.
 fn join(grid: &Grid, level: f64, segments: &[(Edge, Edge)]) -> Vec<Polyline> {
-    let mut by_edge: HashMap<Edge, Vec<usize>> = HashMap::with_capacity(segments.len() * 2);
+    let mut by_edge: HashMap<Edge, [usize; 2], BuildHasherDefault<EdgeHasher>> =
+        HashMap::with_capacity_and_hasher(segments.len() * 2, Default::default());
     for (k, &(a, b)) in segments.iter().enumerate() {
-        by_edge.entry(a).or_default().push(k);
-        by_edge.entry(b).or_default().push(k);
+        for e in [a, b] {
+            let slot = by_edge.entry(e).or_insert([NONE, NONE]);
+            if slot[0] == NONE {
+                slot[0] = k;
+            } else {
+                slot[1] = k;
+            }
+        }
     }
+    let touching = |e: &Edge| by_edge[e].iter().filter(|&&s| s != NONE).count();
     let mut used = vec![false; segments.len()];
     let mut lines = Vec::new();
     // Open lines start at an edge only one segment touches; what is left are loops.
@@ -121,7 +163,7 @@ fn join(grid: &Grid, level: f64, segments: &[(Edge, Edge)]) -> Vec<Polyline> {
         .iter()
         .enumerate()
         .flat_map(|(k, &(a, b))| [(k, a), (k, b)])
-        .filter(|(_, e)| by_edge[e].len() == 1)
+        .filter(|(_, e)| touching(e) == 1)
         .collect();
     starts.extend(segments.iter().enumerate().map(|(k, &(a, _))| (k, a)));
     for (first, start_edge) in starts {
@@ -137,7 +179,7 @@ fn join(grid: &Grid, level: f64, segments: &[(Edge, Edge)]) -> Vec<Polyline> {
             let next_edge = if a == at { b } else { a };
             edges.push(next_edge);
             at = next_edge;
-            match by_edge[&at].iter().find(|&&s| !used[s]) {
+            match by_edge[&at].iter().find(|&&s| s != NONE && !used[s]) {
                 Some(&s) => k = s,
                 None => break,
             }
