@@ -65,6 +65,12 @@ pub fn session(
         let report = measure::session(&folder, &meta, &which, command, hooks).await;
         bar.finish_and_clear();
         report
+    })
+    .map_err(|e| {
+        e.context(format!(
+            "{command} stopped before measuring; the run folder {} is kept (after fixing the cause: isopach resume {0})",
+            folder.root.display()
+        ))
     })?;
     Ok(print(&folder, &meta, report))
 }

@@ -599,17 +599,7 @@ fn stats_panel(scene: &mut Scene, input: &MapInput, s: &LayerSummary) {
             format!("{} → {} {u}", fmt(fit.centre_nm, d), fmt(fit.edge_nm, d)),
         ));
     }
-    scene.items.push(Item::Text {
-        x: x0,
-        y: 104.0,
-        text: "Uniformity".into(),
-        size: 15.0,
-        anchor: Anchor::Start,
-        bold: true,
-        colour: INK,
-        vertical: false,
-        class: "panel-title",
-    });
+    scene.heading(x0, 104.0, "Uniformity", INK);
     let mut y = 130.0;
     for (label, value) in rows {
         scene.text(x0, y, label, 12.5, Anchor::Start, MUTED, "stat-label");
@@ -661,17 +651,7 @@ fn stats_panel(scene: &mut Scene, input: &MapInput, s: &LayerSummary) {
 fn radial_plot(scene: &mut Scene, input: &MapInput, s: &LayerSummary, sites: &[(f64, f64, f64)]) {
     let (x0, x1) = (PANEL.0 + 46.0, PANEL.1 - 6.0);
     let (top, bottom) = (420.0, 680.0);
-    scene.items.push(Item::Text {
-        x: PANEL.0,
-        y: top - 22.0,
-        text: "Radial profile".into(),
-        size: 15.0,
-        anchor: Anchor::Start,
-        bold: true,
-        colour: INK,
-        vertical: false,
-        class: "panel-title",
-    });
+    scene.heading(PANEL.0, top - 22.0, "Radial profile", INK);
     scene.items.push(Item::Rect {
         x: x0,
         y: top,

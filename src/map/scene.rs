@@ -147,6 +147,21 @@ impl Scene {
         });
     }
 
+    /// Adds a bold panel heading (15 px, start-anchored).
+    pub fn heading(&mut self, x: f64, y: f64, text: &str, colour: Rgb) {
+        self.items.push(Item::Text {
+            x,
+            y,
+            text: text.into(),
+            size: 15.0,
+            anchor: Anchor::Start,
+            bold: true,
+            colour,
+            vertical: false,
+            class: "panel-title",
+        });
+    }
+
     /// Adds an unfilled path.
     pub fn line(&mut self, points: Vec<(f64, f64)>, stroke: Stroke, class: &'static str) {
         self.items.push(Item::Path {
