@@ -1,6 +1,7 @@
 //! The spectrum CSV files of DESIGN.md §3: a header line, comma separated, `#` comment lines
 //! allowed; either `wavelength_nm,reflectance` (fraction 0..1) or
-//! `wavelength_nm,sample,dark,reference` (counts). Every problem names its line.
+//! `wavelength_nm,sample,dark,reference` (counts). Wavelengths run one way, rising or falling
+//! (a falling file is read in reverse). Every problem names its line.
 
 use super::saturation::clipped_pixels;
 use super::{Counts, RawSpectrum, Spectrum, SpectrumError};
@@ -41,6 +42,8 @@ pub fn parse_csv(text: &str, path: &Path) -> Result<SpectrumFile, SpectrumError>
     let mut columns: Option<usize> = None;
     let mut rows: Vec<Vec<f64>> = Vec::new();
     let mut lines: Vec<usize> = Vec::new();
+    // Set by the second data row: files from some instruments run from red to blue.
+    let mut descending: Option<bool> = None;
     for (line, t, cells) in csv_records(text) {
         let Some(ncol) = columns else {
             let names: Vec<String> = cells.iter().map(|c| c.to_lowercase()).collect();
@@ -92,11 +95,21 @@ pub fn parse_csv(text: &str, path: &Path) -> Result<SpectrumFile, SpectrumError>
                     ),
                 ));
             }
-            if w < prev[0] {
-                return Err(at(
-                    line,
-                    format!("wavelength {w} nm is below the previous row's {} nm: wavelengths must increase", prev[0]),
-                ));
+            let falling = w < prev[0];
+            match descending {
+                None => descending = Some(falling),
+                Some(d) if d != falling => {
+                    let (way, turn) = if d {
+                        ("fall", "above")
+                    } else {
+                        ("rise", "below")
+                    };
+                    return Err(at(
+                        line,
+                        format!("wavelength {w} nm is {turn} the previous row's {} nm: wavelengths must {way} all the way, as they do from line {}", prev[0], lines[0]),
+                    ));
+                }
+                Some(_) => {}
             }
         }
         rows.push(row);
@@ -116,6 +129,10 @@ pub fn parse_csv(text: &str, path: &Path) -> Result<SpectrumFile, SpectrumError>
                 rows.len()
             ),
         ));
+    }
+    if descending == Some(true) {
+        rows.reverse();
+        lines.reverse();
     }
     if rows.last().is_some_and(|r| r[0] < 10.0) {
         return Err(at(
@@ -288,7 +305,10 @@ mod tests {
     fn errors_name_the_line() {
         let h = "wavelength_nm,reflectance\n";
         assert!(err(&format!("{h}400,0.3\n400,0.3\n401,0.3\n")).contains("s.csv:3: duplicate"));
-        assert!(err(&format!("{h}400,0.3\n399,0.3\n401,0.3\n")).contains("s.csv:3:"));
+        let zigzag = err(&format!("{h}400,0.3\n399,0.3\n401,0.3\n"));
+        assert!(zigzag.contains("s.csv:4:") && zigzag.contains("must fall"), "{zigzag}");
+        let back = err(&format!("{h}400,0.3\n401,0.3\n400.5,0.3\n"));
+        assert!(back.contains("s.csv:4:") && back.contains("must rise"), "{back}");
         assert!(err(&format!("{h}400,0.3\n401,NaN\n402,0.3\n")).contains("s.csv:3:"));
         assert!(err(&format!("{h}400,0.3\n401,x\n402,0.3\n")).contains("not a number"));
         assert!(err(&format!("{h}400,30\n401,31\n402,32\n")).contains("percent"));
@@ -305,6 +325,18 @@ mod tests {
             "{}",
             err(sat)
         );
+    }
+
+    #[test]
+    fn a_falling_file_reads_as_the_rising_one() {
+        let rising = "wavelength_nm,reflectance\n400,0.3\n401,0.31\n402,0.32\n";
+        let falling = "wavelength_nm,reflectance\n402,0.32\n401,0.31\n400,0.3\n";
+        assert_eq!(
+            parse_csv(falling, Path::new("f.csv")).unwrap(),
+            parse_csv(rising, Path::new("r.csv")).unwrap()
+        );
+        let sat = "wavelength_nm,sample,dark,reference\n403,99,10,200\n402,102,10,65535\n401,101,10,65535\n400,100,10,65535\n";
+        assert!(err(sat).contains("s.csv:5: reference counts are saturated"), "{}", err(sat));
     }
 
     #[test]
