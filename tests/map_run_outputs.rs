@@ -45,3 +45,48 @@ fn two_layer_run_gets_all_files_and_a_layers_array() {
     // Collinear sites still give a filled map: bands are drawn.
     assert!(svg2.contains(r#"class="band""#));
 }
+
+/// A recipe with a specification window: the valid sites outside it are listed in
+/// `summary.json`, ringed on the map and named in its statistics panel; flagged sites are
+/// not counted either way.
+#[test]
+fn out_of_spec_sites_are_listed_and_ringed() {
+    let dir = tempfile::tempdir().unwrap();
+    let loaded = recipe("oxide-150-49");
+    let mut meta = run_toml(&loaded, "S7");
+    let mut rows = analytic_rows(&loaded);
+    // The analytic field spans about 980–1021 nm; a window of 1000–1015 leaves the edge ring
+    // and the thickest centre sites out.
+    meta.recipe.accept.spec_nm = Some([1000.0, 1015.0]);
+    rows[0].flag = "poor-fit".into();
+    let expected_out: Vec<usize> = rows
+        .iter()
+        .filter(|r| r.is_valid() && !(1000.0..=1015.0).contains(&r.thickness_nm[0]))
+        .map(|r| r.site)
+        .collect();
+    assert!(
+        expected_out.len() >= 3 && expected_out.len() < 45,
+        "{expected_out:?}"
+    );
+    let folder = make_run_folder(dir.path(), &meta, &rows);
+    let summary = write_run_outputs(&folder, &rows, &meta).unwrap();
+    let spec = summary.first.spec.as_ref().expect("spec checked");
+    assert_eq!(spec.sites_out, expected_out);
+    assert_eq!(spec.sites_in + spec.sites_out.len(), 48);
+    let json: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(folder.summary_json()).unwrap()).unwrap();
+    assert_eq!(json["spec"]["lo_nm"], 1000.0);
+    assert_eq!(
+        json["spec"]["sites_out"].as_array().unwrap().len(),
+        expected_out.len()
+    );
+    let svg = std::fs::read_to_string(folder.map_svg()).unwrap();
+    let doc = roxmltree::Document::parse(&svg).unwrap();
+    let rings = doc
+        .descendants()
+        .filter(|n| n.attribute("class") == Some("out-of-spec") && n.has_tag_name("path"))
+        .count();
+    assert_eq!(rings, 2 * expected_out.len(), "ring and halo per site");
+    assert!(svg.contains(&format!("{} of 48", spec.sites_in)));
+    assert!(svg.contains("Out of spec: site"));
+}

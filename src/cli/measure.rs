@@ -127,20 +127,14 @@ fn print(folder: &RunFolder, meta: &RunToml, report: Report) -> u8 {
             folder.root.display()
         );
     }
-    if let Some([lo, hi]) = meta.recipe.accept.spec_nm {
-        let out: Vec<String> = report
-            .states
-            .iter()
-            .filter(|s| s.is_valid())
-            .filter_map(|s| {
-                let fit = s.best()?.fit.as_ref()?;
-                (isopach::run::events::in_spec(fit, &meta.recipe.accept) == Some(false))
-                    .then(|| s.site.number.to_string())
-            })
-            .collect();
-        if !out.is_empty() {
-            println!("  out of spec [{lo}, {hi}] nm: site {}", out.join(", "));
-        }
+    if let Some(c) = f.spec.as_ref().filter(|c| !c.sites_out.is_empty()) {
+        let out: Vec<String> = c.sites_out.iter().map(|n| n.to_string()).collect();
+        println!(
+            "  out of spec [{}, {}] nm: site {}",
+            c.lo_nm,
+            c.hi_nm,
+            out.join(", ")
+        );
     }
     match report.outcome {
         Outcome::Finished => super::exit::OK,

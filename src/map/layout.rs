@@ -11,7 +11,7 @@ use super::interpolate::{Field, Grid};
 use super::levels::{decimals_for, nice_levels, Levels};
 use super::render::{MapInput, RenderOptions};
 use super::scene::{Anchor, FieldFill, Item, Scene, Stroke};
-use super::stats::{LayerSummary, Summary};
+use super::stats::{LayerSummary, SpecCheck, Summary};
 use crate::recipe::geometry::Orientation;
 
 /// Page size, layout px.
@@ -24,6 +24,8 @@ const MUTED: Rgb = Rgb(0x5d, 0x65, 0x6e);
 const RULE: Rgb = Rgb(0xc9, 0xcc, 0xcf);
 const WAFER_RIM: Rgb = Rgb(0xdc, 0xdf, 0xe2);
 const EXCLUDED: Rgb = Rgb(0x9b, 0x2d, 0x3a);
+/// The ring around a site outside the recipe's specification window.
+const OUT_OF_SPEC: Rgb = Rgb(0xd4, 0x5d, 0x0b);
 
 /// Map square: left, top, side (px); the wafer diameter spans `MAP_SIDE − 2·MAP_MARGIN`.
 const MAP_LEFT: f64 = 24.0;
@@ -44,11 +46,14 @@ pub fn page(input: &MapInput, opts: &RenderOptions) -> Scene {
     };
     let names = [input.layer_name.clone()];
     let summary = Summary::from_rows(&input.rows, &names, input.wafer.usable_radius());
-    let stats = summary
+    let mut stats = summary
         .all_layers()
         .get(input.layer)
         .cloned()
         .unwrap_or_else(|| summary.first.clone());
+    stats.spec = input
+        .spec_nm
+        .map(|w| SpecCheck::of(&input.rows, input.layer, w));
     let sites: Vec<(f64, f64, f64)> = input
         .rows
         .iter()
@@ -79,11 +84,40 @@ pub fn page(input: &MapInput, opts: &RenderOptions) -> Scene {
         scale,
     );
     markers(&mut scene, input, opts, &levels, &colours, &to_px, lo, hi);
+    if let Some(spec) = &stats.spec {
+        spec_rings(&mut scene, input, spec, &to_px);
+    }
     colour_bar(&mut scene, input, &levels, &colours, (lo, hi));
     stats_panel(&mut scene, input, &stats);
     radial_plot(&mut scene, input, &stats, &sites);
-    footer(&mut scene, input, &levels);
+    footer(&mut scene, input, &levels, stats.spec.as_ref());
     scene
+}
+
+/// A ring around each valid site outside the specification window.
+fn spec_rings(
+    scene: &mut Scene,
+    input: &MapInput,
+    spec: &SpecCheck,
+    to_px: &dyn Fn(f64, f64) -> (f64, f64),
+) {
+    let r = if input.rows.len() > 400 { 4.0 } else { 7.0 };
+    for row in input
+        .rows
+        .iter()
+        .filter(|r| spec.sites_out.contains(&r.site))
+    {
+        let (x, y) = to_px(row.x_mm, row.y_mm);
+        for (colour, width) in [(Rgb(0xff, 0xff, 0xff), 3.4), (OUT_OF_SPEC, 1.8)] {
+            scene.items.push(Item::Path {
+                points: circle_points(x, y, r, 24),
+                closed: true,
+                fill: None,
+                stroke: Some(Stroke::solid(colour, width)),
+                class: "out-of-spec",
+            });
+        }
+    }
 }
 
 /// The colour range: given, or the span of the sites and the interpolated grid.
@@ -599,6 +633,12 @@ fn stats_panel(scene: &mut Scene, input: &MapInput, s: &LayerSummary) {
             format!("{} → {} {u}", fmt(fit.centre_nm, d), fmt(fit.edge_nm, d)),
         ));
     }
+    if let Some(c) = &s.spec {
+        rows.push((
+            format!("In spec {}–{} {u}", c.lo_nm, c.hi_nm),
+            format!("{} of {}", c.sites_in, c.sites_in + c.sites_out.len()),
+        ));
+    }
     scene.heading(x0, 104.0, "Uniformity", INK);
     let mut y = 130.0;
     for (label, value) in rows {
@@ -627,15 +667,9 @@ fn stats_panel(scene: &mut Scene, input: &MapInput, s: &LayerSummary) {
     } else {
         let shown: Vec<String> = ex
             .iter()
-            .take(4)
             .map(|e| format!("{} ({})", e.site, e.flag))
             .collect();
-        let more = if ex.len() > 4 {
-            format!(", +{} more", ex.len() - 4)
-        } else {
-            String::new()
-        };
-        format!("Excluded {}: {}{more}", ex.len(), shown.join(", "))
+        format!("Excluded {}: {}", ex.len(), first_few(&shown))
     };
     scene.text(
         x0,
@@ -646,6 +680,28 @@ fn stats_panel(scene: &mut Scene, input: &MapInput, s: &LayerSummary) {
         if ex.is_empty() { MUTED } else { EXCLUDED },
         "excluded",
     );
+    if let Some(c) = s.spec.as_ref().filter(|c| !c.sites_out.is_empty()) {
+        let shown: Vec<String> = c.sites_out.iter().map(|n| n.to_string()).collect();
+        let text = format!("Out of spec: site {}", first_few(&shown));
+        scene.text(
+            x0,
+            y + 22.0,
+            text,
+            11.5,
+            Anchor::Start,
+            OUT_OF_SPEC,
+            "out-of-spec",
+        );
+    }
+}
+
+/// The first four items joined by commas, with a count of the rest.
+fn first_few(items: &[String]) -> String {
+    let mut text = items.iter().take(4).cloned().collect::<Vec<_>>().join(", ");
+    if items.len() > 4 {
+        text.push_str(&format!(", +{} more", items.len() - 4));
+    }
+    text
 }
 
 fn radial_plot(scene: &mut Scene, input: &MapInput, s: &LayerSummary, sites: &[(f64, f64, f64)]) {
@@ -769,7 +825,7 @@ fn radial_plot(scene: &mut Scene, input: &MapInput, s: &LayerSummary, sites: &[(
     let dot_r = if sites.len() > 400 { 1.2 } else { 2.4 };
     for &(x, y, v) in sites {
         scene.items.push(Item::Path {
-            points: circle_points(sx(x.hypot(y)), sy(v), dot_r),
+            points: circle_points(sx(x.hypot(y)), sy(v), dot_r, 12),
             closed: true,
             fill: Some(colour::scale(0.55)),
             stroke: None,
@@ -778,17 +834,17 @@ fn radial_plot(scene: &mut Scene, input: &MapInput, s: &LayerSummary, sites: &[(
     }
 }
 
-/// A small polygonal dot (drawn identically in SVG and PNG).
-fn circle_points(cx: f64, cy: f64, r: f64) -> Vec<(f64, f64)> {
-    (0..12)
+/// A small `n`-gon standing for a circle (drawn identically in SVG and PNG).
+fn circle_points(cx: f64, cy: f64, r: f64, n: usize) -> Vec<(f64, f64)> {
+    (0..n)
         .map(|k| {
-            let a = std::f64::consts::TAU * k as f64 / 12.0;
+            let a = std::f64::consts::TAU * k as f64 / n as f64;
             (cx + r * a.cos(), cy + r * a.sin())
         })
         .collect()
 }
 
-fn footer(scene: &mut Scene, input: &MapInput, levels: &Levels) {
+fn footer(scene: &mut Scene, input: &MapInput, levels: &Levels, spec: Option<&SpecCheck>) {
     let w = &input.wafer;
     let mut parts = vec![format!(
         "⌀ {} mm, edge exclusion {} mm",
@@ -803,6 +859,9 @@ fn footer(scene: &mut Scene, input: &MapInput, levels: &Levels) {
     }
     parts.push("x right, y up, viewed from the film side".into());
     parts.push("× excluded site".into());
+    if spec.is_some() {
+        parts.push("ringed: out of spec".into());
+    }
     scene.text(
         28.0,
         HEIGHT - 18.0,

@@ -21,6 +21,8 @@ pub struct MapInput {
     pub recipe: String,
     pub wafer_id: String,
     pub time: String,
+    /// Specification window of the mapped values: out-of-spec sites are ringed.
+    pub spec_nm: Option<[f64; 2]>,
 }
 
 impl MapInput {
@@ -36,6 +38,7 @@ impl MapInput {
             recipe: String::new(),
             wafer_id: String::new(),
             time: String::new(),
+            spec_nm: None,
         }
     }
 }

@@ -36,6 +36,9 @@ pub fn run_map_input(rows: &[SiteRow], meta: &RunToml, layer: usize) -> MapInput
     input.recipe = meta.recipe.name.clone();
     input.wafer_id = meta.run.wafer.clone();
     input.time = meta.run.started.clone();
+    if layer == 0 {
+        input.spec_nm = meta.recipe.accept.spec_nm;
+    }
     input
 }
 
@@ -47,6 +50,7 @@ pub fn run_summary(rows: &[SiteRow], meta: &RunToml) -> Summary {
         &fitted_layer_names(&meta.recipe),
         wafer.usable_radius(),
     )
+    .with_spec(rows, meta.recipe.accept.spec_nm)
 }
 
 fn put(path: &Path, bytes: &[u8]) -> Result<(), MapError> {

@@ -63,6 +63,42 @@ pub struct LayerSummary {
     /// Sites left out, with why.
     #[serde(default)]
     pub excluded: Vec<ExcludedSite>,
+    /// The recipe's specification window over the valid sites (first layer only; absent
+    /// when the recipe sets no `spec_nm`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub spec: Option<SpecCheck>,
+}
+
+/// Valid sites inside and outside a specification window `[lo, hi]` (bounds inclusive).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SpecCheck {
+    pub lo_nm: f64,
+    pub hi_nm: f64,
+    pub sites_in: usize,
+    /// Site numbers of valid sites outside the window, ascending.
+    pub sites_out: Vec<usize>,
+}
+
+impl SpecCheck {
+    /// The window checked over the valid values of layer column `layer`.
+    pub fn of(rows: &[SiteRow], layer: usize, [lo, hi]: [f64; 2]) -> SpecCheck {
+        let mut sites_in = 0;
+        let mut sites_out = Vec::new();
+        for r in rows {
+            match r.valid_value(layer) {
+                Some(v) if (lo..=hi).contains(&v) => sites_in += 1,
+                Some(_) => sites_out.push(r.site),
+                None => {}
+            }
+        }
+        sites_out.sort_unstable();
+        SpecCheck {
+            lo_nm: lo,
+            hi_nm: hi,
+            sites_in,
+            sites_out,
+        }
+    }
 }
 
 /// `summary.json`: the first layer's figures at top level, and every layer in `layers` when
@@ -91,6 +127,16 @@ impl Summary {
             layers.clear();
         }
         Summary { first, layers }
+    }
+
+    /// The same figures with the first layer checked against a specification window.
+    pub fn with_spec(mut self, rows: &[SiteRow], window: Option<[f64; 2]>) -> Summary {
+        let check = window.map(|w| SpecCheck::of(rows, 0, w));
+        self.first.spec = check.clone();
+        if let Some(first) = self.layers.first_mut() {
+            first.spec = check;
+        }
+        self
     }
 
     /// Figures from plain values (all counted valid; no positions, so no radial fit).
@@ -137,6 +183,7 @@ impl LayerSummary {
             max_site: None,
             radial: None,
             excluded: Vec::new(),
+            spec: None,
         }
     }
 }
@@ -257,5 +304,36 @@ mod tests {
         let none = LayerSummary::from_values(&[]);
         assert_eq!(none.sites_valid, 0);
         assert!(none.mean_nm.is_nan());
+    }
+
+    fn row(site: usize, t: f64, flag: &str) -> SiteRow {
+        SiteRow {
+            site,
+            x_mm: site as f64,
+            y_mm: 0.0,
+            thickness_nm: vec![t],
+            sigma_nm: vec![0.1],
+            gof: 0.99,
+            flag: flag.into(),
+        }
+    }
+
+    #[test]
+    fn spec_counts_valid_sites_with_inclusive_bounds() {
+        let rows = [
+            row(4, 1051.0, "ok"),
+            row(1, 950.0, "ok"),
+            row(2, 1050.0, ""),
+            row(3, 949.9, "ok"),
+            row(5, 2000.0, "poor-fit"),
+        ];
+        let c = SpecCheck::of(&rows, 0, [950.0, 1050.0]);
+        assert_eq!((c.sites_in, c.sites_out), (2, vec![3, 4]));
+        let s = Summary::from_rows(&rows, &["sio2".into()], 70.0)
+            .with_spec(&rows, Some([950.0, 1050.0]));
+        let json: serde_json::Value = serde_json::from_str(&s.to_json()).unwrap();
+        assert_eq!(json["spec"]["sites_out"], serde_json::json!([3, 4]));
+        let plain = Summary::from_rows(&rows, &["sio2".into()], 70.0).with_spec(&rows, None);
+        assert!(!plain.to_json().contains("spec"));
     }
 }

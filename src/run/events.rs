@@ -81,13 +81,6 @@ pub fn judge(fit: &FitResult, accept: &AcceptSpec) -> (bool, String) {
     (false, flags.join(";"))
 }
 
-/// Whether the first fitted layer is inside the recipe's specification window.
-pub fn in_spec(fit: &FitResult, accept: &AcceptSpec) -> Option<bool> {
-    let [lo, hi] = accept.spec_nm?;
-    let t = fit.layers.first()?.thickness_nm;
-    Some(t >= lo && t <= hi)
-}
-
 /// One measurement attempt of a site.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Attempt {

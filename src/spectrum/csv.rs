@@ -306,9 +306,15 @@ mod tests {
         let h = "wavelength_nm,reflectance\n";
         assert!(err(&format!("{h}400,0.3\n400,0.3\n401,0.3\n")).contains("s.csv:3: duplicate"));
         let zigzag = err(&format!("{h}400,0.3\n399,0.3\n401,0.3\n"));
-        assert!(zigzag.contains("s.csv:4:") && zigzag.contains("must fall"), "{zigzag}");
+        assert!(
+            zigzag.contains("s.csv:4:") && zigzag.contains("must fall"),
+            "{zigzag}"
+        );
         let back = err(&format!("{h}400,0.3\n401,0.3\n400.5,0.3\n"));
-        assert!(back.contains("s.csv:4:") && back.contains("must rise"), "{back}");
+        assert!(
+            back.contains("s.csv:4:") && back.contains("must rise"),
+            "{back}"
+        );
         assert!(err(&format!("{h}400,0.3\n401,NaN\n402,0.3\n")).contains("s.csv:3:"));
         assert!(err(&format!("{h}400,0.3\n401,x\n402,0.3\n")).contains("not a number"));
         assert!(err(&format!("{h}400,30\n401,31\n402,32\n")).contains("percent"));
@@ -336,7 +342,11 @@ mod tests {
             parse_csv(rising, Path::new("r.csv")).unwrap()
         );
         let sat = "wavelength_nm,sample,dark,reference\n403,99,10,200\n402,102,10,65535\n401,101,10,65535\n400,100,10,65535\n";
-        assert!(err(sat).contains("s.csv:5: reference counts are saturated"), "{}", err(sat));
+        assert!(
+            err(sat).contains("s.csv:5: reference counts are saturated"),
+            "{}",
+            err(sat)
+        );
     }
 
     #[test]
