@@ -338,6 +338,19 @@ fn remeasure_changes_that_site_only_and_refit_moves_nothing() {
         })
         .collect();
     assert_eq!(attempts, vec![1, 2]);
+    // The same site again: each session draws fresh noise (a session that replayed the
+    // previous one's noise would give the same value twice), and the output says what changed.
+    let o = isopach(&["remeasure", run.to_str().unwrap(), "--site", "4"]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let again = std::fs::read_to_string(run.join("sites.csv")).unwrap();
+    let site4 = |t: &str| t.lines().nth(4).unwrap().to_string();
+    assert_ne!(site4(&again), site4(&after));
+    let stdout = String::from_utf8_lossy(&o.stdout);
+    assert!(
+        stdout.contains("site 4: ") && stdout.contains("(attempt 3; before "),
+        "{stdout}"
+    );
+    let after = again;
     // Refit with a narrower window: values change, no site is measured.
     let narrow = dir.path().join("narrow.toml");
     std::fs::write(&narrow, RECIPE.replace("[420, 980]", "[550, 800]")).unwrap();
@@ -358,7 +371,8 @@ fn remeasure_changes_that_site_only_and_refit_moves_nothing() {
             .iter()
             .filter(|e| matches!(e, Event::SiteFitted { .. }))
             .count(),
-        10
+        11,
+        "every stored spectrum: 9 sites and two more attempts of site 4"
     );
     let refit = std::fs::read_to_string(run.join("sites.csv")).unwrap();
     assert_ne!(refit, after);

@@ -73,6 +73,19 @@ impl Bench {
         recipe: &LoadedRecipe,
         seed: u64,
     ) -> Result<Bench, BenchError> {
+        Bench::open_session(machine, recipe, seed, 0).await
+    }
+
+    /// [`Bench::open`] for the `session`-th session of a run (0 = the first): the virtual
+    /// wafer depends on `seed` alone, so every session of a run sees the same wafer, while
+    /// the virtual spectrometer's noise is drawn afresh per session, as a remeasurement on
+    /// a real bench would be.
+    pub async fn open_session(
+        machine: Option<&MachineFile>,
+        recipe: &LoadedRecipe,
+        seed: u64,
+        session: u64,
+    ) -> Result<Bench, BenchError> {
         let m = machine.cloned().unwrap_or_else(builtin_simulated);
         let clock = SimClock::new(m.simulation.time_scale);
         let simulated_stage = m.stage_is_simulated();
@@ -97,7 +110,8 @@ impl Bench {
                     &reference,
                     stage.position_handle(),
                     transform,
-                    seed.wrapping_add(1),
+                    seed.wrapping_add(1)
+                        .wrapping_add(session.wrapping_mul(0x9e37_79b9_7f4a_7c15)),
                     clock,
                 );
                 (Box::new(spec) as Box<dyn Spectrometer>, Some(wafer))

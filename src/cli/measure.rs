@@ -4,6 +4,7 @@
 
 use super::safety::{confirm_motion, wait_for_operator};
 use indicatif::{ProgressBar, ProgressStyle};
+use isopach::run::events::{Attempt, SiteState};
 use isopach::run::folder::{RunFolder, RunToml};
 use isopach::run::measure::{self, Hooks, Report};
 use isopach::run::sequencer::{Outcome, Progress};
@@ -72,7 +73,7 @@ pub fn session(
             folder.root.display()
         ))
     })?;
-    Ok(print(&folder, &meta, report))
+    Ok(print(&folder, &meta, command, report))
 }
 
 /// Sends the library's tracing log to `log.txt` in the run folder (appended per session).
@@ -95,12 +96,12 @@ fn log_to(folder: &RunFolder) {
 }
 
 /// Prints the outcome and figures; returns the exit code.
-fn print(folder: &RunFolder, meta: &RunToml, report: Report) -> u8 {
+fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: Report) -> u8 {
     let f = &report.summary.first;
     for w in &report.warnings {
         eprintln!("warning: {w}");
     }
-    if report.measured == 0 {
+    if report.measured.is_empty() {
         eprintln!("every site asked for already has a valid result: nothing to measure");
     }
     println!("run {}: {}", meta.run.id, folder.root.display());
@@ -114,6 +115,15 @@ fn print(folder: &RunFolder, meta: &RunToml, report: Report) -> u8 {
         f.range_nm,
         f.nu_range_pct
     );
+    if command == "remeasure" {
+        for state in report
+            .states
+            .iter()
+            .filter(|s| report.measured.contains(&s.site.number))
+        {
+            println!("  {}", attempts_line(state));
+        }
+    }
     let bad: Vec<String> = report
         .states
         .iter()
@@ -153,4 +163,34 @@ fn print(folder: &RunFolder, meta: &RunToml, report: Report) -> u8 {
             super::exit::FAILED
         }
     }
+}
+
+/// A remeasured site's newest attempt beside the one before it, and which the map uses:
+/// `site 7: 1006.023 nm (attempt 3; before 1006.010 nm)`.
+fn attempts_line(state: &SiteState) -> String {
+    let show = |a: &Attempt| match (&a.fit, a.valid) {
+        (Some(fit), true) => fit
+            .layers
+            .first()
+            .map(|l| format!("{:.3} nm", l.thickness_nm))
+            .unwrap_or_else(|| "ok".into()),
+        _ => a.flag.clone(),
+    };
+    let n = state.site.number;
+    let Some((newest, earlier)) = state.attempts.split_last() else {
+        return format!("site {n}: not measured");
+    };
+    let before = earlier
+        .last()
+        .map(|a| format!("; before {}", show(a)))
+        .unwrap_or_default();
+    let mut line = format!(
+        "site {n}: {} (attempt {}{before})",
+        show(newest),
+        newest.attempt
+    );
+    if let Some(best) = state.best().filter(|b| b.attempt != newest.attempt) {
+        line.push_str(&format!("; the map keeps attempt {}", best.attempt));
+    }
+    line
 }

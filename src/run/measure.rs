@@ -48,8 +48,8 @@ pub struct Report {
     pub outcome: Outcome,
     pub summary: Summary,
     pub states: Vec<SiteState>,
-    /// Sites this session set out to measure.
-    pub measured: usize,
+    /// Numbers of the sites this session set out to measure, in plan order.
+    pub measured: Vec<usize>,
     /// Warnings of the optical model (a window beyond a material's published range, …).
     pub warnings: Vec<String>,
 }
@@ -86,7 +86,11 @@ pub async fn session(
     let machine = machine_of(meta)?;
     let material = reference_material(&machine);
     let plan_sites = plan::order(&meta.recipe.pattern, &planned_sites(meta));
-    let (_, states) = derive::read_states(folder, meta)?;
+    let (events, states) = derive::read_states(folder, meta)?;
+    let earlier_sessions = events
+        .iter()
+        .filter(|e| matches!(e, Event::RunStarted { .. }))
+        .count() as u64;
     let valid: BTreeMap<usize, bool> = states
         .iter()
         .map(|s| (s.site.number, s.is_valid()))
@@ -134,7 +138,8 @@ pub async fn session(
     let outcome = if todo.is_empty() {
         Outcome::Finished
     } else {
-        let mut bench = Bench::open(machine.as_ref(), &loaded, meta.run.seed).await?;
+        let mut bench =
+            Bench::open_session(machine.as_ref(), &loaded, meta.run.seed, earlier_sessions).await?;
         tracing::info!(stage = %bench.stage.describe(), spectrometer = %bench.spectrometer.describe(), sites = todo.len(), "{command}: bench open");
         bench.check_plan(&todo)?;
         if !bench.is_simulated() {
@@ -173,7 +178,7 @@ pub async fn session(
         outcome,
         summary,
         states,
-        measured: todo.len(),
+        measured: todo.iter().map(|s| s.number).collect(),
         warnings: fitter.warnings().to_vec(),
     })
 }
