@@ -157,7 +157,8 @@ fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: Report) -> u
         }
         Outcome::Failed(e) => {
             eprintln!(
-                "run stopped: {e:#}\nthe measurements so far are kept; after fixing the cause: isopach resume {}",
+                "run stopped: {}\nthe measurements so far are kept; after fixing the cause: isopach resume {}",
+                isopach::error_text::chain_text(&e),
                 folder.root.display()
             );
             super::exit::FAILED

@@ -96,7 +96,7 @@ pub fn main() -> ExitCode {
     match result {
         Ok(code) => ExitCode::from(code),
         Err(e) => {
-            eprintln!("error: {e:#}");
+            eprintln!("error: {}", isopach::error_text::chain_text(&e));
             ExitCode::from(error_code(&e))
         }
     }

@@ -84,7 +84,7 @@ pub fn rebuild(runs_dir: &Path) -> anyhow::Result<(usize, Vec<(PathBuf, String)>
     for folder in run_folders(runs_dir)? {
         match WaferRun::load(&folder) {
             Ok(run) => records.push(record_of(&run)),
-            Err(e) => skipped.push((folder, format!("{e:#}"))),
+            Err(e) => skipped.push((folder, crate::error_text::chain_text(&e))),
         }
     }
     let mut h = History::open(&db_path(runs_dir))?;

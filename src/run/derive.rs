@@ -71,7 +71,10 @@ pub fn rebuild(folder: &RunFolder) -> anyhow::Result<Summary> {
     let summary = write_run_outputs(folder, &rows(&states, layers), &meta)?;
     if let Err(e) = crate::history::record::update(&folder.root) {
         // The history is an index that `trend --rebuild` can recreate; the run itself is safe.
-        tracing::warn!("run history not updated: {e:#}");
+        tracing::warn!(
+            "run history not updated: {}",
+            crate::error_text::chain_text(&e)
+        );
     }
     Ok(summary)
 }

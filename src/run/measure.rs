@@ -163,7 +163,8 @@ pub async fn session(
         if let Outcome::Failed(e) = &outcome {
             // The last lines exchanged with the controller say most about a fault.
             tracing::error!(
-                "{command} stopped: {e:#}\nrecent G-code conversation:\n{}",
+                "{command} stopped: {}\nrecent G-code conversation:\n{}",
+                crate::error_text::chain_text(e),
                 bench.stage.transcript().join("\n")
             );
         }

@@ -220,7 +220,7 @@ impl Sequencer {
                         .await
                 }
                 Err(PassEnd::Fault(e)) => {
-                    let reason = format!("{e:#}");
+                    let reason = crate::error_text::chain_text(&e);
                     return match self.stopped(bench, &reason).await {
                         Outcome::Failed(f) => Outcome::Failed(f),
                         _ => Outcome::Failed(e),
