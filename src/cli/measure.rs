@@ -4,6 +4,7 @@
 
 use super::safety::{confirm_motion, wait_for_operator};
 use indicatif::{ProgressBar, ProgressStyle};
+use isopach::map::stats::LayerSummary;
 use isopach::run::events::{Attempt, SiteState};
 use isopach::run::folder::{RunFolder, RunToml};
 use isopach::run::measure::{self, Hooks, Report};
@@ -105,16 +106,7 @@ fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: Report) -> u
         eprintln!("every site asked for already has a valid result: nothing to measure");
     }
     println!("run {}: {}", meta.run.id, folder.root.display());
-    println!(
-        "  {} of {} sites valid; mean {:.2} nm, 1σ {:.2} nm ({:.2} %), range {:.2} nm ({:.2} %)",
-        f.sites_valid,
-        f.sites_total,
-        f.mean_nm,
-        f.std_nm,
-        f.nu_1sigma_pct,
-        f.range_nm,
-        f.nu_range_pct
-    );
+    println!("  {}", figures_line(f));
     if command == "remeasure" {
         for state in report
             .states
@@ -192,6 +184,22 @@ fn attempts_line(state: &SiteState) -> String {
     );
     if let Some(best) = state.best().filter(|b| b.attempt != newest.attempt) {
         line.push_str(&format!("; the map keeps attempt {}", best.attempt));
+    }
+    line
+}
+
+/// `49 of 49 sites valid; mean …, 1σ … (… %), range … (… %)`, leaving out figures that do
+/// not exist (no valid site, or σ of a single site).
+fn figures_line(f: &LayerSummary) -> String {
+    let mut line = format!("{} of {} sites valid", f.sites_valid, f.sites_total);
+    if f.mean_nm.is_finite() {
+        line.push_str(&format!("; mean {:.2} nm", f.mean_nm));
+    }
+    if f.std_nm.is_finite() {
+        line.push_str(&format!(
+            ", 1σ {:.2} nm ({:.2} %), range {:.2} nm ({:.2} %)",
+            f.std_nm, f.nu_1sigma_pct, f.range_nm, f.nu_range_pct
+        ));
     }
     line
 }
