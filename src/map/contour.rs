@@ -252,6 +252,39 @@ fn point_segment_distance(p: (f64, f64), a: (f64, f64), b: (f64, f64)) -> f64 {
     (p.0 - a.0 - t * dx).hypot(p.1 - a.1 - t * dy)
 }
 
+/// Closed outlines of the region at or above each of `levels` (ascending): the grid gets a
+/// one-node border and its empty nodes are set below every level, so every line closes, along
+/// the edge of the filled area where the region reaches it. Filled even-odd, the outlines of
+/// one level cover exactly that region.
+pub fn closed_isolines(grid: &Grid, levels: &[f64]) -> Vec<Vec<Polyline>> {
+    isolines_many(&padded_below(grid, levels), levels)
+}
+
+/// The grid with a one-node border added and every empty node set below all levels.
+fn padded_below(g: &Grid, bounds: &[f64]) -> Grid {
+    let (lo, hi) = g.min_max().unwrap_or((0.0, 1.0));
+    let b_lo = bounds.first().copied().unwrap_or(lo).min(lo);
+    let sentinel = b_lo - 1e6 * (hi - lo).abs().max(1.0);
+    let (nx, ny) = (g.nx + 2, g.ny + 2);
+    let mut values = vec![sentinel; nx * ny];
+    for j in 0..g.ny {
+        for i in 0..g.nx {
+            let v = g.at(i, j);
+            if v.is_finite() {
+                values[(j + 1) * nx + i + 1] = v;
+            }
+        }
+    }
+    Grid {
+        nx,
+        ny,
+        x0: g.x0 - g.step,
+        y0: g.y0 - g.step,
+        step: g.step,
+        values,
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -334,5 +367,46 @@ mod tests {
         };
         let s = simplify(&line, 0.01);
         assert_eq!(s.points, vec![(0.0, 0.0), (3.0, 0.0), (3.0, 3.0)]);
+    }
+
+    #[test]
+    fn closed_isolines_close_along_the_edge_of_the_filled_area() {
+        // A tilted plane on a disc of filled nodes: open lines across the disc, closed loops
+        // once padded.
+        let n = 41;
+        let mut values = vec![f64::NAN; n * n];
+        for j in 0..n {
+            for i in 0..n {
+                let (x, y) = (i as f64 - 20.0, j as f64 - 20.0);
+                if x.hypot(y) <= 18.0 {
+                    values[j * n + i] = x + 0.5 * y;
+                }
+            }
+        }
+        let g = Grid {
+            nx: n,
+            ny: n,
+            x0: -20.0,
+            y0: -20.0,
+            step: 1.0,
+            values,
+        };
+        let levels = [-5.0, 0.0, 5.0];
+        assert!(isolines_many(&g, &levels)
+            .iter()
+            .flatten()
+            .all(|l| !l.closed));
+        let loops = closed_isolines(&g, &levels);
+        assert_eq!(loops.len(), 3);
+        for per_level in &loops {
+            assert_eq!(per_level.len(), 1);
+            assert!(per_level[0].closed);
+        }
+        // The loop of the lowest level reaches round the high side of the disc: its points
+        // span most of the disc's width.
+        let xs: Vec<f64> = loops[0][0].points.iter().map(|p| p.0).collect();
+        let span = xs.iter().cloned().fold(f64::MIN, f64::max)
+            - xs.iter().cloned().fold(f64::MAX, f64::min);
+        assert!(span > 25.0, "{span}");
     }
 }

@@ -6,7 +6,7 @@
 //! radial profile plot; a one-line legend at the foot.
 
 use super::colour::{self, ink_on, Rgb};
-use super::contour::{isolines_many, simplify, Polyline};
+use super::contour::{closed_isolines, simplify, Polyline};
 use super::interpolate::{Field, Grid};
 use super::levels::{decimals_for, nice_levels, Levels};
 use super::render::{MapInput, RenderOptions};
@@ -264,24 +264,20 @@ fn wafer_and_field(
         class: "outline",
     });
     if let Some(grid) = grid {
-        scene.items.push(Item::Field(Box::new(FieldFill {
-            grid: grid.clone(),
-            bounds: levels.values.clone(),
-            colours: colours.to_vec(),
-            clip: usable.clone(),
-            origin,
-            scale,
-        })));
+        // One marching-squares pass: the closed outlines fill the bands, and their parts
+        // inside the usable area are the drawn isolines (the closing runs lie in the padding
+        // beyond it).
+        let loops = closed_isolines(grid, &levels.values);
+        let field_at = scene.items.len();
         let tol_mm = 0.35 / scale;
         let span = hi - lo;
         let mut labels = Vec::new();
-        let all = isolines_many(grid, &levels.values);
-        for (k, (&level, lines)) in levels.values.iter().zip(all).enumerate() {
+        for (k, (&level, lines)) in levels.values.iter().zip(&loops).enumerate() {
             let t = if span > 0.0 { (level - lo) / span } else { 0.5 };
             let ink = ink_on(colour::scale(t));
             let mut pieces_px = Vec::new();
             for line in lines {
-                for piece in clip_to_usable(&line, w) {
+                for piece in clip_to_usable(line, w) {
                     let piece = simplify(&piece, tol_mm);
                     let points: Vec<(f64, f64)> =
                         piece.points.iter().map(|&(x, y)| to_px(x, y)).collect();
@@ -298,6 +294,17 @@ fn wafer_and_field(
             labels.push((k, level, ink, pieces_px));
         }
         let sites_px: Vec<(f64, f64)> = input.rows.iter().map(|r| to_px(r.x_mm, r.y_mm)).collect();
+        let field = Item::Field(Box::new(FieldFill {
+            grid: grid.clone(),
+            bounds: levels.values.clone(),
+            colours: colours.to_vec(),
+            loops,
+            clip: usable.clone(),
+            origin,
+            scale,
+        }));
+        // The field goes under the isolines drawn above.
+        scene.items.insert(field_at, field);
         isoline_labels(scene, &labels, &sites_px, levels, colours);
     }
     scene.items.push(Item::Path {

@@ -2,6 +2,7 @@
 //! by [`super::layout`] and written by [`super::svg`] or [`super::png`].
 
 use super::colour::Rgb;
+use super::contour::Polyline;
 use super::interpolate::Grid;
 
 /// Horizontal text anchor.
@@ -40,6 +41,9 @@ pub struct FieldFill {
     pub bounds: Vec<f64>,
     /// One colour per band (`bounds.len() + 1`).
     pub colours: Vec<Rgb>,
+    /// Per bound, the closed outlines (mm) of the region at or above it
+    /// ([`super::contour::closed_isolines`]): band k + 1 is their even-odd fill.
+    pub loops: Vec<Vec<Polyline>>,
     /// Clip polygon (the usable outline), px.
     pub clip: Vec<(f64, f64)>,
     /// Pixel position of wafer (0, 0) and px per mm (y flipped).

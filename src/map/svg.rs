@@ -2,13 +2,11 @@
 //! marker), plus the small helpers the site plan shares.
 //!
 //! The colour bands are vector paths: for each level, the region where the field is at or
-//! above it is traced as closed loops (the grid padded with a value below every level, so
-//! every loop closes) and filled with the even-odd rule, which cuts holes around lower
-//! ground. Painted in ascending order over the lowest band's colour, each point ends up in
+//! above it is traced as closed loops ([`super::contour::closed_isolines`], laid out with the
+//! field) and filled with the even-odd rule, which cuts holes around lower ground. Painted in ascending order over the lowest band's colour, each point ends up in
 //! the colour of its band; the whole stack is clipped to the usable outline.
 
-use super::contour::{isolines_many, simplify};
-use super::interpolate::Grid;
+use super::contour::simplify;
 use super::scene::{Anchor, FieldFill, Item, Scene, Stroke};
 use std::fmt::Write;
 
@@ -185,12 +183,11 @@ fn write_field(s: &mut String, f: &FieldFill, id: usize) {
         clip,
         f.colours[0].hex()
     );
-    let padded = padded_below(&f.grid, &f.bounds);
     let tol_mm = 0.35 / f.scale;
-    for (k, lines) in isolines_many(&padded, &f.bounds).into_iter().enumerate() {
+    for (k, lines) in f.loops.iter().enumerate() {
         let mut d = String::new();
         for line in lines {
-            let line = simplify(&line, tol_mm);
+            let line = simplify(line, tol_mm);
             if line.points.len() < 3 {
                 continue;
             }
@@ -206,29 +203,4 @@ fn write_field(s: &mut String, f: &FieldFill, id: usize) {
         }
     }
     s.push_str("</g>\n");
-}
-
-/// The grid with a one-node border added and every empty node set below all levels.
-fn padded_below(g: &Grid, bounds: &[f64]) -> Grid {
-    let (lo, hi) = g.min_max().unwrap_or((0.0, 1.0));
-    let b_lo = bounds.first().copied().unwrap_or(lo).min(lo);
-    let sentinel = b_lo - 1e6 * (hi - lo).abs().max(1.0);
-    let (nx, ny) = (g.nx + 2, g.ny + 2);
-    let mut values = vec![sentinel; nx * ny];
-    for j in 0..g.ny {
-        for i in 0..g.nx {
-            let v = g.at(i, j);
-            if v.is_finite() {
-                values[(j + 1) * nx + i + 1] = v;
-            }
-        }
-    }
-    Grid {
-        nx,
-        ny,
-        x0: g.x0 - g.step,
-        y0: g.y0 - g.step,
-        step: g.step,
-        values,
-    }
 }
