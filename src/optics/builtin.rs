@@ -8,6 +8,8 @@ use std::sync::Arc;
 const GREEN_SI: &str = include_str!("../../data/optical/Si_nk_Green-2008.yml");
 const MALITSON_SIO2: &str = include_str!("../../data/optical/SiO2_nk_Malitson.yml");
 const LUKE_SI3N4: &str = include_str!("../../data/optical/Si3N4_nk_Luke.yml");
+const ASPNES_SI: &str = include_str!("../../data/optical/Si_nk_Aspnes.yml");
+const PHILIPP_SI3N4: &str = include_str!("../../data/optical/Si3N4_nk_Philipp.yml");
 
 /// Generic resist: n = 1.62 + 0.010/λ² (λ in µm), k = 0. Approximate: a typical novolac-type
 /// positive resist is about this (from memory); a real resist needs its own coefficients.
@@ -19,7 +21,12 @@ pub fn all() -> Vec<Material> {
         // Air taken as n = 1 (n − 1 ≈ 2.8e-4 at 589 nm, common practice to neglect).
         Material::constant("air", 1.0, 0.0)
             .with_source("n = 1 (vacuum; air's n − 1 ≈ 3e-4 neglected)"),
-        si(),
+        tabulated(
+            "si",
+            GREEN_SI,
+            "Si_nk_Green-2008.yml",
+            "M. A. Green, Sol. Energ. Mat. Sol. Cells 92, 1305 (2008), c-Si at 300 K",
+        ),
         rii_formula1("sio2", MALITSON_SIO2).with_source(
             "I. H. Malitson, J. Opt. Soc. Am. 55, 1205 (1965), fused silica Sellmeier",
         ),
@@ -38,15 +45,24 @@ pub fn all() -> Vec<Material> {
         .with_source(
             "generic Cauchy resist, approximate: fit real films with their own coefficients",
         ),
+        tabulated(
+            "si-aspnes",
+            ASPNES_SI,
+            "Si_nk_Aspnes.yml",
+            "D. E. Aspnes, A. A. Studna, Phys. Rev. B 27, 985 (1983), c-Si, 207–827 nm",
+        ),
+        rii_formula1("si3n4-philipp", PHILIPP_SI3N4).with_source(
+            "H. R. Philipp, J. Electrochem. Soc. 120, 295 (1973), CVD Si3N4 Sellmeier",
+        ),
     ]
 }
 
-fn si() -> Material {
-    let (rows, lines) = parse_rii_tabulated(GREEN_SI);
-    let table = NkTable::from_rows(&rows, &lines, &builtin_path("Si_nk_Green-2008.yml"))
-        .expect("the embedded Green 2008 table is valid (checked by a unit test)");
-    Material::new("si", Dispersion::Table(Arc::new(table)))
-        .with_source("M. A. Green, Sol. Energ. Mat. Sol. Cells 92, 1305 (2008), c-Si at 300 K")
+/// A material from an embedded refractiveindex.info "tabulated nk" file.
+fn tabulated(name: &str, text: &str, file: &str, source: &str) -> Material {
+    let (rows, lines) = parse_rii_tabulated(text);
+    let table = NkTable::from_rows(&rows, &lines, &builtin_path(file))
+        .expect("the embedded tables are valid (checked by a unit test)");
+    Material::new(name, Dispersion::Table(Arc::new(table))).with_source(source)
 }
 
 /// A Sellmeier material from a refractiveindex.info "formula 1" file:
@@ -112,6 +128,29 @@ mod tests {
             );
         }
         assert_eq!(si.range_nm(), Some((250.0, 1450.0)));
+    }
+
+    #[test]
+    fn aspnes_rows_and_philipp_formula() {
+        // Rows of Aspnes & Studna (1983) as in data/optical/Si_nk_Aspnes.yml (λ in µm there).
+        let si = get("si-aspnes");
+        for (w, n, k) in [
+            (495.9, 4.320, 0.073),
+            (590.4, 3.969, 0.030),
+            (619.9, 3.906, 0.022),
+        ] {
+            let v = si.index(w);
+            assert!(
+                (v.re - n).abs() < 1e-9 && (v.im - k).abs() < 1e-9,
+                "{w}: {v}"
+            );
+        }
+        assert_eq!(si.range_nm(), Some((206.6, 826.6)));
+        // Philipp (1973) via Bååk's formula, by hand at 632.8 nm:
+        // n² = 1 + 2.8939·0.400436/(0.400436 − 0.13967²) = 4.04210 → n = 2.01050.
+        let n = get("si3n4-philipp").index(632.8).re;
+        assert!((n - 2.01050).abs() < 2e-5, "{n}");
+        assert_eq!(get("si3n4-philipp").range_nm(), Some((207.0, 1240.0)));
     }
 
     #[test]

@@ -23,7 +23,15 @@ pub use tmm::{
 use std::path::PathBuf;
 
 /// Names of the built-in materials (a recipe's own `[materials.NAME]` wins over these).
-pub const BUILTIN_NAMES: [&str; 5] = ["air", "si", "sio2", "si3n4", "resist"];
+pub const BUILTIN_NAMES: [&str; 7] = [
+    "air",
+    "si",
+    "sio2",
+    "si3n4",
+    "resist",
+    "si-aspnes",
+    "si3n4-philipp",
+];
 
 /// Why a material could not be built.
 #[derive(Debug, thiserror::Error)]
