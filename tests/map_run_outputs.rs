@@ -55,7 +55,7 @@ fn out_of_spec_sites_are_listed_and_ringed() {
     let loaded = recipe("oxide-150-49");
     let mut meta = run_toml(&loaded, "S7");
     let mut rows = analytic_rows(&loaded);
-    // The analytic field spans about 980–1021 nm; a window of 1000–1015 leaves the edge ring
+    // The analytic field spans about 994–1020 nm; a window of 1000–1015 leaves the edge ring
     // and the thickest centre sites out.
     meta.recipe.accept.spec_nm = Some([1000.0, 1015.0]);
     rows[0].flag = "poor-fit".into();
