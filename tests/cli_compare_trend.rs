@@ -355,3 +355,59 @@ fn sheet_puts_every_map_on_one_colour_scale() {
     let tick = |t: &str| text.matches(&format!(">{t}<")).count();
     assert!(tick("1000") >= 2 && tick("1030") >= 2, "common scale ticks");
 }
+
+#[test]
+fn compare_table_counts_sites_in_the_recipes_spec_window() {
+    let dir = tempfile::tempdir().unwrap();
+    let a = make_run(
+        dir.path(),
+        "W11",
+        "oxide-150-49.toml",
+        "2026-12-01T08:00:00+00:00",
+        |x, _| 1000.0 + 0.1 * x,
+    );
+    // Tilted so that the +x side leaves the recipe's 950–1050 nm window.
+    let b = make_run(
+        dir.path(),
+        "W12",
+        "oxide-150-49.toml",
+        "2026-12-01T09:00:00+00:00",
+        |x, _| 1040.0 + 0.2 * x,
+    );
+    let loaded =
+        recipe::load(&Path::new(env!("CARGO_MANIFEST_DIR")).join("recipes/oxide-150-49.toml"))
+            .unwrap();
+    let inside = loaded
+        .sites()
+        .iter()
+        .filter(|s| (1040.0 + 0.2 * s.x_mm) <= 1050.0)
+        .count();
+    assert!(inside > 20 && inside < 49, "{inside}");
+    let o = isopach(&["compare", a.to_str().unwrap(), b.to_str().unwrap()]);
+    assert!(o.status.success());
+    let table = String::from_utf8_lossy(&o.stdout);
+    let head = table.lines().next().unwrap();
+    assert!(head.ends_with("in_spec"), "{table}");
+    let row = |w: &str| {
+        table
+            .lines()
+            .find(|l| l.starts_with(w))
+            .unwrap()
+            .to_string()
+    };
+    assert!(row("W11").ends_with(" 49/49"), "{table}");
+    assert!(row("W12").ends_with(&format!(" {inside}/49")), "{table}");
+    let out = json(&isopach(&[
+        "compare",
+        a.to_str().unwrap(),
+        b.to_str().unwrap(),
+        "--json",
+    ]));
+    assert_eq!(
+        out["wafers"][1]["spec"]["sites_out"]
+            .as_array()
+            .unwrap()
+            .len(),
+        49 - inside
+    );
+}

@@ -139,12 +139,17 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         println!("{}", serde_json::to_string_pretty(&out)?);
         return Ok(super::exit::OK);
     }
-    println!(
+    let with_spec = wafers.iter().any(|(_, f, _)| f.spec.is_some());
+    let mut head = format!(
         "{:<24} {:>10} {:>9} {:>8} {:>9} {:>7}",
         "wafer", "mean_nm", "1σ_nm", "NU_%", "range_nm", "valid"
     );
+    if with_spec {
+        head.push_str(&format!(" {:>8}", "in_spec"));
+    }
+    println!("{head}");
     for (w, f, _) in &wafers {
-        println!(
+        let mut line = format!(
             "{:<24} {:>10} {:>9} {:>8} {:>9} {:>3}/{:<3}",
             w.meta.run.wafer,
             num(f.mean_nm),
@@ -154,6 +159,13 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             f.sites_valid,
             f.sites_total
         );
+        if with_spec {
+            let cell = f.spec.as_ref().map_or("-".to_string(), |c| {
+                format!("{}/{}", c.sites_in, c.sites_in + c.sites_out.len())
+            });
+            line.push_str(&format!(" {cell:>8}"));
+        }
+        println!("{}", line.trim_end());
     }
     println!(
         "wafer to wafer: mean of means {} nm, σ of means {} nm, NU {} % over {} wafers",
