@@ -32,9 +32,14 @@ enum Action {
     /// Print the stage position (stage and wafer frames).
     Where,
     /// Move to X Y (stage frame, mm; wafer frame with --wafer), within the soft limits.
+    #[command(
+        after_help = "Examples:\n  isopach stage move 100 100 --machine bench-a.toml\n  isopach stage move -20 35 --wafer --machine bench-a.toml   # a wafer site"
+    )]
     Move {
+        /// Target X, mm (negative values allowed).
         #[arg(allow_negative_numbers = true)]
         x_mm: f64,
+        /// Target Y, mm.
         #[arg(allow_negative_numbers = true)]
         y_mm: f64,
         /// X and Y are wafer coordinates, placed by the machine file's [chuck].
