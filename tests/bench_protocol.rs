@@ -210,11 +210,11 @@ fn golden_transcript_dwell_3x3() {
     assert_eq!(sent, golden);
 }
 
-#[test]
-fn golden_transcript_m400_3x3_with_rotation() {
+/// The m400 fixture's printer board connected: "start" and echo lines, no lock; init goes out
+/// after the quiet time.
+fn printer_connected() -> (MachineFile, Harness) {
     let m = fixture("m400.toml");
     let mut h = Harness::new(&m);
-    // A printer board: "start" and echo lines, no lock; init goes out after the quiet time.
     h.start(Command::Connect);
     h.now += Duration::from_millis(1500);
     h.reply("start");
@@ -225,6 +225,12 @@ fn golden_transcript_m400_3x3_with_rotation() {
     assert_eq!(h.sent(), vec!["G90"]);
     h.reply("ok");
     assert!(matches!(h.result(), Some(Ok(Outcome::Connected { .. }))));
+    (m, h)
+}
+
+#[test]
+fn golden_transcript_m400_3x3_with_rotation() {
+    let (m, mut h) = printer_connected();
     let mut sent = Vec::new();
     for moves in plan_moves(&m) {
         for p in moves {
@@ -235,8 +241,9 @@ fn golden_transcript_m400_3x3_with_rotation() {
         }
         h.start(Command::WaitIdle);
         sent.extend(h.sent());
-        // Keep-alives while the moves run restart the reply timeout.
-        for _ in 0..5 {
+        // Keep-alives while the moves run are taken in (within the motion allowance:
+        // 1.5 × ~0.3 s + 10 s line timeout).
+        for _ in 0..4 {
             h.wait_ms(2000);
             h.reply("echo:busy: processing");
         }
@@ -664,4 +671,49 @@ fn too_long_a_line_is_refused_before_sending() {
         .unwrap_err();
     assert!(matches!(e, ControllerError::LineTooLong { .. }), "{e}");
     assert!(h.sent().is_empty());
+}
+
+#[test]
+fn keep_alives_do_not_stretch_a_stalled_wait_for_motion() {
+    let (_, mut h) = printer_connected();
+    h.start(Command::Move {
+        x_mm: 150.0,
+        y_mm: 100.0,
+    });
+    h.sent();
+    h.reply("ok");
+    h.result();
+    h.start(Command::WaitIdle);
+    assert_eq!(h.sent(), vec!["M400"]);
+    // A stalled board that goes on saying busy every 2 s, as printer firmware does. Unknown
+    // start: the estimate covers the travel diagonal (311 mm at 40 mm/s ≈ 7.8 s), so the
+    // allowance is about 1.5 × 7.8 + 10 ≈ 21.7 s.
+    let mut waited = 0;
+    while h.result().is_none() && waited < 60_000 {
+        h.wait_ms(2000);
+        waited += 2000;
+        h.reply("echo:busy: processing");
+    }
+    assert!(
+        (20_000..=24_000).contains(&waited),
+        "failed after {waited} ms"
+    );
+}
+
+#[test]
+fn keep_alives_stretch_a_reply_wait_to_four_timeouts() {
+    let (_, mut h) = printer_connected();
+    h.start(Command::Home);
+    assert_eq!(h.sent(), vec!["G28 X Y"]);
+    // home_timeout_s = 90: keep-alives carry the wait past it, up to 4 × 90 s.
+    let mut waited = 0;
+    while h.result().is_none() && waited < 600_000 {
+        h.wait_ms(2000);
+        waited += 2000;
+        h.reply("echo:busy: processing");
+    }
+    assert!(
+        (358_000..=362_000).contains(&waited),
+        "failed after {waited} ms"
+    );
 }

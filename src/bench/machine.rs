@@ -295,6 +295,24 @@ pub struct SimControllerSpec {
     /// Moves the planner queues before `ok` is held back.
     #[serde(default = "d_planner")]
     pub planner_moves: usize,
+    /// The reply conventions it follows.
+    #[serde(default)]
+    pub dialect: Dialect,
+}
+
+/// Reply conventions of the virtual controller.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Dialect {
+    /// grbl-like: `?` and Ctrl-X are real-time bytes, `error:N`, `ALARM:N`, `$X`/`$H`,
+    /// `G4 P` in seconds, a soft-limit alarm.
+    #[default]
+    Grbl,
+    /// Marlin-like 3D-printer firmware: `start` at power-up, `echo:busy: processing` every
+    /// 2 s while a wait blocks, `M114` position reports (of the planned position), `G28`
+    /// homing, `M410` quick stop acted on at once, `G4 P` in ms, moves clamped to the travel,
+    /// unknown codes answered `echo:Unknown command` then `ok`.
+    Marlin,
 }
 
 impl Default for SimControllerSpec {
@@ -304,6 +322,7 @@ impl Default for SimControllerSpec {
             start_locked: false,
             idle_lag_ms: d_idle_lag(),
             planner_moves: d_planner(),
+            dialect: Dialect::Grbl,
         }
     }
 }

@@ -187,6 +187,9 @@ enum Await {
     Motion { expected_s: f64, timeout: Duration },
 }
 
+/// How many reply timeouts keep-alives can stretch one reply wait to.
+const BUSY_EXTENSIONS: u32 = 4;
+
 #[derive(Debug, Clone, PartialEq)]
 struct InFlight {
     line: String,
@@ -714,10 +717,14 @@ impl Controller {
                 self.fail(ControllerError::Garbled { line, during });
             }
             Reply::Busy => {
-                let t = match &f.wait {
-                    Await::Ack { timeout } | Await::Motion { timeout, .. } => *timeout,
-                };
-                f.deadline = now + t;
+                // A keep-alive proves the controller is alive, not that it is getting
+                // anywhere: it restarts a reply wait (up to BUSY_EXTENSIONS timeouts in all)
+                // but never stretches a wait for motion past its kinematic allowance, so a
+                // stalled stage that keeps saying "busy" still times out.
+                if let Await::Ack { timeout } = &f.wait {
+                    let cap = f.sent_at + *timeout * BUSY_EXTENSIONS;
+                    f.deadline = (now + *timeout).min(cap).max(f.deadline);
+                }
                 return Phase::Lines {
                     queue,
                     in_flight: Some(f),
