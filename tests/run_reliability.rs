@@ -442,3 +442,28 @@ fn ctrl_c_stops_the_stage_keeps_the_data_and_resume_finishes() {
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     assert!(sites_once(&run, 9).iter().all(|(_, f)| f == "ok"));
 }
+
+/// The printer-board machine file (strategy m400, homing `G28 X Y`, stop `M410`, no reset
+/// byte) on the virtual controller in its Marlin-like dialect: the whole map runs, each wait
+/// ending on M400's `ok` (a grbl-like controller would refuse the `G28` homing line).
+#[test]
+fn a_printer_board_with_m400_runs_the_whole_map() {
+    let (dir, recipe, _) = bench_dir("");
+    let fixture = std::fs::read_to_string(concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/fixtures/machines/m400.toml"
+    ))
+    .unwrap();
+    let machine = dir.path().join("printer.toml");
+    let text = fixture
+        .replace("port = \"/dev/ttyUSB0\"", "port = \"simulated\"")
+        .replace("startup_wait_s = 4", "startup_wait_s = 1")
+        + "\n[simulation]\ntime_scale = 40\n";
+    std::fs::write(&machine, text).unwrap();
+    let runs = dir.path().join("runs");
+    let o = run_map(&recipe, &machine, "P1", &runs);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let run = only_run(&runs);
+    let rows = sites_once(&run, 9);
+    assert!(rows.iter().all(|(_, f)| f == "ok"), "{rows:?}");
+}

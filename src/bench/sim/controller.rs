@@ -11,9 +11,14 @@
 //! kinematics, an `ALARM:2` soft-limit alarm for targets outside its travel, and injectable
 //! faults (dropped `ok`, garbage, `error`, alarm mid-move, stall, disconnect). In an alarm it
 //! ignores everything, status queries included, until it receives the reset byte.
+//!
+//! With `dialect = "marlin"` it behaves like 3D-printer firmware instead (see
+//! [`Dialect::Marlin`]): no real-time bytes, `echo:busy: processing` keep-alives while a wait
+//! blocks, `G28`, `M114`, `M410` acted on as it arrives, `G4 P` in ms, moves clamped to the
+//! travel, alarms cleared by `M999`.
 
 use crate::bench::kinematics::Trapezoid;
-use crate::bench::machine::{FaultKind, FaultSpec, MachineFile};
+use crate::bench::machine::{Dialect, FaultKind, FaultSpec, MachineFile};
 use std::collections::VecDeque;
 
 /// The reset byte (Ctrl-X).
@@ -22,6 +27,9 @@ pub const RESET_BYTE: u8 = 0x18;
 pub const STATUS_BYTE: u8 = b'?';
 /// Longest line accepted, characters (without the line end).
 pub const LINE_LIMIT: usize = 80;
+/// Interval of the Marlin dialect's `echo:busy: processing` keep-alives, s (Marlin's default
+/// host keep-alive interval, from memory).
+pub const KEEPALIVE_S: f64 = 2.0;
 
 /// How the virtual controller is built.
 #[derive(Debug, Clone, PartialEq)]
@@ -39,6 +47,7 @@ pub struct VirtualConfig {
     /// Where homing ends and where the stage sits at power-up.
     pub home_mm: [f64; 2],
     pub faults: Vec<FaultSpec>,
+    pub dialect: Dialect,
 }
 
 impl VirtualConfig {
@@ -57,6 +66,7 @@ impl VirtualConfig {
             accel_mm_s2: s.accel_mm_s2,
             home_mm: [s.travel_x_mm[0], s.travel_y_mm[0]],
             faults: m.simulation.faults.clone(),
+            dialect: c.dialect,
         }
     }
 }
@@ -108,6 +118,8 @@ enum Blocker {
         since: Option<f64>,
         fault: Option<FaultKind>,
         homing: bool,
+        /// Next keep-alive (Marlin dialect).
+        keepalive: Option<f64>,
     },
 }
 
@@ -148,7 +160,7 @@ impl VirtualController {
     /// A controller just powered up at virtual time `now`: banner out, stage at home.
     pub fn new(cfg: VirtualConfig, now: f64) -> VirtualController {
         let mut v = VirtualController {
-            mode: if cfg.start_locked {
+            mode: if cfg.start_locked && cfg.dialect == Dialect::Grbl {
                 Mode::Locked
             } else {
                 Mode::Normal
@@ -195,8 +207,18 @@ impl VirtualController {
     /// The next virtual time at which something happens by itself (motion ends, a fault
     /// strikes, a dwell ends).
     pub fn next_wakeup(&self) -> Option<f64> {
-        if self.mode == Mode::Alarm || self.stalled {
+        if self.mode == Mode::Alarm {
             return None;
+        }
+        let keepalive = match &self.blocker {
+            Some(Blocker::Sync {
+                keepalive: Some(k), ..
+            }) => Some(*k),
+            _ => None,
+        };
+        if self.stalled {
+            // A stalled board still says it is busy.
+            return keepalive;
         }
         let end = self
             .planner
@@ -211,25 +233,35 @@ impl VirtualController {
             }) => Some(t + dwell_s),
             _ => None,
         };
-        [end, strike, dwell].into_iter().flatten().reduce(f64::min)
+        [end, strike, dwell, keepalive]
+            .into_iter()
+            .flatten()
+            .reduce(f64::min)
     }
 
     /// Bytes arrived from the host at virtual time `now`.
     pub fn feed(&mut self, bytes: &[u8], now: f64) {
         self.advance(now);
+        let grbl = self.cfg.dialect == Dialect::Grbl;
         for &b in bytes {
-            if b == RESET_BYTE {
+            if grbl && b == RESET_BYTE {
                 self.reset();
                 continue;
             }
-            if self.mode == Mode::Alarm || self.disconnected {
+            if (grbl && self.mode == Mode::Alarm) || self.disconnected {
                 continue;
             }
             match b {
-                STATUS_BYTE => self.report_status(),
+                STATUS_BYTE if grbl => self.report_status(),
                 b'\n' | b'\r' => {
                     let line = String::from_utf8_lossy(&self.rx).into_owned();
                     self.rx.clear();
+                    // Marlin's emergency parser acts on a quick stop as it arrives, ahead of
+                    // whatever is waiting; the line itself is then answered in turn.
+                    if !grbl && strip_comments(&line).trim().eq_ignore_ascii_case("M410") {
+                        self.quick_stop();
+                        self.step_events();
+                    }
                     self.lines.push_back(line);
                 }
                 _ => self.rx.push(b),
@@ -272,7 +304,11 @@ impl VirtualController {
     }
 
     fn step_events(&mut self) {
-        if self.mode == Mode::Alarm || self.stalled {
+        if self.mode == Mode::Alarm {
+            return;
+        }
+        self.keep_alive();
+        if self.stalled {
             return;
         }
         if let Some((t, kind)) = self.strike {
@@ -286,8 +322,7 @@ impl VirtualController {
                         self.blocker = None;
                         self.lines.clear();
                         self.mode = Mode::Alarm;
-                        self.line(&format!("ALARM:{code}"));
-                        self.line("[MSG:Reset to continue]");
+                        self.alarm_lines(code);
                     }
                     Armed::Stall => {
                         // Freeze here: the running segment becomes a zero-length one that
@@ -321,6 +356,7 @@ impl VirtualController {
             since: Some(t),
             fault,
             homing,
+            ..
         }) = self.blocker.clone()
         {
             if self.now >= t + dwell_s {
@@ -349,6 +385,44 @@ impl VirtualController {
         }
     }
 
+    /// Marlin's `M410`: motion stops where it is and the planner empties.
+    fn quick_stop(&mut self) {
+        self.pos = self.current_pos();
+        self.planner.clear();
+        self.armed = None;
+        self.strike = None;
+        self.stalled = false;
+    }
+
+    /// Sends the keep-alives due while a wait blocks (Marlin dialect).
+    fn keep_alive(&mut self) {
+        let now = self.now;
+        let mut due = 0;
+        if let Some(Blocker::Sync {
+            keepalive: Some(k), ..
+        }) = &mut self.blocker
+        {
+            while *k <= now {
+                *k += KEEPALIVE_S;
+                due += 1;
+            }
+        }
+        for _ in 0..due {
+            self.line("echo:busy: processing");
+        }
+    }
+
+    /// A wait that replies once motion has ended (plus `dwell_s`).
+    fn sync(&self, dwell_s: f64, fault: Option<FaultKind>, homing: bool) -> Blocker {
+        Blocker::Sync {
+            dwell_s,
+            since: None,
+            fault,
+            homing,
+            keepalive: (self.cfg.dialect == Dialect::Marlin).then_some(self.now + KEEPALIVE_S),
+        }
+    }
+
     fn queue_move(&mut self, to: [f64; 2]) {
         let from = self.planner.back().map_or(self.current_pos(), |s| s.to);
         let dist = (to[0] - from[0]).hypot(to[1] - from[1]);
@@ -370,19 +444,36 @@ impl VirtualController {
     // ----- lines -----
 
     fn process(&mut self) {
-        while self.blocker.is_none() && self.mode != Mode::Alarm && !self.disconnected {
+        while self.blocker.is_none() && !self.disconnected {
+            if self.mode == Mode::Alarm && self.cfg.dialect == Dialect::Grbl {
+                break;
+            }
             let Some(line) = self.lines.pop_front() else {
                 break;
             };
+            if self.mode == Mode::Alarm {
+                // Marlin dialect: stopped until M999.
+                if strip_comments(&line).trim().eq_ignore_ascii_case("M999") {
+                    self.mode = Mode::Normal;
+                    self.line("ok");
+                } else {
+                    self.line("Error:Printer stopped due to errors. Fix the error and use M999 to restart.");
+                }
+                continue;
+            }
             self.execute_line(line);
         }
     }
 
     fn execute_line(&mut self, raw: String) {
         let line = strip_comments(&raw).trim().to_uppercase();
+        let marlin = self.cfg.dialect == Dialect::Marlin;
         if line.is_empty() {
-            // An empty line is acknowledged, as grbl-style firmware does (for syncing).
-            self.line("ok");
+            // An empty line is acknowledged by grbl-style firmware (for syncing), skipped by
+            // Marlin.
+            if !marlin {
+                self.line("ok");
+            }
             return;
         }
         self.lines_seen += 1;
@@ -394,6 +485,9 @@ impl VirtualController {
             .cloned();
         if let Some(f) = &fault {
             match f.kind {
+                FaultKind::Error if marlin => {
+                    return self.line(&format!("Error:injected fault {}", f.code))
+                }
                 FaultKind::Error => return self.line(&format!("error:{}", f.code)),
                 FaultKind::Disconnect => {
                     self.disconnected = true;
@@ -406,7 +500,10 @@ impl VirtualController {
         }
         let kind = fault.map(|f| f.kind);
         if raw.len() > LINE_LIMIT {
-            return self.line("error:11");
+            return self.reject(11, &line);
+        }
+        if marlin {
+            return self.execute_gcode(&line, kind);
         }
         if let Some(cmd) = line.strip_prefix('$') {
             return self.execute_system(cmd.trim(), kind);
@@ -426,21 +523,7 @@ impl VirtualController {
                 self.mode = Mode::Normal;
                 self.reply_ok(fault);
             }
-            "H" => {
-                self.homing = true;
-                let home = self.cfg.home_mm;
-                let feed = self.feed_mm_min;
-                self.feed_mm_min = self.cfg.max_feed_mm_min / 2.0;
-                self.queue_move(home);
-                self.feed_mm_min = feed;
-                self.blocker = Some(Blocker::Sync {
-                    dwell_s: 0.0,
-                    since: None,
-                    fault,
-                    homing: true,
-                });
-                self.step_events();
-            }
+            "H" => self.home(fault),
             "I" => {
                 self.line("[VER:isopach-virtual.1:]");
                 self.reply_ok(fault);
@@ -459,10 +542,51 @@ impl VirtualController {
         }
     }
 
+    /// Homing (`$H`, or `G28` in the Marlin dialect): a move home at half the feed cap,
+    /// answered when it has ended.
+    fn home(&mut self, fault: Option<FaultKind>) {
+        self.homing = true;
+        let home = self.cfg.home_mm;
+        let feed = self.feed_mm_min;
+        self.feed_mm_min = self.cfg.max_feed_mm_min / 2.0;
+        self.queue_move(home);
+        self.feed_mm_min = feed;
+        self.blocker = Some(self.sync(0.0, fault, true));
+        self.step_events();
+    }
+
+    /// A line the controller cannot run: `error:N` (grbl), or Marlin's echo and `ok`.
+    fn reject(&mut self, code: u32, line: &str) {
+        match self.cfg.dialect {
+            Dialect::Grbl => self.line(&format!("error:{code}")),
+            Dialect::Marlin => {
+                self.line(&format!("echo:Unknown command: \"{line}\""));
+                self.line("ok");
+            }
+        }
+    }
+
+    /// Marlin's `M114`: the planned position (where the last queued move ends), not where
+    /// the stage is now, then `ok`.
+    fn report_planned_position(&mut self, fault: Option<FaultKind>) {
+        let p = self.planner.back().map_or(self.current_pos(), |s| s.to);
+        let steps = |v: f64| (v * 80.0).round() as i64;
+        let r = format!(
+            "X:{:.2} Y:{:.2} Z:0.00 E:0.00 Count X:{} Y:{} Z:0",
+            p[0],
+            p[1],
+            steps(p[0]),
+            steps(p[1])
+        );
+        self.line(&r);
+        self.reply_ok(fault);
+    }
+
     fn execute_gcode(&mut self, line: &str, fault: Option<FaultKind>) {
+        let marlin = self.cfg.dialect == Dialect::Marlin;
         let words = match parse_words(line) {
             Ok(w) => w,
-            Err(code) => return self.line(&format!("error:{code}")),
+            Err(code) => return self.reject(code, line),
         };
         let get = |letter: char| {
             words
@@ -479,7 +603,15 @@ impl VirtualController {
             let code = (v * 10.0).round() as i64;
             match (l, code) {
                 ('G', 0 | 10) => motion = true,
+                // Marlin counts P in ms (S in s), grbl P in s.
+                ('G', 40) if marlin => {
+                    let s = get('S').map_or(get('P').unwrap_or(0.0) / 1000.0, |s| s);
+                    sync = Some(s.max(0.0));
+                }
                 ('G', 40) => sync = Some(get('P').unwrap_or(0.0).max(0.0)),
+                ('G', 280) if marlin => return self.home(fault),
+                ('M', 1140) if marlin => return self.report_planned_position(fault),
+                ('M', 4100 | 9990) if marlin => {}
                 ('G', 200) => self.inches = true,
                 ('G', 210) => self.inches = false,
                 ('G', 900) => self.absolute = true,
@@ -488,14 +620,17 @@ impl VirtualController {
                 ('M', 4000) => sync = Some(0.0),
                 ('M', 20 | 300 | 50 | 90) => {}
                 ('X' | 'Y' | 'Z' | 'F' | 'P', _) => {}
-                _ => return self.line("error:20"),
+                ('S', _) if marlin => {}
+                _ => return self.reject(20, line),
             }
         }
         if let Some(f) = get('F') {
-            if f <= 0.0 {
+            if f <= 0.0 && !marlin {
                 return self.line("error:22");
             }
-            self.feed_mm_min = f * scale;
+            if f > 0.0 {
+                self.feed_mm_min = f * scale;
+            }
         }
         let has_axis = get('X').is_some() || get('Y').is_some();
         if motion || (has_axis && sync.is_none()) {
@@ -512,26 +647,27 @@ impl VirtualController {
                 Some(v) => base[i] + v * scale,
                 None => base[i],
             };
-            let to = [axis(0, get('X')), axis(1, get('Y'))];
+            let mut to = [axis(0, get('X')), axis(1, get('Y'))];
             let inside = |v: f64, t: [f64; 2]| v >= t[0] - 1e-9 && v <= t[1] + 1e-9;
+            if marlin {
+                // Software endstops: the target is clamped to the travel, silently.
+                to = [
+                    to[0].clamp(self.cfg.travel_x_mm[0], self.cfg.travel_x_mm[1]),
+                    to[1].clamp(self.cfg.travel_y_mm[0], self.cfg.travel_y_mm[1]),
+                ];
+            }
             if !(inside(to[0], self.cfg.travel_x_mm) && inside(to[1], self.cfg.travel_y_mm)) {
                 // Soft-limit alarm: motion is held, then the controller locks up until reset.
                 self.pos = self.current_pos();
                 self.planner.clear();
                 self.mode = Mode::Alarm;
-                self.line("ALARM:2");
-                self.line("[MSG:Reset to continue]");
+                self.alarm_lines(2);
                 return;
             }
             self.queue_move(to);
         }
         if let Some(dwell_s) = sync {
-            self.blocker = Some(Blocker::Sync {
-                dwell_s,
-                since: None,
-                fault,
-                homing: false,
-            });
+            self.blocker = Some(self.sync(dwell_s, fault, false));
             self.step_events();
             return;
         }
@@ -590,11 +726,30 @@ impl VirtualController {
     }
 
     fn banner(&mut self) {
+        if self.cfg.dialect == Dialect::Marlin {
+            self.line("start");
+            let b = format!("echo:{}", self.cfg.banner);
+            return self.line(&b);
+        }
         self.line("");
         let b = self.cfg.banner.clone();
         self.line(&b);
         if self.mode == Mode::Locked {
             self.line("[MSG:'$H'|'$X' to unlock]");
+        }
+    }
+
+    /// What an alarm mid-move prints.
+    fn alarm_lines(&mut self, code: u32) {
+        match self.cfg.dialect {
+            Dialect::Grbl => {
+                self.line(&format!("ALARM:{code}"));
+                self.line("[MSG:Reset to continue]");
+            }
+            Dialect::Marlin => {
+                self.line(&format!("!! alarm {code}: motion halted"));
+                self.line("Error:Printer halted. Send M999 to restart.");
+            }
         }
     }
 
@@ -666,7 +821,114 @@ mod tests {
             accel_mm_s2: 500.0,
             home_mm: [0.0, 0.0],
             faults: vec![],
+            dialect: Dialect::Grbl,
         }
+    }
+
+    fn marlin() -> VirtualController {
+        let mut v = VirtualController::new(
+            VirtualConfig {
+                dialect: Dialect::Marlin,
+                start_locked: true,
+                ..cfg()
+            },
+            0.0,
+        );
+        assert_eq!(text(&mut v), vec!["start", "echo:VS 1.0"], "never locked");
+        v
+    }
+
+    #[test]
+    fn marlin_waits_with_keep_alives_and_reports_the_planned_position() {
+        let mut v = marlin();
+        // 111.8 mm at 50 mm/s, 500 mm/s²: 2.34 s after the 0.02 s lag.
+        v.feed(b"G1 X100 Y50 F3000\nM114\nM400\n", 0.0);
+        assert_eq!(
+            text(&mut v),
+            vec![
+                "ok",
+                "X:100.00 Y:50.00 Z:0.00 E:0.00 Count X:8000 Y:4000 Z:0",
+                "ok"
+            ],
+            "M114 reports where the queued move ends, at once"
+        );
+        v.advance(2.0);
+        assert_eq!(text(&mut v), vec!["echo:busy: processing"]);
+        v.advance(2.3);
+        assert!(text(&mut v).is_empty());
+        v.advance(2.4);
+        assert_eq!(text(&mut v), vec!["ok"]);
+        // `?` is no real-time byte here, and an unknown code is echoed, then acknowledged.
+        v.feed(b"?\n$H\n", 2.4);
+        assert_eq!(
+            text(&mut v),
+            vec![
+                "echo:Unknown command: \"?\"",
+                "ok",
+                "echo:Unknown command: \"$H\"",
+                "ok"
+            ]
+        );
+    }
+
+    #[test]
+    fn marlin_dwell_is_in_ms_moves_clamp_and_quick_stop_acts_at_once() {
+        let mut v = marlin();
+        v.feed(b"G4 P500\n", 0.0);
+        v.advance(0.49);
+        assert!(text(&mut v).is_empty());
+        v.advance(0.5);
+        assert_eq!(text(&mut v), vec!["ok"]);
+        // Beyond the travel: clamped to 200 mm, no alarm.
+        v.feed(b"G1 X250 F3000\nM400\n", 0.5);
+        assert_eq!(text(&mut v), vec!["ok"]);
+        v.advance(1.5);
+        let at = v.position(1.5)[0];
+        assert!(at > 10.0 && at < 200.0, "{at}");
+        // M410 stops the stage where it is, ahead of the waiting M400, which then returns.
+        v.feed(b"M410\n", 1.5);
+        assert_eq!(text(&mut v), vec!["ok", "ok"]);
+        assert!((v.position(3.0)[0] - at).abs() < 1e-9);
+        v.feed(b"G1 X250\nM400\n", 3.0);
+        v.advance(10.0);
+        assert_eq!(v.position(10.0)[0], 200.0);
+    }
+
+    #[test]
+    fn marlin_alarm_waits_for_m999() {
+        let mut v = VirtualController::new(
+            VirtualConfig {
+                dialect: Dialect::Marlin,
+                faults: vec![FaultSpec {
+                    kind: FaultKind::Alarm,
+                    at_line: 1,
+                    code: 4,
+                }],
+                ..cfg()
+            },
+            0.0,
+        );
+        text(&mut v);
+        v.feed(b"G1 X100\n", 0.0);
+        assert_eq!(text(&mut v), vec!["ok"]);
+        v.advance(3.0);
+        assert_eq!(
+            text(&mut v),
+            vec![
+                "!! alarm 4: motion halted",
+                "Error:Printer halted. Send M999 to restart."
+            ]
+        );
+        v.feed(&[RESET_BYTE], 3.0);
+        v.feed(b"G1 X10\nM999\nG1 X10\n", 3.0);
+        assert_eq!(
+            text(&mut v),
+            vec![
+                "Error:Printer stopped due to errors. Fix the error and use M999 to restart.",
+                "ok",
+                "ok"
+            ]
+        );
     }
 
     fn text(v: &mut VirtualController) -> Vec<String> {
