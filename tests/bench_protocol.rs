@@ -85,6 +85,17 @@ impl Harness {
         );
         all
     }
+    /// A move to (150, 100) acknowledged, then the wait for it started.
+    fn move_then_wait_idle(&mut self) {
+        self.start(Command::Move {
+            x_mm: 150.0,
+            y_mm: 100.0,
+        });
+        self.sent();
+        self.reply("ok");
+        self.result();
+        self.start(Command::WaitIdle);
+    }
     /// Connects through a grbl-style banner and lock message.
     fn connect(&mut self) -> Vec<String> {
         self.start(Command::Connect);
@@ -517,14 +528,7 @@ fn alarm_state_in_a_status_report_is_an_alarm() {
 #[test]
 fn stall_under_dwell_is_a_motion_timeout() {
     let mut h = connected("dwell.toml");
-    h.start(Command::Move {
-        x_mm: 150.0,
-        y_mm: 100.0,
-    });
-    h.sent();
-    h.reply("ok");
-    h.result();
-    h.start(Command::WaitIdle);
+    h.move_then_wait_idle();
     assert_eq!(h.sent(), vec!["G4 P0"]);
     // Unknown start: the estimate covers the travel diagonal (282.8 mm at 50 mm/s ≈ 5.76 s),
     // so the allowance is 1.5 × 5.76 + 5 ≈ 13.6 s.
@@ -673,27 +677,26 @@ fn too_long_a_line_is_refused_before_sending() {
     assert!(h.sent().is_empty());
 }
 
-#[test]
-fn keep_alives_do_not_stretch_a_stalled_wait_for_motion() {
-    let (_, mut h) = printer_connected();
-    h.start(Command::Move {
-        x_mm: 150.0,
-        y_mm: 100.0,
-    });
-    h.sent();
-    h.reply("ok");
-    h.result();
-    h.start(Command::WaitIdle);
-    assert_eq!(h.sent(), vec!["M400"]);
-    // A stalled board that goes on saying busy every 2 s, as printer firmware does. Unknown
-    // start: the estimate covers the travel diagonal (311 mm at 40 mm/s ≈ 7.8 s), so the
-    // allowance is about 1.5 × 7.8 + 10 ≈ 21.7 s.
+/// Sends a keep-alive every 2 s until the command ends (or `limit_ms`); returns the time waited.
+fn busy_until_a_result(h: &mut Harness, limit_ms: u64) -> u64 {
     let mut waited = 0;
-    while h.result().is_none() && waited < 60_000 {
+    while h.result().is_none() && waited < limit_ms {
         h.wait_ms(2000);
         waited += 2000;
         h.reply("echo:busy: processing");
     }
+    waited
+}
+
+#[test]
+fn keep_alives_do_not_stretch_a_stalled_wait_for_motion() {
+    let (_, mut h) = printer_connected();
+    h.move_then_wait_idle();
+    assert_eq!(h.sent(), vec!["M400"]);
+    // A stalled board that goes on saying busy every 2 s, as printer firmware does. Unknown
+    // start: the estimate covers the travel diagonal (311 mm at 40 mm/s ≈ 7.8 s), so the
+    // allowance is about 1.5 × 7.8 + 10 ≈ 21.7 s.
+    let waited = busy_until_a_result(&mut h, 60_000);
     assert!(
         (20_000..=24_000).contains(&waited),
         "failed after {waited} ms"
@@ -706,12 +709,7 @@ fn keep_alives_stretch_a_reply_wait_to_four_timeouts() {
     h.start(Command::Home);
     assert_eq!(h.sent(), vec!["G28 X Y"]);
     // home_timeout_s = 90: keep-alives carry the wait past it, up to 4 × 90 s.
-    let mut waited = 0;
-    while h.result().is_none() && waited < 600_000 {
-        h.wait_ms(2000);
-        waited += 2000;
-        h.reply("echo:busy: processing");
-    }
+    let waited = busy_until_a_result(&mut h, 600_000);
     assert!(
         (358_000..=362_000).contains(&waited),
         "failed after {waited} ms"

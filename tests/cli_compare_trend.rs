@@ -359,21 +359,18 @@ fn sheet_puts_every_map_on_one_colour_scale() {
 #[test]
 fn compare_table_counts_sites_in_the_recipes_spec_window() {
     let dir = tempfile::tempdir().unwrap();
-    let a = make_run(
-        dir.path(),
-        "W11",
-        "oxide-150-49.toml",
-        "2026-12-01T08:00:00+00:00",
-        |x, _| 1000.0 + 0.1 * x,
-    );
-    // Tilted so that the +x side leaves the recipe's 950–1050 nm window.
-    let b = make_run(
-        dir.path(),
-        "W12",
-        "oxide-150-49.toml",
-        "2026-12-01T09:00:00+00:00",
-        |x, _| 1040.0 + 0.2 * x,
-    );
+    // The second is tilted so that its +x side leaves the recipe's 950–1050 nm window.
+    let fields: [(&str, fn(f64, f64) -> f64); 2] = [
+        ("W11", |x, _| 1000.0 + 0.1 * x),
+        ("W12", |x, _| 1040.0 + 0.2 * x),
+    ];
+    let started = ["2026-12-01T08:00:00+00:00", "2026-12-01T09:00:00+00:00"];
+    let runs: Vec<PathBuf> = fields
+        .iter()
+        .zip(started)
+        .map(|((id, f), t)| make_run(dir.path(), id, "oxide-150-49.toml", t, f))
+        .collect();
+    let (a, b) = (&runs[0], &runs[1]);
     let loaded =
         recipe::load(&Path::new(env!("CARGO_MANIFEST_DIR")).join("recipes/oxide-150-49.toml"))
             .unwrap();
