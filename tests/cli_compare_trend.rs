@@ -360,7 +360,8 @@ fn sheet_puts_every_map_on_one_colour_scale() {
 fn compare_table_counts_sites_in_the_recipes_spec_window() {
     let dir = tempfile::tempdir().unwrap();
     // The second is tilted so that its +x side leaves the recipe's 950–1050 nm window.
-    let fields: [(&str, fn(f64, f64) -> f64); 2] = [
+    type Field = fn(f64, f64) -> f64;
+    let fields: [(&str, Field); 2] = [
         ("W11", |x, _| 1000.0 + 0.1 * x),
         ("W12", |x, _| 1040.0 + 0.2 * x),
     ];
