@@ -60,6 +60,9 @@ pub fn session(
                         format!("site {site}: {flag}")
                     });
                 }
+                // A hidden bar (stderr not a terminal) drops its println: notes such as
+                // "measuring again: site 12" must still reach the log.
+                Progress::Note(n) if pb.is_hidden() => eprintln!("{n}"),
                 Progress::Note(n) => pb.println(n),
             }),
             cancel: cancel_rx,
@@ -99,9 +102,6 @@ fn log_to(folder: &RunFolder) {
 /// Prints the outcome and figures; returns the exit code.
 fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: Report) -> u8 {
     let f = &report.summary.first;
-    for w in &report.warnings {
-        eprintln!("warning: {w}");
-    }
     if report.measured.is_empty() {
         eprintln!("every site asked for already has a valid result: nothing to measure");
     }

@@ -37,7 +37,8 @@ pub struct Hooks {
     pub confirm: Confirm,
     /// Asks the operator for a hand step (placing the reference); `None` makes it an error.
     pub prompt: Option<Prompt>,
-    /// Where progress goes.
+    /// Where progress goes; the optical model's warnings (a window beyond a material's
+    /// published range, …) come first, as notes, before anything is measured.
     pub progress: Box<dyn FnMut(Progress) + Send>,
     /// Becomes `true` to stop (Ctrl-C).
     pub cancel: watch::Receiver<bool>,
@@ -50,8 +51,6 @@ pub struct Report {
     pub states: Vec<SiteState>,
     /// Numbers of the sites this session set out to measure, in plan order.
     pub measured: Vec<usize>,
-    /// Warnings of the optical model (a window beyond a material's published range, …).
-    pub warnings: Vec<String>,
 }
 
 /// The machine file frozen in a run (`None`: the built-in simulated bench).
@@ -83,6 +82,10 @@ pub async fn session(
 ) -> anyhow::Result<Report> {
     let loaded = loaded_recipe(folder, meta);
     let fitter = Arc::new(Fitter::from_recipe(&loaded)?);
+    let mut progress = hooks.progress;
+    for w in fitter.warnings() {
+        progress(Progress::Note(format!("warning: {w}")));
+    }
     let machine = machine_of(meta)?;
     let material = reference_material(&machine);
     let plan_sites = plan::order(&meta.recipe.pattern, &planned_sites(meta));
@@ -145,7 +148,7 @@ pub async fn session(
         if !bench.is_simulated() {
             (hooks.confirm)(&bench.stage.describe())?;
         }
-        seq = seq.on_progress(hooks.progress);
+        seq = seq.on_progress(progress);
         if let Some(p) = hooks.prompt {
             seq = seq.with_prompt(p);
         }
@@ -180,6 +183,5 @@ pub async fn session(
         summary,
         states,
         measured: todo.iter().map(|s| s.number).collect(),
-        warnings: fitter.warnings().to_vec(),
     })
 }
