@@ -110,6 +110,8 @@ impl Bench {
                     &reference,
                     stage.position_handle(),
                     transform,
+                    // Sessions step the seed by an odd 64-bit constant (2⁶⁴/φ), so no two
+                    // sessions of nearby runs share a noise stream.
                     seed.wrapping_add(1)
                         .wrapping_add(session.wrapping_mul(0x9e37_79b9_7f4a_7c15)),
                     clock,

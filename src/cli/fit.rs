@@ -71,7 +71,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             }
         }
     };
-    if let Some(note) = coverage_note(&measured.wavelength_nm, fitter.window_nm()) {
+    if let Some(note) = fitter.coverage_note(&measured.wavelength_nm) {
         eprintln!("warning: {}: {note}", args.spectrum.display());
     }
     let result = match fitter.try_fit(&measured, &quality) {
@@ -118,34 +118,4 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     } else {
         super::exit::FAILED
     })
-}
-
-/// A note when the spectrum covers only part of the fitting window (the fit then uses the
-/// part it covers).
-fn coverage_note(wavelengths_nm: &[f64], [lo, hi]: [f64; 2]) -> Option<String> {
-    let (first, last) = (*wavelengths_nm.first()?, *wavelengths_nm.last()?);
-    let (from, to) = (first.max(lo), last.min(hi));
-    // Half a typical pixel of slack: a spectrum sampled from 420.2 nm still covers 420.
-    let slack = 0.5 * (last - first) / wavelengths_nm.len().max(2) as f64;
-    (from > lo + slack || to < hi - slack).then(|| {
-        format!(
-            "the spectrum ({first:.0}–{last:.0} nm) covers only {from:.0}–{to:.0} nm of the recipe's {lo:.0}–{hi:.0} nm window; the fit uses that part"
-        )
-    })
-}
-
-#[cfg(test)]
-mod tests {
-    use super::coverage_note;
-
-    #[test]
-    fn partial_coverage_is_noted_and_full_coverage_is_not() {
-        let full: Vec<f64> = (0..=700).map(|i| 350.0 + i as f64).collect();
-        assert_eq!(coverage_note(&full, [420.0, 980.0]), None);
-        let part: Vec<f64> = (600..=800).map(f64::from).collect();
-        let note = coverage_note(&part, [420.0, 980.0]).unwrap();
-        assert!(note.contains("covers only 600–800 nm"), "{note}");
-        let edge: Vec<f64> = (0..=560).map(|i| 420.4 + i as f64).collect();
-        assert_eq!(coverage_note(&edge, [420.0, 980.0]), None);
-    }
 }

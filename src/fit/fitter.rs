@@ -171,6 +171,12 @@ impl Fitter {
         self.window
     }
 
+    /// A note when wavelengths (ascending) cover only part of the fitting window; the fit
+    /// then uses the part they cover.
+    pub fn coverage_note(&self, wavelengths_nm: &[f64]) -> Option<String> {
+        coverage_note(wavelengths_nm, self.window)
+    }
+
     /// Names of the fitted layers' materials, top first.
     pub fn fitted_materials(&self) -> Vec<&str> {
         self.fitted
@@ -566,9 +572,33 @@ fn quality_flags(q: &SignalQuality) -> Vec<String> {
     f
 }
 
+/// See [`Fitter::coverage_note`].
+fn coverage_note(wavelengths_nm: &[f64], [lo, hi]: [f64; 2]) -> Option<String> {
+    let (first, last) = (*wavelengths_nm.first()?, *wavelengths_nm.last()?);
+    let (from, to) = (first.max(lo), last.min(hi));
+    // Half a typical pixel of slack: a spectrum sampled from 420.2 nm still covers 420.
+    let slack = 0.5 * (last - first) / wavelengths_nm.len().max(2) as f64;
+    (from > lo + slack || to < hi - slack).then(|| {
+        format!(
+            "the spectrum ({first:.0}–{last:.0} nm) covers only {from:.0}–{to:.0} nm of the recipe's {lo:.0}–{hi:.0} nm window; the fit uses that part"
+        )
+    })
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn partial_coverage_is_noted_and_full_coverage_is_not() {
+        let full: Vec<f64> = (0..=700).map(|i| 350.0 + i as f64).collect();
+        assert_eq!(coverage_note(&full, [420.0, 980.0]), None);
+        let part: Vec<f64> = (600..=800).map(f64::from).collect();
+        let note = coverage_note(&part, [420.0, 980.0]).unwrap();
+        assert!(note.contains("covers only 600–800 nm"), "{note}");
+        let edge: Vec<f64> = (0..=560).map(|i| 420.4 + i as f64).collect();
+        assert_eq!(coverage_note(&edge, [420.0, 980.0]), None);
+    }
 
     fn assert_send_sync<T: Send + Sync>() {}
 

@@ -181,6 +181,9 @@ impl Sequencer {
             "dark and {} reference taken",
             self.reference_material
         )));
+        if let Some(note) = self.fitter.coverage_note(&reference.wavelength_nm) {
+            (self.progress)(Progress::Note(format!("warning: spectrometer: {note}")));
+        }
         self.dark = Some(dark);
         self.reference = Some(reference);
         Ok(())

@@ -258,7 +258,7 @@ impl VirtualController {
                     self.rx.clear();
                     // Marlin's emergency parser acts on a quick stop as it arrives, ahead of
                     // whatever is waiting; the line itself is then answered in turn.
-                    if !grbl && strip_comments(&line).trim().eq_ignore_ascii_case("M410") {
+                    if !grbl && is_code(&line, "M410") {
                         self.quick_stop();
                         self.step_events();
                     }
@@ -453,7 +453,7 @@ impl VirtualController {
             };
             if self.mode == Mode::Alarm {
                 // Marlin dialect: stopped until M999.
-                if strip_comments(&line).trim().eq_ignore_ascii_case("M999") {
+                if is_code(&line, "M999") {
                     self.mode = Mode::Normal;
                     self.line("ok");
                 } else {
@@ -762,6 +762,11 @@ impl VirtualController {
 
 fn next_is_same(next: Option<f64>, t: f64) -> bool {
     next.is_some_and(|n| n <= t)
+}
+
+/// Whether a line, comments and case aside, is exactly `code` (`m410 ; stop` is `M410`).
+fn is_code(line: &str, code: &str) -> bool {
+    strip_comments(line).trim().eq_ignore_ascii_case(code)
 }
 
 /// Removes `( … )` and `; …` comments.
