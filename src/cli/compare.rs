@@ -161,7 +161,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         );
         if with_spec {
             let cell = f.spec.as_ref().map_or("-".to_string(), |c| {
-                format!("{}/{}", c.sites_in, c.sites_in + c.sites_out.len())
+                format!("{}/{}", c.sites_in, c.checked())
             });
             line.push_str(&format!(" {cell:>8}"));
         }

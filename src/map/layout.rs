@@ -102,11 +102,7 @@ fn spec_rings(
     to_px: &dyn Fn(f64, f64) -> (f64, f64),
 ) {
     let r = if input.rows.len() > 400 { 4.0 } else { 7.0 };
-    for row in input
-        .rows
-        .iter()
-        .filter(|r| spec.sites_out.contains(&r.site))
-    {
+    for row in input.rows.iter().filter(|r| spec.is_out(r.site)) {
         let (x, y) = to_px(row.x_mm, row.y_mm);
         for (colour, width) in [(Rgb(0xff, 0xff, 0xff), 3.4), (OUT_OF_SPEC, 1.8)] {
             scene.items.push(Item::Path {
@@ -643,7 +639,7 @@ fn stats_panel(scene: &mut Scene, input: &MapInput, s: &LayerSummary) {
     if let Some(c) = &s.spec {
         rows.push((
             format!("In spec {}–{} {u}", c.lo_nm, c.hi_nm),
-            format!("{} of {}", c.sites_in, c.sites_in + c.sites_out.len()),
+            format!("{} of {}", c.sites_in, c.checked()),
         ));
     }
     scene.heading(x0, 104.0, "Uniformity", INK);

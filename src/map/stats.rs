@@ -80,6 +80,16 @@ pub struct SpecCheck {
 }
 
 impl SpecCheck {
+    /// Valid sites checked: in and out of the window.
+    pub fn checked(&self) -> usize {
+        self.sites_in + self.sites_out.len()
+    }
+
+    /// Whether `site` is one of the valid sites outside the window.
+    pub fn is_out(&self, site: usize) -> bool {
+        self.sites_out.binary_search(&site).is_ok()
+    }
+
     /// The window checked over the valid values of layer column `layer`.
     pub fn of(rows: &[SiteRow], layer: usize, [lo, hi]: [f64; 2]) -> SpecCheck {
         let mut sites_in = 0;
