@@ -68,6 +68,22 @@ fn make_run(
     folder
 }
 
+/// A thickness field over the wafer, nm at (x, y) mm.
+type Field = fn(f64, f64) -> f64;
+
+/// One run of the 49-site oxide recipe per (wafer id, field), started an hour apart from
+/// 08:00 on 2026-12-01.
+fn oxide_runs(dir: &Path, fields: &[(&str, Field)]) -> Vec<PathBuf> {
+    fields
+        .iter()
+        .enumerate()
+        .map(|(k, (id, f))| {
+            let started = format!("2026-12-01T{:02}:00:00+00:00", 8 + k);
+            make_run(dir, id, "oxide-150-49.toml", &started, f)
+        })
+        .collect()
+}
+
 fn mean(v: &[f64]) -> f64 {
     v.iter().sum::<f64>() / v.len() as f64
 }
@@ -80,27 +96,15 @@ fn sample_std(v: &[f64]) -> f64 {
 #[test]
 fn compare_gives_per_wafer_and_wafer_to_wafer_figures() {
     let dir = tempfile::tempdir().unwrap();
-    let a = make_run(
+    let runs = oxide_runs(
         dir.path(),
-        "W01",
-        "oxide-150-49.toml",
-        "2026-12-01T08:00:00+00:00",
-        |x, _| 1000.0 + 0.1 * x,
+        &[
+            ("W01", |x, _| 1000.0 + 0.1 * x),
+            ("W02", |_, y| 1010.0 + 0.05 * y),
+            ("W03", |x, y| 995.0 + 0.01 * x * y),
+        ],
     );
-    let b = make_run(
-        dir.path(),
-        "W02",
-        "oxide-150-49.toml",
-        "2026-12-01T09:00:00+00:00",
-        |_, y| 1010.0 + 0.05 * y,
-    );
-    let c = make_run(
-        dir.path(),
-        "W03",
-        "oxide-150-49.toml",
-        "2026-12-01T10:00:00+00:00",
-        |x, y| 995.0 + 0.01 * x * y,
-    );
+    let (a, b, c) = (&runs[0], &runs[1], &runs[2]);
     let out = json(&isopach(&[
         "compare",
         a.to_str().unwrap(),
@@ -319,20 +323,14 @@ fn history_survives_a_kill_mid_rebuild() {
 #[test]
 fn sheet_puts_every_map_on_one_colour_scale() {
     let dir = tempfile::tempdir().unwrap();
-    let a = make_run(
+    let runs = oxide_runs(
         dir.path(),
-        "S1",
-        "oxide-150-49.toml",
-        "2026-12-01T08:00:00+00:00",
-        |x, _| 1000.0 + 0.1 * x,
+        &[
+            ("S1", |x, _| 1000.0 + 0.1 * x),
+            ("S2", |x, _| 1030.0 + 0.1 * x),
+        ],
     );
-    let b = make_run(
-        dir.path(),
-        "S2",
-        "oxide-150-49.toml",
-        "2026-12-01T09:00:00+00:00",
-        |x, _| 1030.0 + 0.1 * x,
-    );
+    let (a, b) = (&runs[0], &runs[1]);
     let sheet = dir.path().join("sheet.svg");
     let o = isopach(&[
         "compare",
@@ -360,17 +358,13 @@ fn sheet_puts_every_map_on_one_colour_scale() {
 fn compare_table_counts_sites_in_the_recipes_spec_window() {
     let dir = tempfile::tempdir().unwrap();
     // The second is tilted so that its +x side leaves the recipe's 950–1050 nm window.
-    type Field = fn(f64, f64) -> f64;
-    let fields: [(&str, Field); 2] = [
-        ("W11", |x, _| 1000.0 + 0.1 * x),
-        ("W12", |x, _| 1040.0 + 0.2 * x),
-    ];
-    let started = ["2026-12-01T08:00:00+00:00", "2026-12-01T09:00:00+00:00"];
-    let runs: Vec<PathBuf> = fields
-        .iter()
-        .zip(started)
-        .map(|((id, f), t)| make_run(dir.path(), id, "oxide-150-49.toml", t, f))
-        .collect();
+    let runs = oxide_runs(
+        dir.path(),
+        &[
+            ("W11", |x, _| 1000.0 + 0.1 * x),
+            ("W12", |x, _| 1040.0 + 0.2 * x),
+        ],
+    );
     let (a, b) = (&runs[0], &runs[1]);
     let loaded =
         recipe::load(&Path::new(env!("CARGO_MANIFEST_DIR")).join("recipes/oxide-150-49.toml"))

@@ -1,5 +1,7 @@
 //! `isopach fit` run as a binary on reference fixtures and broken files.
 
+mod fit_common;
+
 use std::path::Path;
 use std::process::Command;
 
@@ -135,17 +137,12 @@ fn counts_files_are_normalised_against_the_reference_material() {
 #[test]
 fn a_broken_nk_table_names_its_line_and_exits_2() {
     let dir = tempfile::tempdir().unwrap();
-    std::fs::write(
-        dir.path().join("film.csv"),
+    let recipe = fit_common::table_film_recipe(
+        dir.path(),
         "wavelength_nm,n,k\n400,1.7,0\n500,one,0\n",
-    )
-    .unwrap();
-    let recipe = dir.path().join("r.toml");
-    std::fs::write(
-        &recipe,
-        "name = \"t\"\n[wafer]\ndiameter_mm = 100\nedge_exclusion_mm = 3\n[pattern]\nkind = \"standard\"\nsites = 1\n[film]\nambient = \"air\"\nsubstrate = \"si\"\nlayers = [ { material = \"film\", nominal_nm = 500 } ]\nwavelength_nm = [420, 900]\n[materials.film]\nmodel = \"table\"\nfile = \"film.csv\"\n",
-    )
-    .unwrap();
+        "material = \"film\", nominal_nm = 500",
+        [420, 900],
+    );
     let (code, _, err) = isopach(&[
         "fit",
         "fixtures/spectra/sio2_si_001000p0nm.csv",

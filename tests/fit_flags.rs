@@ -148,14 +148,12 @@ fn counts_flags_saturation_and_weak_signal() {
 fn user_table_material_and_range_warning() {
     let dir = tempfile::tempdir().unwrap();
     // A table of a constant-index film, given only over 400–1000 nm.
-    std::fs::write(
-        dir.path().join("film.csv"),
+    let path = fit_common::table_film_recipe(
+        dir.path(),
         "# test film\nwavelength_nm,n,k\n400,1.7,0\n700,1.7,0\n1000,1.7,0\n",
-    )
-    .unwrap();
-    let text = "name = \"t\"\n[wafer]\ndiameter_mm = 100\nedge_exclusion_mm = 3\n[pattern]\nkind = \"standard\"\nsites = 1\n[film]\nambient = \"air\"\nsubstrate = \"si\"\nlayers = [ { material = \"film\", nominal_nm = 500, min_nm = 50, max_nm = 1500 } ]\nwavelength_nm = [380, 900]\n[materials.film]\nmodel = \"table\"\nfile = \"film.csv\"\n";
-    let path = dir.path().join("r.toml");
-    std::fs::write(&path, text).unwrap();
+        "material = \"film\", nominal_nm = 500, min_nm = 50, max_nm = 1500",
+        [380, 900],
+    );
     let loaded = isopach::recipe::load(&path).unwrap();
     let f = Fitter::from_recipe(&loaded).unwrap();
     assert!(

@@ -81,6 +81,9 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             return Ok(super::exit::FAILED);
         }
     };
+    // The part of the spectrum the fit used.
+    let [lo, hi] = fitter.window_nm();
+    let w = measured.window(lo, hi);
     if args.json {
         println!("{}", serde_json::to_string(&result)?);
     } else {
@@ -92,8 +95,6 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         }
         println!("method {}, gof {:.5}", result.method, result.gof);
         if result.method == "fourier" {
-            let [lo, hi] = fitter.window_nm();
-            let w = measured.window(lo, hi);
             println!(
                 "smallest thickness this window resolves: {:.0} nm",
                 fitter.fourier_resolution_nm(&w.wavelength_nm)
@@ -104,8 +105,6 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         }
     }
     if let Some(out) = &args.plot {
-        let [lo, hi] = fitter.window_nm();
-        let w = measured.window(lo, hi);
         let model = fitter.model_reflectance(&result, &w.wavelength_nm);
         let svg = plot::svg(&w.wavelength_nm, &w.reflectance, &model, &result);
         isopach::run::files::write_atomic(out, svg.as_bytes())

@@ -20,6 +20,20 @@ pub fn recipe(film: &str) -> LoadedRecipe {
     }
 }
 
+/// Writes `film.csv` (an n,k table) and `r.toml` (a one-site recipe fitting that film on Si
+/// with `layer` as its layer entry and `window_nm` as its window) into `dir`; returns the
+/// recipe's path.
+pub fn table_film_recipe(dir: &Path, table: &str, layer: &str, window_nm: [u32; 2]) -> PathBuf {
+    std::fs::write(dir.join("film.csv"), table).unwrap();
+    let [lo, hi] = window_nm;
+    let text = format!(
+        "name = \"t\"\n[wafer]\ndiameter_mm = 100\nedge_exclusion_mm = 3\n[pattern]\nkind = \"standard\"\nsites = 1\n[film]\nambient = \"air\"\nsubstrate = \"si\"\nlayers = [ {{ {layer} }} ]\nwavelength_nm = [{lo}, {hi}]\n[materials.film]\nmodel = \"table\"\nfile = \"film.csv\"\n"
+    );
+    let path = dir.join("r.toml");
+    std::fs::write(&path, text).unwrap();
+    path
+}
+
 /// A fixture spectrum and its `# truth: name = value` header lines.
 pub fn fixture(name: &str) -> (Spectrum, BTreeMap<String, f64>) {
     let path = Path::new(env!("CARGO_MANIFEST_DIR"))
