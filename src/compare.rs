@@ -7,12 +7,11 @@
 //! divides the delta by a process time in minutes (deposition positive, etch negative).
 
 use crate::map::interpolate::Field;
-use crate::map::run_outputs::run_summary;
-use crate::map::sites_table::{self, SiteRow};
+use crate::map::sites_table::SiteRow;
 use crate::map::stats::{LayerSummary, Summary};
 use crate::recipe::Wafer;
-use crate::run::folder::{RunFolder, RunToml};
-use anyhow::Context;
+use crate::run::folder::RunToml;
+use crate::run::outputs::{read_outputs, RunOutputs};
 use serde::Serialize;
 use std::path::{Path, PathBuf};
 
@@ -28,11 +27,11 @@ pub struct WaferRun {
 impl WaferRun {
     /// Reads `run.toml` and `sites.csv` of a run folder.
     pub fn load(path: &Path) -> anyhow::Result<WaferRun> {
-        let folder = RunFolder::new(path);
-        let meta = folder.read_run_toml()?;
-        let rows = sites_table::read_file(&folder.sites_csv())
-            .with_context(|| format!("run {} has no readable sites.csv", path.display()))?;
-        let summary = run_summary(&rows, &meta);
+        let RunOutputs {
+            meta,
+            rows,
+            summary,
+        } = read_outputs(path)?;
         Ok(WaferRun {
             folder: path.into(),
             meta,

@@ -150,8 +150,8 @@ fn dense_sites_follow_the_analytic_field_on_the_grid() {
         .collect();
     let grid = Field::new(&sites, &wafer_150()).unwrap().grid(256, 0.0);
     let mut errs = Vec::new();
-    for j in 0..grid.ny {
-        for i in 0..grid.nx {
+    for j in 0..grid.ny() {
+        for i in 0..grid.nx() {
             let v = grid.at(i, j);
             if v.is_finite() {
                 errs.push(v - analytic(grid.x(i), grid.y(j), 70.0));

@@ -3,7 +3,7 @@
 
 mod map_common;
 
-use isopach::map::run_outputs::run_map_input;
+use isopach::run::outputs::run_map_input;
 use isopach::map::{render_png, render_svg, RenderOptions, ValueRange};
 use map_common::*;
 

@@ -528,7 +528,7 @@ fn d_time_scale() -> f64 {
     1.0
 }
 fn d_sim_banner() -> String {
-    "isopach virtual stage 1.0 ['$' for help]".into()
+    "isopach virtual stage 1.0 (simulated)".into()
 }
 fn d_idle_lag() -> f64 {
     20.0

@@ -214,7 +214,7 @@ fn write_sheet(path: &Path, runs: &[WaferRun], layer: usize) -> anyhow::Result<(
         .iter()
         .map(|r| {
             isopach::map::layout::page(
-                &isopach::map::run_outputs::run_map_input(&r.rows, &r.meta, layer),
+                &isopach::run::outputs::run_map_input(&r.rows, &r.meta, layer),
                 &opts,
             )
         })

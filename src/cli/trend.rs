@@ -2,6 +2,7 @@
 
 use anyhow::Context;
 use isopach::history::{chart, control, db::History, record};
+use isopach::run::history_entry;
 use serde_json::json;
 use std::path::PathBuf;
 
@@ -42,7 +43,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         anyhow::bail!("no runs folder {} (give --runs DIR)", args.runs.display());
     }
     if args.rebuild {
-        let (n, skipped) = record::rebuild(&args.runs)?;
+        let (n, skipped) = history_entry::rebuild_history(&args.runs)?;
         eprintln!(
             "history rebuilt from {n} run folder(s) in {}",
             args.runs.display()

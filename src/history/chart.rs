@@ -6,8 +6,8 @@
 use super::control::{limits, signals};
 use super::db::TrendPoint;
 use crate::map::colour::Rgb;
-use crate::map::levels::nice_levels;
 use crate::map::scene::{Anchor, Item, Scene, Stroke};
+use crate::map::xy_plot::{padded_range, Axis, PlotStyle, Ticks, XyPlot};
 
 const WIDTH: f64 = 1000.0;
 const PANEL_H: f64 = 260.0;
@@ -51,24 +51,13 @@ pub fn chart(points: &[TrendPoint], title: &str) -> Scene {
 }
 
 fn panel(scene: &mut Scene, top: f64, values: &[f64], label: &str, points: &[TrendPoint]) {
-    let plot_w = WIDTH - LEFT - RIGHT;
     let plot_h = PANEL_H - 40.0;
     let lim = limits(values);
-    let mut lo = values
+    let with_limits = values
         .iter()
         .copied()
-        .filter(|v| v.is_finite())
-        .fold(f64::INFINITY, f64::min);
-    let mut hi = values
-        .iter()
-        .copied()
-        .filter(|v| v.is_finite())
-        .fold(f64::NEG_INFINITY, f64::max);
-    if let Some(l) = lim {
-        lo = lo.min(l.lcl);
-        hi = hi.max(l.ucl);
-    }
-    if !lo.is_finite() || !hi.is_finite() {
+        .chain(lim.iter().flat_map(|l| [l.lcl, l.ucl]));
+    let Some((lo, hi)) = padded_range(with_limits, 0.08, 1.0) else {
         scene.text(
             LEFT,
             top + plot_h / 2.0,
@@ -79,108 +68,85 @@ fn panel(scene: &mut Scene, top: f64, values: &[f64], label: &str, points: &[Tre
             "empty",
         );
         return;
-    }
-    if hi - lo < 1e-9 {
-        lo -= 1.0;
-        hi += 1.0;
-    }
-    let pad = 0.08 * (hi - lo);
-    let (lo, hi) = (lo - pad, hi + pad);
-    let y = |v: f64| top + plot_h * (1.0 - (v - lo) / (hi - lo));
+    };
     let n = values.len().max(1);
-    let x = |i: usize| LEFT + plot_w * (i as f64 + 0.5) / n as f64;
-    scene.items.push(Item::Rect {
-        x: LEFT,
-        y: top,
-        w: plot_w,
-        h: plot_h,
-        fill: None,
-        stroke: Some(Stroke::solid(GRID, 1.0)),
-    });
-    let ticks = nice_levels(lo, hi, 5);
-    let dec = ticks.decimals;
-    for t in ticks.values.iter().filter(|t| **t >= lo && **t <= hi) {
-        scene.line(
-            vec![(LEFT, y(*t)), (LEFT + plot_w, y(*t))],
-            Stroke::solid(GRID, 0.7),
-            "grid",
-        );
-        scene.text(
-            LEFT - 8.0,
-            y(*t) + 4.0,
-            format!("{t:.dec$}"),
-            11.0,
-            Anchor::End,
-            INK,
-            "tick",
-        );
-    }
-    scene.items.push(Item::Text {
-        x: 20.0,
-        y: top + plot_h / 2.0,
-        text: label.to_string(),
-        size: 12.0,
-        anchor: Anchor::Middle,
-        bold: false,
-        colour: INK,
-        vertical: true,
-        class: "axis",
-    });
+    let every = (n / 12).max(1);
+    let run_labels = points
+        .iter()
+        .enumerate()
+        .step_by(every)
+        .map(|(i, p)| (i as f64, p.wafer.clone()))
+        .collect();
+    let plot = XyPlot {
+        left: LEFT,
+        top,
+        right: WIDTH - RIGHT,
+        bottom: top + plot_h,
+        // One slot per run, the point in its middle.
+        x: Axis {
+            lo: -0.5,
+            hi: n as f64 - 0.5,
+            title: String::new(),
+            ticks: Ticks::Labels(run_labels),
+        },
+        y: Axis {
+            lo,
+            hi,
+            title: label.to_string(),
+            ticks: Ticks::Round(5),
+        },
+        y_title_x: 20.0,
+        style: PlotStyle {
+            ink: INK,
+            muted: INK,
+            grid: GRID,
+            frame: GRID,
+            fill: None,
+            tick_size: 10.5,
+            title_size: 12.0,
+        },
+    };
+    plot.axes(scene);
     if let Some(l) = lim {
-        let hline = |scene: &mut Scene, v: f64, dash: Option<(f64, f64)>, name: &str| {
-            scene.line(
-                vec![(LEFT, y(v)), (LEFT + plot_w, y(v))],
-                Stroke {
-                    colour: LIMIT,
-                    width: 1.2,
-                    dash,
-                },
-                "limit",
-            );
+        for (v, dash, name) in [
+            (l.center, None, "x̄"),
+            (l.ucl, Some((6.0, 4.0)), "UCL"),
+            (l.lcl, Some((6.0, 4.0)), "LCL"),
+        ] {
+            let stroke = Stroke {
+                colour: LIMIT,
+                width: 1.2,
+                dash,
+            };
+            plot.hline(scene, v, stroke, "limit");
             scene.text(
-                LEFT + plot_w - 4.0,
-                y(v) - 4.0,
+                plot.right - 4.0,
+                plot.py(v) - 4.0,
                 format!("{name} {v:.3}"),
                 10.0,
                 Anchor::End,
                 LIMIT,
                 "limit-label",
             );
-        };
-        hline(scene, l.center, None, "x̄");
-        hline(scene, l.ucl, Some((6.0, 4.0)), "UCL");
-        hline(scene, l.lcl, Some((6.0, 4.0)), "LCL");
+        }
     }
-    let pts: Vec<(f64, f64)> = values
+    let series: Vec<(f64, f64)> = values
         .iter()
         .enumerate()
-        .filter(|(_, v)| v.is_finite())
-        .map(|(i, v)| (x(i), y(*v)))
+        .map(|(i, v)| (i as f64, *v))
         .collect();
-    scene.line(pts.clone(), Stroke::solid(POINT, 1.2), "series");
+    plot.line(scene, &series, Stroke::solid(POINT, 1.2), "series");
     let flagged = lim.map(|l| signals(values, &l)).unwrap_or_default();
     for (i, v) in values.iter().enumerate().filter(|(_, v)| v.is_finite()) {
         let out = flagged.get(i).is_some_and(|s| !s.is_empty());
         scene.items.push(Item::Marker {
-            x: x(i),
-            y: y(*v),
+            x: plot.px(i as f64),
+            y: plot.py(*v),
             r: if out { 5.0 } else { 3.5 },
             site: i + 1,
             excluded: false,
             colour: if out { ALERT } else { POINT },
             halo: Rgb(0xff, 0xff, 0xff),
         });
-    }
-    let every = (n / 12).max(1);
-    for (i, p) in points.iter().enumerate().step_by(every) {
-        scene.text(
-            x(i),
-            top + plot_h + 16.0,
-            &p.wafer,
-            10.0,
-            Anchor::Middle,
-            INK,
-            "run-label",
-        );
     }
 }

@@ -1,7 +1,12 @@
-//! What the history keeps of a run, taken from its folder; and the index kept up to date.
+//! What the history keeps of a run, made from plain values (the run's identity, its site rows
+//! and their summary), and the index kept up to date.
+//!
+//! The history knows nothing of run folders: `run` hands it the rows it has just derived
+//! (`run::derive::rebuild`), or reads them back for `trend --rebuild` (`run::history_entry`).
 
 use super::db::{History, HistoryError, LayerRecord, RunRecord, SiteRecord};
-use crate::compare::WaferRun;
+use crate::map::sites_table::SiteRow;
+use crate::map::stats::Summary;
 use std::path::{Path, PathBuf};
 
 /// The history database of a runs folder (a dot file, so `runs/*` lists only run folders).
@@ -9,10 +14,23 @@ pub fn db_path(runs_dir: &Path) -> PathBuf {
     runs_dir.join(".history.sqlite")
 }
 
-/// The history record of a run read back from its folder.
-pub fn record_of(run: &WaferRun) -> RunRecord {
-    let layers = run
-        .summary
+/// Who and what a run was: the fields the history indexes runs by.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct RunIdentity {
+    pub run_id: String,
+    /// The run folder, as the user should see it.
+    pub folder: String,
+    /// The recipe's `name`.
+    pub recipe: String,
+    pub wafer: String,
+    pub lot: String,
+    /// When the run started (RFC 3339).
+    pub started: String,
+}
+
+/// The history record of a run from its identity, summary and site rows.
+pub fn record_of(id: RunIdentity, summary: &Summary, rows: &[SiteRow]) -> RunRecord {
+    let layers = summary
         .all_layers()
         .iter()
         .enumerate()
@@ -29,8 +47,7 @@ pub fn record_of(run: &WaferRun) -> RunRecord {
             nu_range_pct: l.nu_range_pct,
         })
         .collect();
-    let sites = run
-        .rows
+    let sites = rows
         .iter()
         .flat_map(|r| {
             r.thickness_nm
@@ -47,48 +64,23 @@ pub fn record_of(run: &WaferRun) -> RunRecord {
         })
         .collect();
     RunRecord {
-        run_id: run.meta.run.id.clone(),
-        folder: run.folder.display().to_string(),
-        recipe: run.meta.recipe.name.clone(),
-        wafer: run.meta.run.wafer.clone(),
-        lot: run.meta.run.lot.clone(),
-        started: run.meta.run.started.clone(),
+        run_id: id.run_id,
+        folder: id.folder,
+        recipe: id.recipe,
+        wafer: id.wafer,
+        lot: id.lot,
+        started: id.started,
         layers,
         sites,
     }
 }
 
-/// Records (or re-records) the run in `folder` in the history of the folder's parent.
-pub fn update(folder: &Path) -> anyhow::Result<()> {
-    let run = WaferRun::load(folder)?;
-    let parent = folder.parent().unwrap_or(Path::new("."));
-    History::open(&db_path(parent))?.record(&record_of(&run))?;
-    Ok(())
+/// Records (or re-records) one run in the history of `runs_dir`.
+pub fn record(runs_dir: &Path, run: &RunRecord) -> Result<(), HistoryError> {
+    History::open(&db_path(runs_dir))?.record(run)
 }
 
-/// Every run folder (a folder with a `run.toml`) directly inside `runs_dir`, sorted by name.
-pub fn run_folders(runs_dir: &Path) -> std::io::Result<Vec<PathBuf>> {
-    let mut out: Vec<PathBuf> = std::fs::read_dir(runs_dir)?
-        .filter_map(|e| e.ok().map(|e| e.path()))
-        .filter(|p| p.join("run.toml").is_file())
-        .collect();
-    out.sort();
-    Ok(out)
-}
-
-/// Rebuilds the history of `runs_dir` from its run folders; folders that cannot be read are
-/// returned with the reason, not fatal.
-pub fn rebuild(runs_dir: &Path) -> anyhow::Result<(usize, Vec<(PathBuf, String)>)> {
-    let mut records = Vec::new();
-    let mut skipped = Vec::new();
-    for folder in run_folders(runs_dir)? {
-        match WaferRun::load(&folder) {
-            Ok(run) => records.push(record_of(&run)),
-            Err(e) => skipped.push((folder, crate::error_text::chain_text(&e))),
-        }
-    }
-    let mut h = History::open(&db_path(runs_dir))?;
-    h.rebuild(&records)
-        .map_err(|e: HistoryError| anyhow::anyhow!(e))?;
-    Ok((records.len(), skipped))
+/// Replaces the whole history of `runs_dir` with `runs`, in one transaction.
+pub fn rebuild(runs_dir: &Path, runs: &[RunRecord]) -> Result<(), HistoryError> {
+    History::open(&db_path(runs_dir))?.rebuild(runs)
 }

@@ -7,6 +7,7 @@
 //! segments join into continuous lines; a line that closes on itself is marked closed.
 
 use super::interpolate::Grid;
+use ndarray::{s, Array2};
 use std::collections::HashMap;
 use std::hash::{BuildHasherDefault, Hash, Hasher};
 
@@ -66,10 +67,9 @@ pub fn isolines(grid: &Grid, level: f64) -> Vec<Polyline> {
 /// produces segments for the levels between its lowest and highest corner.
 pub fn isolines_many(grid: &Grid, levels: &[f64]) -> Vec<Vec<Polyline>> {
     let mut segments: Vec<Vec<(Edge, Edge)>> = vec![Vec::new(); levels.len()];
-    let nx = grid.nx;
-    for j in 0..grid.ny.saturating_sub(1) {
-        let lower = &grid.values[j * nx..(j + 1) * nx];
-        let upper = &grid.values[(j + 1) * nx..(j + 2) * nx];
+    let nx = grid.nx();
+    for j in 0..grid.ny().saturating_sub(1) {
+        let (lower, upper) = (grid.values.row(j), grid.values.row(j + 1));
         for i in 0..nx.saturating_sub(1) {
             let v = [lower[i], lower[i + 1], upper[i + 1], upper[i]];
             let lo = v[0].min(v[1]).min(v[2].min(v[3]));
@@ -265,19 +265,15 @@ fn padded_below(g: &Grid, bounds: &[f64]) -> Grid {
     let (lo, hi) = g.min_max().unwrap_or((0.0, 1.0));
     let b_lo = bounds.first().copied().unwrap_or(lo).min(lo);
     let sentinel = b_lo - 1e6 * (hi - lo).abs().max(1.0);
-    let (nx, ny) = (g.nx + 2, g.ny + 2);
-    let mut values = vec![sentinel; nx * ny];
-    for j in 0..g.ny {
-        for i in 0..g.nx {
-            let v = g.at(i, j);
+    let mut values = Array2::from_elem((g.ny() + 2, g.nx() + 2), sentinel);
+    values
+        .slice_mut(s![1..-1, 1..-1])
+        .zip_mut_with(&g.values, |out, &v| {
             if v.is_finite() {
-                values[(j + 1) * nx + i + 1] = v;
+                *out = v;
             }
-        }
-    }
+        });
     Grid {
-        nx,
-        ny,
         x0: g.x0 - g.step,
         y0: g.y0 - g.step,
         step: g.step,
@@ -291,15 +287,10 @@ mod tests {
 
     fn grid_of(n: usize, f: impl Fn(f64, f64) -> f64) -> Grid {
         let step = 2.0 / (n - 1) as f64;
-        let mut values = Vec::with_capacity(n * n);
-        for j in 0..n {
-            for i in 0..n {
-                values.push(f(-1.0 + i as f64 * step, -1.0 + j as f64 * step));
-            }
-        }
+        let values = Array2::from_shape_fn((n, n), |(j, i)| {
+            f(-1.0 + i as f64 * step, -1.0 + j as f64 * step)
+        });
         Grid {
-            nx: n,
-            ny: n,
             x0: -1.0,
             y0: -1.0,
             step,
@@ -374,18 +365,16 @@ mod tests {
         // A tilted plane on a disc of filled nodes: open lines across the disc, closed loops
         // once padded.
         let n = 41;
-        let mut values = vec![f64::NAN; n * n];
+        let mut values = Array2::from_elem((n, n), f64::NAN);
         for j in 0..n {
             for i in 0..n {
                 let (x, y) = (i as f64 - 20.0, j as f64 - 20.0);
                 if x.hypot(y) <= 18.0 {
-                    values[j * n + i] = x + 0.5 * y;
+                    values[[j, i]] = x + 0.5 * y;
                 }
             }
         }
         let g = Grid {
-            nx: n,
-            ny: n,
             x0: -20.0,
             y0: -20.0,
             step: 1.0,

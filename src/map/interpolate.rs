@@ -16,6 +16,7 @@
 //! everywhere, and there is no step at the hull. Grid nodes outside the usable area stay
 //! empty (NaN).
 
+use ndarray::Array2;
 use crate::recipe::Wafer;
 use spade::{DelaunayTriangulation, HasPosition, Point2, Triangulation};
 
@@ -45,22 +46,29 @@ pub struct Field {
     wafer: Wafer,
 }
 
-/// A value grid over the wafer: node (i, j) sits at (x0 + i·step, y0 + j·step); row-major
-/// by j. NaN marks an empty node.
+/// A value grid over the wafer: node (i, j) sits at (x0 + i·step, y0 + j·step). NaN marks
+/// an empty node.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Grid {
-    pub nx: usize,
-    pub ny: usize,
     pub x0: f64,
     pub y0: f64,
     pub step: f64,
-    pub values: Vec<f64>,
+    /// Node values indexed `[[j, i]]`: one row per y, one column per x.
+    pub values: Array2<f64>,
 }
 
 impl Grid {
+    /// Nodes along x (columns).
+    pub fn nx(&self) -> usize {
+        self.values.ncols()
+    }
+    /// Nodes along y (rows).
+    pub fn ny(&self) -> usize {
+        self.values.nrows()
+    }
     /// Value at node (i, j).
     pub fn at(&self, i: usize, j: usize) -> f64 {
-        self.values[j * self.nx + i]
+        self.values[[j, i]]
     }
     /// x of column i, mm.
     pub fn x(&self, i: usize) -> f64 {
@@ -78,7 +86,7 @@ impl Grid {
             return f64::NAN;
         }
         let (i, j) = (fx.floor() as usize, fy.floor() as usize);
-        if i + 1 >= self.nx || j + 1 >= self.ny {
+        if i + 1 >= self.nx() || j + 1 >= self.ny() {
             return f64::NAN;
         }
         let (tx, ty) = (fx - i as f64, fy - j as f64);
@@ -190,9 +198,10 @@ impl Field {
             .clamp(1, 8)
             .min(cells);
         let per = cells.div_ceil(threads);
-        let mut values = vec![f64::NAN; n * n];
+        let mut values = Array2::from_elem((n, n), f64::NAN);
         std::thread::scope(|scope| {
-            let mut rest: &mut [f64] = &mut values;
+            // Bands of whole rows: a fresh array is in standard (row-major) layout.
+            let mut rest: &mut [f64] = values.as_slice_mut().expect("row-major grid");
             let mut row0 = 0;
             for band in (0..cells).step_by(per) {
                 let band_end = (band + per).min(cells);
@@ -219,8 +228,6 @@ impl Field {
             }
         });
         Grid {
-            nx: n,
-            ny: n,
             x0: spec.x0,
             y0: spec.y0,
             step,
@@ -552,8 +559,8 @@ mod tests {
         let tol = GRID_TOLERANCE * field.value_span();
         let s = field.sampler();
         let (mut worst, mut differ, mut filled) = (0.0f64, 0, 0);
-        for j in 0..g.ny {
-            for i in 0..g.nx {
+        for j in 0..g.ny() {
+            for i in 0..g.nx() {
                 let v = g.at(i, j);
                 if v.is_finite() {
                     let e = (v - s.at(g.x(i), g.y(j))).abs();
@@ -577,8 +584,8 @@ mod tests {
         let field = Field::new(&[(0.0, 0.0, 1.0), (10.0, 0.0, 2.0)], &wafer()).unwrap();
         let g = field.grid(41, 0.0);
         let w = wafer();
-        for j in 0..g.ny {
-            for i in 0..g.nx {
+        for j in 0..g.ny() {
+            for i in 0..g.nx() {
                 let inside = w.is_usable(g.x(i), g.y(j));
                 assert_eq!(g.at(i, j).is_finite(), inside, "node {i},{j}");
             }

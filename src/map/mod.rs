@@ -3,7 +3,7 @@
 //! Data flows one way: [`sites_table`] rows → [`stats`] (figures per layer) and
 //! [`interpolate`] (a field over the usable disc) → [`contour`] (isolines at [`levels`]) →
 //! [`render`] (a page laid out once as a [`scene`], written as SVG or PNG). Everything here is
-//! pure except [`run_outputs`], which writes a run folder's derived files.
+//! pure: a run folder's files are written by `run::outputs`.
 
 pub mod colour;
 pub mod contour;
@@ -14,16 +14,15 @@ pub mod levels;
 pub mod png;
 pub mod radial;
 pub mod render;
-pub mod run_outputs;
 pub mod scene;
 pub mod sheet;
 pub mod site_plan;
 pub mod sites_table;
 pub mod stats;
 pub mod svg;
+pub mod xy_plot;
 
 pub use error::MapError;
 pub use render::{render_png, render_svg, MapInput, RenderOptions, ValueRange};
-pub use run_outputs::write_run_outputs;
 pub use sites_table::SiteRow;
 pub use stats::{LayerSummary, Summary};

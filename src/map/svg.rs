@@ -84,6 +84,25 @@ pub fn write(scene: &Scene) -> String {
                 fill,
                 stroke,
                 class,
+            } if !closed && fill.is_none() => {
+                // An open line is a polyline: shorter to write and to read than a path.
+                let mut pts = String::new();
+                for (px, py) in points {
+                    let _ = write!(pts, "{px:.2},{py:.2} ");
+                }
+                let _ = writeln!(
+                    s,
+                    r#"<polyline class="{class}" points="{}" fill="none"{}/>"#,
+                    pts.trim_end(),
+                    stroke_attrs(stroke)
+                );
+            }
+            Item::Path {
+                points,
+                closed,
+                fill,
+                stroke,
+                class,
             } => {
                 let mut d = String::new();
                 push_points(&mut d, points.iter().copied());

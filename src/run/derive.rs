@@ -5,7 +5,8 @@
 use super::events::{site_states, Event, SiteState};
 use super::folder::{RunFolder, RunToml};
 use super::journal;
-use crate::map::run_outputs::{fitted_layer_names, write_run_outputs};
+use super::history_entry;
+use super::outputs::{fitted_layer_names, write_run_outputs};
 use crate::map::sites_table::SiteRow;
 use crate::map::stats::Summary;
 use crate::recipe::{pattern, Site, Wafer};
@@ -68,8 +69,9 @@ pub fn rebuild(folder: &RunFolder) -> anyhow::Result<Summary> {
     let meta = folder.read_run_toml()?;
     let (_, states) = read_states(folder, &meta)?;
     let layers = fitted_layer_names(&meta.recipe).len().max(1);
-    let summary = write_run_outputs(folder, &rows(&states, layers), &meta)?;
-    if let Err(e) = crate::history::record::update(&folder.root) {
+    let rows = rows(&states, layers);
+    let summary = write_run_outputs(folder, &rows, &meta)?;
+    if let Err(e) = history_entry::record(folder, &meta, &rows, &summary) {
         // The history is an index that `trend --rebuild` can recreate; the run itself is safe.
         tracing::warn!(
             "run history not updated: {}",

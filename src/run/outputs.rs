@@ -1,16 +1,18 @@
-//! A run folder's derived files, rebuilt from its site rows: `sites.csv`, `summary.json`,
-//! `map.svg`, `map.png` (DESIGN.md §3), each written atomically.
+//! A run folder's derived files, written from its site rows and read back: `sites.csv`,
+//! `summary.json`, `map.svg`, `map.png` (DESIGN.md §3), each written atomically.
 //!
 //! With several fitted layers, `map.svg`/`map.png` show the first one and each further layer
-//! k gets `map-layer{k}.svg`/`.png`.
+//! k gets `map-layer{k}.svg`/`.png`. The drawing and the statistics are `map`'s; this module
+//! only decides what goes where in a run folder, so `map` never needs to know about runs.
 
-use super::render::{render_png, render_svg, MapInput, RenderOptions};
-use super::sites_table::{self, SiteRow};
-use super::stats::Summary;
-use super::MapError;
+use super::files::write_atomic;
+use super::folder::{RunFolder, RunToml};
+use crate::map::render::{render_png, render_svg, MapInput, RenderOptions};
+use crate::map::sites_table::{self, SiteRow};
+use crate::map::stats::Summary;
+use crate::map::MapError;
 use crate::recipe::{Recipe, Wafer};
-use crate::run::files::write_atomic;
-use crate::run::folder::{RunFolder, RunToml};
+use anyhow::Context;
 use std::path::{Path, PathBuf};
 
 /// Names of the recipe's fitted layers, top first (the order of the thickness columns).
@@ -101,4 +103,28 @@ pub fn write_run_maps(
         written.extend([svg, png]);
     }
     Ok(written)
+}
+
+/// A run's derived values read back from its folder: the frozen `run.toml`, the `sites.csv`
+/// rows and their summary (recomputed, so it always matches the rows).
+#[derive(Debug, Clone)]
+pub struct RunOutputs {
+    pub meta: RunToml,
+    pub rows: Vec<SiteRow>,
+    pub summary: Summary,
+}
+
+/// Reads `run.toml` and `sites.csv` of the run folder at `path`; the one place that reads a
+/// run's derived values back (for `compare`, `render` and `trend --rebuild`).
+pub fn read_outputs(path: &Path) -> anyhow::Result<RunOutputs> {
+    let folder = RunFolder::new(path);
+    let meta = folder.read_run_toml()?;
+    let rows = sites_table::read_file(&folder.sites_csv())
+        .with_context(|| format!("run {} has no readable sites.csv", path.display()))?;
+    let summary = run_summary(&rows, &meta);
+    Ok(RunOutputs {
+        meta,
+        rows,
+        summary,
+    })
 }

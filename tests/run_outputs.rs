@@ -1,9 +1,10 @@
-//! `write_run_outputs`: the derived files of a run folder, here for a two-layer stack
+//! `run::outputs::write_run_outputs`: the derived files of a run folder, here for a two-layer stack
 //! measured along one diameter (collinear sites, the hardest case for the interpolation).
 
 mod map_common;
 
-use isopach::map::{sites_table, write_run_outputs, SiteRow, Summary};
+use isopach::map::{sites_table, SiteRow, Summary};
+use isopach::run::outputs::write_run_outputs;
 use map_common::*;
 
 #[test]

@@ -1,35 +1,27 @@
 //! The virtual G-code controller: the simulated twin of a stage controller. Pure core (bytes
 //! in, bytes out, virtual time as an argument); [`super::server`] runs it over a stream.
 //!
-//! It behaves the way the G-code state machine must expect of real firmware, in a grbl-like
-//! dialect of its own: a banner at start-up and after a reset (Ctrl-X, 0x18), an optional
-//! locked state cleared by `$X` or `$H`, `ok` per line once the line is *queued* (held back
-//! while the planner is full), `error:N` for lines it cannot run, `?` answered at once with
-//! `<State|MPos:x,y,z|FS:f,0>` (and still `Idle`, at the old place, for a short lag after a
-//! move is queued), `G4 P<s>` and `M400` answered only after motion has ended, both CR and LF
-//! ending a line (so CR LF draws two replies), an 80-character line limit, trapezoidal
-//! kinematics, an `ALARM:2` soft-limit alarm for targets outside its travel, and injectable
-//! faults (dropped `ok`, garbage, `error`, alarm mid-move, stall, disconnect). In an alarm it
-//! ignores everything, status queries included, until it receives the reset byte.
-//!
-//! With `dialect = "marlin"` it behaves like 3D-printer firmware instead (see
-//! [`Dialect::Marlin`]): no real-time bytes, `echo:busy: processing` keep-alives while a wait
-//! blocks, `G28`, `M114`, `M410` acted on as it arrives, `G4 P` in ms, moves clamped to the
-//! travel, alarms cleared by `M999`.
+//! This file is the core every dialect shares, the way the G-code state machine must expect
+//! of real firmware: `ok` per line once the line is *queued* (held back while the planner is
+//! full), `G4` and `M400` answered only after motion has ended, both CR and LF ending a line
+//! (so CR LF draws two replies), an 80-character line limit, trapezoidal kinematics, a
+//! soft-limit alarm for targets outside its travel, and injectable faults (dropped `ok`,
+//! garbage, `error`, alarm mid-move, stall, disconnect). What the board says and which extra
+//! commands it knows is its dialect's ([`dialect::FirmwareDialect`]): [`grbl_like`] (real-time
+//! `?` and Ctrl-X, `$X`/`$H`, `error:N`) and [`marlin_like`] (a printer board: keep-alives,
+//! `G28`, `M114`, `M410`, `M999`).
+
+pub mod dialect;
+pub mod grbl_like;
+pub mod marlin_like;
 
 use crate::bench::kinematics::Trapezoid;
 use crate::bench::machine::{Dialect, FaultKind, FaultSpec, MachineFile};
+use dialect::{FirmwareDialect, OwnCode};
 use std::collections::VecDeque;
 
-/// The reset byte (Ctrl-X).
-pub const RESET_BYTE: u8 = 0x18;
-/// The status query byte.
-pub const STATUS_BYTE: u8 = b'?';
 /// Longest line accepted, characters (without the line end).
 pub const LINE_LIMIT: usize = 80;
-/// Interval of the Marlin dialect's `echo:busy: processing` keep-alives, s (Marlin's default
-/// host keep-alive interval, from memory).
-pub const KEEPALIVE_S: f64 = 2.0;
 
 /// How the virtual controller is built.
 #[derive(Debug, Clone, PartialEq)]
@@ -96,7 +88,7 @@ impl Segment {
 
 /// Controller mode.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
-enum Mode {
+pub(super) enum Mode {
     Normal,
     /// Locked after power-up or a reset during an alarm: only `$X` and `$H` are accepted.
     Locked,
@@ -118,7 +110,7 @@ enum Blocker {
         since: Option<f64>,
         fault: Option<FaultKind>,
         homing: bool,
-        /// Next keep-alive (Marlin dialect).
+        /// Next keep-alive (dialects that send them).
         keepalive: Option<f64>,
     },
 }
@@ -134,6 +126,8 @@ enum Armed {
 #[derive(Debug)]
 pub struct VirtualController {
     cfg: VirtualConfig,
+    /// What the board says and which extra commands it knows.
+    dialect: &'static dyn FirmwareDialect,
     mode: Mode,
     pos: [f64; 2],
     feed_mm_min: f64,
@@ -159,8 +153,10 @@ pub struct VirtualController {
 impl VirtualController {
     /// A controller just powered up at virtual time `now`: banner out, stage at home.
     pub fn new(cfg: VirtualConfig, now: f64) -> VirtualController {
+        let dialect = dialect::of(cfg.dialect);
         let mut v = VirtualController {
-            mode: if cfg.start_locked && cfg.dialect == Dialect::Grbl {
+            dialect,
+            mode: if dialect.starts_locked(cfg.start_locked) {
                 Mode::Locked
             } else {
                 Mode::Normal
@@ -242,23 +238,21 @@ impl VirtualController {
     /// Bytes arrived from the host at virtual time `now`.
     pub fn feed(&mut self, bytes: &[u8], now: f64) {
         self.advance(now);
-        let grbl = self.cfg.dialect == Dialect::Grbl;
+        let d = self.dialect;
         for &b in bytes {
-            if grbl && b == RESET_BYTE {
-                self.reset();
+            if d.real_time_byte(self, b) {
                 continue;
             }
-            if (grbl && self.mode == Mode::Alarm) || self.disconnected {
+            if (d.deaf_in_alarm() && self.mode == Mode::Alarm) || self.disconnected {
                 continue;
             }
             match b {
-                STATUS_BYTE if grbl => self.report_status(),
                 b'\n' | b'\r' => {
                     let line = String::from_utf8_lossy(&self.rx).into_owned();
                     self.rx.clear();
-                    // Marlin's emergency parser acts on a quick stop as it arrives, ahead of
+                    // An emergency parser acts on a quick stop as it arrives, ahead of
                     // whatever is waiting; the line itself is then answered in turn.
-                    if !grbl && is_code(&line, "M410") {
+                    if d.is_quick_stop(&line) {
                         self.quick_stop();
                         self.step_events();
                     }
@@ -385,7 +379,7 @@ impl VirtualController {
         }
     }
 
-    /// Marlin's `M410`: motion stops where it is and the planner empties.
+    /// A quick stop (Marlin's `M410`): motion stops where it is and the planner empties.
     fn quick_stop(&mut self) {
         self.pos = self.current_pos();
         self.planner.clear();
@@ -394,8 +388,11 @@ impl VirtualController {
         self.stalled = false;
     }
 
-    /// Sends the keep-alives due while a wait blocks (Marlin dialect).
+    /// Sends the keep-alives due while a wait blocks (dialects that send them).
     fn keep_alive(&mut self) {
+        let Some((every_s, text)) = self.dialect.keep_alive() else {
+            return;
+        };
         let now = self.now;
         let mut due = 0;
         if let Some(Blocker::Sync {
@@ -403,12 +400,12 @@ impl VirtualController {
         }) = &mut self.blocker
         {
             while *k <= now {
-                *k += KEEPALIVE_S;
+                *k += every_s;
                 due += 1;
             }
         }
         for _ in 0..due {
-            self.line("echo:busy: processing");
+            self.line(text);
         }
     }
 
@@ -419,7 +416,7 @@ impl VirtualController {
             since: None,
             fault,
             homing,
-            keepalive: (self.cfg.dialect == Dialect::Marlin).then_some(self.now + KEEPALIVE_S),
+            keepalive: self.dialect.keep_alive().map(|(every_s, _)| self.now + every_s),
         }
     }
 
@@ -445,19 +442,19 @@ impl VirtualController {
 
     fn process(&mut self) {
         while self.blocker.is_none() && !self.disconnected {
-            if self.mode == Mode::Alarm && self.cfg.dialect == Dialect::Grbl {
+            if self.mode == Mode::Alarm && self.dialect.deaf_in_alarm() {
                 break;
             }
             let Some(line) = self.lines.pop_front() else {
                 break;
             };
             if self.mode == Mode::Alarm {
-                // Marlin dialect: stopped until M999.
-                if is_code(&line, "M999") {
+                if self.dialect.clears_alarm(&line) {
                     self.mode = Mode::Normal;
                     self.line("ok");
                 } else {
-                    self.line("Error:Printer stopped due to errors. Fix the error and use M999 to restart.");
+                    let why = self.dialect.stopped_line();
+                    self.line(why);
                 }
                 continue;
             }
@@ -467,11 +464,9 @@ impl VirtualController {
 
     fn execute_line(&mut self, raw: String) {
         let line = strip_comments(&raw).trim().to_uppercase();
-        let marlin = self.cfg.dialect == Dialect::Marlin;
         if line.is_empty() {
-            // An empty line is acknowledged by grbl-style firmware (for syncing), skipped by
-            // Marlin.
-            if !marlin {
+            // Some firmware acknowledges an empty line (hosts use it to sync), some skips it.
+            if self.dialect.acknowledges_empty_line() {
                 self.line("ok");
             }
             return;
@@ -485,10 +480,7 @@ impl VirtualController {
             .cloned();
         if let Some(f) = &fault {
             match f.kind {
-                FaultKind::Error if marlin => {
-                    return self.line(&format!("Error:injected fault {}", f.code))
-                }
-                FaultKind::Error => return self.line(&format!("error:{}", f.code)),
+                FaultKind::Error => return self.line(&self.dialect.fault_error(f.code)),
                 FaultKind::Disconnect => {
                     self.disconnected = true;
                     return;
@@ -502,49 +494,13 @@ impl VirtualController {
         if raw.len() > LINE_LIMIT {
             return self.reject(11, &line);
         }
-        if marlin {
-            return self.execute_gcode(&line, kind);
-        }
-        if let Some(cmd) = line.strip_prefix('$') {
-            return self.execute_system(cmd.trim(), kind);
-        }
-        if self.mode == Mode::Locked {
-            return self.line("error:9");
-        }
-        self.execute_gcode(&line, kind);
+        let d = self.dialect;
+        d.run_line(self, &line, kind);
     }
 
-    fn execute_system(&mut self, cmd: &str, fault: Option<FaultKind>) {
-        match cmd {
-            "X" => {
-                if self.mode == Mode::Locked {
-                    self.line("[MSG:Caution: Unlocked]");
-                }
-                self.mode = Mode::Normal;
-                self.reply_ok(fault);
-            }
-            "H" => self.home(fault),
-            "I" => {
-                self.line("[VER:isopach-virtual.1:]");
-                self.reply_ok(fault);
-            }
-            "G" => {
-                let modes = format!(
-                    "[GC:G1 G54 G17 {} {} G94 M5 M9 T0 F{:.0} S0]",
-                    if self.inches { "G20" } else { "G21" },
-                    if self.absolute { "G90" } else { "G91" },
-                    self.feed_mm_min
-                );
-                self.line(&modes);
-                self.reply_ok(fault);
-            }
-            _ => self.line("error:3"),
-        }
-    }
-
-    /// Homing (`$H`, or `G28` in the Marlin dialect): a move home at half the feed cap,
+    /// Homing (`$H`, or `G28` in the Marlin-like dialect): a move home at half the feed cap,
     /// answered when it has ended.
-    fn home(&mut self, fault: Option<FaultKind>) {
+    pub(super) fn home(&mut self, fault: Option<FaultKind>) {
         self.homing = true;
         let home = self.cfg.home_mm;
         let feed = self.feed_mm_min;
@@ -555,35 +511,22 @@ impl VirtualController {
         self.step_events();
     }
 
-    /// A line the controller cannot run: `error:N` (grbl), or Marlin's echo and `ok`.
+    /// A line the controller cannot run, answered in its dialect's words.
     fn reject(&mut self, code: u32, line: &str) {
-        match self.cfg.dialect {
-            Dialect::Grbl => self.line(&format!("error:{code}")),
-            Dialect::Marlin => {
-                self.line(&format!("echo:Unknown command: \"{line}\""));
-                self.line("ok");
-            }
+        for l in self.dialect.reject(code, line) {
+            self.line(&l);
         }
     }
 
-    /// Marlin's `M114`: the planned position (where the last queued move ends), not where
-    /// the stage is now, then `ok`.
-    fn report_planned_position(&mut self, fault: Option<FaultKind>) {
-        let p = self.planner.back().map_or(self.current_pos(), |s| s.to);
-        let steps = |v: f64| (v * 80.0).round() as i64;
-        let r = format!(
-            "X:{:.2} Y:{:.2} Z:0.00 E:0.00 Count X:{} Y:{} Z:0",
-            p[0],
-            p[1],
-            steps(p[0]),
-            steps(p[1])
-        );
-        self.line(&r);
-        self.reply_ok(fault);
+    /// Where the last queued move ends (where the stage is when nothing is queued).
+    fn planned_position(&self) -> [f64; 2] {
+        self.planner.back().map_or(self.current_pos(), |s| s.to)
     }
 
-    fn execute_gcode(&mut self, line: &str, fault: Option<FaultKind>) {
-        let marlin = self.cfg.dialect == Dialect::Marlin;
+    /// Runs a G-code line: motion, dwell and modal words every dialect knows, plus the
+    /// dialect's own codes.
+    pub(super) fn execute_gcode(&mut self, line: &str, fault: Option<FaultKind>) {
+        let d = self.dialect;
         let words = match parse_words(line) {
             Ok(w) => w,
             Err(code) => return self.reject(code, line),
@@ -601,17 +544,18 @@ impl VirtualController {
         for &(l, v) in &words {
             // Codes in tenths, so that G38.2-style decimals stay distinct from whole codes.
             let code = (v * 10.0).round() as i64;
+            match d.own_code(l, code, self.planned_position()) {
+                Some(OwnCode::Home) => return self.home(fault),
+                Some(OwnCode::Reply(report)) => {
+                    self.line(&report);
+                    return self.reply_ok(fault);
+                }
+                Some(OwnCode::Accept) => continue,
+                None => {}
+            }
             match (l, code) {
                 ('G', 0 | 10) => motion = true,
-                // Marlin counts P in ms (S in s), grbl P in s.
-                ('G', 40) if marlin => {
-                    let s = get('S').map_or(get('P').unwrap_or(0.0) / 1000.0, |s| s);
-                    sync = Some(s.max(0.0));
-                }
-                ('G', 40) => sync = Some(get('P').unwrap_or(0.0).max(0.0)),
-                ('G', 280) if marlin => return self.home(fault),
-                ('M', 1140) if marlin => return self.report_planned_position(fault),
-                ('M', 4100 | 9990) if marlin => {}
+                ('G', 40) => sync = Some(d.dwell_s(get('P'), get('S')).max(0.0)),
                 ('G', 200) => self.inches = true,
                 ('G', 210) => self.inches = false,
                 ('G', 900) => self.absolute = true,
@@ -620,13 +564,14 @@ impl VirtualController {
                 ('M', 4000) => sync = Some(0.0),
                 ('M', 20 | 300 | 50 | 90) => {}
                 ('X' | 'Y' | 'Z' | 'F' | 'P', _) => {}
-                ('S', _) if marlin => {}
                 _ => return self.reject(20, line),
             }
         }
         if let Some(f) = get('F') {
-            if f <= 0.0 && !marlin {
-                return self.line("error:22");
+            if f <= 0.0 {
+                if let Some(code) = d.zero_feed_error() {
+                    return self.reject(code, line);
+                }
             }
             if f > 0.0 {
                 self.feed_mm_min = f * scale;
@@ -641,7 +586,7 @@ impl VirtualController {
                 });
                 return;
             }
-            let base = self.planner.back().map_or(self.current_pos(), |s| s.to);
+            let base = self.planned_position();
             let axis = |i: usize, w: Option<f64>| match w {
                 Some(v) if self.absolute => v * scale,
                 Some(v) => base[i] + v * scale,
@@ -649,7 +594,7 @@ impl VirtualController {
             };
             let mut to = [axis(0, get('X')), axis(1, get('Y'))];
             let inside = |v: f64, t: [f64; 2]| v >= t[0] - 1e-9 && v <= t[1] + 1e-9;
-            if marlin {
+            if d.clamps_to_travel() {
                 // Software endstops: the target is clamped to the travel, silently.
                 to = [
                     to[0].clamp(self.cfg.travel_x_mm[0], self.cfg.travel_x_mm[1]),
@@ -676,7 +621,8 @@ impl VirtualController {
 
     // ----- replies -----
 
-    fn reply_ok(&mut self, fault: Option<FaultKind>) {
+    /// `ok`, or what an injected fault makes of it.
+    pub(super) fn reply_ok(&mut self, fault: Option<FaultKind>) {
         match fault {
             Some(FaultKind::DropOk) => {}
             Some(FaultKind::Garbage) => self
@@ -686,24 +632,44 @@ impl VirtualController {
         }
     }
 
-    fn report_status(&mut self) {
-        let p = self.current_pos();
+    /// What the board is doing now, as a status report tells it.
+    pub(super) fn status(&self) -> Status {
         let running = !self.planner.is_empty() && (self.now >= self.active_start || self.stalled);
-        let (state, feed) = match (self.mode, self.homing, running) {
-            (Mode::Alarm | Mode::Locked, _, _) => ("Alarm", 0.0),
-            (_, true, _) => ("Home", 0.0),
-            (_, _, true) if self.stalled => ("Run", 0.0),
-            (_, _, true) => ("Run", self.planner.front().map_or(0.0, |s| s.feed_mm_min)),
-            _ => ("Idle", 0.0),
+        let (state, feed_mm_min) = match (self.mode, self.homing, running) {
+            (Mode::Alarm | Mode::Locked, _, _) => (State::Alarm, 0.0),
+            (_, true, _) => (State::Home, 0.0),
+            (_, _, true) if self.stalled => (State::Run, 0.0),
+            (_, _, true) => (
+                State::Run,
+                self.planner.front().map_or(0.0, |s| s.feed_mm_min),
+            ),
+            _ => (State::Idle, 0.0),
         };
-        let r = format!(
-            "<{state}|MPos:{:.3},{:.3},0.000|FS:{feed:.0},0>",
-            p[0], p[1]
-        );
-        self.line(&r);
+        Status {
+            state,
+            position_mm: self.current_pos(),
+            feed_mm_min,
+        }
     }
 
-    fn reset(&mut self) {
+    /// The modal state a `$G`-style report shows: inches, absolute, feed mm/min.
+    pub(super) fn modal(&self) -> (bool, bool, f64) {
+        (self.inches, self.absolute, self.feed_mm_min)
+    }
+
+    pub(super) fn mode(&self) -> Mode {
+        self.mode
+    }
+
+    /// Clears a locked state (or a finished alarm); returns whether it was locked.
+    pub(super) fn unlock(&mut self) -> bool {
+        let was = self.mode == Mode::Locked;
+        self.mode = Mode::Normal;
+        was
+    }
+
+    /// A reset (grbl-like Ctrl-X): everything queued is dropped, the banner printed again.
+    pub(super) fn reset(&mut self) {
         let moving = !self.planner.is_empty();
         self.pos = self.current_pos();
         self.planner.clear();
@@ -726,34 +692,20 @@ impl VirtualController {
     }
 
     fn banner(&mut self) {
-        if self.cfg.dialect == Dialect::Marlin {
-            self.line("start");
-            let b = format!("echo:{}", self.cfg.banner);
-            return self.line(&b);
-        }
-        self.line("");
-        let b = self.cfg.banner.clone();
-        self.line(&b);
-        if self.mode == Mode::Locked {
-            self.line("[MSG:'$H'|'$X' to unlock]");
+        for l in self.dialect.banner(&self.cfg.banner, self.mode == Mode::Locked) {
+            self.line(&l);
         }
     }
 
     /// What an alarm mid-move prints.
     fn alarm_lines(&mut self, code: u32) {
-        match self.cfg.dialect {
-            Dialect::Grbl => {
-                self.line(&format!("ALARM:{code}"));
-                self.line("[MSG:Reset to continue]");
-            }
-            Dialect::Marlin => {
-                self.line(&format!("!! alarm {code}: motion halted"));
-                self.line("Error:Printer halted. Send M999 to restart.");
-            }
+        for l in self.dialect.alarm(code) {
+            self.line(&l);
         }
     }
 
-    fn line(&mut self, s: &str) {
+    /// Queues one line (CR LF added) for the host.
+    pub(super) fn line(&mut self, s: &str) {
         let mut b = s.as_bytes().to_vec();
         b.extend_from_slice(b"\r\n");
         self.out.push_back(b);
@@ -765,7 +717,7 @@ fn next_is_same(next: Option<f64>, t: f64) -> bool {
 }
 
 /// Whether a line, comments and case aside, is exactly `code` (`m410 ; stop` is `M410`).
-fn is_code(line: &str, code: &str) -> bool {
+pub(super) fn is_code(line: &str, code: &str) -> bool {
     strip_comments(line).trim().eq_ignore_ascii_case(code)
 }
 
@@ -810,11 +762,30 @@ fn parse_words(line: &str) -> Result<Vec<(char, f64)>, u32> {
     Ok(words)
 }
 
+/// The state word of a status report.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(super) enum State {
+    Idle,
+    Run,
+    Home,
+    Alarm,
+}
+
+/// What a status report tells: state, position and the running move's feed.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub(super) struct Status {
+    pub state: State,
+    pub position_mm: [f64; 2],
+    pub feed_mm_min: f64,
+}
+
 #[cfg(test)]
-mod tests {
+pub(super) mod test_support {
+    //! Helpers shared by the dialects' tests.
     use super::*;
 
-    fn cfg() -> VirtualConfig {
+    /// A small grbl-like controller: 200 mm square travel, two planner slots.
+    pub fn cfg() -> VirtualConfig {
         VirtualConfig {
             banner: "VS 1.0".into(),
             start_locked: false,
@@ -830,170 +801,11 @@ mod tests {
         }
     }
 
-    fn marlin() -> VirtualController {
-        let mut v = VirtualController::new(
-            VirtualConfig {
-                dialect: Dialect::Marlin,
-                start_locked: true,
-                ..cfg()
-            },
-            0.0,
-        );
-        assert_eq!(text(&mut v), vec!["start", "echo:VS 1.0"], "never locked");
-        v
-    }
-
-    #[test]
-    fn marlin_waits_with_keep_alives_and_reports_the_planned_position() {
-        let mut v = marlin();
-        // 111.8 mm at 50 mm/s, 500 mm/s²: 2.34 s after the 0.02 s lag.
-        v.feed(b"G1 X100 Y50 F3000\nM114\nM400\n", 0.0);
-        assert_eq!(
-            text(&mut v),
-            vec![
-                "ok",
-                "X:100.00 Y:50.00 Z:0.00 E:0.00 Count X:8000 Y:4000 Z:0",
-                "ok"
-            ],
-            "M114 reports where the queued move ends, at once"
-        );
-        v.advance(2.0);
-        assert_eq!(text(&mut v), vec!["echo:busy: processing"]);
-        v.advance(2.3);
-        assert!(text(&mut v).is_empty());
-        v.advance(2.4);
-        assert_eq!(text(&mut v), vec!["ok"]);
-        // `?` is no real-time byte here, and an unknown code is echoed, then acknowledged.
-        v.feed(b"?\n$H\n", 2.4);
-        assert_eq!(
-            text(&mut v),
-            vec![
-                "echo:Unknown command: \"?\"",
-                "ok",
-                "echo:Unknown command: \"$H\"",
-                "ok"
-            ]
-        );
-    }
-
-    #[test]
-    fn marlin_dwell_is_in_ms_moves_clamp_and_quick_stop_acts_at_once() {
-        let mut v = marlin();
-        v.feed(b"G4 P500\n", 0.0);
-        v.advance(0.49);
-        assert!(text(&mut v).is_empty());
-        v.advance(0.5);
-        assert_eq!(text(&mut v), vec!["ok"]);
-        // Beyond the travel: clamped to 200 mm, no alarm.
-        v.feed(b"G1 X250 F3000\nM400\n", 0.5);
-        assert_eq!(text(&mut v), vec!["ok"]);
-        v.advance(1.5);
-        let at = v.position(1.5)[0];
-        assert!(at > 10.0 && at < 200.0, "{at}");
-        // M410 stops the stage where it is, ahead of the waiting M400, which then returns.
-        v.feed(b"M410\n", 1.5);
-        assert_eq!(text(&mut v), vec!["ok", "ok"]);
-        assert!((v.position(3.0)[0] - at).abs() < 1e-9);
-        v.feed(b"G1 X250\nM400\n", 3.0);
-        v.advance(10.0);
-        assert_eq!(v.position(10.0)[0], 200.0);
-    }
-
-    #[test]
-    fn marlin_alarm_waits_for_m999() {
-        let mut v = VirtualController::new(
-            VirtualConfig {
-                dialect: Dialect::Marlin,
-                faults: vec![FaultSpec {
-                    kind: FaultKind::Alarm,
-                    at_line: 1,
-                    code: 4,
-                }],
-                ..cfg()
-            },
-            0.0,
-        );
-        text(&mut v);
-        v.feed(b"G1 X100\n", 0.0);
-        assert_eq!(text(&mut v), vec!["ok"]);
-        v.advance(3.0);
-        assert_eq!(
-            text(&mut v),
-            vec![
-                "!! alarm 4: motion halted",
-                "Error:Printer halted. Send M999 to restart."
-            ]
-        );
-        v.feed(&[RESET_BYTE], 3.0);
-        v.feed(b"G1 X10\nM999\nG1 X10\n", 3.0);
-        assert_eq!(
-            text(&mut v),
-            vec![
-                "Error:Printer stopped due to errors. Fix the error and use M999 to restart.",
-                "ok",
-                "ok"
-            ]
-        );
-    }
-
-    fn text(v: &mut VirtualController) -> Vec<String> {
+    /// The lines sent since the last call, line ends removed.
+    pub fn text(v: &mut VirtualController) -> Vec<String> {
         v.take_output()
             .into_iter()
             .map(|b| String::from_utf8_lossy(&b).trim_end().to_string())
             .collect()
-    }
-
-    #[test]
-    fn move_follows_the_trapezoid_and_dwell_waits_for_it() {
-        let mut v = VirtualController::new(cfg(), 0.0);
-        assert_eq!(text(&mut v), vec!["", "VS 1.0"]);
-        v.feed(b"G1 X100 Y0 F3000\nG4 P0\n", 0.0);
-        assert_eq!(
-            text(&mut v),
-            vec!["ok"],
-            "the move is queued; the dwell waits"
-        );
-        // Idle lag 0.02 s, then 100 mm at 50 mm/s with 500 mm/s² → 2.1 s.
-        v.feed(b"?", 0.01);
-        assert_eq!(text(&mut v), vec!["<Idle|MPos:0.000,0.000,0.000|FS:0,0>"]);
-        v.advance(0.02 + 1.05);
-        assert!((v.position(1.07)[0] - 50.0).abs() < 1e-9);
-        assert!(text(&mut v).is_empty());
-        v.advance(2.2);
-        assert_eq!(text(&mut v), vec!["ok"]);
-        assert_eq!(v.position(2.2), [100.0, 0.0]);
-    }
-
-    #[test]
-    fn crlf_draws_two_replies_and_full_planner_holds_ok() {
-        let mut v = VirtualController::new(cfg(), 0.0);
-        text(&mut v);
-        v.feed(b"G21\r\n", 0.0);
-        assert_eq!(text(&mut v), vec!["ok", "ok"]);
-        v.feed(b"G1 X10\nG1 X20\nG1 X30\n", 0.0);
-        assert_eq!(
-            text(&mut v),
-            vec!["ok", "ok"],
-            "third move waits for planner space"
-        );
-        v.advance(5.0);
-        assert_eq!(text(&mut v), vec!["ok"]);
-    }
-
-    #[test]
-    fn alarm_ignores_everything_until_reset() {
-        let mut v = VirtualController::new(cfg(), 0.0);
-        text(&mut v);
-        v.feed(b"G1 X250\n", 0.0);
-        assert_eq!(text(&mut v), vec!["ALARM:2", "[MSG:Reset to continue]"]);
-        v.feed(b"?G21\n$X\n", 0.1);
-        assert!(text(&mut v).is_empty());
-        v.feed(&[RESET_BYTE], 0.2);
-        assert_eq!(
-            text(&mut v),
-            vec!["", "VS 1.0", "[MSG:'$H'|'$X' to unlock]"]
-        );
-        v.feed(b"G1 X5\n", 0.3);
-        assert_eq!(text(&mut v), vec!["error:9"]);
     }
 }
