@@ -113,7 +113,11 @@ fn no_module_uses_one_on_its_floor_or_above() {
             ));
         }
     }
-    assert!(wrong.is_empty(), "layering broken:\n  {}", wrong.join("\n  "));
+    assert!(
+        wrong.is_empty(),
+        "layering broken:\n  {}",
+        wrong.join("\n  ")
+    );
 }
 
 #[test]
@@ -133,7 +137,14 @@ fn a_use_from_above_or_the_same_floor_is_caught() {
     let above = violations("map", "use crate::run::files::write_atomic;");
     assert_eq!(above, ["`map` uses `run`, which is on its floor or above"]);
     let same = violations("history", "use crate::bench::Stage;");
-    assert_eq!(same, ["`history` uses `bench`, which is on its floor or above"]);
+    assert_eq!(
+        same,
+        ["`history` uses `bench`, which is on its floor or above"]
+    );
     assert!(violations("run", "use crate::map::Summary; use crate::history::db;").is_empty());
-    assert_eq!(violations("newthing", "").len(), 1, "an unplaced module is reported");
+    assert_eq!(
+        violations("newthing", "").len(),
+        1,
+        "an unplaced module is reported"
+    );
 }

@@ -3,8 +3,8 @@
 
 mod map_common;
 
-use isopach::run::outputs::run_map_input;
 use isopach::map::{render_png, render_svg, RenderOptions, ValueRange};
+use isopach::run::outputs::run_map_input;
 use map_common::*;
 
 /// A small XML well-formedness check: every tag closes in order, attributes are quoted,

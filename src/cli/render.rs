@@ -2,10 +2,10 @@
 //! run's map again from its `run.toml` and `sites.csv`.
 
 use anyhow::{bail, Context};
-use isopach::run::outputs::{run_map_input, run_summary, write_run_maps};
 use isopach::map::{render_png, render_svg, sites_table, RenderOptions};
 use isopach::run::files::write_atomic;
 use isopach::run::folder::RunFolder;
+use isopach::run::outputs::{run_map_input, run_summary, write_run_maps};
 use std::path::PathBuf;
 
 /// Arguments of `isopach render`.

@@ -94,7 +94,11 @@ pub fn scene(
     );
     plot.axes(&mut scene);
     let pairs = |ys: &[f64]| -> Vec<(f64, f64)> {
-        wavelength_nm.iter().copied().zip(ys.iter().copied()).collect()
+        wavelength_nm
+            .iter()
+            .copied()
+            .zip(ys.iter().copied())
+            .collect()
     };
     plot.dots(&mut scene, &pairs(measured), 1.3, MEASURED, "measured");
     plot.line(

@@ -16,8 +16,8 @@
 //! everywhere, and there is no step at the hull. Grid nodes outside the usable area stay
 //! empty (NaN).
 
-use ndarray::Array2;
 use crate::recipe::Wafer;
+use ndarray::Array2;
 use spade::{DelaunayTriangulation, HasPosition, Point2, Triangulation};
 
 /// Ghost nodes on the rim ring.

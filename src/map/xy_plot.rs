@@ -77,7 +77,11 @@ pub fn ticks(lo: f64, hi: f64, target: usize) -> (Vec<f64>, usize) {
 
 /// The range of the finite `values` widened by `pad` of its span on both sides; a single
 /// value gets `±flat` around it. `None` when no value is finite.
-pub fn padded_range(values: impl IntoIterator<Item = f64>, pad: f64, flat: f64) -> Option<(f64, f64)> {
+pub fn padded_range(
+    values: impl IntoIterator<Item = f64>,
+    pad: f64,
+    flat: f64,
+) -> Option<(f64, f64)> {
     let (lo, hi) = values
         .into_iter()
         .filter(|v| v.is_finite())
@@ -134,7 +138,15 @@ impl XyPlot {
                 scene.line(vec![(self.left, py), (self.right, py)], grid, "grid");
             }
             let at = py + 0.38 * st.tick_size;
-            scene.text(self.left - 6.0, at, label, st.tick_size, Anchor::End, st.muted, "tick");
+            scene.text(
+                self.left - 6.0,
+                at,
+                label,
+                st.tick_size,
+                Anchor::End,
+                st.muted,
+                "tick",
+            );
         }
         if !self.x.title.is_empty() {
             scene.text(
@@ -163,7 +175,13 @@ impl XyPlot {
     }
 
     /// A line through the finite points (data coordinates), clamped to the frame's height.
-    pub fn line(&self, scene: &mut Scene, points: &[(f64, f64)], stroke: Stroke, class: &'static str) {
+    pub fn line(
+        &self,
+        scene: &mut Scene,
+        points: &[(f64, f64)],
+        stroke: Stroke,
+        class: &'static str,
+    ) {
         let px: Vec<(f64, f64)> = points
             .iter()
             .filter(|(x, y)| x.is_finite() && y.is_finite())
@@ -175,8 +193,18 @@ impl XyPlot {
     }
 
     /// A filled dot of radius `r` px at each finite point.
-    pub fn dots(&self, scene: &mut Scene, points: &[(f64, f64)], r: f64, colour: Rgb, class: &'static str) {
-        for &(x, y) in points.iter().filter(|(x, y)| x.is_finite() && y.is_finite()) {
+    pub fn dots(
+        &self,
+        scene: &mut Scene,
+        points: &[(f64, f64)],
+        r: f64,
+        colour: Rgb,
+        class: &'static str,
+    ) {
+        for &(x, y) in points
+            .iter()
+            .filter(|(x, y)| x.is_finite() && y.is_finite())
+        {
             scene.items.push(Item::Path {
                 points: circle_points(self.px(x), self.py(y), r, 12),
                 closed: true,
@@ -252,8 +280,18 @@ mod tests {
             top: 50.0,
             right: 300.0,
             bottom: 250.0,
-            x: Axis { lo: 0.0, hi: 10.0, title: String::new(), ticks: Ticks::Round(5) },
-            y: Axis { lo: -1.0, hi: 1.0, title: String::new(), ticks: Ticks::Round(5) },
+            x: Axis {
+                lo: 0.0,
+                hi: 10.0,
+                title: String::new(),
+                ticks: Ticks::Round(5),
+            },
+            y: Axis {
+                lo: -1.0,
+                hi: 1.0,
+                title: String::new(),
+                ticks: Ticks::Round(5),
+            },
             y_title_x: 10.0,
             style: PlotStyle {
                 ink: Rgb(0, 0, 0),
@@ -265,13 +303,22 @@ mod tests {
                 title_size: 11.0,
             },
         };
-        assert_eq!((plot.px(0.0), plot.px(10.0), plot.px(5.0)), (100.0, 300.0, 200.0));
-        assert_eq!((plot.py(-1.0), plot.py(1.0), plot.py(0.0)), (250.0, 50.0, 150.0));
+        assert_eq!(
+            (plot.px(0.0), plot.px(10.0), plot.px(5.0)),
+            (100.0, 300.0, 200.0)
+        );
+        assert_eq!(
+            (plot.py(-1.0), plot.py(1.0), plot.py(0.0)),
+            (250.0, 50.0, 150.0)
+        );
     }
 
     #[test]
     fn padded_range_pads_and_widens_a_single_value() {
-        assert_eq!(padded_range([1.0, f64::NAN, 3.0], 0.5, 1.0), Some((0.0, 4.0)));
+        assert_eq!(
+            padded_range([1.0, f64::NAN, 3.0], 0.5, 1.0),
+            Some((0.0, 4.0))
+        );
         assert_eq!(padded_range([2.0, 2.0], 0.0, 0.5), Some((1.5, 2.5)));
         assert_eq!(padded_range([f64::NAN], 0.1, 1.0), None);
     }

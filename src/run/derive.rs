@@ -4,8 +4,8 @@
 
 use super::events::{site_states, Event, SiteState};
 use super::folder::{RunFolder, RunToml};
-use super::journal;
 use super::history_entry;
+use super::journal;
 use super::outputs::{fitted_layer_names, write_run_outputs};
 use crate::map::sites_table::SiteRow;
 use crate::map::stats::Summary;

@@ -206,13 +206,20 @@ mod tests {
         let mut v = VirtualController::new(cfg(), 0.0);
         text(&mut v);
         v.feed(b"G1 X250\n", 0.0);
-        assert_eq!(text(&mut v), vec!["ALARM:2", "[MSG:alarm: send Ctrl-X to reset]"]);
+        assert_eq!(
+            text(&mut v),
+            vec!["ALARM:2", "[MSG:alarm: send Ctrl-X to reset]"]
+        );
         v.feed(b"?G21\n$X\n", 0.1);
         assert!(text(&mut v).is_empty());
         v.feed(&[RESET_BYTE], 0.2);
         assert_eq!(
             text(&mut v),
-            vec!["", "VS 1.0", "[MSG:locked: send $X to unlock or $H to home]"]
+            vec![
+                "",
+                "VS 1.0",
+                "[MSG:locked: send $X to unlock or $H to home]"
+            ]
         );
         v.feed(b"G1 X5\n", 0.3);
         assert_eq!(text(&mut v), vec!["error:9"]);

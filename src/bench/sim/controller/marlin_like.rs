@@ -219,11 +219,7 @@ mod tests {
         v.feed(b"G1 X10\nM999\nG1 X10\n", 3.0);
         assert_eq!(
             text(&mut v),
-            vec![
-                "Error:stopped by an alarm; send M999 to go on",
-                "ok",
-                "ok"
-            ]
+            vec!["Error:stopped by an alarm; send M999 to go on", "ok", "ok"]
         );
     }
 }

@@ -416,7 +416,10 @@ impl VirtualController {
             since: None,
             fault,
             homing,
-            keepalive: self.dialect.keep_alive().map(|(every_s, _)| self.now + every_s),
+            keepalive: self
+                .dialect
+                .keep_alive()
+                .map(|(every_s, _)| self.now + every_s),
         }
     }
 
@@ -692,7 +695,10 @@ impl VirtualController {
     }
 
     fn banner(&mut self) {
-        for l in self.dialect.banner(&self.cfg.banner, self.mode == Mode::Locked) {
+        for l in self
+            .dialect
+            .banner(&self.cfg.banner, self.mode == Mode::Locked)
+        {
             self.line(&l);
         }
     }
