@@ -9,7 +9,8 @@
 //! message texts are our own words.
 
 use super::dialect::{FirmwareDialect, OwnCode};
-use super::{is_code, VirtualController};
+use super::words::is_code;
+use super::VirtualController;
 use crate::bench::machine::FaultKind;
 
 /// Interval of the `echo:busy: processing` keep-alives, s (Marlin's default host keep-alive

@@ -11,57 +11,21 @@
 //! `?` and Ctrl-X, `$X`/`$H`, `error:N`) and [`marlin_like`] (a printer board: keep-alives,
 //! `G28`, `M114`, `M410`, `M999`).
 
+mod config;
 pub mod dialect;
 pub mod grbl_like;
 pub mod marlin_like;
+pub mod words;
 
 use crate::bench::kinematics::Trapezoid;
-use crate::bench::machine::{Dialect, FaultKind, FaultSpec, MachineFile};
+use crate::bench::machine::FaultKind;
+pub use config::VirtualConfig;
 use dialect::{FirmwareDialect, OwnCode};
 use std::collections::VecDeque;
+use words::{parse_words, strip_comments};
 
 /// Longest line accepted, characters (without the line end).
 pub const LINE_LIMIT: usize = 80;
-
-/// How the virtual controller is built.
-#[derive(Debug, Clone, PartialEq)]
-pub struct VirtualConfig {
-    pub banner: String,
-    pub start_locked: bool,
-    /// Delay between queueing a move into an empty planner and the start of motion, s.
-    pub idle_lag_s: f64,
-    pub planner_moves: usize,
-    pub travel_x_mm: [f64; 2],
-    pub travel_y_mm: [f64; 2],
-    /// Feed cap, mm/min.
-    pub max_feed_mm_min: f64,
-    pub accel_mm_s2: f64,
-    /// Where homing ends and where the stage sits at power-up.
-    pub home_mm: [f64; 2],
-    pub faults: Vec<FaultSpec>,
-    pub dialect: Dialect,
-}
-
-impl VirtualConfig {
-    /// The virtual controller a machine file's `[stage]` and `[simulation]` describe.
-    pub fn from_machine(m: &MachineFile) -> VirtualConfig {
-        let s = &m.stage;
-        let c = &m.simulation.controller;
-        VirtualConfig {
-            banner: c.banner.clone(),
-            start_locked: c.start_locked,
-            idle_lag_s: c.idle_lag_ms / 1000.0,
-            planner_moves: c.planner_moves.max(1),
-            travel_x_mm: s.travel_x_mm,
-            travel_y_mm: s.travel_y_mm,
-            max_feed_mm_min: s.feed_mm_min.max(1.0) * 2.0,
-            accel_mm_s2: s.accel_mm_s2,
-            home_mm: [s.travel_x_mm[0], s.travel_y_mm[0]],
-            faults: m.simulation.faults.clone(),
-            dialect: c.dialect,
-        }
-    }
-}
 
 /// One planned straight move.
 #[derive(Debug, Clone, PartialEq)]
@@ -722,52 +686,6 @@ fn next_is_same(next: Option<f64>, t: f64) -> bool {
     next.is_some_and(|n| n <= t)
 }
 
-/// Whether a line, comments and case aside, is exactly `code` (`m410 ; stop` is `M410`).
-pub(super) fn is_code(line: &str, code: &str) -> bool {
-    strip_comments(line).trim().eq_ignore_ascii_case(code)
-}
-
-/// Removes `( … )` and `; …` comments.
-fn strip_comments(line: &str) -> String {
-    let mut out = String::new();
-    let mut depth = 0;
-    for c in line.chars() {
-        match c {
-            ';' if depth == 0 => break,
-            '(' => depth += 1,
-            ')' if depth > 0 => depth -= 1,
-            _ if depth == 0 => out.push(c),
-            _ => {}
-        }
-    }
-    out
-}
-
-/// Letter–number words of a line (`G1X10 Y2.5` → G1, X10, Y2.5); `Err(code)` as grbl numbers
-/// them: 1 = letter expected, 2 = bad number.
-fn parse_words(line: &str) -> Result<Vec<(char, f64)>, u32> {
-    let chars: Vec<char> = line.chars().filter(|c| !c.is_whitespace()).collect();
-    let mut words = Vec::new();
-    let mut i = 0;
-    while i < chars.len() {
-        let l = chars[i];
-        if !l.is_ascii_alphabetic() {
-            return Err(1);
-        }
-        let start = i + 1;
-        let mut j = start;
-        while j < chars.len() && (chars[j].is_ascii_digit() || matches!(chars[j], '.' | '-' | '+'))
-        {
-            j += 1;
-        }
-        let num: String = chars[start..j].iter().collect();
-        let v = num.parse::<f64>().map_err(|_| 2u32)?;
-        words.push((l, v));
-        i = j;
-    }
-    Ok(words)
-}
-
 /// The state word of a status report.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub(super) enum State {
@@ -789,6 +707,7 @@ pub(super) struct Status {
 pub(super) mod test_support {
     //! Helpers shared by the dialects' tests.
     use super::*;
+    use crate::bench::machine::Dialect;
 
     /// A small grbl-like controller: 200 mm square travel, two planner slots.
     pub fn cfg() -> VirtualConfig {
