@@ -68,8 +68,12 @@ pub fn isolines(grid: &Grid, level: f64) -> Vec<Polyline> {
 pub fn isolines_many(grid: &Grid, levels: &[f64]) -> Vec<Vec<Polyline>> {
     let mut segments: Vec<Vec<(Edge, Edge)>> = vec![Vec::new(); levels.len()];
     let nx = grid.nx();
+    // Rows as plain slices (the hot loop); a grid in another memory order is copied once.
+    let values = grid.values.as_standard_layout();
+    let flat = values.as_slice().expect("standard layout is contiguous");
     for j in 0..grid.ny().saturating_sub(1) {
-        let (lower, upper) = (grid.values.row(j), grid.values.row(j + 1));
+        let lower = &flat[j * nx..(j + 1) * nx];
+        let upper = &flat[(j + 1) * nx..(j + 2) * nx];
         for i in 0..nx.saturating_sub(1) {
             let v = [lower[i], lower[i + 1], upper[i + 1], upper[i]];
             let lo = v[0].min(v[1]).min(v[2].min(v[3]));
