@@ -99,7 +99,7 @@ fn panel(scene: &mut Scene, top: f64, values: &[f64], label: &str, points: &[Tre
         style: PlotStyle {
             ink: INK,
             muted: INK,
-            grid: GRID,
+            grid: Rgb(0xe6, 0xe9, 0xec),
             frame: GRID,
             fill: None,
             tick_size: 10.5,

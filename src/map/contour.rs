@@ -269,9 +269,10 @@ fn padded_below(g: &Grid, bounds: &[f64]) -> Grid {
     let (lo, hi) = g.min_max().unwrap_or((0.0, 1.0));
     let b_lo = bounds.first().copied().unwrap_or(lo).min(lo);
     let sentinel = b_lo - 1e6 * (hi - lo).abs().max(1.0);
-    let mut values = Array2::from_elem((g.ny() + 2, g.nx() + 2), sentinel);
+    let (ny, nx) = (g.ny(), g.nx());
+    let mut values = Array2::from_elem((ny + 2, nx + 2), sentinel);
     values
-        .slice_mut(s![1..-1, 1..-1])
+        .slice_mut(s![1..=ny, 1..=nx])
         .zip_mut_with(&g.values, |out, &v| {
             if v.is_finite() {
                 *out = v;

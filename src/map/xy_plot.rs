@@ -123,18 +123,19 @@ impl XyPlot {
             stroke: Some(Stroke::solid(st.frame, 1.0)),
         });
         let grid = Stroke::solid(st.grid, 0.8);
+        // A grid line on the frame would only thicken it.
+        let inside = |p: f64, a: f64, b: f64| p > a.min(b) + 0.5 && p < a.max(b) - 0.5;
         for (x, label, with_grid) in marks(&self.x) {
-            if with_grid {
-                let px = self.px(x);
+            let px = self.px(x);
+            if with_grid && inside(px, self.left, self.right) {
                 scene.line(vec![(px, self.top), (px, self.bottom)], grid, "grid");
             }
-            let at = self.px(x);
             let y = self.bottom + st.tick_size + 4.5;
-            scene.text(at, y, label, st.tick_size, Anchor::Middle, st.muted, "tick");
+            scene.text(px, y, label, st.tick_size, Anchor::Middle, st.muted, "tick");
         }
         for (y, label, with_grid) in marks(&self.y) {
             let py = self.py(y);
-            if with_grid {
+            if with_grid && inside(py, self.top, self.bottom) {
                 scene.line(vec![(self.left, py), (self.right, py)], grid, "grid");
             }
             let at = py + 0.38 * st.tick_size;
