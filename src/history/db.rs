@@ -43,15 +43,25 @@ pub struct SiteRecord {
     pub valid: bool,
 }
 
-/// Everything the history keeps of a run.
-#[derive(Debug, Clone, PartialEq, Serialize)]
-pub struct RunRecord {
+/// Who and what a run was: the fields the history indexes runs by.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+pub struct RunIdentity {
     pub run_id: String,
+    /// The run folder, as the user should see it.
     pub folder: String,
+    /// The recipe's `name`.
     pub recipe: String,
     pub wafer: String,
     pub lot: String,
+    /// When the run started (RFC 3339).
     pub started: String,
+}
+
+/// Everything the history keeps of a run.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct RunRecord {
+    #[serde(flatten)]
+    pub id: RunIdentity,
     pub layers: Vec<LayerRecord>,
     pub sites: Vec<SiteRecord>,
 }
@@ -184,12 +194,14 @@ impl History {
         let heads: Vec<RunRecord> = stmt
             .query_map([], |r| {
                 Ok(RunRecord {
-                    run_id: r.get(0)?,
-                    folder: r.get(1)?,
-                    recipe: r.get(2)?,
-                    wafer: r.get(3)?,
-                    lot: r.get(4)?,
-                    started: r.get(5)?,
+                    id: RunIdentity {
+                        run_id: r.get(0)?,
+                        folder: r.get(1)?,
+                        recipe: r.get(2)?,
+                        wafer: r.get(3)?,
+                        lot: r.get(4)?,
+                        started: r.get(5)?,
+                    },
                     layers: Vec::new(),
                     sites: Vec::new(),
                 })
@@ -207,7 +219,7 @@ impl History {
                 )
                 .map_err(q)?;
             run.layers = s
-                .query_map([&run.run_id], |r| {
+                .query_map([&run.id.run_id], |r| {
                     Ok(LayerRecord {
                         layer: r.get::<_, i64>(0)? as usize,
                         material: r.get(1)?,
@@ -229,7 +241,7 @@ impl History {
                 .prepare("SELECT site, layer, x_mm, y_mm, thickness_nm, valid FROM site_values WHERE run_id = ?1 ORDER BY site, layer")
                 .map_err(q)?;
             run.sites = s
-                .query_map([&run.run_id], |r| {
+                .query_map([&run.id.run_id], |r| {
                     Ok(SiteRecord {
                         site: r.get::<_, i64>(0)? as usize,
                         layer: r.get::<_, i64>(1)? as usize,
@@ -259,10 +271,10 @@ fn opt(v: f64) -> Option<f64> {
 }
 
 fn write_run(tx: &rusqlite::Transaction, run: &RunRecord) -> rusqlite::Result<()> {
-    tx.execute("DELETE FROM runs WHERE run_id = ?1", [&run.run_id])?;
+    tx.execute("DELETE FROM runs WHERE run_id = ?1", [&run.id.run_id])?;
     tx.execute(
         "INSERT INTO runs (run_id, folder, recipe, wafer, lot, started) VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
-        params![run.run_id, run.folder, run.recipe, run.wafer, run.lot, run.started],
+        params![run.id.run_id, run.id.folder, run.id.recipe, run.id.wafer, run.id.lot, run.id.started],
     )?;
     let mut ls = tx.prepare(
         "INSERT INTO layer_stats (run_id, layer, material, sites_total, sites_valid, mean_nm, std_nm,
@@ -270,7 +282,7 @@ fn write_run(tx: &rusqlite::Transaction, run: &RunRecord) -> rusqlite::Result<()
     )?;
     for l in &run.layers {
         ls.execute(params![
-            run.run_id,
+            run.id.run_id,
             l.layer as i64,
             l.material,
             l.sites_total as i64,
@@ -288,7 +300,7 @@ fn write_run(tx: &rusqlite::Transaction, run: &RunRecord) -> rusqlite::Result<()
     )?;
     for s in &run.sites {
         sv.execute(params![
-            run.run_id,
+            run.id.run_id,
             s.site as i64,
             s.layer as i64,
             s.x_mm,
@@ -306,12 +318,14 @@ mod tests {
 
     fn record(id: &str, started: &str, mean: f64) -> RunRecord {
         RunRecord {
-            run_id: id.into(),
-            folder: format!("runs/{id}"),
-            recipe: "oxide".into(),
-            wafer: id.into(),
-            lot: "L1".into(),
-            started: started.into(),
+            id: RunIdentity {
+                run_id: id.into(),
+                folder: format!("runs/{id}"),
+                recipe: "oxide".into(),
+                wafer: id.into(),
+                lot: "L1".into(),
+                started: started.into(),
+            },
             layers: vec![LayerRecord {
                 layer: 0,
                 material: "sio2".into(),

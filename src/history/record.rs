@@ -4,6 +4,7 @@
 //! The history knows nothing of run folders: `run` hands it the rows it has just derived
 //! (`run::derive::rebuild`), or reads them back for `trend --rebuild` (`run::history_entry`).
 
+pub use super::db::RunIdentity;
 use super::db::{History, HistoryError, LayerRecord, RunRecord, SiteRecord};
 use crate::map::sites_table::SiteRow;
 use crate::map::stats::Summary;
@@ -12,20 +13,6 @@ use std::path::{Path, PathBuf};
 /// The history database of a runs folder (a dot file, so `runs/*` lists only run folders).
 pub fn db_path(runs_dir: &Path) -> PathBuf {
     runs_dir.join(".history.sqlite")
-}
-
-/// Who and what a run was: the fields the history indexes runs by.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub struct RunIdentity {
-    pub run_id: String,
-    /// The run folder, as the user should see it.
-    pub folder: String,
-    /// The recipe's `name`.
-    pub recipe: String,
-    pub wafer: String,
-    pub lot: String,
-    /// When the run started (RFC 3339).
-    pub started: String,
 }
 
 /// The history record of a run from its identity, summary and site rows.
@@ -63,16 +50,7 @@ pub fn record_of(id: RunIdentity, summary: &Summary, rows: &[SiteRow]) -> RunRec
                 })
         })
         .collect();
-    RunRecord {
-        run_id: id.run_id,
-        folder: id.folder,
-        recipe: id.recipe,
-        wafer: id.wafer,
-        lot: id.lot,
-        started: id.started,
-        layers,
-        sites,
-    }
+    RunRecord { id, layers, sites }
 }
 
 /// Records (or re-records) one run in the history of `runs_dir`.
