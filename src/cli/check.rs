@@ -1,9 +1,8 @@
 //! `isopach check RECIPE [--machine M]`: validate, with the line and reason of each error.
 
 use anyhow::Context;
-use isopach::bench::limits::{check_sites, Approach, SoftLimits};
-use isopach::bench::ChuckTransform;
 use isopach::recipe::{self, schema::PatternSpec, LoadedRecipe};
+use isopach::run::plan::{Plan, ReferencePlacement};
 use std::path::PathBuf;
 
 /// Arguments of `isopach check`.
@@ -33,35 +32,39 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         Err(e) => return Err(e).context("check failed"),
     };
     println!("ok: {}", summary(&loaded));
-    if let Some(path) = &args.machine {
-        let m = match super::machine_arg::load(path)? {
-            Ok(m) => m,
+    let machine = match &args.machine {
+        Some(path) => match super::machine_arg::load(path)? {
+            Ok(m) => Some(m),
             Err(code) => return Ok(code),
-        };
-        let outside = check_sites(
-            &loaded.sites(),
-            &ChuckTransform::from_spec(&m.chuck),
-            &SoftLimits::from_spec(&m.stage),
-            &Approach::from_spec(&m.stage),
-        );
-        for o in &outside {
-            println!("{}: {o}", args.recipe.display());
-        }
-        if !outside.is_empty() {
-            eprintln!(
-                "{}: {} site(s) outside the soft limits of {}",
-                args.recipe.display(),
-                outside.len(),
-                path.display()
-            );
+        },
+        None => None,
+    };
+    // The same plan `run` would execute: fit set-up, reference material and soft limits.
+    let plan = match Plan::new(&loaded, machine.as_ref()) {
+        Ok(plan) => plan,
+        Err(e) => {
+            println!("{}: {e}", args.recipe.display());
             return Ok(super::exit::INVALID);
         }
+    };
+    if let Some(problem) = plan.limit_problem() {
+        println!("{}: {problem}", args.recipe.display());
+        return Ok(super::exit::INVALID);
+    }
+    if let Some(m) = &machine {
         println!(
-            "ok: {}: every site within the soft limits (stage {}, {} motion check)",
+            "ok: {}: every site within the soft limits (stage {}, {} motion check); at least {:.0} s per map",
             m.name,
             m.stage.port,
-            m.stage.motion_complete.as_str()
+            m.stage.motion_complete.as_str(),
+            plan.duration_s
         );
+        if plan.reference() == ReferencePlacement::ByHand {
+            println!(
+                "note: {} gives no [reference] position_mm: the run will ask the operator to place the {} reference under the probe (run it on a terminal)",
+                m.name, plan.reference_material
+            );
+        }
     }
     Ok(super::exit::OK)
 }

@@ -107,6 +107,7 @@ fn error_code(e: &anyhow::Error) -> u8 {
     if e.chain().any(|c| {
         c.downcast_ref::<isopach::recipe::RecipeError>().is_some()
             || c.downcast_ref::<isopach::bench::MachineError>().is_some()
+            || c.downcast_ref::<isopach::run::plan::PlanError>().is_some()
     }) {
         exit::INVALID
     } else {

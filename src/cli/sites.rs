@@ -2,7 +2,8 @@
 
 use anyhow::Context;
 use isopach::map::site_plan;
-use isopach::recipe;
+use isopach::recipe::{self, Site};
+use isopach::run::plan::Plan;
 use std::path::PathBuf;
 
 /// Arguments of `isopach sites`.
@@ -24,7 +25,10 @@ pub struct Args {
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
     let loaded = recipe::load(&args.recipe)?;
-    let sites = loaded.sites();
+    // The sites of the plan `run` would measure, listed by number.
+    let plan = Plan::new(&loaded, None)?;
+    let mut sites: Vec<Site> = plan.sites().map(|s| s.site).collect();
+    sites.sort_by_key(|s| s.number);
     if args.csv {
         println!("site,x_mm,y_mm,r_mm");
         for s in &sites {

@@ -2,6 +2,7 @@
 //!
 //! ```text
 //! runs/<run-id>/run.toml       frozen recipe + machine + run metadata
+//!               plan.json      the frozen plan: sites in measuring order, stage coordinates
 //!               journal.jsonl  append-only events, the truth
 //!               spectra/       raw spectra, one CSV per acquisition
 //!               sites.csv, summary.json, map.svg, map.png   derived, rebuilt from the journal
@@ -54,6 +55,9 @@ impl RunFolder {
     }
     pub fn run_toml(&self) -> PathBuf {
         self.root.join("run.toml")
+    }
+    pub fn plan_json(&self) -> PathBuf {
+        self.root.join("plan.json")
     }
     pub fn journal(&self) -> PathBuf {
         self.root.join("journal.jsonl")
