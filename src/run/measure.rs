@@ -184,11 +184,16 @@ pub async fn session(
                         .await
                     }
                 };
-                if let Outcome::Failed(e) = &outcome {
-                    // The last lines exchanged with the controller say most about a fault.
+                // The last lines exchanged with the controller say most about a stop: what
+                // was in flight, and the stop sent.
+                let why = match &outcome {
+                    Outcome::Failed(e) => Some(crate::error_text::chain_text(e)),
+                    Outcome::Interrupted => Some("interrupted".to_string()),
+                    Outcome::Finished => None,
+                };
+                if let Some(why) = why {
                     tracing::error!(
-                        "{command} stopped: {}\nrecent G-code conversation:\n{}",
-                        crate::error_text::chain_text(e),
+                        "{command} stopped: {why}\nrecent G-code conversation:\n{}",
                         bench.stage.transcript().join("\n")
                     );
                 }

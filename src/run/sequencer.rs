@@ -202,6 +202,10 @@ impl Sequencer {
         let material = plan.reference_material.clone();
         match placement {
             ReferencePlacement::Position(p) => {
+                self.note(format!(
+                    "moving to the reference piece at ({}, {}) mm",
+                    p[0], p[1]
+                ))?;
                 self.scope
                     .guard(async {
                         bench.stage.move_to(p[0], p[1]).await?;
