@@ -1,5 +1,6 @@
 //! `isopach check RECIPE [--machine M]`: validate, with the line and reason of each error.
 
+use super::output::outln;
 use anyhow::Context;
 use isopach::bench::limits::{check_sites, Approach, SoftLimits};
 use isopach::bench::ChuckTransform;
@@ -25,14 +26,14 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         Ok(l) => l,
         Err(recipe::RecipeError::Invalid(problems)) => {
             for p in &problems {
-                println!("{p}");
+                outln!("{p}");
             }
             eprintln!("{}: {} error(s)", args.recipe.display(), problems.len());
             return Ok(super::exit::INVALID);
         }
         Err(e) => return Err(e).context("check failed"),
     };
-    println!("ok: {}", summary(&loaded));
+    outln!("ok: {}", summary(&loaded));
     if let Some(path) = &args.machine {
         let m = match super::machine_arg::load(path)? {
             Ok(m) => m,
@@ -45,7 +46,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             &Approach::from_spec(&m.stage),
         );
         for o in &outside {
-            println!("{}: {o}", args.recipe.display());
+            outln!("{}: {o}", args.recipe.display());
         }
         if !outside.is_empty() {
             eprintln!(
@@ -56,7 +57,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             );
             return Ok(super::exit::INVALID);
         }
-        println!(
+        outln!(
             "ok: {}: every site within the soft limits (stage {}, {} motion check)",
             m.name,
             m.stage.port,

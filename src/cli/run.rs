@@ -1,5 +1,6 @@
 //! `isopach run RECIPE [--machine M] [--wafer ID] [--lot L] [--runs DIR] [--yes] [--dry-run]`.
 
+use super::output::outln;
 use super::measure::{self, Which};
 use anyhow::Context;
 use isopach::bench::machine;
@@ -93,13 +94,13 @@ fn dry_run(
     let limits = isopach::bench::limits::SoftLimits::from_spec(&m.stage);
     let approach = isopach::bench::limits::Approach::from_spec(&m.stage);
     let outside = isopach::bench::limits::check_sites(&sites, &transform, &limits, &approach);
-    println!(
+    outln!(
         "{:>5} {:>5} {:>9} {:>9} {:>10} {:>10}",
         "order", "site", "x_mm", "y_mm", "stage_x", "stage_y"
     );
     for (i, s) in sites.iter().enumerate() {
         let p = transform.to_stage(s.x_mm, s.y_mm);
-        println!(
+        outln!(
             "{:>5} {:>5} {:>9.3} {:>9.3} {:>10.3} {:>10.3}",
             i + 1,
             s.number,
@@ -112,7 +113,7 @@ fn dry_run(
     let a = &loaded.recipe.acquire;
     let per_site = (a.settle_ms + a.integration_ms * a.averages as f64) / 1000.0;
     let secs = plan::duration_estimate_s(&sites, a, &m);
-    println!(
+    outln!(
         "{} sites, path {:.1} mm from the wafer centre, at least {:.1} s from the stage's home corner ({}: feed {} mm/min, accel {} mm/s², {:.0} ms per site)",
         sites.len(),
         plan::path_length((0.0, 0.0), &sites),
@@ -124,7 +125,7 @@ fn dry_run(
     );
     if !outside.is_empty() {
         for o in &outside {
-            println!("outside the soft limits: {o}");
+            outln!("outside the soft limits: {o}");
         }
         return Ok(super::exit::INVALID);
     }

@@ -1,5 +1,6 @@
 //! `isopach sites RECIPE [--out FILE.svg] [--csv]`: list and draw the site plan.
 
+use super::output::outln;
 use anyhow::Context;
 use isopach::map::site_plan;
 use isopach::recipe;
@@ -26,15 +27,15 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     let loaded = recipe::load(&args.recipe)?;
     let sites = loaded.sites();
     if args.csv {
-        println!("site,x_mm,y_mm,r_mm");
+        outln!("site,x_mm,y_mm,r_mm");
         for s in &sites {
             // Full precision: rounding would push rim sites past the usable radius.
-            println!("{},{},{},{}", s.number, s.x_mm, s.y_mm, s.radius());
+            outln!("{},{},{},{}", s.number, s.x_mm, s.y_mm, s.radius());
         }
     } else {
-        println!("{:>5} {:>9} {:>9} {:>9}", "site", "x_mm", "y_mm", "r_mm");
+        outln!("{:>5} {:>9} {:>9} {:>9}", "site", "x_mm", "y_mm", "r_mm");
         for s in &sites {
-            println!(
+            outln!(
                 "{:>5} {:>9.3} {:>9.3} {:>9.3}",
                 s.number,
                 s.x_mm,
@@ -42,7 +43,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
                 s.radius()
             );
         }
-        println!("{} sites", sites.len());
+        outln!("{} sites", sites.len());
     }
     if let Some(out) = &args.out {
         let svg = site_plan::svg(&loaded.wafer(), &sites, &loaded.recipe.name);

@@ -3,6 +3,7 @@
 //! Without `--machine` the built-in simulated bench is used. Before the first motion on a real
 //! port the user is asked to confirm (`--yes` skips it); Ctrl-C stops motion.
 
+use super::output::outln;
 use super::machine_arg;
 use isopach::bench::machine::builtin_simulated;
 use isopach::bench::sim::clock::SimClock;
@@ -106,7 +107,7 @@ fn print_position(stage: &dyn Stage, pos: Option<[f64; 2]>, t: &ChuckTransform) 
     match pos {
         Some(p) => {
             let w = t.to_wafer(p[0], p[1]);
-            println!(
+            outln!(
                 "{}: stage ({:.3}, {:.3}) mm, wafer ({:.3}, {:.3}) mm",
                 stage.describe(),
                 p[0],
@@ -115,7 +116,7 @@ fn print_position(stage: &dyn Stage, pos: Option<[f64; 2]>, t: &ChuckTransform) 
                 w[1]
             );
         }
-        None => println!(
+        None => outln!(
             "{}: position unknown (the controller gives no status report; home or move first)",
             stage.describe()
         ),
