@@ -64,7 +64,13 @@ fn kind_of_cause(cause: &(dyn std::error::Error + 'static)) -> Option<Kind> {
     use crate::run::id::NameError;
     use crate::run::refit::PlanMismatch;
     use crate::spectrum::SpectrumError;
-    let input = |yes: bool| Some(if yes { Kind::InvalidInput } else { Kind::Failed });
+    let input = |yes: bool| {
+        Some(if yes {
+            Kind::InvalidInput
+        } else {
+            Kind::Failed
+        })
+    };
     if cause.is::<InputError>()
         || cause.is::<RecipeError>()
         || cause.is::<MachineError>()

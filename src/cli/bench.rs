@@ -2,8 +2,8 @@
 //! pseudo-terminal, whose path is printed, until Ctrl-C. Point a terminal or a machine file's
 //! `stage.port` at it.
 
-use super::output::outln;
 use super::machine_arg;
+use super::output::outln;
 use isopach::bench::machine::builtin_simulated;
 use isopach::bench::sim::clock::SimClock;
 use isopach::bench::sim::controller::VirtualConfig;

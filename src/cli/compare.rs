@@ -1,10 +1,10 @@
 //! `isopach compare RUN RUN... [--delta] [--per-min T] [--json] [--out FILE] [--sheet FILE]`.
 
-use super::output::outln;
 use super::figures::num;
+use super::output::outln;
 use anyhow::bail;
-use isopach::error::InputError;
 use isopach::compare::{self, WaferRun};
+use isopach::error::InputError;
 use isopach::map::render::{MapInput, RenderOptions, ValueRange};
 use serde_json::{json, Value};
 use std::path::{Path, PathBuf};

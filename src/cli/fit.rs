@@ -74,7 +74,9 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         for l in &result.layers {
             outln!(
                 "{:<10} {:>10.2} ± {:.2} nm",
-                l.material, l.thickness_nm, l.sigma_nm
+                l.material,
+                l.thickness_nm,
+                l.sigma_nm
             );
         }
         outln!("method {}, gof {:.5}", result.method, result.gof);

@@ -51,10 +51,7 @@ pub fn finish() -> Option<std::io::Error> {
             stop(e);
         }
     }
-    WRITE_ERROR
-        .lock()
-        .unwrap_or_else(|p| p.into_inner())
-        .take()
+    WRITE_ERROR.lock().unwrap_or_else(|p| p.into_inner()).take()
 }
 
 /// PNG pixels per layout pixel for files written by the CLI.

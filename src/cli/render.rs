@@ -67,7 +67,11 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         }
     }
     let s = &layers[layer];
-    let name = if s.layer.is_empty() { "layer" } else { &s.layer };
+    let name = if s.layer.is_empty() {
+        "layer"
+    } else {
+        &s.layer
+    };
     outln!("{name}: {}", figures_line(s));
     Ok(super::exit::OK)
 }

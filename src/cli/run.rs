@@ -1,7 +1,7 @@
 //! `isopach run RECIPE [--machine M] [--wafer ID] [--lot L] [--runs DIR] [--yes] [--dry-run]`.
 
-use super::output::outln;
 use super::measure::{self, Which};
+use super::output::outln;
 use anyhow::Context;
 use isopach::bench::machine;
 use isopach::recipe;
@@ -96,7 +96,12 @@ fn dry_run(
     let outside = isopach::bench::limits::check_sites(&sites, &transform, &limits, &approach);
     outln!(
         "{:>5} {:>5} {:>9} {:>9} {:>10} {:>10}",
-        "order", "site", "x_mm", "y_mm", "stage_x", "stage_y"
+        "order",
+        "site",
+        "x_mm",
+        "y_mm",
+        "stage_x",
+        "stage_y"
     );
     for (i, s) in sites.iter().enumerate() {
         let p = transform.to_stage(s.x_mm, s.y_mm);

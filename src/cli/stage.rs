@@ -3,8 +3,8 @@
 //! Without `--machine` the built-in simulated bench is used. Before the first motion on a real
 //! port the user is asked to confirm (`--yes` skips it); Ctrl-C stops motion.
 
-use super::output::outln;
 use super::machine_arg;
+use super::output::outln;
 use isopach::bench::machine::builtin_simulated;
 use isopach::bench::sim::clock::SimClock;
 use isopach::bench::{open_stage, ChuckTransform, Stage};

@@ -1,7 +1,7 @@
 //! `isopach trend [--recipe NAME] [--lot L] [--runs DIR] [--rebuild] [--out FILE] [--json]`.
 
-use super::output::outln;
 use super::figures::num;
+use super::output::outln;
 use isopach::error::InputError;
 use isopach::history::{chart, control, db::History, record};
 use serde_json::json;
@@ -108,7 +108,11 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     }
     outln!(
         "{:<22} {:<16} {:<10} {:>10} {:>8}  signals",
-        "started", "wafer", "lot", "mean_nm", "NU_%"
+        "started",
+        "wafer",
+        "lot",
+        "mean_nm",
+        "NU_%"
     );
     for (i, p) in points.iter().enumerate() {
         let mut s: Vec<String> = Vec::new();
@@ -141,7 +145,10 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         if let Some(l) = l {
             outln!(
                 "{name}: centre {:.3}, LCL {:.3}, UCL {:.3} (MR̄ {:.3})",
-                l.center, l.lcl, l.ucl, l.mr_bar
+                l.center,
+                l.lcl,
+                l.ucl,
+                l.mr_bar
             );
         }
     }
