@@ -292,24 +292,12 @@ fn a_closed_stdout_ends_sites_dry_run_and_trend_quietly() {
     let dir = tempfile::tempdir().unwrap();
     oxide_run(dir.path(), "W1", true);
     oxide_run(dir.path(), "W2", true);
-    let runs = dir.path().as_os_str();
+    let recipe = repo("recipes/oxide-150-49.toml");
+    let (r, runs) = (recipe.to_str().unwrap(), dir.path().to_str().unwrap());
     for args in [
-        vec![
-            "sites".as_ref(),
-            repo("recipes/oxide-150-49.toml").into_os_string(),
-        ],
-        vec![
-            "run".into(),
-            repo("recipes/oxide-150-49.toml").into_os_string(),
-            "--dry-run".into(),
-        ],
-        vec![
-            "trend".into(),
-            "--runs".into(),
-            runs.to_owned(),
-            "--rebuild".into(),
-            "--json".into(),
-        ],
+        vec!["sites", r],
+        vec!["run", r, "--dry-run"],
+        vec!["trend", "--runs", runs, "--rebuild", "--json"],
     ] {
         let o = with_stdout_closed(&args);
         assert_exit(&o, 0, &format!("{args:?} with stdout closed"));
