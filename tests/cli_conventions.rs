@@ -189,10 +189,10 @@ fn a_run_folder_that_does_not_exist_exits_2_for_every_command() {
 fn a_wafer_lot_or_operator_with_a_path_separator_exits_2_and_leaves_no_folder() {
     let (dir, recipe, machine) = bench("wavelength_nm = [420, 980]");
     let runs = dir.path().join("runs");
-    for (flag, value) in [
-        ("--wafer", "A/B"),
-        ("--lot", "../up"),
-        ("--operator", "a\\b"),
+    for (flag, value, named) in [
+        ("--wafer", "A/B", "wafer id \"A/B\""),
+        ("--lot", "../up", "lot \"../up\""),
+        ("--operator", "a\\b", "operator \"a\\\\b\""),
     ] {
         let o = isopach(&[
             "run".as_ref(),
@@ -205,7 +205,7 @@ fn a_wafer_lot_or_operator_with_a_path_separator_exits_2_and_leaves_no_folder() 
             value.as_ref(),
         ]);
         assert_exit(&o, 2, &format!("{flag} {value}"));
-        assert!(text(&o.stderr).contains(value), "{}", text(&o.stderr));
+        assert!(text(&o.stderr).contains(named), "{}", text(&o.stderr));
         let left = std::fs::read_dir(&runs).map(|d| d.count()).unwrap_or(0);
         assert_eq!(left, 0, "{flag} {value} left a run folder");
     }
