@@ -3,30 +3,12 @@
 //! refit with no valid site fails (exit 1) saying what to do. The real binary, in temp dirs.
 
 mod map_common;
+mod run_common;
 
 use map_common::*;
+use run_common::RECIPE;
 use std::path::{Path, PathBuf};
 use std::process::{Command, Output, Stdio};
-
-/// A 9-site recipe for runs on the simulated bench.
-const RECIPE: &str = r#"name = "conv-9"
-[wafer]
-diameter_mm = 150
-edge_exclusion_mm = 5
-orientation = "flat"
-[pattern]
-kind = "standard"
-sites = 9
-[film]
-ambient = "air"
-substrate = "si"
-layers = [ { material = "sio2", nominal_nm = 600, min_nm = 100, max_nm = 2000 } ]
-wavelength_nm = [420, 980]
-[acquire]
-integration_ms = 10
-averages = 2
-settle_ms = 50
-"#;
 
 fn isopach<S: AsRef<std::ffi::OsStr>>(args: &[S]) -> Output {
     Command::new(env!("CARGO_BIN_EXE_isopach"))
@@ -35,6 +17,11 @@ fn isopach<S: AsRef<std::ffi::OsStr>>(args: &[S]) -> Output {
         .stdin(Stdio::null())
         .output()
         .expect("binary runs")
+}
+
+/// `isopach CMD RUN FLAG VALUE`.
+fn on_run(cmd: &str, run: &Path, flag: &str, value: impl AsRef<std::ffi::OsStr>) -> Output {
+    isopach(&[cmd.as_ref(), run.as_os_str(), flag.as_ref(), value.as_ref()])
 }
 
 fn text(b: &[u8]) -> String {
@@ -116,12 +103,7 @@ fn oxide_run(dir: &Path, name: &str, valid: bool) -> PathBuf {
 fn remeasure_of_a_site_not_in_the_plan_exits_2() {
     let dir = tempfile::tempdir().unwrap();
     let run = oxide_run(dir.path(), "W1", true);
-    let o = isopach(&[
-        "remeasure".as_ref(),
-        run.as_os_str(),
-        "--site".as_ref(),
-        "999".as_ref(),
-    ]);
+    let o = on_run("remeasure", &run, "--site", "999");
     assert_exit(&o, 2, "remeasure --site 999");
     assert!(text(&o.stderr).contains("site 999 is not in this run's plan, which has sites 1..49"));
     assert!(
@@ -136,12 +118,7 @@ fn render_out_with_an_unsupported_extension_exits_2_before_drawing() {
     let run = oxide_run(dir.path(), "W1", true);
     for name in ["x.pdf", "x.doc", "noextension"] {
         let target = dir.path().join(name);
-        let o = isopach(&[
-            "render".as_ref(),
-            run.as_os_str(),
-            "--out".as_ref(),
-            target.as_os_str(),
-        ]);
+        let o = on_run("render", &run, "--out", &target);
         assert_exit(&o, 2, name);
         assert!(text(&o.stderr).contains("must end in .svg or .png"));
         assert!(!target.exists());
@@ -152,12 +129,7 @@ fn render_out_with_an_unsupported_extension_exits_2_before_drawing() {
 fn render_layer_2_of_a_one_layer_run_exits_2() {
     let dir = tempfile::tempdir().unwrap();
     let run = oxide_run(dir.path(), "W1", true);
-    let o = isopach(&[
-        "render".as_ref(),
-        run.as_os_str(),
-        "--layer".as_ref(),
-        "2".as_ref(),
-    ]);
+    let o = on_run("render", &run, "--layer", "2");
     assert_exit(&o, 2, "render --layer 2");
     assert!(text(&o.stderr).contains("this run has 1 fitted layer(s)"));
 }
@@ -373,12 +345,7 @@ fn refit_with_no_valid_site_exits_1_and_prints_no_nan() {
         RECIPE.replace("wavelength_nm = [420, 980]", "wavelength_nm = [1500, 1900]"),
     )
     .unwrap();
-    let o = isopach(&[
-        "refit".as_ref(),
-        run.as_os_str(),
-        "--recipe".as_ref(),
-        far.as_os_str(),
-    ]);
+    let o = on_run("refit", &run, "--recipe", &far);
     assert_exit(&o, 1, "refit with no valid site");
     let (out, err) = (text(&o.stdout), text(&o.stderr));
     assert_no_nan(&out, "refit stdout");

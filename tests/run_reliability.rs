@@ -9,24 +9,9 @@ use std::path::{Path, PathBuf};
 use std::process::{Command, Output, Stdio};
 use std::time::{Duration, Instant};
 
-const RECIPE: &str = r#"name = "rel-9"
-[wafer]
-diameter_mm = 150
-edge_exclusion_mm = 5
-orientation = "flat"
-[pattern]
-kind = "standard"
-sites = 9
-[film]
-ambient = "air"
-substrate = "si"
-layers = [ { material = "sio2", nominal_nm = 600, min_nm = 100, max_nm = 2000 } ]
-wavelength_nm = [420, 980]
-[acquire]
-integration_ms = 10
-averages = 2
-settle_ms = 50
-"#;
+mod run_common;
+
+use run_common::RECIPE;
 
 fn isopach(args: &[&str]) -> Output {
     Command::new(env!("CARGO_BIN_EXE_isopach"))
