@@ -11,6 +11,7 @@
 
 pub mod bench;
 pub mod compare;
+pub mod error;
 pub mod error_text;
 pub mod fit;
 pub mod history;

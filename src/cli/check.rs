@@ -1,5 +1,6 @@
 //! `isopach check RECIPE [--machine M]`: validate, with the line and reason of each error.
 
+use super::output::outln;
 use anyhow::Context;
 use isopach::recipe::{self, schema::PatternSpec, LoadedRecipe};
 use isopach::run::plan::{Plan, ReferencePlacement};
@@ -24,14 +25,14 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         Ok(l) => l,
         Err(recipe::RecipeError::Invalid(problems)) => {
             for p in &problems {
-                println!("{p}");
+                outln!("{p}");
             }
             eprintln!("{}: {} error(s)", args.recipe.display(), problems.len());
             return Ok(super::exit::INVALID);
         }
         Err(e) => return Err(e).context("check failed"),
     };
-    println!("ok: {}", summary(&loaded));
+    outln!("ok: {}", summary(&loaded));
     let machine = match &args.machine {
         Some(path) => match super::machine_arg::load(path)? {
             Ok(m) => Some(m),
@@ -43,16 +44,16 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     let plan = match Plan::new(&loaded, machine.as_ref()) {
         Ok(plan) => plan,
         Err(e) => {
-            println!("{}: {e}", args.recipe.display());
+            outln!("{}: {e}", args.recipe.display());
             return Ok(super::exit::INVALID);
         }
     };
     if let Some(problem) = plan.limit_problem() {
-        println!("{}: {problem}", args.recipe.display());
+        outln!("{}: {problem}", args.recipe.display());
         return Ok(super::exit::INVALID);
     }
     if let Some(m) = &machine {
-        println!(
+        outln!(
             "ok: {}: every site within the soft limits (stage {}, {} motion check); at least {:.0} s per map",
             m.name,
             m.stage.port,
@@ -60,7 +61,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             plan.duration_s
         );
         if plan.reference() == ReferencePlacement::ByHand {
-            println!(
+            outln!(
                 "note: {} gives no [reference] position_mm: the run will ask the operator to place the {} reference under the probe (run it on a terminal)",
                 m.name, plan.reference_material
             );

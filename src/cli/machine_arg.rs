@@ -1,5 +1,6 @@
 //! Shared handling of `--machine M`: load and validate, or report every problem with its line.
 
+use super::output::outln;
 use isopach::bench::machine::{self, MachineError, MachineFile};
 use std::path::Path;
 
@@ -9,7 +10,7 @@ pub fn load(path: &Path) -> anyhow::Result<Result<MachineFile, u8>> {
         Ok(l) => Ok(Ok(l.machine)),
         Err(MachineError::Invalid(problems)) => {
             for p in &problems {
-                println!("{p}");
+                outln!("{p}");
             }
             eprintln!("{}: {} error(s)", path.display(), problems.len());
             Ok(Err(super::exit::INVALID))

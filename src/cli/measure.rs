@@ -3,9 +3,10 @@
 //! printed outcome. The session itself is
 //! `isopach::run::measure::session`.
 
+use super::figures::{figures_line, no_valid_site};
+use super::output::outln;
 use super::safety::{confirm_motion, wait_for_operator};
 use indicatif::{ProgressBar, ProgressStyle};
-use isopach::map::stats::LayerSummary;
 use isopach::run::events::{Attempt, Event, SiteState};
 use isopach::run::folder::{RunFolder, RunToml};
 use isopach::run::measure::{self, Hooks, Report};
@@ -150,15 +151,15 @@ fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: Report) -> u
     if report.measured.is_empty() {
         eprintln!("every site asked for already has a valid result: nothing to measure");
     }
-    println!("run {}: {}", meta.run.id, folder.root.display());
-    println!("  {}", figures_line(f));
+    outln!("run {}: {}", meta.run.id, folder.root.display());
+    outln!("  {}", figures_line(f));
     if command == "remeasure" {
         for state in report
             .states
             .iter()
             .filter(|s| report.measured.contains(&s.site.number))
         {
-            println!("  {}", attempts_line(state));
+            outln!("  {}", attempts_line(state));
         }
     }
     let bad: Vec<String> = report
@@ -168,7 +169,7 @@ fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: Report) -> u
         .map(|s| s.site.number.to_string())
         .collect();
     if !bad.is_empty() && matches!(report.outcome, Outcome::Finished) {
-        println!(
+        outln!(
             "  sites without a valid result: {} (isopach remeasure {} --failed)",
             bad.join(", "),
             folder.root.display()
@@ -176,7 +177,7 @@ fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: Report) -> u
     }
     if let Some(c) = f.spec.as_ref().filter(|c| !c.sites_out.is_empty()) {
         let out: Vec<String> = c.sites_out.iter().map(|n| n.to_string()).collect();
-        println!(
+        outln!(
             "  out of spec [{}, {}] nm: site {}",
             c.lo_nm,
             c.hi_nm,
@@ -184,7 +185,13 @@ fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: Report) -> u
         );
     }
     match report.outcome {
-        Outcome::Finished => super::exit::OK,
+        Outcome::Finished => match no_valid_site(f, &folder.root) {
+            Some(why) => {
+                eprintln!("{command} failed: {why}");
+                super::exit::FAILED
+            }
+            None => super::exit::OK,
+        },
         Outcome::Interrupted => {
             eprintln!(
                 "stopped; resume with: isopach resume {}",
@@ -229,22 +236,6 @@ fn attempts_line(state: &SiteState) -> String {
     );
     if let Some(best) = state.best().filter(|b| b.attempt != newest.attempt) {
         line.push_str(&format!("; the map keeps attempt {}", best.attempt));
-    }
-    line
-}
-
-/// `49 of 49 sites valid; mean …, 1σ … (… %), range … (… %)`, leaving out figures that do
-/// not exist (no valid site, or σ of a single site).
-fn figures_line(f: &LayerSummary) -> String {
-    let mut line = format!("{} of {} sites valid", f.sites_valid, f.sites_total);
-    if f.mean_nm.is_finite() {
-        line.push_str(&format!("; mean {:.2} nm", f.mean_nm));
-    }
-    if f.std_nm.is_finite() {
-        line.push_str(&format!(
-            ", 1σ {:.2} nm ({:.2} %), range {:.2} nm ({:.2} %)",
-            f.std_nm, f.nu_1sigma_pct, f.range_nm, f.nu_range_pct
-        ));
     }
     line
 }

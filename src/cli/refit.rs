@@ -1,5 +1,7 @@
 //! `isopach refit RUN [--recipe R]`: fit the stored spectra again, no stage motion.
 
+use super::figures::{figures_line, no_valid_site};
+use super::output::outln;
 use anyhow::Context;
 use indicatif::ProgressBar;
 use isopach::recipe;
@@ -78,15 +80,15 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     }
     let summary = derive::rebuild(&folder)?;
     let f = &summary.first;
-    println!(
-        "refitted {} spectra of run {}: {} of {} sites valid; mean {:.2} nm, 1σ {:.2} nm ({:.2} %)",
+    outln!(
+        "refitted {} spectra of run {}: {}",
         attempts.len(),
         meta.run.id,
-        f.sites_valid,
-        f.sites_total,
-        f.mean_nm,
-        f.std_nm,
-        f.nu_1sigma_pct
+        figures_line(f)
     );
+    if let Some(why) = no_valid_site(f, &folder.root) {
+        eprintln!("refit failed: {why}");
+        return Ok(super::exit::FAILED);
+    }
     Ok(super::exit::OK)
 }

@@ -1,7 +1,7 @@
 //! `isopach remeasure RUN (--site N ... | --failed) [--yes]`: measure chosen sites again.
 
 use super::measure::{self, Which};
-use anyhow::bail;
+use isopach::error::InputError;
 use isopach::run::folder::RunFolder;
 use std::path::PathBuf;
 
@@ -43,10 +43,11 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             .iter()
             .find(|n| !planned.iter().any(|s| s.number == **n))
         {
-            bail!(
-                "site {bad} is not in this run's plan (sites 1..{})",
-                planned.len()
-            );
+            return Err(InputError::SiteNotInPlan {
+                site: *bad,
+                sites: planned.len(),
+            }
+            .into());
         }
         Which::Sites(args.sites)
     };

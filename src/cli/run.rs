@@ -1,5 +1,6 @@
 //! `isopach run RECIPE [--machine M] [--wafer ID] [--lot L] [--runs DIR] [--yes] [--dry-run]`.
 
+use super::output::outln;
 use super::measure::{self, Which};
 use anyhow::Context;
 use isopach::bench::machine;
@@ -89,12 +90,12 @@ fn seed_of(wafer: &str) -> u64 {
 /// Prints the plan in measuring order, its path length and its estimated duration; exit 2
 /// (after printing) when it breaks the soft limits.
 fn dry_run(plan: &Plan) -> anyhow::Result<u8> {
-    println!(
+    outln!(
         "{:>5} {:>5} {:>9} {:>9} {:>10} {:>10}",
         "order", "site", "x_mm", "y_mm", "stage_x", "stage_y"
     );
     for (i, s) in plan.sites().enumerate() {
-        println!(
+        outln!(
             "{:>5} {:>5} {:>9.3} {:>9.3} {:>10.3} {:>10.3}",
             i + 1,
             s.site.number,
@@ -108,7 +109,7 @@ fn dry_run(plan: &Plan) -> anyhow::Result<u8> {
     let m = &plan.machine;
     let per_site = (a.settle_ms + a.integration_ms * a.averages as f64) / 1000.0;
     let sites: Vec<_> = plan.sites().map(|s| s.site).collect();
-    println!(
+    outln!(
         "{} sites, path {:.1} mm from the wafer centre, at least {:.1} s from the stage's home corner ({}: feed {} mm/min, accel {} mm/s², {:.0} ms per site)",
         sites.len(),
         path_length((0.0, 0.0), &sites),

@@ -1,5 +1,6 @@
 //! `isopach sites RECIPE [--out FILE.svg] [--csv]`: list and draw the site plan.
 
+use super::output::outln;
 use anyhow::Context;
 use isopach::map::site_plan;
 use isopach::recipe::{self, Site};
@@ -30,15 +31,15 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     let mut sites: Vec<Site> = plan.sites().map(|s| s.site).collect();
     sites.sort_by_key(|s| s.number);
     if args.csv {
-        println!("site,x_mm,y_mm,r_mm");
+        outln!("site,x_mm,y_mm,r_mm");
         for s in &sites {
             // Full precision: rounding would push rim sites past the usable radius.
-            println!("{},{},{},{}", s.number, s.x_mm, s.y_mm, s.radius());
+            outln!("{},{},{},{}", s.number, s.x_mm, s.y_mm, s.radius());
         }
     } else {
-        println!("{:>5} {:>9} {:>9} {:>9}", "site", "x_mm", "y_mm", "r_mm");
+        outln!("{:>5} {:>9} {:>9} {:>9}", "site", "x_mm", "y_mm", "r_mm");
         for s in &sites {
-            println!(
+            outln!(
                 "{:>5} {:>9.3} {:>9.3} {:>9.3}",
                 s.number,
                 s.x_mm,
@@ -46,7 +47,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
                 s.radius()
             );
         }
-        println!("{} sites", sites.len());
+        outln!("{} sites", sites.len());
     }
     if let Some(out) = &args.out {
         let svg = site_plan::svg(&loaded.wafer(), &sites, &loaded.recipe.name);

@@ -288,6 +288,12 @@ impl Fitter {
         })
     }
 
+    /// Checks that `material` is known here (built in, or the recipe's own).
+    pub fn check_material(&self, material: &str) -> Result<(), FitError> {
+        self.library.require(material)?;
+        Ok(())
+    }
+
     /// Reflectance of the bare `material` under the recipe's ambient, angle and NA: the
     /// R_ref of normalisation.
     pub fn reference_reflectance(
