@@ -19,3 +19,4 @@ pub mod optics;
 pub mod recipe;
 pub mod run;
 pub mod spectrum;
+pub mod tomlcheck;
