@@ -52,7 +52,7 @@ fn base_machine_is_valid() {
 #[test]
 fn relative_mode_in_init_is_refused() {
     let p = one("init", r#"init = ["G21", "G91"]"#);
-    assert!(p.to_string().starts_with("m.toml:4:17: stage.init[1]: G91 switches to relative moves"), "{p}");
+    assert!(p.to_string().starts_with("m.toml:4:16: stage.init[1]: G91 switches to relative moves"), "{p}");
 }
 
 #[test]

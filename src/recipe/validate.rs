@@ -8,7 +8,7 @@ use super::geometry::Wafer;
 use super::pattern::{self, STANDARD_COUNTS};
 use super::schema::{FilmSpec, FitMethod, PatternSpec, Recipe};
 use crate::optics::{spec, BUILTIN_NAMES};
-use crate::tomlcheck::{nearest, KeyPath, Problem, Report, Seg};
+use crate::tomlcheck::{nearest, num, KeyPath, Problem, Report, Seg};
 
 /// Wavelengths a fitting window may use, nm.
 pub const WINDOW_LIMITS_NM: [f64; 2] = [200.0, 2000.0];
@@ -287,8 +287,9 @@ fn check_film(recipe: &Recipe, r: &mut Report) {
                     r.at(
                         &at(key),
                         format!(
-                            "layer {}: {key} {v} nm is above {MAX_THICKNESS_NM} nm (100 µm): thicker films give fringes finer than a spectrometer pixel resolves",
-                            i + 1
+                            "layer {}: {key} {} nm is above {MAX_THICKNESS_NM} nm (100 µm): thicker films give fringes finer than a spectrometer pixel resolves",
+                            i + 1,
+                            num(v)
                         ),
                     );
                 }

@@ -30,7 +30,7 @@ impl Report {
         if !(value >= lo && value <= hi) {
             self.at(
                 path,
-                format!("{value} {unit} is outside [{lo}, {hi}] {unit}"),
+                format!("{} {unit} is outside [{lo}, {hi}] {unit}", num(value)),
             );
         }
     }
@@ -38,6 +38,17 @@ impl Report {
     /// Adds a problem at a key path written like `film.layers[0].material`.
     pub fn at(&mut self, path: &str, message: impl Into<String>) {
         self.0.push(Problem::at(path, message));
+    }
+}
+
+/// A number as people write it: plain for ordinary sizes, `1e308` for huge or tiny ones
+/// (Rust's `{}` would print all 309 digits).
+pub fn num(v: f64) -> String {
+    let a = v.abs();
+    if a != 0.0 && a.is_finite() && !(1e-4..1e9).contains(&a) {
+        format!("{v:e}")
+    } else {
+        format!("{v}")
     }
 }
 
@@ -71,6 +82,13 @@ fn edit_distance(a: &str, b: &str) -> usize {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn numbers_read_as_written() {
+        assert_eq!(num(150.0), "150");
+        assert_eq!(num(-1e308), "-1e308");
+        assert_eq!(num(2.5e-7), "2.5e-7");
+    }
 
     #[test]
     fn suggests_close_names_only() {

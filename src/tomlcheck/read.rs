@@ -255,7 +255,7 @@ fn key_path(p: &serde_path_to_error::Path) -> KeyPath {
             .filter_map(|s| match s {
                 Segment::Map { key } => Some(Seg::Key(key.clone())),
                 Segment::Seq { index } => Some(Seg::Index(*index)),
-                Segment::Enum { .. } | Segment::Unknown => None,
+                _ => None,
             })
             .collect(),
     )

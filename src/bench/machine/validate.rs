@@ -6,7 +6,7 @@
 
 use super::schema::*;
 use crate::bench::gcode::words::{self, LineRole};
-use crate::tomlcheck::{Problem, Report};
+use crate::tomlcheck::{num, Problem, Report};
 
 
 /// Largest stage coordinate accepted, mm. No bench stage is 10 m long; the bound keeps every
@@ -167,7 +167,7 @@ fn check_stage(s: &StageSpec, r: &mut Report) {
                 &format!("stage.{key}"),
                 format!(
                     "travel [{}, {}] mm reaches past ±{MAX_COORD_MM} mm: no bench stage is that large (check the units: millimetres)",
-                    t[0], t[1]
+                    num(t[0]), num(t[1])
                 ),
             );
         } else if !(s.margin_mm >= 0.0 && 2.0 * s.margin_mm < t[1] - t[0]) {
