@@ -52,35 +52,61 @@ fn base_machine_is_valid() {
 #[test]
 fn relative_mode_in_init_is_refused() {
     let p = one("init", r#"init = ["G21", "G91"]"#);
-    assert!(p.to_string().starts_with("m.toml:4:16: stage.init[1]: G91 switches to relative moves"), "{p}");
+    assert!(
+        p.to_string()
+            .starts_with("m.toml:4:16: stage.init[1]: G91 switches to relative moves"),
+        "{p}"
+    );
 }
 
 #[test]
 fn inches_in_init_is_refused() {
     let p = one("init", r#"init = ["g 20 (inches)"]"#);
-    assert!(p.message.starts_with("stage.init[0]: G20 switches to inches"), "{}", p.message);
+    assert!(
+        p.message
+            .starts_with("stage.init[0]: G20 switches to inches"),
+        "{}",
+        p.message
+    );
 }
 
 #[test]
 fn motion_in_unlock_home_status_and_reset_is_refused() {
     for (key, line, path) in [
-        ("unlock", r#"unlock = ["$X", "G0 X9999 Y9999"]"#, "stage.unlock[1]"),
+        (
+            "unlock",
+            r#"unlock = ["$X", "G0 X9999 Y9999"]"#,
+            "stage.unlock[1]",
+        ),
         ("home", r#"home = ["G28 X9999"]"#, "stage.home[0]"),
         ("home", r#"home = ["G0 X0"]"#, "stage.home[0]"),
-        ("status_query", r#"status_query = "G1 X5""#, "stage.status_query"),
+        (
+            "status_query",
+            r#"status_query = "G1 X5""#,
+            "stage.status_query",
+        ),
         ("reset", r#"reset = "G0 X9999 Y9999""#, "stage.reset"),
         ("init", r#"init = ["$J=X10F100"]"#, "stage.init[0]"),
         ("init", r#"init = ["G92 X0 Y0"]"#, "stage.init[0]"),
         ("init", r#"init = ["$H"]"#, "stage.init[0]"),
     ] {
         let p = one(key, line);
-        assert!(p.message.starts_with(&format!("{path}: ")), "{line}: {}", p.message);
+        assert!(
+            p.message.starts_with(&format!("{path}: ")),
+            "{line}: {}",
+            p.message
+        );
     }
 }
 
 #[test]
 fn homing_lines_may_home() {
-    for line in [r#"home = ["G28"]"#, r#"home = ["G28 X Y"]"#, r#"home = ["$H"]"#, r#"home = ["G21", "G28 X0 Y0"]"#] {
+    for line in [
+        r#"home = ["G28"]"#,
+        r#"home = ["G28 X Y"]"#,
+        r#"home = ["$H"]"#,
+        r#"home = ["G21", "G28 X0 Y0"]"#,
+    ] {
         let text = BASE.replace(r#"home = ["$H"]"#, line);
         assert!(problems(&text).is_empty(), "{line}: {:#?}", problems(&text));
     }
@@ -89,32 +115,65 @@ fn homing_lines_may_home() {
 #[test]
 fn control_characters_in_gcode_lines_are_refused() {
     let p = one("init", r#"init = ["G21\u001bG0 X5"]"#);
-    assert!(p.message.starts_with("stage.init[0]: control character U+001B"), "{}", p.message);
+    assert!(
+        p.message
+            .starts_with("stage.init[0]: control character U+001B"),
+        "{}",
+        p.message
+    );
 }
 
 #[test]
 fn huge_travel_is_refused_not_panicking() {
     let p = one("travel_x_mm", "travel_x_mm = [-1e308, 1e308]");
-    assert!(p.message.starts_with("stage.travel_x_mm: travel [-1e308, 1e308] mm reaches past ±10000 mm"), "{}", p.message);
+    assert!(
+        p.message
+            .starts_with("stage.travel_x_mm: travel [-1e308, 1e308] mm reaches past ±10000 mm"),
+        "{}",
+        p.message
+    );
     let p = one("travel_y_mm", "travel_y_mm = [0, inf]");
-    assert!(p.message.starts_with("stage.travel_y_mm[1]: inf is not a finite number"), "{}", p.message);
+    assert!(
+        p.message
+            .starts_with("stage.travel_y_mm[1]: inf is not a finite number"),
+        "{}",
+        p.message
+    );
 }
 
 #[test]
 fn every_problem_of_a_machine_file_at_once() {
     let text = BASE
-        .replace("port = \"/dev/ttyACM0\"", "port = \"/dev/ttyACM0\"\nbuad = 9600\nfeed_mm_min = \"fast\"")
+        .replace(
+            "port = \"/dev/ttyACM0\"",
+            "port = \"/dev/ttyACM0\"\nbuad = 9600\nfeed_mm_min = \"fast\"",
+        )
         .replace(r#"init = ["G21", "G90"]"#, r#"init = ["G21", "G91"]"#)
         .replace("[chuck]", "[chuck]\nrotation_deg = 720");
     let p = problems(&text);
-    let keys: Vec<&str> = p.iter().map(|p| p.message.split(':').next().unwrap()).collect();
+    let keys: Vec<&str> = p
+        .iter()
+        .map(|p| p.message.split(':').next().unwrap())
+        .collect();
     assert_eq!(
         keys,
-        vec!["stage.buad", "stage.feed_mm_min", "stage.init[1]", "chuck.rotation_deg"],
+        vec![
+            "stage.buad",
+            "stage.feed_mm_min",
+            "stage.init[1]",
+            "chuck.rotation_deg"
+        ],
         "{p:#?}"
     );
-    assert!(p[0].message.contains("did you mean \"baud\"?"), "{}", p[0].message);
-    assert_eq!(p[1].message, "stage.feed_mm_min: expected a number, found the text \"fast\"");
+    assert!(
+        p[0].message.contains("did you mean \"baud\"?"),
+        "{}",
+        p[0].message
+    );
+    assert_eq!(
+        p[1].message,
+        "stage.feed_mm_min: expected a number, found the text \"fast\""
+    );
 }
 
 /// Pieces of G-code lines; `true` marks one that moves the stage or changes units,
@@ -152,7 +211,11 @@ const PIECES: [(&str, bool); 26] = [
 fn spelled(piece: &str, upper: &[bool], spaced: bool) -> String {
     let mut out = String::new();
     for (i, c) in piece.chars().enumerate() {
-        let c = if upper[i % upper.len()] { c.to_ascii_uppercase() } else { c.to_ascii_lowercase() };
+        let c = if upper[i % upper.len()] {
+            c.to_ascii_uppercase()
+        } else {
+            c.to_ascii_lowercase()
+        };
         out.push(c);
         if spaced && c.is_ascii_alphabetic() && !piece.starts_with('(') {
             out.push(' ');
@@ -176,9 +239,14 @@ fn oracle_dangerous(line: &str) -> bool {
         }
     }
     let b: Vec<char> = s.chars().collect();
-    let allowed = ["4", "17", "18", "19", "21", "40", "49", "61", "64", "80", "90", "94"];
+    let allowed = [
+        "4", "17", "18", "19", "21", "40", "49", "61", "64", "80", "90", "94",
+    ];
     for i in 0..b.len() {
-        let num: String = b[i + 1..].iter().take_while(|c| c.is_ascii_digit() || **c == '.' || **c == '-' || **c == '+').collect();
+        let num: String = b[i + 1..]
+            .iter()
+            .take_while(|c| c.is_ascii_digit() || **c == '.' || **c == '-' || **c == '+')
+            .collect();
         if b[i] == 'G' && !num.is_empty() {
             let v: f64 = num.parse().unwrap_or(f64::NAN);
             if !allowed.iter().any(|a| a.parse::<f64>().unwrap() == v) {

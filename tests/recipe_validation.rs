@@ -295,11 +295,15 @@ fn type_error_names_key_path_and_does_not_hide_others() {
         typo.message
     );
     assert_eq!(typo.line, 4);
-    assert!(at_key(&p, "pattern.ringz").message.contains("unknown key \"ringz\""));
+    assert!(at_key(&p, "pattern.ringz")
+        .message
+        .contains("unknown key \"ringz\""));
     assert!(at_key(&p, "film.wavelength_nm")
         .message
         .contains("outside 200–2000 nm"));
-    assert!(p[0].to_string().starts_with("r.toml:3:15: wafer.diameter_mm: "));
+    assert!(p[0]
+        .to_string()
+        .starts_with("r.toml:3:15: wafer.diameter_mm: "));
 }
 
 #[test]
@@ -317,7 +321,8 @@ fn type_errors_inside_tagged_tables_name_their_key() {
     assert_eq!(p[0].line, 8);
     let p = problems(&BASE.replace("kind = \"polar\"", "kind = \"spiral\""));
     assert!(
-        p[0].message.starts_with("pattern.kind: unknown value \"spiral\""),
+        p[0].message
+            .starts_with("pattern.kind: unknown value \"spiral\""),
         "{p:#?}"
     );
 }
@@ -341,13 +346,21 @@ fn nominal_1e308_is_refused_not_panicking() {
         "layers",
         r#"layers = [ { material = "sio2", nominal_nm = 1e308 } ]"#,
     );
-    assert!(p.message.starts_with("film.layers[0].nominal_nm: "), "{}", p.message);
+    assert!(
+        p.message.starts_with("film.layers[0].nominal_nm: "),
+        "{}",
+        p.message
+    );
     assert!(p.message.contains("above 100000 nm"), "{}", p.message);
     let p = one(
         "layers",
         r#"layers = [ { material = "sio2", nominal_nm = 1000, min_nm = 100, max_nm = 1e300 } ]"#,
     );
-    assert!(p.message.starts_with("film.layers[0].max_nm: "), "{}", p.message);
+    assert!(
+        p.message.starts_with("film.layers[0].max_nm: "),
+        "{}",
+        p.message
+    );
 }
 
 #[test]
@@ -359,27 +372,40 @@ fn window_with_three_values_is_refused() {
     );
     assert_eq!(p.line, line_of("wavelength_nm"));
     let p = one("wavelength_nm", "wavelength_nm = [420]");
-    assert!(p.message.contains("exactly 2 values, found 1"), "{}", p.message);
+    assert!(
+        p.message.contains("exactly 2 values, found 1"),
+        "{}",
+        p.message
+    );
 }
 
 #[test]
 fn nan_and_inf_are_refused_everywhere() {
     let p = one("rings", "rings = [8, 16]\nstart_angle_deg = nan");
     assert!(
-        p.message.starts_with("pattern.start_angle_deg: NaN is not a finite number"),
+        p.message
+            .starts_with("pattern.start_angle_deg: NaN is not a finite number"),
         "{}",
         p.message
     );
     let p = with_material("[materials.m]\nmodel = \"constant\"\nn = inf\n");
     assert_eq!(p.len(), 1, "{p:#?}");
     assert!(
-        p[0].message.starts_with("materials.m.n: inf is not a finite number"),
+        p[0].message
+            .starts_with("materials.m.n: inf is not a finite number"),
         "{}",
         p[0].message
     );
     // A non-finite nominal is reported once, not again through its default bounds.
-    let p = one("layers", r#"layers = [ { material = "sio2", nominal_nm = nan } ]"#);
-    assert!(p.message.starts_with("film.layers[0].nominal_nm: "), "{}", p.message);
+    let p = one(
+        "layers",
+        r#"layers = [ { material = "sio2", nominal_nm = nan } ]"#,
+    );
+    assert!(
+        p.message.starts_with("film.layers[0].nominal_nm: "),
+        "{}",
+        p.message
+    );
 }
 
 #[test]
@@ -393,7 +419,8 @@ fn fourier_with_two_fitted_layers_is_a_validation_problem() {
     let p = problems(&text);
     assert_eq!(p.len(), 1, "{p:#?}");
     assert!(
-        p[0].message.starts_with("film.method: method fourier fits one layer, the recipe fits 2"),
+        p[0].message
+            .starts_with("film.method: method fourier fits one layer, the recipe fits 2"),
         "{}",
         p[0].message
     );
@@ -402,10 +429,19 @@ fn fourier_with_two_fitted_layers_is_a_validation_problem() {
 
 #[test]
 fn table_path_outside_the_recipe_folder_is_refused() {
-    for (file, why) in [("/etc/passwd", "absolute path"), ("../nk.csv", "leaves the recipe's folder")] {
-        let p = with_material(&format!("[materials.m]\nmodel = \"table\"\nfile = \"{file}\"\n"));
+    for (file, why) in [
+        ("/etc/passwd", "absolute path"),
+        ("../nk.csv", "leaves the recipe's folder"),
+    ] {
+        let p = with_material(&format!(
+            "[materials.m]\nmodel = \"table\"\nfile = \"{file}\"\n"
+        ));
         assert_eq!(p.len(), 1, "{p:#?}");
-        assert!(p[0].message.starts_with("materials.m.file: "), "{}", p[0].message);
+        assert!(
+            p[0].message.starts_with("materials.m.file: "),
+            "{}",
+            p[0].message
+        );
         assert!(p[0].message.contains(why), "{}", p[0].message);
     }
 }
@@ -415,14 +451,23 @@ fn site_count_ceiling_is_checked_before_sites_are_made() {
     let started = std::time::Instant::now();
     let p = one("rings", "rings = [1000000000]");
     assert!(p.message.starts_with("pattern.rings: "), "{}", p.message);
-    assert!(p.message.contains("more than the 10000 a map may have"), "{}", p.message);
+    assert!(
+        p.message.contains("more than the 10000 a map may have"),
+        "{}",
+        p.message
+    );
     let grid = BASE.replace(
         "kind = \"polar\"\nrings = [8, 16]",
         "kind = \"grid\"\npitch_mm = 0.001",
     );
     let p = problems(&grid);
     assert_eq!(p.len(), 1, "{p:#?}");
-    assert!(p[0].message.starts_with("pattern.pitch_mm: this pattern has about"), "{}", p[0].message);
+    assert!(
+        p[0].message
+            .starts_with("pattern.pitch_mm: this pattern has about"),
+        "{}",
+        p[0].message
+    );
     let sites: Vec<String> = (0..10_001).map(|i| format!("[{}, 0]", i % 50)).collect();
     let custom = BASE.replace(
         "kind = \"polar\"\nrings = [8, 16]",
@@ -430,8 +475,16 @@ fn site_count_ceiling_is_checked_before_sites_are_made() {
     );
     let p = problems(&custom);
     assert_eq!(p.len(), 1, "{p:#?}");
-    assert!(p[0].message.starts_with("pattern.sites_mm: this pattern has about 10001 sites"), "{}", p[0].message);
-    assert!(started.elapsed().as_secs() < 20, "validation must not generate the sites");
+    assert!(
+        p[0].message
+            .starts_with("pattern.sites_mm: this pattern has about 10001 sites"),
+        "{}",
+        p[0].message
+    );
+    assert!(
+        started.elapsed().as_secs() < 20,
+        "validation must not generate the sites"
+    );
 }
 
 #[test]
@@ -447,7 +500,9 @@ fn unknown_reference_material_is_a_pair_problem_in_the_machine_file() {
     assert_eq!(p.len(), 1, "{p:#?}");
     assert_eq!(p[0].line, 7);
     assert!(
-        p[0].to_string().starts_with("m.toml:7:12: reference.material: unknown reference material \"unobtainium\""),
+        p[0].to_string().starts_with(
+            "m.toml:7:12: reference.material: unknown reference material \"unobtainium\""
+        ),
         "{}",
         p[0]
     );

@@ -201,9 +201,17 @@ mod tests {
         let w: Vec<f64> = (0..500).map(|i| 420.0 + i as f64).collect();
         let x = fringe_coordinate(&w, &vec![1.46; w.len()], &vec![1.0; w.len()]);
         let r: Vec<f64> = x.iter().map(|x| 0.3 + 0.1 * (6000.0 * x).cos()).collect();
-        for (lo, hi) in [(1e307, 1e308), (100.0, f64::INFINITY), (f64::NAN, 1e308), (1e5, 2e5)] {
+        for (lo, hi) in [
+            (1e307, 1e308),
+            (100.0, f64::INFINITY),
+            (f64::NAN, 1e308),
+            (1e5, 2e5),
+        ] {
             let e = estimate(&Plans::default(), &x, &r, lo, hi);
-            assert!(e.is_err() || e.unwrap().thickness_nm.is_finite(), "{lo} {hi}");
+            assert!(
+                e.is_err() || e.unwrap().thickness_nm.is_finite(),
+                "{lo} {hi}"
+            );
         }
         let e = estimate(&Plans::default(), &x, &r, 1e307, 1e308).unwrap_err();
         assert!(e.contains("no Fourier bin"), "{e}");

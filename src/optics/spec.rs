@@ -71,10 +71,16 @@ pub fn check(name: &str, spec: &MaterialSpec, window: Option<[f64; 2]>) -> Vec<P
                     .map(|l| cauchy_n(*a, *b, *c, l))
                     .find(|n| !(*n >= 1.0 && *n <= MAX_N))
                 {
-                    let why = if n < 1.0 { "(< 1)" } else { "(above the largest accepted index)" };
+                    let why = if n < 1.0 {
+                        "(< 1)"
+                    } else {
+                        "(above the largest accepted index)"
+                    };
                     r.at(
                         "a",
-                        format!("material {name}: n reaches {n:.4} {why} inside the window {w:?} nm"),
+                        format!(
+                            "material {name}: n reaches {n:.4} {why} inside the window {w:?} nm"
+                        ),
                     );
                 }
             }
@@ -109,7 +115,10 @@ pub fn check(name: &str, spec: &MaterialSpec, window: Option<[f64; 2]>) -> Vec<P
         }
         MaterialSpec::Constant { n, k } => {
             if !(*n >= 1.0 && *n <= MAX_N) {
-                r.at("n", format!("material {name}: n = {n} must be in [1, {MAX_N}]"));
+                r.at(
+                    "n",
+                    format!("material {name}: n = {n} must be in [1, {MAX_N}]"),
+                );
             }
             check_k(*k, &mut r);
         }
@@ -148,14 +157,25 @@ mod tests {
     #[test]
     fn table_paths_stay_inside_the_recipe_folder() {
         assert_eq!(table_path_problem("nk/film.csv"), None);
-        assert!(table_path_problem("/etc/passwd").unwrap().contains("absolute"));
-        assert!(table_path_problem("nk/../../x.csv").unwrap().contains("leaves"));
+        assert!(table_path_problem("/etc/passwd")
+            .unwrap()
+            .contains("absolute"));
+        assert!(table_path_problem("nk/../../x.csv")
+            .unwrap()
+            .contains("leaves"));
         assert!(table_path_problem(" ").is_some());
     }
 
     #[test]
     fn constant_index_must_be_finite_and_sane() {
-        let p = check("m", &MaterialSpec::Constant { n: f64::INFINITY, k: 0.0 }, None);
+        let p = check(
+            "m",
+            &MaterialSpec::Constant {
+                n: f64::INFINITY,
+                k: 0.0,
+            },
+            None,
+        );
         assert_eq!(p.len(), 1);
         assert_eq!(p[0].path.to_string(), "n");
         assert!(check("m", &MaterialSpec::Constant { n: 1.5, k: 0.0 }, None).is_empty());

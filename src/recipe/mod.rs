@@ -6,8 +6,8 @@ pub mod pattern;
 pub mod schema;
 pub mod validate;
 
-pub use geometry::Wafer;
 pub use crate::tomlcheck::Located;
+pub use geometry::Wafer;
 pub use pattern::Site;
 pub use schema::Recipe;
 

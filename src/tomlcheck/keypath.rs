@@ -69,11 +69,7 @@ mod tests {
 
     #[test]
     fn key_paths_round_trip() {
-        for s in [
-            "film.layers[0].material",
-            "pattern.sites_mm[3][1]",
-            "name",
-        ] {
+        for s in ["film.layers[0].material", "pattern.sites_mm[3][1]", "name"] {
             assert_eq!(KeyPath::parse(s).to_string(), s);
         }
     }

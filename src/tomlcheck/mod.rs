@@ -37,7 +37,11 @@ pub fn parse_validated<T: DeserializeOwned>(
     let reading = read::read::<T>(table);
     let mut problems = reading.problems.clone();
     if let Some(value) = &reading.value {
-        problems.extend(validate(value).into_iter().filter(|p| !reading.covers(&p.path)));
+        problems.extend(
+            validate(value)
+                .into_iter()
+                .filter(|p| !reading.covers(&p.path)),
+        );
     }
     let mut located: Vec<Located> = problems.iter().map(|p| place(text, file, p)).collect();
     located.sort_by_key(|p| (p.line, p.col));

@@ -33,7 +33,10 @@ impl<T> Reading<T> {
     pub fn covers(&self, path: &KeyPath) -> bool {
         self.unreadable.iter().any(|u| {
             path.starts_with(u)
-                || (u.starts_with(path) && u.0[path.0.len()..].iter().all(|s| matches!(s, Seg::Index(_))))
+                || (u.starts_with(path)
+                    && u.0[path.0.len()..]
+                        .iter()
+                        .all(|s| matches!(s, Seg::Index(_))))
         })
     }
 }
@@ -116,7 +119,9 @@ pub fn read<T: DeserializeOwned>(table: toml::Table) -> Reading<T> {
                         reading.unreadable.push(path.clone());
                         reading.problems.push(Problem {
                             path,
-                            message: format!("expected a list of exactly {n} values, found {found}"),
+                            message: format!(
+                                "expected a list of exactly {n} values, found {found}"
+                            ),
                         });
                     }
                     _ => {
@@ -206,7 +211,11 @@ fn refine(doc: &Value, path: KeyPath, complaint: &Complaint) -> KeyPath {
 fn find_leaf(v: &Value, found: &str, at: &mut KeyPath) -> bool {
     let children: Vec<(Seg, &Value)> = match v {
         Value::Table(t) => t.iter().map(|(k, v)| (Seg::Key(k.clone()), v)).collect(),
-        Value::Array(a) => a.iter().enumerate().map(|(i, v)| (Seg::Index(i), v)).collect(),
+        Value::Array(a) => a
+            .iter()
+            .enumerate()
+            .map(|(i, v)| (Seg::Index(i), v))
+            .collect(),
         _ => return false,
     };
     for (seg, child) in children {

@@ -84,7 +84,10 @@ impl Complaint {
             Complaint::Missing { key } => {
                 format!("required key \"{key}\" is missing: add it")
             }
-            Complaint::Length { want: Some(w), found } => {
+            Complaint::Length {
+                want: Some(w),
+                found,
+            } => {
                 format!("expected a list of exactly {w} values, found {found}")
             }
             Complaint::Length { want: None, found } => {

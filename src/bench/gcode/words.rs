@@ -116,14 +116,17 @@ fn word_refusal(w: &Word, homing: bool) -> Option<String> {
 
 /// grbl `$` commands: only a few read-only ones, unlock, and homing on homing lines.
 fn system_refusal(t: &str, role: LineRole) -> Option<String> {
-    let u: String = t.to_uppercase().chars().filter(|c| !c.is_whitespace()).collect();
+    let u: String = t
+        .to_uppercase()
+        .chars()
+        .filter(|c| !c.is_whitespace())
+        .collect();
     if SYSTEM_OK.contains(&u.as_str()) {
         return None;
     }
     if u.starts_with("$H") && u[2..].chars().all(|c| "XYZ".contains(c)) {
-        return (role != LineRole::Home).then(|| {
-            format!("{t} homes the stage: homing lines belong in stage.home")
-        });
+        return (role != LineRole::Home)
+            .then(|| format!("{t} homes the stage: homing lines belong in stage.home"));
     }
     Some(format!(
         "{t} is not allowed: machine-file lines may use $X, $$, $#, $G, $I (and $H in stage.home); jogs, start-up blocks, check mode and settings writes are refused"
@@ -164,8 +167,14 @@ pub fn parse(line: &str) -> Result<Vec<Word>, String> {
                         chars.next();
                     } else if d.is_whitespace() && !num.is_empty() {
                         // Spaces inside a number ("X 1 0") are allowed by some readers.
-                        let ahead: String = chars.clone().skip_while(|c| c.is_whitespace()).take(1).collect();
-                        if ahead.chars().all(|a| a.is_ascii_digit() || a == '.') && !ahead.is_empty() {
+                        let ahead: String = chars
+                            .clone()
+                            .skip_while(|c| c.is_whitespace())
+                            .take(1)
+                            .collect();
+                        if ahead.chars().all(|a| a.is_ascii_digit() || a == '.')
+                            && !ahead.is_empty()
+                        {
                             chars.next();
                         } else {
                             break;
@@ -183,7 +192,8 @@ pub fn parse(line: &str) -> Result<Vec<Word>, String> {
                         return Err(format!("\"{line}\": {c} has no number after it"));
                     }
                 } else {
-                    num.parse().map_err(|_| format!("\"{line}\": {c}{num} is not a number"))?
+                    num.parse()
+                        .map_err(|_| format!("\"{line}\": {c}{num} is not a number"))?
                 };
                 words.push(Word { letter, value });
             }
@@ -206,7 +216,20 @@ mod tests {
 
     #[test]
     fn setup_lines_of_common_firmware_pass() {
-        for l in ["G21", "G90", "g21 g90", "G4 P0", "M400", "M114", "$X", "?", "M410", "N10 G21*33", "G21 (mm) ; note", "F3000"] {
+        for l in [
+            "G21",
+            "G90",
+            "g21 g90",
+            "G4 P0",
+            "M400",
+            "M114",
+            "$X",
+            "?",
+            "M410",
+            "N10 G21*33",
+            "G21 (mm) ; note",
+            "F3000",
+        ] {
             assert_eq!(refusal(l, LineRole::Setup), None, "{l}");
         }
         for l in ["$H", "G28", "G28 X Y", "G28 X0 Y0"] {
@@ -216,8 +239,30 @@ mod tests {
 
     #[test]
     fn motion_and_mode_changes_are_refused() {
-        for l in ["G91", "G20", "G0 X9999 Y9999", "g 1 x10", "G91.1", "G38.2 Z-5", "G92 X0", "G55", "X10", "$J=X10F100", "$N0=G91", "$100=80", "M206 X5", "G28", "$H", "G53 G0 X0", "G21\nG91", "G21\u{1b}"] {
-            assert!(refusal(l, LineRole::Setup).is_some(), "{l} should be refused");
+        for l in [
+            "G91",
+            "G20",
+            "G0 X9999 Y9999",
+            "g 1 x10",
+            "G91.1",
+            "G38.2 Z-5",
+            "G92 X0",
+            "G55",
+            "X10",
+            "$J=X10F100",
+            "$N0=G91",
+            "$100=80",
+            "M206 X5",
+            "G28",
+            "$H",
+            "G53 G0 X0",
+            "G21\nG91",
+            "G21\u{1b}",
+        ] {
+            assert!(
+                refusal(l, LineRole::Setup).is_some(),
+                "{l} should be refused"
+            );
         }
         assert!(refusal("G28 X100", LineRole::Home).is_some());
         assert!(refusal("G28 G91", LineRole::Home).is_some());
@@ -229,9 +274,18 @@ mod tests {
         assert_eq!(
             w,
             vec![
-                Word { letter: 'G', value: 1.0 },
-                Word { letter: 'X', value: 10.0 },
-                Word { letter: 'Y', value: -2.5 }
+                Word {
+                    letter: 'G',
+                    value: 1.0
+                },
+                Word {
+                    letter: 'X',
+                    value: 10.0
+                },
+                Word {
+                    letter: 'Y',
+                    value: -2.5
+                }
             ]
         );
         assert!(parse("G1 (open").is_err());

@@ -79,8 +79,15 @@ mod tests {
         let Err(MachineError::Invalid(p)) = parse(text, Path::new("m.toml")) else {
             panic!()
         };
-        let speed = p.iter().find(|p| p.message.contains("speed")).expect("speed named");
+        let speed = p
+            .iter()
+            .find(|p| p.message.contains("speed"))
+            .expect("speed named");
         assert_eq!(speed.line, 6, "{p:?}");
-        assert!(speed.message.starts_with("stage.speed: unknown key"), "{}", speed.message);
+        assert!(
+            speed.message.starts_with("stage.speed: unknown key"),
+            "{}",
+            speed.message
+        );
     }
 }

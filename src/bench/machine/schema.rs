@@ -591,4 +591,3 @@ impl MachineFile {
         self.stage.port.trim() == SIMULATED_PORT
     }
 }
-

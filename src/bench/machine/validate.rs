@@ -8,7 +8,6 @@ use super::schema::*;
 use crate::bench::gcode::words::{self, LineRole};
 use crate::tomlcheck::{num, Problem, Report};
 
-
 /// Largest stage coordinate accepted, mm. No bench stage is 10 m long; the bound keeps every
 /// distance, time estimate and wait computed from the travel finite.
 pub const MAX_COORD_MM: f64 = 10_000.0;
@@ -24,7 +23,10 @@ pub fn validate(m: &MachineFile) -> Vec<Problem> {
     if !c.center_mm.iter().all(|v| v.abs() <= MAX_COORD_MM) {
         r.at(
             "chuck.center_mm",
-            format!("the chuck centre {:?} mm must be within ±{MAX_COORD_MM} mm", c.center_mm),
+            format!(
+                "the chuck centre {:?} mm must be within ±{MAX_COORD_MM} mm",
+                c.center_mm
+            ),
         );
     }
     if !(c.rotation_deg.abs() <= 360.0) {
@@ -135,12 +137,17 @@ fn check_stage(s: &StageSpec, r: &mut Report) {
         }
     }
     // Real-time bytes (Ctrl-X) are what `reset` is for; anything printable is a line.
-    let realtime = s.reset.chars().all(|c| c.is_control() && c != '\n' && c != '\r');
+    let realtime = s
+        .reset
+        .chars()
+        .all(|c| c.is_control() && c != '\n' && c != '\r');
     if !realtime {
         if let Some(why) = words::refusal(&s.reset, LineRole::Setup) {
             r.at(
                 "stage.reset",
-                format!("{why} (reset holds real-time bytes such as \"\\u0018\", or one safe line)"),
+                format!(
+                    "{why} (reset holds real-time bytes such as \"\\u0018\", or one safe line)"
+                ),
             );
         }
     }
@@ -391,7 +398,6 @@ pub fn approach_signs(s: &str) -> Option<(f64, f64)> {
     };
     Some((sign(b[0])?, sign(b[2])?))
 }
-
 
 #[cfg(test)]
 mod tests {
