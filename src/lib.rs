@@ -20,3 +20,4 @@ pub mod optics;
 pub mod recipe;
 pub mod run;
 pub mod spectrum;
+pub mod tomlcheck;

@@ -99,7 +99,7 @@ impl Bench {
             ),
             SpectrometerKind::Simulated => {
                 let wafer = Arc::new(VirtualWafer::for_recipe(recipe, &m.simulation.wafer, seed)?);
-                let lib = MaterialLibrary::for_recipe(&recipe.recipe, recipe.dir())?;
+                let lib = MaterialLibrary::with_materials(&recipe.recipe.materials, recipe.dir())?;
                 let reference = BareSample::new(
                     lib.require(&recipe.recipe.film.ambient)?.clone(),
                     lib.require(&m.reference.material)?.clone(),

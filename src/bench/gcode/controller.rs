@@ -54,7 +54,7 @@ pub struct ProtocolConfig {
 }
 
 fn secs(s: f64) -> Duration {
-    Duration::from_secs_f64(s.max(0.0))
+    crate::bench::duration_s(s)
 }
 
 impl ProtocolConfig {
