@@ -91,7 +91,10 @@ fn kind_of_cause(cause: &(dyn std::error::Error + 'static)) -> Option<Kind> {
     if let Some(e) = cause.downcast_ref::<MapError>() {
         return input(matches!(e, MapError::SitesTable { .. }));
     }
-    if cause.downcast_ref::<crate::run::plan::PlanError>().is_some() {
+    if cause
+        .downcast_ref::<crate::run::plan::PlanError>()
+        .is_some()
+    {
         return input(true);
     }
     if let Some(e) = cause.downcast_ref::<BenchError>() {

@@ -188,17 +188,7 @@ fn every_injected_fault_stops_with_a_clear_message_and_a_resumable_run() {
         );
         sites_once(&run, 9);
         // The fault was injected once; with it gone, resume finishes the map.
-        let text = std::fs::read_to_string(run.join("run.toml")).unwrap();
-        let mut meta: isopach::run::folder::RunToml = toml::from_str(&text).unwrap();
-        if let Some(sim) = meta
-            .machine
-            .as_mut()
-            .and_then(|m| m.get_mut("simulation"))
-            .and_then(|s| s.as_table_mut())
-        {
-            sim.remove("faults");
-        }
-        std::fs::write(run.join("run.toml"), toml::to_string(&meta).unwrap()).unwrap();
+        strip_faults(&run);
         let o = isopach(&["resume", run.to_str().unwrap()]);
         assert!(
             o.status.success(),

@@ -40,7 +40,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         time_scale,
     } = args.action;
     let m = match &machine {
-        Some(p) => match machine_arg::load(p)? {
+        Some(p) => match machine_arg::load_or_report(p, None)? {
             Ok(m) => m,
             Err(code) => return Ok(code),
         },

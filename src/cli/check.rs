@@ -34,7 +34,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     };
     outln!("ok: {}", summary(&loaded));
     let machine = match &args.machine {
-        Some(path) => match super::machine_arg::load(path)? {
+        Some(path) => match super::machine_arg::load_or_report(path, Some(&loaded.recipe))? {
             Ok(m) => Some(m),
             Err(code) => return Ok(code),
         },

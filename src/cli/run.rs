@@ -1,9 +1,8 @@
 //! `isopach run RECIPE [--machine M] [--wafer ID] [--lot L] [--runs DIR] [--yes] [--dry-run]`.
 
-use super::output::outln;
 use super::measure::{self, Which};
+use super::output::outln;
 use anyhow::Context;
-use isopach::bench::machine;
 use isopach::recipe;
 use isopach::run::plan::{path_length, Plan};
 use isopach::run::session;
@@ -53,7 +52,7 @@ pub struct Args {
 pub fn run(args: Args) -> anyhow::Result<u8> {
     let loaded = recipe::load(&args.recipe)?;
     let machine = match &args.machine {
-        Some(p) => Some(machine::load(p)?.machine),
+        Some(p) => Some(super::machine_arg::load_for(p, &loaded.recipe)?),
         None => None,
     };
     let plan = Plan::new(&loaded, machine.as_ref())?;
@@ -92,7 +91,12 @@ fn seed_of(wafer: &str) -> u64 {
 fn dry_run(plan: &Plan) -> anyhow::Result<u8> {
     outln!(
         "{:>5} {:>5} {:>9} {:>9} {:>10} {:>10}",
-        "order", "site", "x_mm", "y_mm", "stage_x", "stage_y"
+        "order",
+        "site",
+        "x_mm",
+        "y_mm",
+        "stage_x",
+        "stage_y"
     );
     for (i, s) in plan.sites().enumerate() {
         outln!(

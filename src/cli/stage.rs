@@ -52,7 +52,7 @@ enum Action {
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
     let m = match &args.machine {
-        Some(p) => match machine_arg::load(p)? {
+        Some(p) => match machine_arg::load_or_report(p, None)? {
             Ok(m) => m,
             Err(code) => return Ok(code),
         },

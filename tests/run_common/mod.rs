@@ -108,3 +108,19 @@ pub fn sites_once(run: &Path, planned: usize) -> Vec<(usize, String)> {
     );
     rows
 }
+
+/// Removes the injected faults from a run's frozen machine file (a fault strikes once; with
+/// it gone, the run can be resumed).
+pub fn strip_faults(run: &Path) {
+    let text = std::fs::read_to_string(run.join("run.toml")).unwrap();
+    let mut meta: isopach::run::folder::RunToml = toml::from_str(&text).unwrap();
+    if let Some(sim) = meta
+        .machine
+        .as_mut()
+        .and_then(|m| m.get_mut("simulation"))
+        .and_then(|s| s.as_table_mut())
+    {
+        sim.remove("faults");
+    }
+    std::fs::write(run.join("run.toml"), toml::to_string(&meta).unwrap()).unwrap();
+}
