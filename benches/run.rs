@@ -8,9 +8,9 @@ use isopach::bench::machine::{parse, BUILTIN_SIMULATED};
 use isopach::recipe::{self, pattern, schema::PatternSpec, Site};
 use isopach::run::events::Event;
 use isopach::run::measure::{self, Hooks, Which};
+use isopach::run::new_run::{self, NewRun};
 use isopach::run::plan;
 use isopach::run::plan::Plan;
-use isopach::run::session::{self, NewRun};
 use isopach::run::stream::{RunEvent, Watcher};
 use std::path::Path;
 use std::sync::{Arc, Mutex};
@@ -98,7 +98,7 @@ fn real_time_run(recipe_path: &Path) -> (usize, f64, f64) {
         .unwrap()
         .checked()
         .unwrap();
-    let (folder, meta) = session::create(&plan, &new).unwrap();
+    let (folder, meta) = new_run::create(&plan, &new).unwrap();
     let marks: Arc<Mutex<(Option<Instant>, Option<Instant>)>> = Arc::default();
     let m = marks.clone();
     let (_tx, cancel) = tokio::sync::watch::channel(false);

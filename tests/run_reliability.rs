@@ -42,7 +42,7 @@ fn a_run_measures_every_site_and_fits_the_virtual_wafer() {
     // bench (machine and seed from run.toml) rebuilt here gives the truth.
     let folder = RunFolder::new(&run);
     let meta = folder.read_run_toml().unwrap();
-    let loaded = isopach::run::session::loaded_recipe(&folder, &meta);
+    let loaded = isopach::run::new_run::loaded_recipe(&folder, &meta);
     let machine = isopach::run::measure::machine_of(&meta).unwrap();
     let rt = tokio::runtime::Runtime::new().unwrap();
     let bench = rt

@@ -9,7 +9,7 @@ use super::safety::{confirm_motion, wait_for_operator};
 use indicatif::{ProgressBar, ProgressStyle};
 use isopach::run::events::{Attempt, Event, SiteState};
 use isopach::run::folder::{RunFolder, RunToml};
-use isopach::run::measure::{self, Hooks, Report};
+use isopach::run::measure::{self, Hooks, SessionReport};
 use isopach::run::plan::Plan;
 use isopach::run::sequencer::Outcome;
 use isopach::run::stream::{RunEvent, Subscriber, Watcher};
@@ -146,7 +146,7 @@ fn log_to(folder: &RunFolder) {
 }
 
 /// Prints the outcome and figures; returns the exit code.
-fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: Report) -> u8 {
+fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: SessionReport) -> u8 {
     let f = &report.summary.first;
     if report.measured.is_empty() {
         eprintln!("every site asked for already has a valid result: nothing to measure");

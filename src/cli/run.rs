@@ -4,8 +4,8 @@ use super::measure::{self, Which};
 use super::output::outln;
 use anyhow::Context;
 use isopach::recipe;
+use isopach::run::new_run;
 use isopach::run::plan::{path_length, Plan};
-use isopach::run::session;
 use std::path::PathBuf;
 
 /// Arguments of `isopach run`.
@@ -66,7 +66,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         .map(toml::Table::try_from)
         .transpose()
         .context("cannot freeze the machine file")?;
-    let new = session::NewRun {
+    let new = new_run::NewRun {
         wafer: args.wafer,
         lot: args.lot,
         operator: args.operator,
@@ -74,7 +74,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         machine: table,
         seed,
     };
-    let (folder, meta) = session::create(&plan, &new)?;
+    let (folder, meta) = new_run::create(&plan, &new)?;
     eprintln!("run {} in {}", meta.run.id, folder.root.display());
     measure::session(&plan, folder, meta, Which::Missing, args.yes, "run")
 }

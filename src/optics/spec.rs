@@ -3,7 +3,7 @@
 //! variant here, its checks in [`check`] and its evaluation in [`super::library`].
 
 use super::dispersion::{cauchy_n, sellmeier_n2, sellmeier_poles_um};
-use crate::tomlcheck::{Problem, Report};
+use crate::tomlcheck::{Problem, Problems};
 use serde::{Deserialize, Serialize};
 use std::path::{Component, Path};
 
@@ -48,8 +48,8 @@ fn samples_um(window_nm: [f64; 2]) -> impl Iterator<Item = f64> {
 /// Checks a material description; `window` is the fitting window in nm when it is valid.
 /// Problems carry key paths relative to the material's own table (`k`, `b`, `file`).
 pub fn check(name: &str, spec: &MaterialSpec, window: Option<[f64; 2]>) -> Vec<Problem> {
-    let mut r = Report::default();
-    let check_k = |k: f64, r: &mut Report| {
+    let mut r = Problems::default();
+    let check_k = |k: f64, r: &mut Problems| {
         if k < 0.0 {
             r.at(
                 "k",

@@ -8,7 +8,7 @@ use super::geometry::Wafer;
 use super::pattern::{self, STANDARD_COUNTS};
 use super::schema::{FilmSpec, FitMethod, PatternSpec, Recipe};
 use crate::optics::{spec, BUILTIN_NAMES};
-use crate::tomlcheck::{nearest, num, KeyPath, Problem, Report, Seg};
+use crate::tomlcheck::{nearest, num, KeyPath, Problem, Problems, Seg};
 
 /// Wavelengths a fitting window may use, nm.
 pub const WINDOW_LIMITS_NM: [f64; 2] = [200.0, 2000.0];
@@ -31,7 +31,7 @@ pub const MAX_RETRIES: u32 = 100;
 
 /// Validates a recipe; an empty list means it is good.
 pub fn validate(recipe: &Recipe) -> Vec<Problem> {
-    let mut r = Report::default();
+    let mut r = Problems::default();
     if recipe.name.trim().is_empty() {
         r.at("name", "the recipe name is empty");
     }
@@ -57,7 +57,7 @@ enum WaferCheck {
     BadDiameter,
 }
 
-fn check_wafer(recipe: &Recipe, r: &mut Report) -> WaferCheck {
+fn check_wafer(recipe: &Recipe, r: &mut Problems) -> WaferCheck {
     let w = &recipe.wafer;
     if !w.orientation_angle_deg.is_finite() {
         r.at(
@@ -94,7 +94,7 @@ fn check_wafer(recipe: &Recipe, r: &mut Report) -> WaferCheck {
     WaferCheck::Good
 }
 
-fn check_pattern(recipe: &Recipe, wafer: &Wafer, r: &mut Report) {
+fn check_pattern(recipe: &Recipe, wafer: &Wafer, r: &mut Problems) {
     let usable = wafer.usable_radius();
     match &recipe.pattern {
         PatternSpec::Polar {
@@ -219,7 +219,7 @@ fn check_pattern(recipe: &Recipe, wafer: &Wafer, r: &mut Report) {
     }
 }
 
-fn check_film(recipe: &Recipe, r: &mut Report) {
+fn check_film(recipe: &Recipe, r: &mut Problems) {
     let film = &recipe.film;
     let [wlo, whi] = film.wavelength_nm;
     let [llo, lhi] = WINDOW_LIMITS_NM;
@@ -233,7 +233,7 @@ fn check_film(recipe: &Recipe, r: &mut Report) {
         );
     }
     let known = known_materials(recipe);
-    let check_name = |path: &str, name: &str, r: &mut Report| {
+    let check_name = |path: &str, name: &str, r: &mut Problems| {
         if !known.iter().any(|k| k == name) {
             let hint = nearest(name, &known)
                 .map(|n| format!("; did you mean \"{n}\"?"))
@@ -381,7 +381,7 @@ fn check_film(recipe: &Recipe, r: &mut Report) {
     }
 }
 
-fn check_acquire(recipe: &Recipe, r: &mut Report) {
+fn check_acquire(recipe: &Recipe, r: &mut Problems) {
     let a = &recipe.acquire;
     if !(a.integration_ms > 0.0 && a.integration_ms <= 60_000.0) {
         r.at(

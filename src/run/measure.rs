@@ -9,10 +9,10 @@ use super::events::{now, Event, SiteState};
 use super::fit_workers::FitWorkers;
 use super::folder::{RunFolder, RunToml};
 use super::journal::Journal;
+use super::new_run::loaded_recipe;
 use super::plan::{Plan, PlanError};
 use super::refit::fit_stored;
 use super::sequencer::{Outcome, Prompt, Scope, Sequencer};
-use super::session::loaded_recipe;
 use super::stream::{EventStream, RunEvent, Subscriber};
 use crate::bench::{machine::builtin_simulated, Bench, MachineFile};
 use crate::map::stats::Summary;
@@ -47,7 +47,7 @@ pub struct Hooks {
 }
 
 /// How a session ended, with the run's figures after it.
-pub struct Report {
+pub struct SessionReport {
     pub outcome: Outcome,
     pub summary: Summary,
     pub states: Vec<SiteState>,
@@ -90,7 +90,7 @@ pub async fn session(
     which: &Which,
     command: &str,
     hooks: Hooks,
-) -> anyhow::Result<Report> {
+) -> anyhow::Result<SessionReport> {
     if let Some(problem) = plan.limit_problem() {
         return Err(PlanError::OutsideTravel(problem).into());
     }
@@ -206,7 +206,7 @@ pub async fn session(
         seq.log(Event::RunFinished { time: now() })?;
     }
     let summary = derive::rebuild(folder)?;
-    Ok(Report {
+    Ok(SessionReport {
         outcome,
         summary,
         states,

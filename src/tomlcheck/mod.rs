@@ -13,7 +13,7 @@ pub mod words;
 
 pub use keypath::{KeyPath, Seg};
 pub use locate::{join, line_col, locate, place, LineCol, Located};
-pub use problem::{nearest, num, Problem, Report};
+pub use problem::{nearest, num, Problem, Problems};
 
 use serde::de::DeserializeOwned;
 use std::path::Path;

@@ -22,9 +22,9 @@ impl Problem {
 
 /// Collects problems with less ceremony.
 #[derive(Default)]
-pub struct Report(pub Vec<Problem>);
+pub struct Problems(pub Vec<Problem>);
 
-impl Report {
+impl Problems {
     /// Adds a problem unless `value` is finite and inside `[lo, hi]`.
     pub fn range(&mut self, path: &str, value: f64, lo: f64, hi: f64, unit: &str) {
         if !(value >= lo && value <= hi) {

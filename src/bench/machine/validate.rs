@@ -6,7 +6,7 @@
 
 use super::schema::*;
 use crate::bench::gcode::words::{self, LineRole};
-use crate::tomlcheck::{num, Problem, Report};
+use crate::tomlcheck::{num, Problem, Problems};
 
 /// Largest stage coordinate accepted, mm. No bench stage is 10 m long; the bound keeps every
 /// distance, time estimate and wait computed from the travel finite.
@@ -14,7 +14,7 @@ pub const MAX_COORD_MM: f64 = 10_000.0;
 
 /// Validates a machine file; an empty list means it is good.
 pub fn validate(m: &MachineFile) -> Vec<Problem> {
-    let mut r = Report::default();
+    let mut r = Problems::default();
     if m.name.trim().is_empty() {
         r.at("name", "the machine name is empty");
     }
@@ -76,7 +76,7 @@ pub fn validate(m: &MachineFile) -> Vec<Problem> {
     r.0
 }
 
-fn check_stage(s: &StageSpec, r: &mut Report) {
+fn check_stage(s: &StageSpec, r: &mut Problems) {
     if s.port.trim().is_empty() {
         r.at(
             "stage.port",
@@ -210,7 +210,7 @@ fn check_stage(s: &StageSpec, r: &mut Report) {
     }
 }
 
-fn check_simulation(s: &SimulationSpec, r: &mut Report) {
+fn check_simulation(s: &SimulationSpec, r: &mut Problems) {
     r.range("simulation.time_scale", s.time_scale, 0.01, 10_000.0, "×");
     r.range(
         "simulation.controller.idle_lag_ms",
