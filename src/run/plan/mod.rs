@@ -318,6 +318,26 @@ mod tests {
     }
 
     #[test]
+    fn a_simulated_spectrometer_needs_no_reference_placed_even_on_a_real_stage() {
+        let mut m = machine::builtin_simulated();
+        m.stage.port = "/dev/ttyACM0".into();
+        assert_eq!(
+            Plan::new(&recipe(), Some(&m)).unwrap().reference(),
+            ReferencePlacement::Simulated
+        );
+        m.spectrometer.kind = SpectrometerKind::Command;
+        m.spectrometer.command = vec!["/opt/lab/grab".into()];
+        assert_eq!(
+            Plan::new(&recipe(), Some(&m)).unwrap().reference(),
+            ReferencePlacement::ByHand
+        );
+        m.reference.position_mm = Some([20.0, 20.0]);
+        let p = Plan::new(&recipe(), Some(&m)).unwrap();
+        assert_eq!(p.reference(), ReferencePlacement::Position([20.0, 20.0]));
+        assert_eq!(p.start_mm(), [20.0, 20.0], "sites start from the reference piece");
+    }
+
+    #[test]
     fn homing_lines_put_a_home_step_first() {
         let mut m = machine::builtin_simulated();
         m.stage.home = vec!["$H".into()];
