@@ -6,10 +6,12 @@
 
 use isopach::bench::machine::{parse, BUILTIN_SIMULATED};
 use isopach::recipe::{self, pattern, schema::PatternSpec, Site};
+use isopach::run::events::Event;
 use isopach::run::measure::{self, Hooks, Which};
+use isopach::run::new_run::{self, NewRun};
 use isopach::run::plan;
-use isopach::run::sequencer::Progress;
-use isopach::run::session::{self, NewRun};
+use isopach::run::plan::Plan;
+use isopach::run::stream::{RunEvent, Watcher};
 use std::path::Path;
 use std::sync::{Arc, Mutex};
 use std::time::Instant;
@@ -92,21 +94,27 @@ fn real_time_run(recipe_path: &Path) -> (usize, f64, f64) {
         machine: Some(toml::Table::try_from(&machine).unwrap()),
         seed: 7,
     };
-    let (folder, meta) = session::create(&loaded, &new).unwrap();
+    let plan = Plan::new(&loaded, Some(&machine))
+        .unwrap()
+        .checked()
+        .unwrap();
+    let (folder, meta) = new_run::create(&plan, &new).unwrap();
     let marks: Arc<Mutex<(Option<Instant>, Option<Instant>)>> = Arc::default();
     let m = marks.clone();
     let (_tx, cancel) = tokio::sync::watch::channel(false);
     let hooks = Hooks {
         confirm: Box::new(|_| Ok(())),
         prompt: None,
-        progress: Box::new(move |p| {
+        subscribers: vec![Box::new(Watcher(move |e: &RunEvent| {
             let mut g = m.lock().unwrap();
-            match p {
-                Progress::Pass { pass: 0, .. } => g.0 = Some(Instant::now()),
-                Progress::Site { .. } => g.1 = Some(Instant::now()),
+            match e {
+                RunEvent::Pass { pass: 0, .. } => g.0 = Some(Instant::now()),
+                RunEvent::Journal(Event::SiteFitted { .. } | Event::SiteFailed { .. }) => {
+                    g.1 = Some(Instant::now())
+                }
                 _ => {}
             }
-        }),
+        }))],
         cancel,
     };
     let rt = tokio::runtime::Builder::new_multi_thread()
@@ -115,6 +123,7 @@ fn real_time_run(recipe_path: &Path) -> (usize, f64, f64) {
         .unwrap();
     let report = rt
         .block_on(measure::session(
+            &plan,
             &folder,
             &meta,
             &Which::Missing,
@@ -128,7 +137,5 @@ fn real_time_run(recipe_path: &Path) -> (usize, f64, f64) {
     ));
     let (start, end) = *marks.lock().unwrap();
     let wall = (end.unwrap() - start.unwrap()).as_secs_f64();
-    let sites = plan::order(&loaded.recipe.pattern, &loaded.sites());
-    let bound = plan::duration_estimate_s(&sites, &loaded.recipe.acquire, &machine);
-    (sites.len(), wall, bound)
+    (plan.sites().count(), wall, plan.duration_s)
 }

@@ -11,6 +11,7 @@
 
 pub mod bench;
 pub mod compare;
+pub mod error;
 pub mod error_text;
 pub mod fit;
 pub mod history;
@@ -19,3 +20,4 @@ pub mod optics;
 pub mod recipe;
 pub mod run;
 pub mod spectrum;
+pub mod tomlcheck;

@@ -4,7 +4,7 @@
 
 use isopach::bench::chuck::ChuckTransform;
 use isopach::bench::gcode::{
-    Command, Controller, ControllerError, LogEntry, Outcome, ProtocolConfig,
+    Command, Completion, Controller, ControllerError, LogEntry, ProtocolConfig,
 };
 use isopach::bench::limits::Approach;
 use isopach::bench::machine::{self, MachineFile};
@@ -61,7 +61,7 @@ impl Harness {
         self.now += Duration::from_millis(ms);
         self.c.handle_time(self.now);
     }
-    fn result(&mut self) -> Option<Result<Outcome, ControllerError>> {
+    fn result(&mut self) -> Option<Result<Completion, ControllerError>> {
         self.c.poll_result()
     }
     /// Runs `cmd`, answering every line with `ok`; returns the lines sent.
@@ -127,7 +127,7 @@ impl Harness {
             lines.extend(s);
         }
         match self.result() {
-            Some(Ok(Outcome::Connected { banner })) => {
+            Some(Ok(Completion::Connected { banner })) => {
                 assert_eq!(banner.as_deref(), Some("Grbl 1.1h ['$' for help]"))
             }
             other => panic!("{other:?}"),
@@ -182,7 +182,7 @@ fn golden_transcript_dwell_3x3() {
         h.wait_ms(800);
         assert!(h.result().is_none(), "still moving");
         h.reply("ok");
-        let Some(Ok(Outcome::Idle { position })) = h.result() else {
+        let Some(Ok(Completion::Idle { position })) = h.result() else {
             panic!()
         };
         assert!(position.is_some());
@@ -235,7 +235,7 @@ fn printer_connected() -> (MachineFile, Harness) {
     h.reply("ok");
     assert_eq!(h.sent(), vec!["G90"]);
     h.reply("ok");
-    assert!(matches!(h.result(), Some(Ok(Outcome::Connected { .. }))));
+    assert!(matches!(h.result(), Some(Ok(Completion::Connected { .. }))));
     (m, h)
 }
 
@@ -260,7 +260,7 @@ fn golden_transcript_m400_3x3_with_rotation() {
         }
         assert!(h.result().is_none());
         h.reply("ok");
-        assert!(matches!(h.result(), Some(Ok(Outcome::Idle { .. }))));
+        assert!(matches!(h.result(), Some(Ok(Completion::Idle { .. }))));
     }
     // Chuck centre (110, 110) rotated 180°: wafer (−10, 10) sits at stage (120, 100).
     // Backlash 0.3 mm from −x−y: from (120, 100) to (110, 100) x would be reached from the
@@ -337,7 +337,7 @@ fn golden_transcript_poll_3x3_confirms_position_not_only_state() {
         h.wait_ms(100);
         assert_eq!(h.sent(), vec!["<raw ?>"]);
         h.reply(&format!("<Idle|MPos:{here}|FS:0,0>"));
-        let Some(Ok(Outcome::Idle { position: Some(p) })) = h.result() else {
+        let Some(Ok(Completion::Idle { position: Some(p) })) = h.result() else {
             panic!()
         };
         assert!((p[0] - target[0]).abs() < 1e-9 && (p[1] - target[1]).abs() < 1e-9);
@@ -396,7 +396,7 @@ fn work_offset_is_taken_off_machine_positions() {
     h.reply("<Idle|MPos:15.000,12.000,0.000|FS:0,0|WCO:5.000,2.000,0.000>");
     assert!(matches!(
         h.result(),
-        Some(Ok(Outcome::Idle {
+        Some(Ok(Completion::Idle {
             position: Some([10.0, 10.0])
         }))
     ));

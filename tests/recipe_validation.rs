@@ -1,5 +1,6 @@
 //! Every recipe validation error: its message and the line it is reported on.
 
+use isopach::bench::machine::{self, check_pair};
 use isopach::recipe::{self, Located, RecipeError};
 use std::path::Path;
 
@@ -247,7 +248,7 @@ fn unknown_keys_and_syntax_errors_have_positions() {
     assert_eq!(p.len(), 1);
     assert_eq!(p[0].line, 5);
     assert!(
-        p[0].message.contains("unknown field `edge_excl`"),
+        p[0].message.contains("unknown key \"edge_excl\""),
         "{}",
         p[0].message
     );
@@ -255,4 +256,260 @@ fn unknown_keys_and_syntax_errors_have_positions() {
     assert_eq!(p[0].line, 3);
     let shown = p[0].to_string();
     assert!(shown.starts_with("r.toml:3:"), "{shown}");
+}
+
+/// The problems of `text` as `KEY.PATH: message` strings (the position stripped).
+fn messages(text: &str) -> Vec<String> {
+    problems(text).iter().map(|p| p.message.clone()).collect()
+}
+
+/// The one problem whose message starts with `key`, or a panic listing them all.
+fn at_key(p: &[Located], key: &str) -> Located {
+    let found: Vec<&Located> = p
+        .iter()
+        .filter(|p| p.message.starts_with(&format!("{key}: ")))
+        .collect();
+    assert_eq!(found.len(), 1, "one problem at {key}, got {p:#?}");
+    found[0].clone()
+}
+
+#[test]
+fn type_error_names_key_path_and_does_not_hide_others() {
+    let text = BASE
+        .replace("diameter_mm = 150", "diameter_mm = \"150\"\ndiamter = 3")
+        .replace("kind = \"polar\"", "kind = \"polar\"\nringz = [4]")
+        .replace("[420, 980]", "[420, 2500]");
+    let p = problems(&text);
+    assert_eq!(p.len(), 4, "{p:#?}");
+    let d = at_key(&p, "wafer.diameter_mm");
+    assert_eq!(
+        d.message,
+        "wafer.diameter_mm: expected a number, found the text \"150\""
+    );
+    assert_eq!((d.line, d.col), (3, 15));
+    let typo = at_key(&p, "wafer.diamter");
+    assert!(
+        typo.message
+            .contains("unknown key \"diamter\" (did you mean \"diameter_mm\"?)"),
+        "{}",
+        typo.message
+    );
+    assert_eq!(typo.line, 4);
+    assert!(at_key(&p, "pattern.ringz")
+        .message
+        .contains("unknown key \"ringz\""));
+    assert!(at_key(&p, "film.wavelength_nm")
+        .message
+        .contains("outside 200–2000 nm"));
+    assert!(p[0]
+        .to_string()
+        .starts_with("r.toml:3:15: wafer.diameter_mm: "));
+}
+
+#[test]
+fn type_errors_inside_tagged_tables_name_their_key() {
+    let text = BASE.replace(
+        "kind = \"polar\"\nrings = [8, 16]",
+        "kind = \"grid\"\npitch_mm = \"10\"",
+    );
+    let p = problems(&text);
+    assert_eq!(p.len(), 1, "{p:#?}");
+    assert_eq!(
+        p[0].message,
+        "pattern.pitch_mm: expected a number, found the text \"10\""
+    );
+    assert_eq!(p[0].line, 8);
+    let p = problems(&BASE.replace("kind = \"polar\"", "kind = \"spiral\""));
+    assert!(
+        p[0].message
+            .starts_with("pattern.kind: unknown value \"spiral\""),
+        "{p:#?}"
+    );
+}
+
+#[test]
+fn missing_required_key_is_located() {
+    let p = problems(&BASE.replace("substrate = \"si\"\n", ""));
+    assert_eq!(p.len(), 1, "{p:#?}");
+    assert!(
+        p[0].message
+            .starts_with("film.substrate: required key \"substrate\" is missing"),
+        "{}",
+        p[0].message
+    );
+    assert_eq!(p[0].line, 9, "points at the [film] table");
+}
+
+#[test]
+fn nominal_1e308_is_refused_not_panicking() {
+    let p = one(
+        "layers",
+        r#"layers = [ { material = "sio2", nominal_nm = 1e308 } ]"#,
+    );
+    assert!(
+        p.message.starts_with("film.layers[0].nominal_nm: "),
+        "{}",
+        p.message
+    );
+    assert!(p.message.contains("above 100000 nm"), "{}", p.message);
+    let p = one(
+        "layers",
+        r#"layers = [ { material = "sio2", nominal_nm = 1000, min_nm = 100, max_nm = 1e300 } ]"#,
+    );
+    assert!(
+        p.message.starts_with("film.layers[0].max_nm: "),
+        "{}",
+        p.message
+    );
+}
+
+#[test]
+fn window_with_three_values_is_refused() {
+    let p = one("wavelength_nm", "wavelength_nm = [420, 980, 1000]");
+    assert_eq!(
+        p.message,
+        "film.wavelength_nm: expected a list of exactly 2 values, found 3"
+    );
+    assert_eq!(p.line, line_of("wavelength_nm"));
+    let p = one("wavelength_nm", "wavelength_nm = [420]");
+    assert!(
+        p.message.contains("exactly 2 values, found 1"),
+        "{}",
+        p.message
+    );
+}
+
+#[test]
+fn nan_and_inf_are_refused_everywhere() {
+    let p = one("rings", "rings = [8, 16]\nstart_angle_deg = nan");
+    assert!(
+        p.message
+            .starts_with("pattern.start_angle_deg: NaN is not a finite number"),
+        "{}",
+        p.message
+    );
+    let p = with_material("[materials.m]\nmodel = \"constant\"\nn = inf\n");
+    assert_eq!(p.len(), 1, "{p:#?}");
+    assert!(
+        p[0].message
+            .starts_with("materials.m.n: inf is not a finite number"),
+        "{}",
+        p[0].message
+    );
+    // A non-finite nominal is reported once, not again through its default bounds.
+    let p = one(
+        "layers",
+        r#"layers = [ { material = "sio2", nominal_nm = nan } ]"#,
+    );
+    assert!(
+        p.message.starts_with("film.layers[0].nominal_nm: "),
+        "{}",
+        p.message
+    );
+}
+
+#[test]
+fn fourier_with_two_fitted_layers_is_a_validation_problem() {
+    let text = BASE
+        .replace(
+            "layers = [ { material = \"sio2\", nominal_nm = 1000, min_nm = 100, max_nm = 3000 } ]",
+            "layers = [ { material = \"si3n4\", nominal_nm = 100 }, { material = \"sio2\", nominal_nm = 1000 } ]",
+        )
+        .replace("wavelength_nm = [420, 980]", "wavelength_nm = [420, 980]\nmethod = \"fourier\"");
+    let p = problems(&text);
+    assert_eq!(p.len(), 1, "{p:#?}");
+    assert!(
+        p[0].message
+            .starts_with("film.method: method fourier fits one layer, the recipe fits 2"),
+        "{}",
+        p[0].message
+    );
+    assert_eq!(p[0].line, 14);
+}
+
+#[test]
+fn table_path_outside_the_recipe_folder_is_refused() {
+    for (file, why) in [
+        ("/etc/passwd", "absolute path"),
+        ("../nk.csv", "leaves the recipe's folder"),
+    ] {
+        let p = with_material(&format!(
+            "[materials.m]\nmodel = \"table\"\nfile = \"{file}\"\n"
+        ));
+        assert_eq!(p.len(), 1, "{p:#?}");
+        assert!(
+            p[0].message.starts_with("materials.m.file: "),
+            "{}",
+            p[0].message
+        );
+        assert!(p[0].message.contains(why), "{}", p[0].message);
+    }
+}
+
+#[test]
+fn site_count_ceiling_is_checked_before_sites_are_made() {
+    let started = std::time::Instant::now();
+    let p = one("rings", "rings = [1000000000]");
+    assert!(p.message.starts_with("pattern.rings: "), "{}", p.message);
+    assert!(
+        p.message.contains("more than the 10000 a map may have"),
+        "{}",
+        p.message
+    );
+    let grid = BASE.replace(
+        "kind = \"polar\"\nrings = [8, 16]",
+        "kind = \"grid\"\npitch_mm = 0.001",
+    );
+    let p = problems(&grid);
+    assert_eq!(p.len(), 1, "{p:#?}");
+    assert!(
+        p[0].message
+            .starts_with("pattern.pitch_mm: this pattern has about"),
+        "{}",
+        p[0].message
+    );
+    let sites: Vec<String> = (0..10_001).map(|i| format!("[{}, 0]", i % 50)).collect();
+    let custom = BASE.replace(
+        "kind = \"polar\"\nrings = [8, 16]",
+        &format!("kind = \"custom\"\nsites_mm = [{}]", sites.join(", ")),
+    );
+    let p = problems(&custom);
+    assert_eq!(p.len(), 1, "{p:#?}");
+    assert!(
+        p[0].message
+            .starts_with("pattern.sites_mm: this pattern has about 10001 sites"),
+        "{}",
+        p[0].message
+    );
+    assert!(
+        started.elapsed().as_secs() < 20,
+        "validation must not generate the sites"
+    );
+}
+
+#[test]
+fn unknown_reference_material_is_a_pair_problem_in_the_machine_file() {
+    let recipe = recipe::parse(BASE, Path::new("r.toml")).unwrap();
+    let text = "name = \"b\"\n[stage]\nport = \"simulated\"\ntravel_x_mm = [0, 200]\ntravel_y_mm = [0, 200]\n[reference]\nmaterial = \"unobtainium\"\n";
+    let m = machine::LoadedMachine {
+        machine: machine::parse(text, Path::new("m.toml")).unwrap(),
+        path: "m.toml".into(),
+        text: text.into(),
+    };
+    let p = check_pair(&recipe, Some(&m)).unwrap_err();
+    assert_eq!(p.len(), 1, "{p:#?}");
+    assert_eq!(p[0].line, 7);
+    assert!(
+        p[0].to_string().starts_with(
+            "m.toml:7:12: reference.material: unknown reference material \"unobtainium\""
+        ),
+        "{}",
+        p[0]
+    );
+    // A material of the recipe's own is known; so is the built-in bench's reference.
+    let own = format!("{BASE}[materials.unobtainium]\nmodel = \"constant\"\nn = 2.0\n");
+    let recipe_own = recipe::parse(&own, Path::new("r.toml")).unwrap();
+    assert!(check_pair(&recipe_own, Some(&m)).is_ok());
+    assert!(check_pair(&recipe, None).is_ok());
+    assert!(messages(BASE).is_empty());
 }

@@ -24,3 +24,16 @@ pub use machine::{LoadedMachine, MachineError, MachineFile};
 pub use open::{open_stage, Bench, BenchError};
 pub use spectrometer::{Spectrometer, SpectrometerError};
 pub use stage::{PositionHandle, Stage, StageError};
+
+/// Longest wait the bench ever computes, s (a year: far past any real timeout).
+const LONGEST_WAIT_S: f64 = 365.0 * 24.0 * 3600.0;
+
+/// Seconds as a `Duration` that cannot panic, whatever a machine file held: negative and NaN
+/// give zero, anything past a year is a year (`Instant + Duration` overflows far beyond).
+pub fn duration_s(s: f64) -> std::time::Duration {
+    if s > 0.0 {
+        std::time::Duration::from_secs_f64(s.min(LONGEST_WAIT_S))
+    } else {
+        std::time::Duration::ZERO
+    }
+}

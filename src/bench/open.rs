@@ -3,7 +3,7 @@
 //! and the CLI use them.
 
 use super::chuck::ChuckTransform;
-use super::limits::{check_site, check_sites, Approach, SiteOutside, SoftLimits};
+use super::limits::{check_site, Approach, SiteOutside, SoftLimits};
 use super::machine::{builtin_simulated, MachineFile, SpectrometerKind};
 use super::sim::clock::SimClock;
 use super::sim::controller::VirtualConfig;
@@ -99,7 +99,7 @@ impl Bench {
             ),
             SpectrometerKind::Simulated => {
                 let wafer = Arc::new(VirtualWafer::for_recipe(recipe, &m.simulation.wafer, seed)?);
-                let lib = MaterialLibrary::for_recipe(&recipe.recipe, recipe.dir())?;
+                let lib = MaterialLibrary::with_materials(&recipe.recipe.materials, recipe.dir())?;
                 let reference = BareSample::new(
                     lib.require(&recipe.recipe.film.ambient)?.clone(),
                     lib.require(&m.reference.material)?.clone(),
@@ -137,14 +137,18 @@ impl Bench {
         self.simulated_stage
     }
 
-    /// How many times faster than real time the simulated parts run (1 on a real bench);
-    /// divide settle times by it.
-    pub fn time_scale(&self) -> f64 {
-        if self.simulated_stage {
+    /// Waits `ms` of bench time for the stage to settle (shorter in real time when the
+    /// simulated parts run faster than real time).
+    pub async fn settle(&self, ms: f64) {
+        let scale = if self.simulated_stage {
             self.clock.scale()
         } else {
             1.0
-        }
+        };
+        tokio::time::sleep(std::time::Duration::from_secs_f64(
+            ms.max(0.0) / 1000.0 / scale,
+        ))
+        .await;
     }
 
     /// The virtual wafer, when the spectrometer is simulated (its true thickness field).
@@ -155,16 +159,6 @@ impl Bench {
     /// The stage position of a site, checked against the soft limits (approach point too).
     pub fn stage_position(&self, site: &Site) -> Result<[f64; 2], SiteOutside> {
         check_site(site, &self.transform, &self.limits, &self.approach)
-    }
-
-    /// Checks a whole plan before any motion; every site outside is named.
-    pub fn check_plan(&self, sites: &[Site]) -> Result<(), BenchError> {
-        let out = check_sites(sites, &self.transform, &self.limits, &self.approach);
-        if out.is_empty() {
-            Ok(())
-        } else {
-            Err(BenchError::OutsideTravel(out))
-        }
     }
 
     /// Moves to a site (wafer frame) and waits for motion to end; the confirmed position.

@@ -127,7 +127,7 @@ impl CommandSpectrometer {
     pub fn from_spec(spec: &SpectrometerSpec) -> CommandSpectrometer {
         CommandSpectrometer {
             argv: spec.command.clone(),
-            timeout: Duration::from_secs_f64(spec.timeout_s.max(0.001)),
+            timeout: crate::bench::duration_s(spec.timeout_s.max(0.001)),
         }
     }
 

@@ -5,7 +5,7 @@
 //! controller on a serial port and the virtual one, so the simulated bench tests it too.
 
 use super::gcode::link::Port;
-use super::gcode::{Command, Controller, Link, LinkError, LogEntry, Outcome, ProtocolConfig};
+use super::gcode::{Command, Completion, Controller, Link, LinkError, LogEntry, ProtocolConfig};
 use super::limits::{Approach, LimitViolation, SoftLimits};
 use super::machine::{MotionComplete, StageSpec};
 use futures::future::BoxFuture;
@@ -148,7 +148,7 @@ impl<S: Port> Stage for GcodeStage<S> {
     fn wait_idle(&mut self) -> BoxFuture<'_, Result<Option<[f64; 2]>, StageError>> {
         Box::pin(async move {
             let p = match self.link.run(Command::WaitIdle).await? {
-                Outcome::Idle { position } => position,
+                Completion::Idle { position } => position,
                 _ => None,
             };
             self.position.set(p);
@@ -167,7 +167,7 @@ impl<S: Port> Stage for GcodeStage<S> {
             }
             self.link.run(Command::Home).await?;
             if self.strategy == MotionComplete::Poll {
-                if let Outcome::Status(s) = self.link.run(Command::Query).await? {
+                if let Completion::Status(s) = self.link.run(Command::Query).await? {
                     self.position.set(self.link.controller().work_position(&s));
                 }
             }
@@ -178,7 +178,7 @@ impl<S: Port> Stage for GcodeStage<S> {
     fn position(&mut self) -> BoxFuture<'_, Result<Option<[f64; 2]>, StageError>> {
         Box::pin(async move {
             if self.strategy == MotionComplete::Poll {
-                if let Outcome::Status(s) = self.link.run(Command::Query).await? {
+                if let Completion::Status(s) = self.link.run(Command::Query).await? {
                     return Ok(self.link.controller().work_position(&s));
                 }
             }

@@ -3,6 +3,7 @@
 //! `stage.port` at it.
 
 use super::machine_arg;
+use super::output::outln;
 use isopach::bench::machine::builtin_simulated;
 use isopach::bench::sim::clock::SimClock;
 use isopach::bench::sim::controller::VirtualConfig;
@@ -39,7 +40,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         time_scale,
     } = args.action;
     let m = match &machine {
-        Some(p) => match machine_arg::load(p)? {
+        Some(p) => match machine_arg::load_or_report(p, None)? {
             Ok(m) => m,
             Err(code) => return Ok(code),
         },
@@ -52,7 +53,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     let rt = tokio::runtime::Runtime::new()?;
     rt.block_on(async move {
         let pty = PtyController::spawn(VirtualConfig::from_machine(&m), SimClock::new(scale))?;
-        println!("{}", pty.path());
+        outln!("{}", pty.path());
         eprintln!(
             "virtual controller on {} ({}× time; travel x {:?}, y {:?} mm); Ctrl-C to stop",
             pty.path(),

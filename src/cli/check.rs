@@ -1,9 +1,9 @@
 //! `isopach check RECIPE [--machine M]`: validate, with the line and reason of each error.
 
+use super::output::outln;
 use anyhow::Context;
-use isopach::bench::limits::{check_sites, Approach, SoftLimits};
-use isopach::bench::ChuckTransform;
 use isopach::recipe::{self, schema::PatternSpec, LoadedRecipe};
+use isopach::run::plan::{Plan, ReferencePlacement};
 use std::path::PathBuf;
 
 /// Arguments of `isopach check`.
@@ -25,43 +25,47 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         Ok(l) => l,
         Err(recipe::RecipeError::Invalid(problems)) => {
             for p in &problems {
-                println!("{p}");
+                outln!("{p}");
             }
             eprintln!("{}: {} error(s)", args.recipe.display(), problems.len());
             return Ok(super::exit::INVALID);
         }
         Err(e) => return Err(e).context("check failed"),
     };
-    println!("ok: {}", summary(&loaded));
-    if let Some(path) = &args.machine {
-        let m = match super::machine_arg::load(path)? {
-            Ok(m) => m,
+    outln!("ok: {}", summary(&loaded));
+    let machine = match &args.machine {
+        Some(path) => match super::machine_arg::load_or_report(path, Some(&loaded.recipe))? {
+            Ok(m) => Some(m),
             Err(code) => return Ok(code),
-        };
-        let outside = check_sites(
-            &loaded.sites(),
-            &ChuckTransform::from_spec(&m.chuck),
-            &SoftLimits::from_spec(&m.stage),
-            &Approach::from_spec(&m.stage),
-        );
-        for o in &outside {
-            println!("{}: {o}", args.recipe.display());
-        }
-        if !outside.is_empty() {
-            eprintln!(
-                "{}: {} site(s) outside the soft limits of {}",
-                args.recipe.display(),
-                outside.len(),
-                path.display()
-            );
+        },
+        None => None,
+    };
+    // The same plan `run` would execute: fit set-up, reference material and soft limits.
+    let plan = match Plan::new(&loaded, machine.as_ref()) {
+        Ok(plan) => plan,
+        Err(e) => {
+            outln!("{}: {e}", args.recipe.display());
             return Ok(super::exit::INVALID);
         }
-        println!(
-            "ok: {}: every site within the soft limits (stage {}, {} motion check)",
+    };
+    if let Some(problem) = plan.limit_problem() {
+        outln!("{}: {problem}", args.recipe.display());
+        return Ok(super::exit::INVALID);
+    }
+    if let Some(m) = &machine {
+        outln!(
+            "ok: {}: every site within the soft limits (stage {}, {} motion check); at least {:.0} s per map",
             m.name,
             m.stage.port,
-            m.stage.motion_complete.as_str()
+            m.stage.motion_complete.as_str(),
+            plan.duration_s
         );
+        if plan.reference() == ReferencePlacement::ByHand {
+            outln!(
+                "note: {} gives no [reference] position_mm: the run will ask the operator to place the {} reference under the probe (run it on a terminal)",
+                m.name, plan.reference_material
+            );
+        }
     }
     Ok(super::exit::OK)
 }

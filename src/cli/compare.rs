@@ -1,7 +1,10 @@
 //! `isopach compare RUN RUN... [--delta] [--per-min T] [--json] [--out FILE] [--sheet FILE]`.
 
-use anyhow::{bail, Context};
+use super::figures::num;
+use super::output::outln;
+use anyhow::bail;
 use isopach::compare::{self, WaferRun};
+use isopach::error::InputError;
 use isopach::map::render::{MapInput, RenderOptions, ValueRange};
 use serde_json::{json, Value};
 use std::path::{Path, PathBuf};
@@ -39,21 +42,8 @@ pub struct Args {
 
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
-    if args.runs.len() < 2 && args.sheet.is_none() {
-        bail!("compare needs at least two run folders (or --sheet with one)");
-    }
-    if args.delta && args.runs.len() != 2 {
-        bail!(
-            "--delta takes exactly two run folders (A then B; the delta is B − A), got {}",
-            args.runs.len()
-        );
-    }
-    if let Some(t) = args.per_min {
-        if !(t > 0.0 && t.is_finite()) {
-            bail!("--per-min {t}: the process time must be a positive number of minutes");
-        }
-    }
-    let layer = args.layer.checked_sub(1).context("--layer counts from 1")?;
+    check_args(&args)?;
+    let layer = args.layer - 1;
     let runs: Vec<WaferRun> = args
         .runs
         .iter()
@@ -62,12 +52,13 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     let figures = |w: &WaferRun| w.summary.all_layers().get(layer).cloned();
     let mut wafers = Vec::new();
     for w in &runs {
-        let f = figures(w).with_context(|| {
-            format!(
-                "run {} has no fitted layer {}",
+        let f = figures(w).ok_or_else(|| {
+            InputError::argument(format!(
+                "--layer {}: run {} has {} fitted layer(s)",
+                args.layer,
                 w.folder.display(),
-                args.layer
-            )
+                w.summary.all_layers().len()
+            ))
         })?;
         let mut v = serde_json::to_value(&f)?;
         if let Value::Object(m) = &mut v {
@@ -136,7 +127,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         eprintln!("sheet of {} maps written to {}", runs.len(), path.display());
     }
     if args.json {
-        println!("{}", serde_json::to_string_pretty(&out)?);
+        outln!("{}", serde_json::to_string_pretty(&out)?);
         return Ok(super::exit::OK);
     }
     let with_spec = wafers.iter().any(|(_, f, _)| f.spec.is_some());
@@ -147,7 +138,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     if with_spec {
         head.push_str(&format!(" {:>8}", "in_spec"));
     }
-    println!("{head}");
+    outln!("{head}");
     for (w, f, _) in &wafers {
         let mut line = format!(
             "{:<24} {:>10} {:>9} {:>8} {:>9} {:>3}/{:<3}",
@@ -165,9 +156,12 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             });
             line.push_str(&format!(" {cell:>8}"));
         }
-        println!("{}", line.trim_end());
+        if f.sites_valid == 0 {
+            line.push_str("  no valid site");
+        }
+        outln!("{}", line.trim_end());
     }
-    println!(
+    outln!(
         "wafer to wafer: mean of means {} nm, σ of means {} nm, NU {} % over {} wafers",
         num(w2w.mean_nm),
         num(w2w.std_nm),
@@ -175,18 +169,35 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         w2w.wafers
     );
     if let Some(t) = delta_text {
-        println!("{t}");
+        outln!("{t}");
     }
     Ok(super::exit::OK)
 }
 
-/// A number for the table (`-` when it does not exist).
-fn num(v: f64) -> String {
-    if v.is_finite() {
-        format!("{v:.3}")
-    } else {
-        "-".to_string()
+/// Refuses argument combinations that cannot be compared, before any run is read.
+fn check_args(args: &Args) -> Result<(), InputError> {
+    let bad = |m: String| Err(InputError::argument(m));
+    if args.runs.len() < 2 && args.sheet.is_none() {
+        return bad(format!(
+            "compare needs at least two run folders (or --sheet with one), got {}",
+            args.runs.len()
+        ));
     }
+    if args.delta && args.runs.len() != 2 {
+        return bad(format!(
+            "--delta takes exactly two run folders (A then B; the delta is B − A), got {}",
+            args.runs.len()
+        ));
+    }
+    if let Some(t) = args.per_min.filter(|t| !(*t > 0.0 && t.is_finite())) {
+        return bad(format!(
+            "--per-min {t}: the process time must be a positive number of minutes"
+        ));
+    }
+    if args.layer == 0 {
+        return bad("--layer counts from 1".into());
+    }
+    Ok(())
 }
 
 /// Writes a map as SVG or PNG, chosen by the file's extension.

@@ -1,7 +1,9 @@
 //! `isopach fit SPECTRUM.csv --recipe RECIPE [--json] [--plot FILE.svg]`: one spectrum, one
 //! answer. Exit 0 when the fit is valid for the recipe's `min_gof`, 1 when it is flagged
-//! invalid, 2 when the input cannot be read.
+//! invalid or no answer is found, 2 when the input cannot be used (an unreadable spectrum, an
+//! unknown reference material, no pixel in the fitting window).
 
+use super::output::outln;
 use anyhow::Context;
 use isopach::fit::{plot, Fitter};
 use isopach::recipe;
@@ -36,72 +38,56 @@ pub struct Args {
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
     let loaded = recipe::load(&args.recipe)?;
-    let fitter = match Fitter::from_recipe(&loaded) {
-        Ok(f) => f.with_scale_factor(args.scale),
-        Err(e) => {
-            // A material or stack the recipe describes but that cannot be built is bad input.
-            eprintln!(
-                "error: cannot set up fitting for {}: {e}",
-                args.recipe.display()
-            );
-            return Ok(super::exit::INVALID);
-        }
-    };
+    // A material or stack the recipe describes but that cannot be built is bad input.
+    let fitter = Fitter::from_recipe(&loaded)
+        .with_context(|| format!("cannot set up fitting for {}", args.recipe.display()))?
+        .with_scale_factor(args.scale);
     for w in fitter.warnings() {
         eprintln!("warning: {w}");
     }
-    let file = match spectrum::read_csv(&args.spectrum) {
-        Ok(f) => f,
-        Err(e) => {
-            eprintln!("error: {e}");
-            return Ok(super::exit::INVALID);
-        }
-    };
-    let (measured, quality) = match file {
+    // Refused whatever the spectrum file holds, so a typo never passes unnoticed.
+    fitter
+        .check_material(&args.reference_material)
+        .context("--reference-material")?;
+    let (measured, quality) = match spectrum::read_csv(&args.spectrum)? {
         SpectrumFile::Reflectance(s) => (s, Default::default()),
         SpectrumFile::Counts(raw) => {
             let r_ref = fitter
                 .reference_reflectance(&args.reference_material, &raw.reference.wavelength_nm)?;
-            match spectrum::normalise_raw(&raw, &r_ref) {
-                Ok(v) => v,
-                Err(e) => {
-                    eprintln!("error: {}: {e}", args.spectrum.display());
-                    return Ok(super::exit::INVALID);
-                }
-            }
+            spectrum::normalise_raw(&raw, &r_ref)
+                .with_context(|| args.spectrum.display().to_string())?
         }
     };
     if let Some(note) = fitter.coverage_note(&measured.wavelength_nm) {
         eprintln!("warning: {}: {note}", args.spectrum.display());
     }
-    let result = match fitter.try_fit(&measured, &quality) {
-        Ok(r) => r,
-        Err(e) => {
-            eprintln!("error: {}: {e}", args.spectrum.display());
-            return Ok(super::exit::FAILED);
-        }
-    };
+    // No pixel in the window is bad input (exit 2); a method that finds no answer failed (1).
+    let result = fitter
+        .try_fit(&measured, &quality)
+        .with_context(|| args.spectrum.display().to_string())?;
     // The part of the spectrum the fit used.
     let [lo, hi] = fitter.window_nm();
     let w = measured.window(lo, hi);
     if args.json {
-        println!("{}", serde_json::to_string(&result)?);
+        outln!("{}", serde_json::to_string(&result)?);
     } else {
         for l in &result.layers {
-            println!(
+            outln!(
                 "{:<10} {:>10.2} ± {:.2} nm",
-                l.material, l.thickness_nm, l.sigma_nm
+                l.material,
+                l.thickness_nm,
+                l.sigma_nm
             );
         }
-        println!("method {}, gof {:.5}", result.method, result.gof);
+        outln!("method {}, gof {:.5}", result.method, result.gof);
         if result.method == "fourier" {
-            println!(
+            outln!(
                 "smallest thickness this window resolves: {:.0} nm",
                 fitter.fourier_resolution_nm(&w.wavelength_nm)
             );
         }
         if !result.flags.is_empty() {
-            println!("flags: {}", result.flags.join(", "));
+            outln!("flags: {}", result.flags.join(", "));
         }
     }
     if let Some(out) = &args.plot {

@@ -1,19 +1,25 @@
 //! The CLI side of a measuring session (`run`, `resume`, `remeasure`): the confirmation before
-//! real motion, the progress bar, Ctrl-C, and the printed outcome. The session itself is
+//! real motion, the progress bar (a subscriber of the run events), the stop signals, and the
+//! printed outcome. The session itself is
 //! `isopach::run::measure::session`.
 
+use super::figures::{figures_line, no_valid_site};
+use super::output::outln;
 use super::safety::{confirm_motion, wait_for_operator};
 use indicatif::{ProgressBar, ProgressStyle};
-use isopach::map::stats::LayerSummary;
-use isopach::run::events::{Attempt, SiteState};
+use isopach::run::events::{Attempt, Event, SiteState};
 use isopach::run::folder::{RunFolder, RunToml};
-use isopach::run::measure::{self, Hooks, Report};
-use isopach::run::sequencer::{Outcome, Progress};
+use isopach::run::measure::{self, Hooks, SessionReport};
+use isopach::run::plan::Plan;
+use isopach::run::sequencer::Outcome;
+use isopach::run::stream::{RunEvent, Subscriber, Watcher};
+use std::sync::Arc;
 
 pub use isopach::run::measure::Which;
 
-/// Runs one measuring session on the run in `folder`; returns the exit code.
+/// Runs one measuring session of `plan` on the run in `folder`; returns the exit code.
 pub fn session(
+    plan: &Plan,
     folder: RunFolder,
     meta: RunToml,
     which: Which,
@@ -25,59 +31,99 @@ pub fn session(
         .enable_all()
         .build()?;
     let report = runtime.block_on(async {
-        let (cancel_tx, cancel_rx) = tokio::sync::watch::channel(false);
-        tokio::spawn(async move {
-            if tokio::signal::ctrl_c().await.is_ok() {
-                eprintln!("\nCtrl-C: stopping the stage and saving what was measured…");
-                let _ = cancel_tx.send(true);
-            }
-        });
+        let cancel = stop_signals();
         let bar = ProgressBar::new(0);
         bar.set_style(
             ProgressStyle::with_template("{spinner} site {pos}/{len} [{bar:30}] ETA {eta} {msg}")
                 .unwrap_or_else(|_| ProgressStyle::default_bar())
                 .progress_chars("=> "),
         );
-        let pb = bar.clone();
         let hooks = Hooks {
             confirm: Box::new(move |port| confirm_motion(port, assume_yes)),
-            prompt: Some(Box::new(wait_for_operator)),
-            progress: Box::new(move |p| match p {
-                Progress::Pass { sites, .. } => {
-                    pb.set_length(pb.length().unwrap_or(0) + sites as u64)
-                }
-                Progress::Site {
-                    site,
-                    thickness_nm,
-                    valid,
-                    flag,
-                    ..
-                } => {
-                    pb.inc(1);
-                    pb.set_message(if valid {
-                        format!("site {site}: {thickness_nm:.1} nm")
-                    } else {
-                        format!("site {site}: {flag}")
-                    });
-                }
-                // A hidden bar (stderr not a terminal) drops its println: notes such as
-                // "measuring again: site 12" must still reach the log.
-                Progress::Note(n) if pb.is_hidden() => eprintln!("{n}"),
-                Progress::Note(n) => pb.println(n),
-            }),
-            cancel: cancel_rx,
+            prompt: Some(Arc::new(wait_for_operator)),
+            subscribers: vec![progress_display(bar.clone())],
+            cancel,
         };
-        let report = measure::session(&folder, &meta, &which, command, hooks).await;
+        let report = measure::session(plan, &folder, &meta, &which, command, hooks).await;
         bar.finish_and_clear();
         report
-    })
-    .map_err(|e| {
+    });
+    // A prompt still waiting on the terminal must not keep the program alive.
+    runtime.shutdown_background();
+    let report = report.map_err(|e| {
         e.context(format!(
             "{command} stopped before measuring; the run folder {} is kept (after fixing the cause: isopach resume {0})",
             folder.root.display()
         ))
     })?;
     Ok(print(&folder, &meta, command, report))
+}
+
+/// A channel that becomes `true` on Ctrl-C (SIGINT), SIGTERM or SIGHUP (a closed terminal
+/// or SSH session): every one of them stops the stage and keeps the run resumable.
+fn stop_signals() -> tokio::sync::watch::Receiver<bool> {
+    let (tx, rx) = tokio::sync::watch::channel(false);
+    tokio::spawn(async move {
+        let name = wait_for_stop_signal().await;
+        eprintln!("\n{name}: stopping the stage and saving what was measured…");
+        let _ = tx.send(true);
+        // Keep the sender alive so the stop stays asked.
+        std::future::pending::<()>().await;
+    });
+    rx
+}
+
+#[cfg(unix)]
+async fn wait_for_stop_signal() -> &'static str {
+    use tokio::signal::unix::{signal, SignalKind};
+    let (Ok(mut term), Ok(mut hup)) = (
+        signal(SignalKind::terminate()),
+        signal(SignalKind::hangup()),
+    ) else {
+        let _ = tokio::signal::ctrl_c().await;
+        return "Ctrl-C";
+    };
+    tokio::select! {
+        _ = tokio::signal::ctrl_c() => "Ctrl-C",
+        _ = term.recv() => "SIGTERM",
+        _ = hup.recv() => "SIGHUP",
+    }
+}
+
+#[cfg(not(unix))]
+async fn wait_for_stop_signal() -> &'static str {
+    let _ = tokio::signal::ctrl_c().await;
+    "Ctrl-C"
+}
+
+/// The progress bar as a subscriber of the run events.
+fn progress_display(bar: ProgressBar) -> Box<dyn Subscriber> {
+    Box::new(Watcher(move |e: &RunEvent| match e {
+        RunEvent::Pass { sites, .. } => bar.set_length(bar.length().unwrap_or(0) + *sites as u64),
+        RunEvent::Journal(Event::SiteFitted {
+            site,
+            fit,
+            valid,
+            flag,
+            ..
+        }) => {
+            bar.inc(1);
+            bar.set_message(if *valid {
+                format!("site {site}: {:.1} nm", fit.thickness_nm())
+            } else {
+                format!("site {site}: {flag}")
+            });
+        }
+        RunEvent::Journal(Event::SiteFailed { site, reason, .. }) => {
+            bar.inc(1);
+            bar.set_message(format!("site {site}: {reason}"));
+        }
+        // A hidden bar (stderr not a terminal) drops its println: notes such as
+        // "measuring again: site 12" must still reach the log.
+        RunEvent::Note(n) if bar.is_hidden() => eprintln!("{n}"),
+        RunEvent::Note(n) => bar.println(n),
+        _ => {}
+    }))
 }
 
 /// Sends the library's tracing log to `log.txt` in the run folder (appended per session).
@@ -100,20 +146,20 @@ fn log_to(folder: &RunFolder) {
 }
 
 /// Prints the outcome and figures; returns the exit code.
-fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: Report) -> u8 {
+fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: SessionReport) -> u8 {
     let f = &report.summary.first;
     if report.measured.is_empty() {
         eprintln!("every site asked for already has a valid result: nothing to measure");
     }
-    println!("run {}: {}", meta.run.id, folder.root.display());
-    println!("  {}", figures_line(f));
+    outln!("run {}: {}", meta.run.id, folder.root.display());
+    outln!("  {}", figures_line(f));
     if command == "remeasure" {
         for state in report
             .states
             .iter()
             .filter(|s| report.measured.contains(&s.site.number))
         {
-            println!("  {}", attempts_line(state));
+            outln!("  {}", attempts_line(state));
         }
     }
     let bad: Vec<String> = report
@@ -123,7 +169,7 @@ fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: Report) -> u
         .map(|s| s.site.number.to_string())
         .collect();
     if !bad.is_empty() && matches!(report.outcome, Outcome::Finished) {
-        println!(
+        outln!(
             "  sites without a valid result: {} (isopach remeasure {} --failed)",
             bad.join(", "),
             folder.root.display()
@@ -131,7 +177,7 @@ fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: Report) -> u
     }
     if let Some(c) = f.spec.as_ref().filter(|c| !c.sites_out.is_empty()) {
         let out: Vec<String> = c.sites_out.iter().map(|n| n.to_string()).collect();
-        println!(
+        outln!(
             "  out of spec [{}, {}] nm: site {}",
             c.lo_nm,
             c.hi_nm,
@@ -139,7 +185,13 @@ fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: Report) -> u
         );
     }
     match report.outcome {
-        Outcome::Finished => super::exit::OK,
+        Outcome::Finished => match no_valid_site(f, &folder.root) {
+            Some(why) => {
+                eprintln!("{command} failed: {why}");
+                super::exit::FAILED
+            }
+            None => super::exit::OK,
+        },
         Outcome::Interrupted => {
             eprintln!(
                 "stopped; resume with: isopach resume {}",
@@ -184,22 +236,6 @@ fn attempts_line(state: &SiteState) -> String {
     );
     if let Some(best) = state.best().filter(|b| b.attempt != newest.attempt) {
         line.push_str(&format!("; the map keeps attempt {}", best.attempt));
-    }
-    line
-}
-
-/// `49 of 49 sites valid; mean …, 1σ … (… %), range … (… %)`, leaving out figures that do
-/// not exist (no valid site, or σ of a single site).
-fn figures_line(f: &LayerSummary) -> String {
-    let mut line = format!("{} of {} sites valid", f.sites_valid, f.sites_total);
-    if f.mean_nm.is_finite() {
-        line.push_str(&format!("; mean {:.2} nm", f.mean_nm));
-    }
-    if f.std_nm.is_finite() {
-        line.push_str(&format!(
-            ", 1σ {:.2} nm ({:.2} %), range {:.2} nm ({:.2} %)",
-            f.std_nm, f.nu_1sigma_pct, f.range_nm, f.nu_range_pct
-        ));
     }
     line
 }

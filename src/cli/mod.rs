@@ -7,6 +7,7 @@ use std::process::ExitCode;
 mod bench;
 mod check;
 mod compare;
+mod figures;
 mod fit;
 mod machine_arg;
 mod measure;
@@ -21,16 +22,16 @@ mod sites;
 mod stage;
 mod trend;
 
-/// Exit codes (documented in docs/cli.md).
+/// Exit codes (documented in docs/cli.md and the README).
 pub mod exit {
     /// Success.
     pub const OK: u8 = 0;
-    /// The work failed (hardware fault, fit failure, I/O error).
+    /// The work failed (hardware fault, fit failure, I/O error, a run with no valid site).
     pub const FAILED: u8 = 1;
-    /// The input is invalid (recipe, machine file, spectrum, arguments).
+    /// The input is invalid (recipe, machine file, spectrum, arguments, a run folder or site
+    /// that does not exist); clap's usage errors exit 2 as well.
     pub const INVALID: u8 = 2;
     /// Stopped by the user (Ctrl-C); the run can be resumed.
-    #[allow(dead_code)]
     pub const INTERRUPTED: u8 = 130;
 }
 
@@ -93,23 +94,111 @@ pub fn main() -> ExitCode {
         Command::Stage(a) => stage::run(a),
         Command::Bench(a) => bench::run(a),
     };
-    match result {
-        Ok(code) => ExitCode::from(code),
+    let code = match result {
+        Ok(code) => code,
         Err(e) => {
             eprintln!("error: {}", isopach::error_text::chain_text(&e));
-            ExitCode::from(error_code(&e))
+            error_code(&e)
         }
+    };
+    // A closed pipe ends printing quietly; any other failure to print fails the command.
+    match output::finish() {
+        Some(e) if code == exit::OK => {
+            eprintln!("error: cannot write to standard output: {e}");
+            ExitCode::from(exit::FAILED)
+        }
+        _ => ExitCode::from(code),
     }
 }
 
-/// Invalid input exits 2, everything else 1.
+/// The exit code of an error, from its kind (never from its wording).
 fn error_code(e: &anyhow::Error) -> u8 {
-    if e.chain().any(|c| {
-        c.downcast_ref::<isopach::recipe::RecipeError>().is_some()
-            || c.downcast_ref::<isopach::bench::MachineError>().is_some()
-    }) {
-        exit::INVALID
-    } else {
-        exit::FAILED
+    match isopach::error::kind(e) {
+        isopach::error::Kind::InvalidInput => exit::INVALID,
+        isopach::error::Kind::Failed => exit::FAILED,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::Cli;
+    use clap::CommandFactory;
+
+    /// The reference page, compiled in so a change to it reruns this test.
+    const DOC: &str = include_str!("../../docs/cli.md");
+
+    /// The text of the `## \`isopach NAME …\`` section of docs/cli.md.
+    fn section<'a>(doc: &'a str, name: &str) -> Option<&'a str> {
+        let head = format!("## `isopach {name}");
+        let start = doc.find(&head)?;
+        let rest = &doc[start + head.len()..];
+        let body = &rest[rest.find('\n').unwrap_or(rest.len())..];
+        Some(&body[..body.find("\n## ").unwrap_or(body.len())])
+    }
+
+    /// Whether `text` mentions `--flag` as a whole word (`--out` is not `--outline`).
+    fn mentions_flag(text: &str, flag: &str) -> bool {
+        let needle = format!("--{flag}");
+        text.match_indices(&needle).any(|(i, _)| {
+            !text[i + needle.len()..]
+                .starts_with(|c: char| c.is_ascii_alphanumeric() || c == '-' || c == '_')
+        })
+    }
+
+    /// Every flag of `cmd` and of its subcommands, and every subcommand's name, must be in `text`.
+    fn walk(
+        cmd: &clap::Command,
+        path: &str,
+        text: &str,
+        seen: &mut usize,
+        missing: &mut Vec<String>,
+    ) {
+        for arg in cmd.get_arguments() {
+            if let Some(long) = arg.get_long().filter(|l| !["help", "version"].contains(l)) {
+                *seen += 1;
+                if !mentions_flag(text, long) {
+                    missing.push(format!("isopach {path} --{long}"));
+                }
+            }
+        }
+        for sub in cmd.get_subcommands().filter(|s| s.get_name() != "help") {
+            let sub_path = format!("{path} {}", sub.get_name());
+            if !text.contains(&format!("isopach {sub_path}")) {
+                missing.push(format!("isopach {sub_path}"));
+            }
+            walk(sub, &sub_path, text, seen, missing);
+        }
+    }
+
+    #[test]
+    fn docs_cli_md_lists_every_command_and_flag() {
+        let (mut seen, mut missing) = (0, Vec::new());
+        for cmd in Cli::command().get_subcommands() {
+            let name = cmd.get_name();
+            let (Some(text), true) = (
+                section(DOC, name),
+                DOC.contains(&format!("| `isopach {name}")),
+            ) else {
+                missing.push(format!("isopach {name} (a table row and a `## ` section)"));
+                continue;
+            };
+            walk(cmd, name, text, &mut seen, &mut missing);
+        }
+        // The walk reached the flags (41 when this was written), not an empty definition.
+        assert!(seen > 35, "only {seen} flags found in the clap definitions");
+        assert!(
+            missing.is_empty(),
+            "docs/cli.md does not document:\n  {}",
+            missing.join("\n  ")
+        );
+    }
+
+    #[test]
+    fn a_flag_is_found_only_as_a_whole_word() {
+        assert!(mentions_flag("use `--out F` here", "out"));
+        assert!(mentions_flag("ends with --out", "out"));
+        assert!(!mentions_flag("the --outline flag", "out"));
+        assert!(!mentions_flag("--no-values", "no"));
+        assert!(section(DOC, "run").is_some_and(|s| !s.contains("## ")));
     }
 }

@@ -1,5 +1,7 @@
 //! `isopach refit RUN [--recipe R]`: fit the stored spectra again, no stage motion.
 
+use super::figures::{figures_line, no_valid_site};
+use super::output::outln;
 use anyhow::Context;
 use indicatif::ProgressBar;
 use isopach::recipe;
@@ -7,7 +9,7 @@ use isopach::run::events::{now, Event};
 use isopach::run::folder::RunFolder;
 use isopach::run::journal::Journal;
 use isopach::run::measure::{machine_of, reference_material};
-use isopach::run::{derive, refit, session};
+use isopach::run::{derive, new_run, refit};
 use std::path::PathBuf;
 
 /// Arguments of `isopach refit`.
@@ -34,7 +36,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     if let Some(path) = &args.recipe {
         let new = recipe::load(path)?;
         let mut updated = refit::refit_recipe(&meta.recipe, &new.recipe)?;
-        updated = session::freeze_tables(&updated, new.dir(), &folder.root)?;
+        updated = new_run::freeze_tables(&updated, new.dir(), &folder.root)?;
         let backup = folder.root.join(format!(
             "run-before-refit-{}.toml",
             chrono::Local::now().format("%Y%m%d-%H%M%S")
@@ -42,14 +44,14 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         std::fs::copy(folder.run_toml(), &backup)
             .with_context(|| format!("cannot keep the old run.toml as {}", backup.display()))?;
         meta.recipe = updated;
-        session::write_run_toml(&folder, &meta)?;
+        new_run::write_run_toml(&folder, &meta)?;
         eprintln!(
             "run.toml updated from {} (previous kept as {})",
             path.display(),
             backup.display()
         );
     }
-    let loaded = session::loaded_recipe(&folder, &meta);
+    let loaded = new_run::loaded_recipe(&folder, &meta);
     let fitter = isopach::fit::Fitter::from_recipe(&loaded)?;
     for w in fitter.warnings() {
         eprintln!("warning: {w}");
@@ -78,15 +80,15 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     }
     let summary = derive::rebuild(&folder)?;
     let f = &summary.first;
-    println!(
-        "refitted {} spectra of run {}: {} of {} sites valid; mean {:.2} nm, 1σ {:.2} nm ({:.2} %)",
+    outln!(
+        "refitted {} spectra of run {}: {}",
         attempts.len(),
         meta.run.id,
-        f.sites_valid,
-        f.sites_total,
-        f.mean_nm,
-        f.std_nm,
-        f.nu_1sigma_pct
+        figures_line(f)
     );
+    if let Some(why) = no_valid_site(f, &folder.root) {
+        eprintln!("refit failed: {why}");
+        return Ok(super::exit::FAILED);
+    }
     Ok(super::exit::OK)
 }

@@ -1,8 +1,8 @@
 //! `isopach remeasure RUN (--site N ... | --failed) [--yes]`: measure chosen sites again.
 
 use super::measure::{self, Which};
-use anyhow::bail;
-use isopach::run::{derive, folder::RunFolder};
+use isopach::error::InputError;
+use isopach::run::folder::RunFolder;
 use std::path::PathBuf;
 
 /// Arguments of `isopach remeasure`.
@@ -33,7 +33,8 @@ pub struct Args {
 pub fn run(args: Args) -> anyhow::Result<u8> {
     let folder = RunFolder::new(&args.run);
     let meta = folder.read_run_toml()?;
-    let planned = derive::planned_sites(&meta);
+    let plan = isopach::run::measure::plan_of_run(&folder, &meta)?;
+    let planned: Vec<_> = plan.sites().map(|s| s.site).collect();
     let which = if args.failed {
         Which::Missing
     } else {
@@ -42,12 +43,13 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             .iter()
             .find(|n| !planned.iter().any(|s| s.number == **n))
         {
-            bail!(
-                "site {bad} is not in this run's plan (sites 1..{})",
-                planned.len()
-            );
+            return Err(InputError::SiteNotInPlan {
+                site: *bad,
+                sites: planned.len(),
+            }
+            .into());
         }
         Which::Sites(args.sites)
     };
-    measure::session(folder, meta, which, args.yes, "remeasure")
+    measure::session(&plan, folder, meta, which, args.yes, "remeasure")
 }

@@ -1,9 +1,11 @@
 //! `isopach render RUN [--out FILE.svg|.png] [--levels N] [--no-values] [--layer K]`: draw a
 //! run's map again from its `run.toml` and `sites.csv`.
 
-use anyhow::{bail, Context};
-use isopach::map::{render_png, render_svg, sites_table, RenderOptions};
-use isopach::run::files::write_atomic;
+use super::figures::figures_line;
+use super::output::{outln, page_format, write_scene};
+use isopach::error::InputError;
+use isopach::map::layout::page;
+use isopach::map::{sites_table, RenderOptions};
 use isopach::run::folder::RunFolder;
 use isopach::run::outputs::{run_map_input, run_summary, write_run_maps};
 use std::path::PathBuf;
@@ -32,6 +34,9 @@ pub struct Args {
 
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
+    if let Some(out) = &args.out {
+        page_format(out)?;
+    }
     let folder = RunFolder::new(&args.run);
     let meta = folder.read_run_toml()?;
     let rows = sites_table::read_file(&folder.sites_csv())?;
@@ -44,28 +49,15 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     let layers = summary.all_layers();
     let layer = args.layer as usize - 1;
     if layer >= layers.len() {
-        bail!(
-            "--layer {}: this run has {} fitted layer(s)",
-            args.layer,
-            layers.len()
-        );
+        return Err(InputError::NoSuchLayer {
+            layer: args.layer as usize,
+            layers: layers.len(),
+        }
+        .into());
     }
     match &args.out {
         Some(out) => {
-            let input = run_map_input(&rows, &meta, layer);
-            let ext = out
-                .extension()
-                .and_then(|e| e.to_str())
-                .map(str::to_ascii_lowercase);
-            let bytes = match ext.as_deref() {
-                Some("svg") => render_svg(&input, &opts).into_bytes(),
-                Some("png") => render_png(&input, &opts)?,
-                _ => bail!(
-                    "--out {}: the file name must end in .svg or .png",
-                    out.display()
-                ),
-            };
-            write_atomic(out, &bytes).with_context(|| format!("cannot write {}", out.display()))?;
+            write_scene(out, &page(&run_map_input(&rows, &meta, layer), &opts))?;
             eprintln!("map written to {}", out.display());
         }
         None => {
@@ -75,20 +67,11 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         }
     }
     let s = &layers[layer];
-    println!(
-        "{}: {} of {} sites valid, mean {:.2} nm, 1σ {:.2} nm ({:.2} %), range {:.2} nm ({:.2} %)",
-        if s.layer.is_empty() {
-            "layer"
-        } else {
-            &s.layer
-        },
-        s.sites_valid,
-        s.sites_total,
-        s.mean_nm,
-        s.std_nm,
-        s.nu_1sigma_pct,
-        s.range_nm,
-        s.nu_range_pct
-    );
+    let name = if s.layer.is_empty() {
+        "layer"
+    } else {
+        &s.layer
+    };
+    outln!("{name}: {}", figures_line(s));
     Ok(super::exit::OK)
 }

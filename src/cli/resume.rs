@@ -21,5 +21,6 @@ pub struct Args {
 pub fn run(args: Args) -> anyhow::Result<u8> {
     let folder = RunFolder::new(&args.run);
     let meta = folder.read_run_toml()?;
-    measure::session(folder, meta, Which::Missing, args.yes, "resume")
+    let plan = isopach::run::measure::plan_of_run(&folder, &meta)?;
+    measure::session(&plan, folder, meta, Which::Missing, args.yes, "resume")
 }

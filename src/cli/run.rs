@@ -1,10 +1,11 @@
 //! `isopach run RECIPE [--machine M] [--wafer ID] [--lot L] [--runs DIR] [--yes] [--dry-run]`.
 
 use super::measure::{self, Which};
+use super::output::outln;
 use anyhow::Context;
-use isopach::bench::machine;
 use isopach::recipe;
-use isopach::run::{plan, session};
+use isopach::run::new_run;
+use isopach::run::plan::{path_length, Plan};
 use std::path::PathBuf;
 
 /// Arguments of `isopach run`.
@@ -46,23 +47,26 @@ pub struct Args {
     seed: Option<u64>,
 }
 
-/// Runs the command.
+/// Runs the command. The plan is made and checked first: an invalid recipe, machine file or
+/// plan leaves no folder and opens no port.
 pub fn run(args: Args) -> anyhow::Result<u8> {
     let loaded = recipe::load(&args.recipe)?;
     let machine = match &args.machine {
-        Some(p) => Some(machine::load(p)?.machine),
+        Some(p) => Some(super::machine_arg::load_for(p, &loaded.recipe)?),
         None => None,
     };
+    let plan = Plan::new(&loaded, machine.as_ref())?;
     if args.dry_run {
-        return dry_run(&loaded, machine.as_ref());
+        return dry_run(&plan);
     }
+    let plan = plan.checked()?;
     let seed = args.seed.unwrap_or_else(|| seed_of(&args.wafer));
     let table = machine
         .as_ref()
         .map(toml::Table::try_from)
         .transpose()
         .context("cannot freeze the machine file")?;
-    let new = session::NewRun {
+    let new = new_run::NewRun {
         wafer: args.wafer,
         lot: args.lot,
         operator: args.operator,
@@ -70,9 +74,9 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         machine: table,
         seed,
     };
-    let (folder, meta) = session::create(&loaded, &new)?;
+    let (folder, meta) = new_run::create(&plan, &new)?;
     eprintln!("run {} in {}", meta.run.id, folder.root.display());
-    measure::session(folder, meta, Which::Missing, args.yes, "run")
+    measure::session(&plan, folder, meta, Which::Missing, args.yes, "run")
 }
 
 /// A stable seed from the wafer id (FNV-1a), so every simulated wafer is its own.
@@ -82,50 +86,45 @@ fn seed_of(wafer: &str) -> u64 {
     })
 }
 
-/// Prints the plan in measuring order, its path length and its estimated duration.
-fn dry_run(
-    loaded: &recipe::LoadedRecipe,
-    machine: Option<&isopach::bench::MachineFile>,
-) -> anyhow::Result<u8> {
-    let m = machine.cloned().unwrap_or_else(machine::builtin_simulated);
-    let sites = plan::order(&loaded.recipe.pattern, &loaded.sites());
-    let transform = isopach::bench::chuck::ChuckTransform::from_spec(&m.chuck);
-    let limits = isopach::bench::limits::SoftLimits::from_spec(&m.stage);
-    let approach = isopach::bench::limits::Approach::from_spec(&m.stage);
-    let outside = isopach::bench::limits::check_sites(&sites, &transform, &limits, &approach);
-    println!(
+/// Prints the plan in measuring order, its path length and its estimated duration; exit 2
+/// (after printing) when it breaks the soft limits.
+fn dry_run(plan: &Plan) -> anyhow::Result<u8> {
+    outln!(
         "{:>5} {:>5} {:>9} {:>9} {:>10} {:>10}",
-        "order", "site", "x_mm", "y_mm", "stage_x", "stage_y"
+        "order",
+        "site",
+        "x_mm",
+        "y_mm",
+        "stage_x",
+        "stage_y"
     );
-    for (i, s) in sites.iter().enumerate() {
-        let p = transform.to_stage(s.x_mm, s.y_mm);
-        println!(
+    for (i, s) in plan.sites().enumerate() {
+        outln!(
             "{:>5} {:>5} {:>9.3} {:>9.3} {:>10.3} {:>10.3}",
             i + 1,
-            s.number,
-            s.x_mm,
-            s.y_mm,
-            p[0],
-            p[1]
+            s.site.number,
+            s.site.x_mm,
+            s.site.y_mm,
+            s.stage_mm[0],
+            s.stage_mm[1]
         );
     }
-    let a = &loaded.recipe.acquire;
+    let a = plan.acquire();
+    let m = &plan.machine;
     let per_site = (a.settle_ms + a.integration_ms * a.averages as f64) / 1000.0;
-    let secs = plan::duration_estimate_s(&sites, a, &m);
-    println!(
+    let sites: Vec<_> = plan.sites().map(|s| s.site).collect();
+    outln!(
         "{} sites, path {:.1} mm from the wafer centre, at least {:.1} s from the stage's home corner ({}: feed {} mm/min, accel {} mm/s², {:.0} ms per site)",
         sites.len(),
-        plan::path_length((0.0, 0.0), &sites),
-        secs,
+        path_length((0.0, 0.0), &sites),
+        plan.duration_s,
         m.name,
         m.stage.feed_mm_min,
         m.stage.accel_mm_s2,
         per_site * 1000.0
     );
-    if !outside.is_empty() {
-        for o in &outside {
-            println!("outside the soft limits: {o}");
-        }
+    if let Some(problem) = plan.limit_problem() {
+        eprintln!("error: {problem}");
         return Ok(super::exit::INVALID);
     }
     Ok(super::exit::OK)

@@ -1,8 +1,10 @@
 //! `isopach sites RECIPE [--out FILE.svg] [--csv]`: list and draw the site plan.
 
+use super::output::outln;
 use anyhow::Context;
 use isopach::map::site_plan;
-use isopach::recipe;
+use isopach::recipe::{self, Site};
+use isopach::run::plan::Plan;
 use std::path::PathBuf;
 
 /// Arguments of `isopach sites`.
@@ -24,17 +26,20 @@ pub struct Args {
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
     let loaded = recipe::load(&args.recipe)?;
-    let sites = loaded.sites();
+    // The sites of the plan `run` would measure, listed by number.
+    let plan = Plan::new(&loaded, None)?;
+    let mut sites: Vec<Site> = plan.sites().map(|s| s.site).collect();
+    sites.sort_by_key(|s| s.number);
     if args.csv {
-        println!("site,x_mm,y_mm,r_mm");
+        outln!("site,x_mm,y_mm,r_mm");
         for s in &sites {
             // Full precision: rounding would push rim sites past the usable radius.
-            println!("{},{},{},{}", s.number, s.x_mm, s.y_mm, s.radius());
+            outln!("{},{},{},{}", s.number, s.x_mm, s.y_mm, s.radius());
         }
     } else {
-        println!("{:>5} {:>9} {:>9} {:>9}", "site", "x_mm", "y_mm", "r_mm");
+        outln!("{:>5} {:>9} {:>9} {:>9}", "site", "x_mm", "y_mm", "r_mm");
         for s in &sites {
-            println!(
+            outln!(
                 "{:>5} {:>9.3} {:>9.3} {:>9.3}",
                 s.number,
                 s.x_mm,
@@ -42,7 +47,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
                 s.radius()
             );
         }
-        println!("{} sites", sites.len());
+        outln!("{} sites", sites.len());
     }
     if let Some(out) = &args.out {
         let svg = site_plan::svg(&loaded.wafer(), &sites, &loaded.recipe.name);

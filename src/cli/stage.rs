@@ -4,6 +4,7 @@
 //! port the user is asked to confirm (`--yes` skips it); Ctrl-C stops motion.
 
 use super::machine_arg;
+use super::output::outln;
 use isopach::bench::machine::builtin_simulated;
 use isopach::bench::sim::clock::SimClock;
 use isopach::bench::{open_stage, ChuckTransform, Stage};
@@ -51,7 +52,7 @@ enum Action {
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
     let m = match &args.machine {
-        Some(p) => match machine_arg::load(p)? {
+        Some(p) => match machine_arg::load_or_report(p, None)? {
             Ok(m) => m,
             Err(code) => return Ok(code),
         },
@@ -106,7 +107,7 @@ fn print_position(stage: &dyn Stage, pos: Option<[f64; 2]>, t: &ChuckTransform) 
     match pos {
         Some(p) => {
             let w = t.to_wafer(p[0], p[1]);
-            println!(
+            outln!(
                 "{}: stage ({:.3}, {:.3}) mm, wafer ({:.3}, {:.3}) mm",
                 stage.describe(),
                 p[0],
@@ -115,7 +116,7 @@ fn print_position(stage: &dyn Stage, pos: Option<[f64; 2]>, t: &ChuckTransform) 
                 w[1]
             );
         }
-        None => println!(
+        None => outln!(
             "{}: position unknown (the controller gives no status report; home or move first)",
             stage.describe()
         ),

@@ -1,6 +1,8 @@
 //! `isopach trend [--recipe NAME] [--lot L] [--runs DIR] [--rebuild] [--out FILE] [--json]`.
 
-use anyhow::Context;
+use super::figures::num;
+use super::output::outln;
+use isopach::error::InputError;
 use isopach::history::{chart, control, db::History, record};
 use isopach::run::history_entry;
 use serde_json::json;
@@ -38,9 +40,16 @@ pub struct Args {
 
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
-    let layer = args.layer.checked_sub(1).context("--layer counts from 1")?;
+    let layer = args
+        .layer
+        .checked_sub(1)
+        .ok_or_else(|| InputError::argument("--layer counts from 1"))?;
     if !args.runs.is_dir() {
-        anyhow::bail!("no runs folder {} (give --runs DIR)", args.runs.display());
+        return Err(InputError::argument(format!(
+            "no runs folder {} (give --runs DIR)",
+            args.runs.display()
+        ))
+        .into());
     }
     if args.rebuild {
         let (n, skipped) = history_entry::rebuild_history(&args.runs)?;
@@ -56,9 +65,8 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     let points = history.trend(args.recipe.as_deref(), args.lot.as_deref(), layer)?;
     let means: Vec<f64> = points.iter().map(|p| p.mean_nm).collect();
     let nus: Vec<f64> = points.iter().map(|p| p.nu_1sigma_pct).collect();
-    let (lm, ln) = (control::limits(&means), control::limits(&nus));
-    let sm = lm.map(|l| control::signals(&means, &l)).unwrap_or_default();
-    let sn = ln.map(|l| control::signals(&nus, &l)).unwrap_or_default();
+    let (lm, sm) = control_of(&means);
+    let (ln, sn) = control_of(&nus);
     if let Some(out) = &args.out {
         let title = format!(
             "run chart{}{}",
@@ -84,7 +92,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
                        "mean_signals": sm.get(i), "nu_signals": sn.get(i)})
             })
             .collect();
-        println!(
+        outln!(
             "{}",
             serde_json::to_string_pretty(
                 &json!({"runs": rows, "mean_limits": lm, "nu_limits": ln})
@@ -93,15 +101,19 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         return Ok(super::exit::OK);
     }
     if points.is_empty() {
-        println!(
+        outln!(
             "no runs in the history{}",
             if args.rebuild { "" } else { " (try --rebuild)" }
         );
         return Ok(super::exit::OK);
     }
-    println!(
+    outln!(
         "{:<22} {:<16} {:<10} {:>10} {:>8}  signals",
-        "started", "wafer", "lot", "mean_nm", "NU_%"
+        "started",
+        "wafer",
+        "lot",
+        "mean_nm",
+        "NU_%"
     );
     for (i, p) in points.iter().enumerate() {
         let mut s: Vec<String> = Vec::new();
@@ -117,25 +129,48 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
                 .flatten()
                 .map(|x| format!("NU {}", signal(*x))),
         );
-        println!(
-            "{:<22} {:<16} {:<10} {:>10.3} {:>8.3}  {}",
+        if p.sites_valid == 0 {
+            s.push("no valid site".into());
+        }
+        outln!(
+            "{:<22} {:<16} {:<10} {:>10} {:>8}  {}",
             p.started.get(..19).unwrap_or(&p.started),
             p.wafer,
             p.lot,
-            p.mean_nm,
-            p.nu_1sigma_pct,
+            num(p.mean_nm),
+            num(p.nu_1sigma_pct),
             s.join(", ")
         );
     }
     for (name, l) in [("mean", lm), ("NU", ln)] {
         if let Some(l) = l {
-            println!(
+            outln!(
                 "{name}: centre {:.3}, LCL {:.3}, UCL {:.3} (MR̄ {:.3})",
-                l.center, l.lcl, l.ucl, l.mr_bar
+                l.center,
+                l.lcl,
+                l.ucl,
+                l.mr_bar
             );
         }
     }
     Ok(super::exit::OK)
+}
+
+/// I-MR limits and each point's signals, over the runs that have the figure (a run with no
+/// valid site has no mean and stays out of the limits); no signals without limits.
+fn control_of(values: &[f64]) -> (Option<control::ControlLimits>, Vec<Vec<control::Signal>>) {
+    let present: Vec<usize> = (0..values.len())
+        .filter(|&i| values[i].is_finite())
+        .collect();
+    let xs: Vec<f64> = present.iter().map(|&i| values[i]).collect();
+    let Some(limits) = control::limits(&xs) else {
+        return (None, Vec::new());
+    };
+    let mut signals = vec![Vec::new(); values.len()];
+    for (i, s) in present.into_iter().zip(control::signals(&xs, &limits)) {
+        signals[i] = s;
+    }
+    (Some(limits), signals)
 }
 
 fn signal(s: control::Signal) -> &'static str {

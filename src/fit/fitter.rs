@@ -62,6 +62,9 @@ const SEARCH_PIXELS_PER_FRINGE: f64 = 5.0;
 /// Fewer pixels per fringe than this and `auto` uses the Fourier method.
 const MODEL_MIN_PIXELS_PER_FRINGE: f64 = 3.0;
 
+// Recipe validation promises every stack it accepts can be modelled.
+const _: () = assert!(crate::recipe::validate::MAX_LAYERS <= MAX_LAYERS);
+
 impl Fitter {
     /// Resolves the recipe's materials and stack; errors name the recipe and what to fix.
     pub fn from_recipe(loaded: &LoadedRecipe) -> Result<Fitter, FitError> {
@@ -71,7 +74,7 @@ impl Fitter {
             recipe: loaded.path.clone(),
             message,
         };
-        let library = MaterialLibrary::for_recipe(recipe, loaded.dir())?;
+        let library = loaded.material_library()?;
         let ambient = library.require(&film.ambient)?.clone();
         let substrate = library.require(&film.substrate)?.clone();
         let mut layers = Vec::new();
@@ -286,6 +289,12 @@ impl Fitter {
             gof: g,
             flags,
         })
+    }
+
+    /// Checks that `material` is known here (built in, or the recipe's own).
+    pub fn check_material(&self, material: &str) -> Result<(), FitError> {
+        self.library.require(material)?;
+        Ok(())
     }
 
     /// Reflectance of the bare `material` under the recipe's ambient, angle and NA: the

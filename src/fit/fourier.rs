@@ -124,11 +124,18 @@ pub fn estimate(
     let mag: Vec<f64> = spec.iter().map(|c| c.norm()).collect();
     // Bin k is the frequency k/(padded·dx) cycles per unit x, i.e. thickness in nm.
     let bin_nm = 1.0 / (padded as f64 * dx);
-    let k_lo = (lo / bin_nm).ceil() as usize;
-    let k_hi = ((max_nm / bin_nm).floor() as usize).min(mag.len() - 2);
-    if k_lo + 1 > k_hi {
-        return Err("the search range holds no Fourier bin".into());
+    // Bins are chosen in floating point and clamped before they become indices, so no
+    // search range, however large or odd, can index outside the spectrum.
+    let last = mag.len() - 2;
+    let k_lo = (lo / bin_nm).ceil().max(1.0);
+    let k_hi = (max_nm / bin_nm).floor().min(last as f64);
+    if !(k_lo + 1.0 <= k_hi) {
+        return Err(format!(
+            "the search range [{lo}, {max_nm}] nm holds no Fourier bin (this window resolves thicknesses up to about {:.0} nm)",
+            last as f64 * bin_nm
+        ));
     }
+    let (k_lo, k_hi) = (k_lo as usize, k_hi as usize);
     let kp = (k_lo..=k_hi)
         .max_by(|a, b| mag[*a].total_cmp(&mag[*b]))
         .unwrap_or(k_lo);
@@ -187,6 +194,27 @@ mod tests {
             );
             assert!(e.resolution_nm > 400.0 && e.resolution_nm < 600.0);
         }
+    }
+
+    #[test]
+    fn huge_search_ranges_are_refused_not_panicking() {
+        let w: Vec<f64> = (0..500).map(|i| 420.0 + i as f64).collect();
+        let x = fringe_coordinate(&w, &vec![1.46; w.len()], &vec![1.0; w.len()]);
+        let r: Vec<f64> = x.iter().map(|x| 0.3 + 0.1 * (6000.0 * x).cos()).collect();
+        for (lo, hi) in [
+            (1e307, 1e308),
+            (100.0, f64::INFINITY),
+            (f64::NAN, 1e308),
+            (1e5, 2e5),
+        ] {
+            let e = estimate(&Plans::default(), &x, &r, lo, hi);
+            assert!(
+                e.is_err() || e.unwrap().thickness_nm.is_finite(),
+                "{lo} {hi}"
+            );
+        }
+        let e = estimate(&Plans::default(), &x, &r, 1e307, 1e308).unwrap_err();
+        assert!(e.contains("no Fourier bin"), "{e}");
     }
 
     #[test]

@@ -1,11 +1,10 @@
 //! The materials a recipe can use: the built-ins plus the recipe's own `[materials.NAME]`
-//! (a recipe's name wins over a built-in one).
+//! descriptions (a recipe's name wins over a built-in one).
 
 use super::material::{Dispersion, Material};
+use super::spec::MaterialSpec;
 use super::table::NkTable;
 use super::{builtin, OpticsError};
-use crate::recipe::schema::MaterialSpec;
-use crate::recipe::Recipe;
 use std::collections::BTreeMap;
 use std::path::Path;
 use std::sync::Arc;
@@ -27,11 +26,14 @@ impl MaterialLibrary {
         }
     }
 
-    /// The built-ins plus the recipe's own materials; table files are read relative to
-    /// `recipe_dir`.
-    pub fn for_recipe(recipe: &Recipe, recipe_dir: &Path) -> Result<MaterialLibrary, OpticsError> {
+    /// The built-ins plus a recipe's own materials (which win over built-ins of the same
+    /// name); table files are read relative to `recipe_dir`.
+    pub fn with_materials(
+        materials: &BTreeMap<String, MaterialSpec>,
+        recipe_dir: &Path,
+    ) -> Result<MaterialLibrary, OpticsError> {
         let mut lib = MaterialLibrary::builtin();
-        for (name, spec) in &recipe.materials {
+        for (name, spec) in materials {
             lib.insert(from_spec(name, spec, recipe_dir)?);
         }
         Ok(lib)
@@ -109,25 +111,11 @@ mod tests {
 
     #[test]
     fn recipe_material_wins_over_builtin() {
-        let text = r#"
-name = "t"
-[wafer]
-diameter_mm = 100
-edge_exclusion_mm = 3
-[pattern]
-kind = "standard"
-sites = 1
-[film]
-ambient = "air"
-substrate = "si"
-layers = [ { material = "sio2", nominal_nm = 100 } ]
-wavelength_nm = [400, 900]
-[materials.sio2]
-model = "constant"
-n = 1.5
-"#;
-        let recipe = crate::recipe::parse(text, Path::new("t.toml")).unwrap();
-        let lib = MaterialLibrary::for_recipe(&recipe, Path::new(".")).unwrap();
+        let materials = BTreeMap::from([(
+            "sio2".to_string(),
+            MaterialSpec::Constant { n: 1.5, k: 0.0 },
+        )]);
+        let lib = MaterialLibrary::with_materials(&materials, Path::new(".")).unwrap();
         assert_eq!(lib.get("sio2").unwrap().index(500.0).re, 1.5);
         assert!(lib.get("si").is_some());
         let e = lib.require("sio").unwrap_err().to_string();

@@ -6,6 +6,7 @@ pub mod dispersion;
 pub mod library;
 pub mod material;
 pub mod quadrature;
+pub mod spec;
 pub mod spline;
 pub mod stack;
 pub mod table;
@@ -13,6 +14,7 @@ pub mod tmm;
 
 pub use library::MaterialLibrary;
 pub use material::{Dispersion, Material};
+pub use spec::MaterialSpec;
 pub use stack::{Layer, Stack};
 pub use table::NkTable;
 pub use tmm::{

@@ -2,16 +2,17 @@
 //! geometry and site patterns.
 
 pub mod geometry;
-pub mod locate;
 pub mod pattern;
 pub mod schema;
 pub mod validate;
 
+pub use crate::tomlcheck::Located;
 pub use geometry::Wafer;
-pub use locate::Located;
 pub use pattern::Site;
 pub use schema::Recipe;
 
+use crate::optics::{MaterialLibrary, OpticsError};
+use crate::tomlcheck::{self, Problem};
 use std::path::{Path, PathBuf};
 
 /// Why a recipe could not be loaded.
@@ -22,7 +23,7 @@ pub enum RecipeError {
         path: PathBuf,
         source: std::io::Error,
     },
-    #[error("{}", locate::join(.0))]
+    #[error("{}", tomlcheck::join(.0))]
     Invalid(Vec<Located>),
 }
 
@@ -44,6 +45,10 @@ impl LoadedRecipe {
     /// Wafer geometry.
     pub fn wafer(&self) -> Wafer {
         Wafer::from_spec(&self.recipe.wafer)
+    }
+    /// The built-in materials plus the recipe's own, table files read from [`Self::dir`].
+    pub fn material_library(&self) -> Result<MaterialLibrary, OpticsError> {
+        MaterialLibrary::with_materials(&self.recipe.materials, self.dir())
     }
     /// The numbered sites of the recipe's pattern.
     pub fn sites(&self) -> Vec<Site> {
@@ -68,16 +73,17 @@ pub fn load(path: &Path) -> Result<LoadedRecipe, RecipeError> {
 /// Parses and validates recipe text; `path` is used in messages and to find table files.
 pub fn parse(text: &str, path: &Path) -> Result<Recipe, RecipeError> {
     let dir = path.parent().unwrap_or(Path::new("."));
-    locate::parse_validated(text, path, |recipe: &Recipe| {
+    tomlcheck::parse_validated(text, path, |recipe: &Recipe| {
         let mut problems = validate::validate(recipe);
         // Table files are the one check that looks outside the text.
         for (name, spec) in &recipe.materials {
             if let schema::MaterialSpec::Table { file } = spec {
-                if !file.trim().is_empty() && !dir.join(file).is_file() {
-                    problems.push(validate::Problem {
-                        path: validate::KeyPath::parse(&format!("materials.{name}.file")),
-                        message: format!("table file {} not found", dir.join(file).display()),
-                    });
+                let usable = crate::optics::spec::table_path_problem(file).is_none();
+                if usable && !dir.join(file).is_file() {
+                    problems.push(Problem::at(
+                        &format!("materials.{name}.file"),
+                        format!("table file {} not found", dir.join(file).display()),
+                    ));
                 }
             }
         }

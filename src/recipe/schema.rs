@@ -1,8 +1,10 @@
 //! The recipe file schema (DESIGN.md §3, a contract): plain serde types, unknown keys rejected.
 //!
 //! These types say only what a recipe *is*; whether its values make sense is
-//! [`super::validate`]'s job, and where a value sits in the file is [`super::locate`]'s.
+//! [`super::validate`]'s job, and where a value sits in the file is [`crate::tomlcheck`]'s.
+//! User materials are described by [`MaterialSpec`], owned by optics.
 
+pub use crate::optics::spec::MaterialSpec;
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
@@ -219,30 +221,4 @@ impl Default for AcceptSpec {
             spec_nm: None,
         }
     }
-}
-
-/// A user material defined in the recipe (λ in µm in every formula).
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-#[serde(tag = "model", rename_all = "lowercase", deny_unknown_fields)]
-pub enum MaterialSpec {
-    /// n = a + b/λ² + c/λ⁴, constant k.
-    Cauchy {
-        a: f64,
-        #[serde(default)]
-        b: f64,
-        #[serde(default)]
-        c: f64,
-        #[serde(default)]
-        k: f64,
-    },
-    /// n² = 1 + Σ bᵢ λ²/(λ² − cᵢ), cᵢ in µm².
-    Sellmeier { b: Vec<f64>, c: Vec<f64> },
-    /// CSV `wavelength_nm,n,k`, path relative to the recipe file.
-    Table { file: String },
-    /// Constant n and k.
-    Constant {
-        n: f64,
-        #[serde(default)]
-        k: f64,
-    },
 }

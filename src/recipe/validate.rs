@@ -1,92 +1,14 @@
-//! Recipe validation: every problem at once, each tied to the key it concerns.
+//! Recipe rules: every problem at once, each tied to the key it concerns.
 //!
-//! Pure: takes a parsed [`Recipe`] and returns [`Problem`]s with a key path; the loader turns
-//! paths into file, line and column.
+//! Pure: takes a parsed [`Recipe`] and returns [`Problem`]s with a key path; the generic
+//! machinery (key paths, reading past type errors, file positions) is [`crate::tomlcheck`].
+//! Everything a run would refuse is a problem here, before any folder or port is opened.
 
 use super::geometry::Wafer;
 use super::pattern::{self, STANDARD_COUNTS};
-use super::schema::{FilmSpec, MaterialSpec, PatternSpec, Recipe};
-use crate::optics::dispersion::{cauchy_n, sellmeier_n2, sellmeier_poles_um};
-use crate::optics::BUILTIN_NAMES;
-use std::fmt;
-
-/// One step of a key path into the recipe document.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub enum Seg {
-    Key(String),
-    Index(usize),
-}
-
-/// A key path such as `film.layers[0].material`.
-#[derive(Debug, Clone, PartialEq, Eq, Default)]
-pub struct KeyPath(pub Vec<Seg>);
-
-impl KeyPath {
-    /// Parses `a.b[2].c` (keys with dots are not expected in recipes).
-    pub fn parse(s: &str) -> KeyPath {
-        let mut segs = Vec::new();
-        for part in s.split('.').filter(|p| !p.is_empty()) {
-            let mut rest = part;
-            if let Some(i) = rest.find('[') {
-                segs.push(Seg::Key(rest[..i].to_string()));
-                rest = &rest[i..];
-                while let Some(end) = rest.find(']') {
-                    if let Ok(n) = rest[1..end].parse() {
-                        segs.push(Seg::Index(n));
-                    }
-                    rest = &rest[end + 1..];
-                }
-            } else {
-                segs.push(Seg::Key(rest.to_string()));
-            }
-        }
-        KeyPath(segs)
-    }
-}
-
-impl fmt::Display for KeyPath {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        for (i, s) in self.0.iter().enumerate() {
-            match s {
-                Seg::Key(k) if i == 0 => write!(f, "{k}")?,
-                Seg::Key(k) => write!(f, ".{k}")?,
-                Seg::Index(n) => write!(f, "[{n}]")?,
-            }
-        }
-        Ok(())
-    }
-}
-
-/// A validation problem: where (key path) and what, in plain words.
-#[derive(Debug, Clone, PartialEq)]
-pub struct Problem {
-    pub path: KeyPath,
-    pub message: String,
-}
-
-/// Collects problems with less ceremony.
-#[derive(Default)]
-pub struct Report(pub Vec<Problem>);
-
-impl Report {
-    /// Adds a problem unless `value` is finite and inside `[lo, hi]`.
-    pub fn range(&mut self, path: &str, value: f64, lo: f64, hi: f64, unit: &str) {
-        if !(value >= lo && value <= hi) {
-            self.at(
-                path,
-                format!("{value} {unit} is outside [{lo}, {hi}] {unit}"),
-            );
-        }
-    }
-
-    /// Adds a problem at a key path written like `film.layers[0].material`.
-    pub fn at(&mut self, path: &str, message: impl Into<String>) {
-        self.0.push(Problem {
-            path: KeyPath::parse(path),
-            message: message.into(),
-        });
-    }
-}
+use super::schema::{FilmSpec, FitMethod, PatternSpec, Recipe};
+use crate::optics::{spec, BUILTIN_NAMES};
+use crate::tomlcheck::{nearest, num, KeyPath, Problem, Problems, Seg};
 
 /// Wavelengths a fitting window may use, nm.
 pub const WINDOW_LIMITS_NM: [f64; 2] = [200.0, 2000.0];
@@ -94,10 +16,22 @@ pub const WINDOW_LIMITS_NM: [f64; 2] = [200.0, 2000.0];
 pub const DIAMETER_LIMITS_MM: [f64; 2] = [25.0, 450.0];
 /// Most layers whose thickness can be fitted at once.
 pub const MAX_FITTED_LAYERS: usize = 3;
+/// Most layers a stack may have (the fitting kernel holds this many; `fit` asserts it).
+pub const MAX_LAYERS: usize = 16;
+/// Most sites a map may have. At a few seconds a site, 10 000 sites is a day of stage time;
+/// a larger map is a typing slip, and its plan and route would not fit in memory or time.
+pub const MAX_SITES: u64 = 10_000;
+/// Thickest film (nominal or search bound) accepted, nm. Beyond 100 µm the fringes,
+/// λ²/(2nd) ≈ 0.6 nm apart at 420 nm in n = 1.5, are finer than a spectrometer pixel
+/// resolves; larger numbers are typing slips that would only make the search unbounded.
+pub const MAX_THICKNESS_NM: f64 = 100_000.0;
+/// Most averages or retries per site (each multiplies the time per site).
+pub const MAX_AVERAGES: u32 = 10_000;
+pub const MAX_RETRIES: u32 = 100;
 
 /// Validates a recipe; an empty list means it is good.
 pub fn validate(recipe: &Recipe) -> Vec<Problem> {
-    let mut r = Report::default();
+    let mut r = Problems::default();
     if recipe.name.trim().is_empty() {
         r.at("name", "the recipe name is empty");
     }
@@ -123,7 +57,7 @@ enum WaferCheck {
     BadDiameter,
 }
 
-fn check_wafer(recipe: &Recipe, r: &mut Report) -> WaferCheck {
+fn check_wafer(recipe: &Recipe, r: &mut Problems) -> WaferCheck {
     let w = &recipe.wafer;
     if !w.orientation_angle_deg.is_finite() {
         r.at(
@@ -160,17 +94,30 @@ fn check_wafer(recipe: &Recipe, r: &mut Report) -> WaferCheck {
     WaferCheck::Good
 }
 
-fn check_pattern(recipe: &Recipe, wafer: &Wafer, r: &mut Report) {
+fn check_pattern(recipe: &Recipe, wafer: &Wafer, r: &mut Problems) {
     let usable = wafer.usable_radius();
     match &recipe.pattern {
         PatternSpec::Polar {
-            rings, radii_mm, ..
+            rings,
+            radii_mm,
+            start_angle_deg,
+            ..
         } => {
+            if !(start_angle_deg.abs() <= 360.0) {
+                r.at(
+                    "pattern.start_angle_deg",
+                    format!("start angle {start_angle_deg}° must be in [-360, 360]"),
+                );
+            }
             if rings.is_empty() {
                 r.at(
                     "pattern.rings",
                     "rings is empty: give the number of sites on each ring, e.g. [8, 16]",
                 );
+            }
+            let count: u64 = rings.iter().map(|n| u64::from(*n)).sum();
+            if count > MAX_SITES {
+                r.at("pattern.rings", too_many(count));
             }
             for (i, n) in rings.iter().enumerate() {
                 if *n == 0 {
@@ -201,12 +148,22 @@ fn check_pattern(recipe: &Recipe, wafer: &Wafer, r: &mut Report) {
                 }
             }
         }
-        PatternSpec::Grid { pitch_mm, .. } => {
-            if !(*pitch_mm > 0.0) {
+        PatternSpec::Grid {
+            pitch_mm,
+            offset_mm,
+        } => {
+            // The count is estimated from the area before any site is generated: a tiny pitch
+            // would otherwise take hours and gigabytes just to list the sites.
+            let estimate = std::f64::consts::PI * (usable / pitch_mm).powi(2);
+            if !offset_mm.iter().all(|v| v.is_finite()) {
+                // Reported where it was read.
+            } else if !(*pitch_mm > 0.0) {
                 r.at(
                     "pattern.pitch_mm",
                     format!("grid pitch {pitch_mm} mm must be greater than zero"),
                 );
+            } else if !(estimate <= MAX_SITES as f64) {
+                r.at("pattern.pitch_mm", too_many(estimate.min(1e18) as u64));
             } else if pattern::sites(&recipe.pattern, wafer).is_empty() {
                 r.at(
                     "pattern.pitch_mm",
@@ -220,6 +177,10 @@ fn check_pattern(recipe: &Recipe, wafer: &Wafer, r: &mut Report) {
                     "pattern.sites_mm",
                     "sites_mm is empty: list at least one [x, y] site",
                 );
+            }
+            if sites_mm.len() as u64 > MAX_SITES {
+                r.at("pattern.sites_mm", too_many(sites_mm.len() as u64));
+                return;
             }
             for (i, p) in sites_mm.iter().enumerate() {
                 let out = wafer.outside_usable_by(p[0], p[1]);
@@ -258,7 +219,7 @@ fn check_pattern(recipe: &Recipe, wafer: &Wafer, r: &mut Report) {
     }
 }
 
-fn check_film(recipe: &Recipe, r: &mut Report) {
+fn check_film(recipe: &Recipe, r: &mut Problems) {
     let film = &recipe.film;
     let [wlo, whi] = film.wavelength_nm;
     let [llo, lhi] = WINDOW_LIMITS_NM;
@@ -272,7 +233,7 @@ fn check_film(recipe: &Recipe, r: &mut Report) {
         );
     }
     let known = known_materials(recipe);
-    let check_name = |path: &str, name: &str, r: &mut Report| {
+    let check_name = |path: &str, name: &str, r: &mut Problems| {
         if !known.iter().any(|k| k == name) {
             let hint = nearest(name, &known)
                 .map(|n| format!("; did you mean \"{n}\"?"))
@@ -294,9 +255,44 @@ fn check_film(recipe: &Recipe, r: &mut Report) {
             "layers is empty: give at least one layer, top first",
         );
     }
+    if film.layers.len() > MAX_LAYERS {
+        r.at(
+            "film.layers",
+            format!(
+                "{} layers; at most {MAX_LAYERS} can be modelled",
+                film.layers.len()
+            ),
+        );
+    }
     for (i, layer) in film.layers.iter().enumerate() {
         let at = |k: &str| format!("film.layers[{i}].{k}");
         check_name(&at("material"), &layer.material, r);
+        let mut sane = true;
+        for (key, v) in [
+            ("nominal_nm", Some(layer.nominal_nm)),
+            ("min_nm", layer.min_nm),
+            ("max_nm", layer.max_nm),
+        ] {
+            match v {
+                // Not finite: reported where it was read; its bounds cannot be judged.
+                Some(v) if !v.is_finite() => sane = false,
+                Some(v) if v > MAX_THICKNESS_NM => {
+                    sane = false;
+                    r.at(
+                        &at(key),
+                        format!(
+                            "layer {}: {key} {} nm is above {MAX_THICKNESS_NM} nm (100 µm): thicker films give fringes finer than a spectrometer pixel resolves",
+                            i + 1,
+                            num(v)
+                        ),
+                    );
+                }
+                _ => {}
+            }
+        }
+        if !sane {
+            continue;
+        }
         let (min, max) = (layer.min(), layer.max());
         if !(min >= 0.0) {
             r.at(
@@ -330,6 +326,15 @@ fn check_film(recipe: &Recipe, r: &mut Report) {
             "no layer is fitted: set fit = true on at least one",
         );
     }
+    if matches!(film.method, FitMethod::Fourier | FitMethod::Extrema) && fitted > 1 {
+        r.at(
+            "film.method",
+            format!(
+                "method {} fits one layer, the recipe fits {fitted}: use method = \"model\" (or \"auto\"), or set fit = false on all layers but one",
+                film.method.as_str()
+            ),
+        );
+    }
     if fitted > MAX_FITTED_LAYERS {
         r.at(
             "film.layers",
@@ -348,11 +353,20 @@ fn check_film(recipe: &Recipe, r: &mut Report) {
             format!("numerical aperture {} must be in [0, 1)", film.na),
         );
     }
-    for (name, spec) in &recipe.materials {
-        check_material(name, spec, window_ok.then_some(film.wavelength_nm), r);
+    for (name, m) in &recipe.materials {
+        for p in spec::check(name, m, window_ok.then_some(film.wavelength_nm)) {
+            let mut path = KeyPath(vec![Seg::Key("materials".into()), Seg::Key(name.clone())]);
+            path.0.extend(p.path.0);
+            r.0.push(Problem {
+                path,
+                message: p.message,
+            });
+        }
     }
     if let Some([lo, hi]) = recipe.accept.spec_nm {
-        if !(lo < hi) {
+        if !(lo.is_finite() && hi.is_finite()) {
+            // Reported where it was read.
+        } else if !(lo < hi) {
             r.at(
                 "accept.spec_nm",
                 format!("spec window [{lo}, {hi}] nm is reversed or empty"),
@@ -367,7 +381,7 @@ fn check_film(recipe: &Recipe, r: &mut Report) {
     }
 }
 
-fn check_acquire(recipe: &Recipe, r: &mut Report) {
+fn check_acquire(recipe: &Recipe, r: &mut Problems) {
     let a = &recipe.acquire;
     if !(a.integration_ms > 0.0 && a.integration_ms <= 60_000.0) {
         r.at(
@@ -378,8 +392,17 @@ fn check_acquire(recipe: &Recipe, r: &mut Report) {
             ),
         );
     }
-    if a.averages == 0 {
-        r.at("acquire.averages", "averages must be at least 1");
+    if !(1..=MAX_AVERAGES).contains(&a.averages) {
+        r.at(
+            "acquire.averages",
+            format!("averages {} must be in [1, {MAX_AVERAGES}]", a.averages),
+        );
+    }
+    if a.retries > MAX_RETRIES {
+        r.at(
+            "acquire.retries",
+            format!("retries {} must be at most {MAX_RETRIES}", a.retries),
+        );
     }
     if !(a.settle_ms >= 0.0 && a.settle_ms <= 60_000.0) {
         r.at(
@@ -387,6 +410,13 @@ fn check_acquire(recipe: &Recipe, r: &mut Report) {
             format!("settle time {} ms must be in [0, 60000]", a.settle_ms),
         );
     }
+}
+
+/// The site-count problem, with the ceiling and why.
+fn too_many(count: u64) -> String {
+    format!(
+        "this pattern has about {count} sites, more than the {MAX_SITES} a map may have (at a few seconds a site, {MAX_SITES} sites already take a day): use fewer rings or sites, or a larger pitch"
+    )
 }
 
 /// Material names a recipe may use: its own plus the built-ins.
@@ -400,129 +430,7 @@ pub fn known_materials(recipe: &Recipe) -> Vec<String> {
     names
 }
 
-/// Wavelengths (µm) at which a user's formula is sampled to check n ≥ 1.
-fn samples_um(window_nm: [f64; 2]) -> impl Iterator<Item = f64> {
-    (0..=64).map(move |i| (window_nm[0] + (window_nm[1] - window_nm[0]) * i as f64 / 64.0) / 1000.0)
-}
-
-fn check_material(name: &str, spec: &MaterialSpec, window: Option<[f64; 2]>, r: &mut Report) {
-    let at = |k: &str| format!("materials.{name}.{k}");
-    match spec {
-        MaterialSpec::Cauchy { a, b, c, k } => {
-            if *k < 0.0 {
-                r.at(
-                    &at("k"),
-                    format!("material {name}: k = {k} is negative (k ≥ 0 means absorption)"),
-                );
-            }
-            if let Some(w) = window {
-                if let Some(n) = samples_um(w)
-                    .map(|l| cauchy_n(*a, *b, *c, l))
-                    .find(|n| !(*n >= 1.0))
-                {
-                    r.at(
-                        &at("a"),
-                        format!(
-                            "material {name}: n falls to {n:.4} (< 1) inside the window {w:?} nm"
-                        ),
-                    );
-                }
-            }
-        }
-        MaterialSpec::Sellmeier { b, c } => {
-            if b.len() != c.len() || b.is_empty() {
-                r.at(
-                    &at("c"),
-                    format!(
-                        "material {name}: {} b terms and {} c terms; give one c per b",
-                        b.len(),
-                        c.len()
-                    ),
-                );
-                return;
-            }
-            if let Some(w) = window {
-                let (lo, hi) = (w[0] / 1000.0, w[1] / 1000.0);
-                if let Some(p) = sellmeier_poles_um(c)
-                    .into_iter()
-                    .find(|p| *p >= lo && *p <= hi)
-                {
-                    r.at(&at("c"), format!("material {name}: a Sellmeier pole at {:.1} nm lies inside the window {w:?} nm", p * 1000.0));
-                } else if let Some(n2) = samples_um(w)
-                    .map(|l| sellmeier_n2(b, c, l))
-                    .find(|n2| !(*n2 >= 1.0))
-                {
-                    r.at(&at("b"), format!("material {name}: n² falls to {n2:.4} (n < 1) inside the window {w:?} nm"));
-                }
-            }
-        }
-        MaterialSpec::Constant { n, k } => {
-            if !(*n >= 1.0) {
-                r.at(&at("n"), format!("material {name}: n = {n} is below 1"));
-            }
-            if *k < 0.0 {
-                r.at(
-                    &at("k"),
-                    format!("material {name}: k = {k} is negative (k ≥ 0 means absorption)"),
-                );
-            }
-        }
-        MaterialSpec::Table { file } => {
-            if file.trim().is_empty() {
-                r.at(&at("file"), format!("material {name}: no table file given"));
-            }
-        }
-    }
-}
-
-/// The known name closest to `name` by edit distance, if it is close enough to be a typo.
-pub fn nearest<'a>(name: &str, known: &'a [String]) -> Option<&'a str> {
-    let name = name.to_lowercase();
-    known
-        .iter()
-        .map(|k| (edit_distance(&name, &k.to_lowercase()), k))
-        .filter(|(d, k)| *d <= (k.len().max(name.len()) / 2).max(1))
-        .min_by_key(|(d, _)| *d)
-        .map(|(_, k)| k.as_str())
-}
-
-/// Levenshtein distance over chars.
-fn edit_distance(a: &str, b: &str) -> usize {
-    let b: Vec<char> = b.chars().collect();
-    let mut prev: Vec<usize> = (0..=b.len()).collect();
-    for (i, ca) in a.chars().enumerate() {
-        let mut cur = vec![i + 1; b.len() + 1];
-        for (j, cb) in b.iter().enumerate() {
-            cur[j + 1] = (prev[j] + usize::from(ca != *cb))
-                .min(prev[j + 1] + 1)
-                .min(cur[j] + 1);
-        }
-        prev = cur;
-    }
-    prev[b.len()]
-}
-
 /// The fitted layers of a film, with their index in the stack.
 pub fn fitted_layers(film: &FilmSpec) -> impl Iterator<Item = (usize, &super::schema::LayerSpec)> {
     film.layers.iter().enumerate().filter(|(_, l)| l.fit)
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn key_paths_round_trip() {
-        for s in ["film.layers[0].material", "pattern.sites_mm[3]", "name"] {
-            assert_eq!(KeyPath::parse(s).to_string(), s);
-        }
-    }
-
-    #[test]
-    fn suggests_close_names_only() {
-        let known: Vec<String> = BUILTIN_NAMES.iter().map(|s| s.to_string()).collect();
-        assert_eq!(nearest("si02", &known), Some("sio2"));
-        assert_eq!(nearest("SiN4", &known), Some("si3n4"));
-        assert_eq!(nearest("unobtainium", &known), None);
-    }
 }

@@ -7,16 +7,35 @@ use super::folder::{RunFolder, RunToml};
 use super::history_entry;
 use super::journal;
 use super::outputs::{fitted_layer_names, write_run_outputs};
+use super::plan::frozen::FrozenPlan;
 use crate::map::sites_table::SiteRow;
 use crate::map::stats::Summary;
 use crate::recipe::{pattern, Site, Wafer};
+use anyhow::Context;
 
 /// Flag of a planned site that has no attempt yet.
 pub const NOT_MEASURED: &str = "not-measured";
 
-/// The planned sites of a run (from its frozen recipe), in site-number order.
-pub fn planned_sites(meta: &RunToml) -> Vec<Site> {
-    pattern::sites(&meta.recipe.pattern, &Wafer::from_spec(&meta.recipe.wafer))
+/// The planned sites of a run in measuring order: its frozen `plan.json`, or for a run made
+/// before plans were frozen, the frozen recipe's pattern in the order it would be planned.
+pub fn planned_order(folder: &RunFolder, meta: &RunToml) -> anyhow::Result<Vec<Site>> {
+    let path = folder.plan_json();
+    if path.exists() {
+        let text =
+            std::fs::read(&path).with_context(|| format!("cannot read {}", path.display()))?;
+        let frozen: FrozenPlan = serde_json::from_slice(&text)
+            .with_context(|| format!("{} is not a valid plan", path.display()))?;
+        return Ok(frozen.ordered_sites());
+    }
+    let sites = pattern::sites(&meta.recipe.pattern, &Wafer::from_spec(&meta.recipe.wafer));
+    Ok(super::plan::order(&meta.recipe.pattern, &sites))
+}
+
+/// The planned sites of a run, in site-number order.
+pub fn planned_sites(folder: &RunFolder, meta: &RunToml) -> anyhow::Result<Vec<Site>> {
+    let mut sites = planned_order(folder, meta)?;
+    sites.sort_by_key(|s| s.number);
+    Ok(sites)
 }
 
 /// Reads the journal and folds it into per-site state.
@@ -30,7 +49,7 @@ pub fn read_states(
     } else {
         Vec::new()
     };
-    let states = site_states(&planned_sites(meta), &events);
+    let states = site_states(&planned_sites(folder, meta)?, &events);
     Ok((events, states))
 }
 

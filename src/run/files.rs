@@ -21,3 +21,11 @@ pub fn write_atomic(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
         let _ = std::fs::remove_file(&tmp);
     })
 }
+
+/// Syncs a folder's entry list (after a rename into it), so the new name survives a power
+/// loss. Best effort: some file systems refuse to open folders for syncing.
+pub fn sync_dir(dir: &Path) {
+    if let Ok(d) = std::fs::File::open(dir) {
+        let _ = d.sync_all();
+    }
+}

@@ -2,6 +2,7 @@
 //!
 //! ```text
 //! runs/<run-id>/run.toml       frozen recipe + machine + run metadata
+//!               plan.json      the frozen plan: sites in measuring order, stage coordinates
 //!               journal.jsonl  append-only events, the truth
 //!               spectra/       raw spectra, one CSV per acquisition
 //!               sites.csv, summary.json, map.svg, map.png   derived, rebuilt from the journal
@@ -55,6 +56,9 @@ impl RunFolder {
     pub fn run_toml(&self) -> PathBuf {
         self.root.join("run.toml")
     }
+    pub fn plan_json(&self) -> PathBuf {
+        self.root.join("plan.json")
+    }
     pub fn journal(&self) -> PathBuf {
         self.root.join("journal.jsonl")
     }
@@ -75,15 +79,55 @@ impl RunFolder {
     }
 
     /// Reads `run.toml`.
-    pub fn read_run_toml(&self) -> anyhow::Result<RunToml> {
+    pub fn read_run_toml(&self) -> Result<RunToml, RunFolderError> {
+        if !self.root.is_dir() {
+            return Err(RunFolderError::Missing {
+                path: self.root.clone(),
+            });
+        }
         read_run_toml(&self.run_toml())
     }
 }
 
+/// Why a run folder cannot be read.
+#[derive(Debug, thiserror::Error)]
+pub enum RunFolderError {
+    /// The folder does not exist.
+    #[error("{}: no such run folder (give a folder that holds a run.toml, e.g. runs/20261202-090507-W07)", path.display())]
+    Missing { path: PathBuf },
+    /// The folder exists but holds no `run.toml`.
+    #[error("{}: not a run folder (it has no run.toml)", path.display())]
+    NotARun { path: PathBuf },
+    /// `run.toml` does not parse.
+    #[error("{} is not a valid run.toml: {source}", path.display())]
+    Invalid {
+        path: PathBuf,
+        source: toml::de::Error,
+    },
+    /// `run.toml` exists but cannot be read.
+    #[error("cannot read {}: {source}", path.display())]
+    Io {
+        path: PathBuf,
+        source: std::io::Error,
+    },
+}
+
 /// Reads and parses a `run.toml` file, naming the file in errors.
-pub fn read_run_toml(path: &Path) -> anyhow::Result<RunToml> {
-    use anyhow::Context;
-    let text =
-        std::fs::read_to_string(path).with_context(|| format!("cannot read {}", path.display()))?;
-    toml::from_str(&text).with_context(|| format!("{} is not a valid run.toml", path.display()))
+pub fn read_run_toml(path: &Path) -> Result<RunToml, RunFolderError> {
+    let text = std::fs::read_to_string(path).map_err(|source| {
+        if source.kind() == std::io::ErrorKind::NotFound {
+            RunFolderError::NotARun {
+                path: path.parent().unwrap_or(path).into(),
+            }
+        } else {
+            RunFolderError::Io {
+                path: path.into(),
+                source,
+            }
+        }
+    })?;
+    toml::from_str(&text).map_err(|source| RunFolderError::Invalid {
+        path: path.into(),
+        source,
+    })
 }

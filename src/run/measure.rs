@@ -1,22 +1,23 @@
-//! One measuring session on a run (what `run`, `resume` and `remeasure` share): fit spectra left
-//! unfitted by a stop, open the bench frozen in `run.toml`, check the plan against the soft
-//! limits before any motion, confirm real motion, measure, journal the end and rebuild the
-//! derived files. The caller supplies the human side through [`Hooks`].
+//! One measuring session on a run (what `run`, `resume` and `remeasure` share): the run's
+//! plan (checked before anything is touched), spectra left unfitted by a stop fitted first,
+//! the bench opened inside the session's cancellation scope, real motion confirmed, the plan
+//! executed by the sequencer, the end journalled and the derived files rebuilt. The caller
+//! supplies the human side through [`Hooks`].
 
-use super::derive::{self, planned_sites};
+use super::derive;
 use super::events::{now, Event, SiteState};
+use super::fit_workers::FitWorkers;
 use super::folder::{RunFolder, RunToml};
-use super::plan;
+use super::journal::Journal;
+use super::new_run::loaded_recipe;
+use super::plan::{Plan, PlanError};
 use super::refit::fit_stored;
-use super::sequencer::{Outcome, Progress, Prompt, Sequencer};
-use super::session::loaded_recipe;
+use super::sequencer::{Outcome, Prompt, Scope, Sequencer};
+use super::stream::{EventStream, RunEvent, Subscriber};
 use crate::bench::{machine::builtin_simulated, Bench, MachineFile};
-use crate::fit::Fitter;
 use crate::map::stats::Summary;
-use crate::recipe::Site;
 use anyhow::Context;
 use std::collections::BTreeMap;
-use std::sync::Arc;
 use tokio::sync::watch;
 
 /// Which sites a session measures.
@@ -37,15 +38,16 @@ pub struct Hooks {
     pub confirm: Confirm,
     /// Asks the operator for a hand step (placing the reference); `None` makes it an error.
     pub prompt: Option<Prompt>,
-    /// Where progress goes; the optical model's warnings (a window beyond a material's
-    /// published range, …) come first, as notes, before anything is measured.
-    pub progress: Box<dyn FnMut(Progress) + Send>,
-    /// Becomes `true` to stop (Ctrl-C).
+    /// Further subscribers of the run events (progress display, live view); the optical
+    /// model's warnings (a window beyond a material's published range, …) come first, as
+    /// notes, before anything is measured.
+    pub subscribers: Vec<Box<dyn Subscriber>>,
+    /// Becomes `true` to stop (Ctrl-C, SIGTERM, SIGHUP).
     pub cancel: watch::Receiver<bool>,
 }
 
 /// How a session ended, with the run's figures after it.
-pub struct Report {
+pub struct SessionReport {
     pub outcome: Outcome,
     pub summary: Summary,
     pub states: Vec<SiteState>,
@@ -72,23 +74,26 @@ pub fn reference_material(machine: &Option<MachineFile>) -> String {
         .unwrap_or_else(|| builtin_simulated().reference.material)
 }
 
-/// Runs one measuring session on the run in `folder`.
+/// The plan of an existing run: its frozen recipe, machine file and site order, checked.
+pub fn plan_of_run(folder: &RunFolder, meta: &RunToml) -> anyhow::Result<Plan> {
+    let loaded = loaded_recipe(folder, meta);
+    let machine = machine_of(meta)?;
+    let order = derive::planned_order(folder, meta)?;
+    Ok(Plan::for_sites(&loaded, machine.as_ref(), &order)?.checked()?)
+}
+
+/// Runs one measuring session of `plan` on the run in `folder`.
 pub async fn session(
+    plan: &Plan,
     folder: &RunFolder,
     meta: &RunToml,
     which: &Which,
     command: &str,
     hooks: Hooks,
-) -> anyhow::Result<Report> {
-    let loaded = loaded_recipe(folder, meta);
-    let fitter = Arc::new(Fitter::from_recipe(&loaded)?);
-    let mut progress = hooks.progress;
-    for w in fitter.warnings() {
-        progress(Progress::Note(format!("warning: {w}")));
+) -> anyhow::Result<SessionReport> {
+    if let Some(problem) = plan.limit_problem() {
+        return Err(PlanError::OutsideTravel(problem).into());
     }
-    let machine = machine_of(meta)?;
-    let material = reference_material(&machine);
-    let plan_sites = plan::order(&meta.recipe.pattern, &planned_sites(meta));
     let (events, states) = derive::read_states(folder, meta)?;
     let earlier_sessions = events
         .iter()
@@ -102,86 +107,109 @@ pub async fn session(
         .iter()
         .map(|s| (s.site.number, s.next_attempt()))
         .collect();
-    let todo: Vec<Site> = plan_sites
-        .iter()
-        .filter(|s| match which {
-            Which::Missing => !valid.get(&s.number).copied().unwrap_or(false),
-            Which::Sites(n) => n.contains(&s.number),
-        })
-        .copied()
-        .collect();
+    let todo = plan.only(|s| match which {
+        Which::Missing => !valid.get(&s.number).copied().unwrap_or(false),
+        Which::Sites(n) => n.contains(&s.number),
+    });
+    let workers = FitWorkers::new(plan.fitter.clone(), plan.reference_material.clone());
+    let mut stream = EventStream::new();
+    stream.subscribe(Journal::open(&folder.journal())?);
+    stream.subscribe(workers.clone());
+    stream.subscribe_all(hooks.subscribers);
+    let scope = Scope::new(hooks.cancel);
     let mut seq = Sequencer::new(
         folder.clone(),
-        meta,
-        fitter.clone(),
-        material.clone(),
-        hooks.cancel,
-    )?;
-    seq.log(&Event::RunStarted {
+        stream,
+        workers,
+        scope.clone(),
+        plan.accept().clone(),
+    )
+    .with_prompt(hooks.prompt);
+    for w in plan.fitter.warnings() {
+        seq.publish(RunEvent::Note(format!("warning: {w}")))?;
+    }
+    seq.log(Event::RunStarted {
         time: now(),
         command: command.to_string(),
-        sites_planned: plan_sites.len(),
+        sites_planned: plan.sites().count(),
     })?;
     // Spectra stored before a stop but not fitted are fitted first: no motion needed.
     for s in &states {
         for a in s.unfitted() {
             if let Some(rel) = &a.spectrum {
-                seq.log(&fit_stored(
+                seq.log(fit_stored(
                     folder,
                     s.site.number,
                     a.attempt,
                     rel,
-                    &fitter,
-                    &material,
-                    &meta.recipe.accept,
+                    &plan.fitter,
+                    &plan.reference_material,
+                    plan.accept(),
                 ))?;
             }
         }
     }
-    let outcome = if todo.is_empty() {
+    let outcome = if todo.sites().next().is_none() {
         Outcome::Finished
     } else {
-        let mut bench =
-            Bench::open_session(machine.as_ref(), &loaded, meta.run.seed, earlier_sessions).await?;
-        tracing::info!(stage = %bench.stage.describe(), spectrometer = %bench.spectrometer.describe(), sites = todo.len(), "{command}: bench open");
-        bench.check_plan(&todo)?;
-        if !bench.is_simulated() {
-            (hooks.confirm)(&bench.stage.describe())?;
-        }
-        seq = seq.on_progress(progress);
-        if let Some(p) = hooks.prompt {
-            seq = seq.with_prompt(p);
-        }
-        let outcome = match seq.prepare(&mut bench).await {
-            Ok(()) => {
-                seq.measure(&mut bench, &todo, |site| {
-                    let n = next.entry(site).or_insert(1);
-                    *n += 1;
-                    *n - 1
-                })
-                .await
+        let machine = machine_of(meta)?;
+        let opened = scope
+            .guard(async {
+                Ok(Bench::open_session(
+                    machine.as_ref(),
+                    &plan.recipe,
+                    meta.run.seed,
+                    earlier_sessions,
+                )
+                .await?)
+            })
+            .await;
+        match opened {
+            Err(stop) => seq.stopped(None, stop).await,
+            Ok(mut bench) => {
+                tracing::info!(stage = %bench.stage.describe(), spectrometer = %bench.spectrometer.describe(), sites = todo.sites().count(), "{command}: bench open");
+                let confirmed = if bench.is_simulated() {
+                    Ok(())
+                } else {
+                    (hooks.confirm)(&bench.stage.describe())
+                };
+                let outcome = match confirmed {
+                    Err(e) => return Err(e),
+                    Ok(()) => {
+                        seq.execute(&mut bench, &todo, |site| {
+                            let n = next.entry(site).or_insert(1);
+                            *n += 1;
+                            *n - 1
+                        })
+                        .await
+                    }
+                };
+                // The last lines exchanged with the controller say most about a stop: what
+                // was in flight, and the stop sent.
+                let why = match &outcome {
+                    Outcome::Failed(e) => Some(crate::error_text::chain_text(e)),
+                    Outcome::Interrupted => Some("interrupted".to_string()),
+                    Outcome::Finished => None,
+                };
+                if let Some(why) = why {
+                    tracing::error!(
+                        "{command} stopped: {why}\nrecent G-code conversation:\n{}",
+                        bench.stage.transcript().join("\n")
+                    );
+                }
+                outcome
             }
-            Err(e) => Outcome::Failed(e),
-        };
-        if let Outcome::Failed(e) = &outcome {
-            // The last lines exchanged with the controller say most about a fault.
-            tracing::error!(
-                "{command} stopped: {}\nrecent G-code conversation:\n{}",
-                crate::error_text::chain_text(e),
-                bench.stage.transcript().join("\n")
-            );
         }
-        outcome
     };
     let (_, states) = derive::read_states(folder, meta)?;
     if matches!(outcome, Outcome::Finished) && states.iter().all(|s| !s.attempts.is_empty()) {
-        seq.log(&Event::RunFinished { time: now() })?;
+        seq.log(Event::RunFinished { time: now() })?;
     }
     let summary = derive::rebuild(folder)?;
-    Ok(Report {
+    Ok(SessionReport {
         outcome,
         summary,
         states,
-        measured: todo.iter().map(|s| s.number).collect(),
+        measured: todo.sites().map(|s| s.site.number).collect(),
     })
 }

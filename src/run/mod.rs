@@ -1,15 +1,18 @@
-//! Map runs: plan, sequencer, journal, run folder, history.
+//! Map runs: the plan (a value), the sequencer that executes it, the event stream and its
+//! subscribers (journal, fitting workers), the run folder and what is derived from it.
 
 pub mod derive;
 pub mod events;
 pub mod files;
+pub mod fit_workers;
 pub mod folder;
 pub mod history_entry;
 pub mod id;
 pub mod journal;
 pub mod measure;
+pub mod new_run;
 pub mod outputs;
 pub mod plan;
 pub mod refit;
 pub mod sequencer;
-pub mod session;
+pub mod stream;

@@ -1,24 +1,27 @@
-//! The sequencer: drives a bench through a list of sites and journals every step.
+//! The sequencer: executes a [`Plan`]'s steps on a bench under one cancellation scope and
+//! publishes every step on the run's [`EventStream`].
 //!
-//! Per site: move → motion complete → settle → acquire → store the raw spectrum → journal it →
-//! hand it to a fitting worker (a blocking thread) while the stage moves on to the next site.
-//! Sites that come back invalid are measured again, up to the recipe's `retries`, in a second
-//! pass; a site that still fails is flagged, not fatal. Cancellation (Ctrl-C) stops motion,
-//! finishes the fit in flight and journals the stop, so the run can be resumed.
+//! Steps: home → reference (move to the reference piece, or ask the operator) with dark and
+//! reference spectra → per site: move → motion complete → settle → acquire → store the raw
+//! spectrum → journal it → the fitting workers fit it while the stage moves on. Sites that come
+//! back invalid are measured again, up to the recipe's `retries`, in further passes; a site
+//! that still fails is flagged, not fatal. Ctrl-C or a fault at ANY step (homing and the
+//! reference move included) abandons that step, finishes and journals the fits in flight,
+//! stops the stage and journals the stop, so the run can be resumed.
 
 use super::events::{judge, now, Event};
-use super::folder::{RunFolder, RunToml};
-use super::journal::Journal;
+use super::fit_workers::{FitWorkers, Pending};
+use super::folder::RunFolder;
+use super::plan::{Plan, ReferencePlacement, SiteStep, Step};
+use super::stream::{EventStream, RunEvent};
 use crate::bench::Bench;
-use crate::fit::{FitResult, Fitter};
-use crate::recipe::schema::AcquireSpec;
-use crate::recipe::Site;
+use crate::recipe::schema::AcceptSpec;
 use crate::spectrum::{write_counts_csv, Counts, RawSpectrum};
 use anyhow::Context;
+use std::future::Future;
 use std::sync::Arc;
 use std::time::Duration;
 use tokio::sync::watch;
-use tokio::task::JoinHandle;
 
 /// How a session of measuring ended.
 #[derive(Debug)]
@@ -31,158 +34,245 @@ pub enum Outcome {
     Failed(anyhow::Error),
 }
 
-/// What the sequencer tells whoever shows progress.
-#[derive(Debug, Clone)]
-pub enum Progress {
-    /// Measuring begins: this many site measurements are planned for this pass.
-    Pass { pass: u32, sites: usize },
-    /// A site was fitted.
-    Site {
-        site: usize,
-        attempt: u32,
-        thickness_nm: f64,
-        valid: bool,
-        flag: String,
-    },
-    /// Something worth a line (reference taken, retrying…).
-    Note(String),
+/// Asks the operator to do something by hand (place the reference piece) and waits; called on
+/// a blocking thread, so Ctrl-C still stops the session while it waits.
+pub type Prompt = Arc<dyn Fn(&str) -> anyhow::Result<()> + Send + Sync>;
+
+/// Why the steps ended early.
+#[derive(Debug)]
+pub enum Stop {
+    /// Ctrl-C or another stop signal.
+    Interrupted,
+    /// A fault (the error says what and where).
+    Fault(anyhow::Error),
 }
 
-/// Asks the operator to do something by hand (place the reference piece) and waits.
-pub type Prompt = Box<dyn Fn(&str) -> anyhow::Result<()> + Send + Sync>;
+/// The one cancellation scope of a session: every step's future runs inside [`Scope::guard`].
+#[derive(Clone)]
+pub struct Scope {
+    cancel: watch::Receiver<bool>,
+}
+
+impl Scope {
+    /// A scope that stops when `cancel` becomes `true`.
+    pub fn new(cancel: watch::Receiver<bool>) -> Scope {
+        Scope { cancel }
+    }
+
+    /// Whether a stop was asked.
+    pub fn cancelled(&self) -> bool {
+        *self.cancel.borrow()
+    }
+
+    /// Runs `step` unless a stop is asked first; a stop drops (abandons) the step's future,
+    /// and the caller then stops the stage.
+    pub async fn guard<T>(&self, step: impl Future<Output = anyhow::Result<T>>) -> Result<T, Stop> {
+        if self.cancelled() {
+            return Err(Stop::Interrupted);
+        }
+        let mut cancel = self.cancel.clone();
+        tokio::select! {
+            biased;
+            // A closed channel (nobody left to ask for a stop) disables this branch.
+            Ok(_) = cancel.wait_for(|c| *c) => Err(Stop::Interrupted),
+            r = step => r.map_err(Stop::Fault),
+        }
+    }
+}
 
 /// Drives one measuring session on a run.
 pub struct Sequencer {
     folder: RunFolder,
-    journal: Journal,
-    fitter: Arc<Fitter>,
-    acquire: AcquireSpec,
-    accept: crate::recipe::schema::AcceptSpec,
-    reference_material: String,
+    stream: EventStream,
+    workers: FitWorkers,
+    scope: Scope,
+    accept: AcceptSpec,
+    prompt: Option<Prompt>,
     dark: Option<Counts>,
     reference: Option<Counts>,
-    progress: Box<dyn FnMut(Progress) + Send>,
-    prompt: Option<Prompt>,
-    cancel: watch::Receiver<bool>,
 }
 
-/// A fit running on a blocking thread, with the site and attempt it belongs to.
-type Pending = (usize, u32, JoinHandle<Result<FitResult, String>>);
-
 impl Sequencer {
-    /// A sequencer for the run in `folder`, appending to its journal.
+    /// A sequencer for the run in `folder`, publishing on `stream` (whose first subscriber
+    /// should be the run's journal), fitting with `workers` (subscribed to `stream` too) and
+    /// judging fits by `accept`.
     pub fn new(
         folder: RunFolder,
-        meta: &RunToml,
-        fitter: Arc<Fitter>,
-        reference_material: String,
-        cancel: watch::Receiver<bool>,
-    ) -> anyhow::Result<Sequencer> {
-        let journal = Journal::open(&folder.journal())?;
-        Ok(Sequencer {
+        stream: EventStream,
+        workers: FitWorkers,
+        scope: Scope,
+        accept: AcceptSpec,
+    ) -> Sequencer {
+        Sequencer {
             folder,
-            journal,
-            fitter,
-            acquire: meta.recipe.acquire.clone(),
-            accept: meta.recipe.accept.clone(),
-            reference_material,
+            stream,
+            workers,
+            scope,
+            accept,
+            prompt: None,
             dark: None,
             reference: None,
-            progress: Box::new(|_| {}),
-            prompt: None,
-            cancel,
-        })
+        }
     }
 
-    /// Where progress goes.
-    pub fn on_progress(mut self, f: impl FnMut(Progress) + Send + 'static) -> Sequencer {
-        self.progress = Box::new(f);
+    /// How to ask the operator for a hand step (without one, such a step is a fault).
+    pub fn with_prompt(mut self, prompt: Option<Prompt>) -> Sequencer {
+        self.prompt = prompt;
         self
     }
 
-    /// How to ask the operator for a hand step (without one, such a step is an error).
-    pub fn with_prompt(mut self, prompt: Prompt) -> Sequencer {
-        self.prompt = Some(prompt);
-        self
+    /// Publishes an event to every subscriber.
+    pub fn publish(&mut self, event: RunEvent) -> anyhow::Result<()> {
+        self.stream.publish(event)
     }
 
-    /// Appends an event to the journal (synced before returning).
-    pub fn log(&mut self, event: &Event) -> anyhow::Result<()> {
-        Ok(self.journal.append(event)?)
+    /// Publishes a journal event (persisted and synced before returning).
+    pub fn log(&mut self, event: Event) -> anyhow::Result<()> {
+        self.publish(RunEvent::Journal(event))
     }
 
-    fn cancelled(&self) -> bool {
-        *self.cancel.borrow()
+    fn note(&mut self, text: impl Into<String>) -> Result<(), Stop> {
+        self.publish(RunEvent::Note(text.into()))
+            .map_err(Stop::Fault)
     }
 
-    /// Homes the stage if the machine file says how, then takes dark and reference spectra.
-    pub async fn prepare(&mut self, bench: &mut Bench) -> anyhow::Result<()> {
-        if !bench.machine.stage.home.is_empty() {
-            (self.progress)(Progress::Note("homing the stage".into()));
-            bench.stage.home().await.context("homing failed")?;
+    /// Executes `plan` on `bench` (attempt numbers from `next_attempt`); see the module doc.
+    pub async fn execute(
+        &mut self,
+        bench: &mut Bench,
+        plan: &Plan,
+        mut next_attempt: impl FnMut(usize) -> u32,
+    ) -> Outcome {
+        match self.steps(bench, plan, &mut next_attempt).await {
+            Ok(()) => Outcome::Finished,
+            Err(stop) => self.stopped(Some(bench), stop).await,
         }
-        let (ms, avg) = (self.acquire.integration_ms, self.acquire.averages);
-        if let Some(p) = bench.machine.reference.position_mm {
-            bench
-                .stage
-                .move_to(p[0], p[1])
-                .await
-                .context("moving to the reference piece")?;
-            bench
-                .stage
-                .wait_idle()
-                .await
-                .context("moving to the reference piece")?;
-        } else if !bench.is_simulated() || bench.virtual_wafer().is_none() {
-            let ask = self.prompt.as_ref().context(
-                "the machine file gives no [reference] position_mm and there is nobody to ask: \
-                 add the position of an on-chuck reference piece, or run interactively",
-            )?;
-            ask(&format!(
-                "Place the {} reference under the probe, then press Enter",
-                self.reference_material
-            ))?;
+    }
+
+    async fn steps(
+        &mut self,
+        bench: &mut Bench,
+        plan: &Plan,
+        next_attempt: &mut impl FnMut(usize) -> u32,
+    ) -> Result<(), Stop> {
+        for step in &plan.steps {
+            match step {
+                Step::Home => self.home(bench).await?,
+                Step::Reference(placement) => self.reference(bench, plan, *placement).await?,
+                Step::Site(_) => {}
+            }
         }
-        let dark = bench
-            .spectrometer
-            .dark(ms, avg)
+        let mut todo = plan.clone();
+        for pass in 0..=plan.acquire().retries {
+            let count = todo.sites().count();
+            if count == 0 {
+                break;
+            }
+            self.publish(RunEvent::Pass { pass, sites: count })
+                .map_err(Stop::Fault)?;
+            let mut invalid = Vec::new();
+            for step in todo.sites() {
+                self.site(bench, plan, step, next_attempt, &mut invalid)
+                    .await?;
+            }
+            self.finish(self.workers.take_all(), &mut invalid).await?;
+            todo = plan.only(|s| invalid.contains(&s.number));
+            let left: Vec<String> = todo.sites().map(|s| s.site.number.to_string()).collect();
+            if !left.is_empty() && pass < plan.acquire().retries {
+                self.note(format!("measuring again: site {}", left.join(", ")))?;
+            }
+        }
+        Ok(())
+    }
+
+    async fn home(&mut self, bench: &mut Bench) -> Result<(), Stop> {
+        self.note("homing the stage")?;
+        self.scope
+            .guard(async { bench.stage.home().await.context("homing failed") })
             .await
-            .context("dark spectrum")?;
-        let reference = bench
-            .spectrometer
-            .reference(ms, avg)
-            .await
-            .context("reference spectrum")?;
+    }
+
+    /// Takes dark and reference spectra after bringing the reference under the probe.
+    async fn reference(
+        &mut self,
+        bench: &mut Bench,
+        plan: &Plan,
+        placement: ReferencePlacement,
+    ) -> Result<(), Stop> {
+        let material = plan.reference_material.clone();
+        match placement {
+            ReferencePlacement::Position(p) => {
+                self.note(format!(
+                    "moving to the reference piece at ({}, {}) mm",
+                    p[0], p[1]
+                ))?;
+                self.scope
+                    .guard(async {
+                        bench.stage.move_to(p[0], p[1]).await?;
+                        bench.stage.wait_idle().await?;
+                        Ok(())
+                    })
+                    .await
+                    .map_err(|s| in_step(s, "moving to the reference piece"))?;
+            }
+            ReferencePlacement::ByHand => {
+                let ask = self.prompt.clone().ok_or_else(|| {
+                    Stop::Fault(anyhow::anyhow!(
+                        "the machine file gives no [reference] position_mm and there is nobody \
+                         to ask: add the position of an on-chuck reference piece, or run \
+                         interactively"
+                    ))
+                })?;
+                let message =
+                    format!("Place the {material} reference under the probe, then press Enter");
+                self.scope
+                    .guard(async move {
+                        tokio::task::spawn_blocking(move || ask(&message))
+                            .await
+                            .context("the operator prompt failed")?
+                    })
+                    .await?;
+            }
+            ReferencePlacement::Simulated => {}
+        }
+        let a = plan.acquire().clone();
+        let (dark, reference) = self
+            .scope
+            .guard(async {
+                let dark = bench
+                    .spectrometer
+                    .dark(a.integration_ms, a.averages)
+                    .await
+                    .context("dark spectrum")?;
+                let reference = bench
+                    .spectrometer
+                    .reference(a.integration_ms, a.averages)
+                    .await
+                    .context("reference spectrum")?;
+                Ok((dark, reference))
+            })
+            .await?;
         let tag = chrono::Local::now().format("%H%M%S%3f").to_string();
         let dark_file = format!("spectra/dark-{tag}.csv");
         let ref_file = format!("spectra/reference-{tag}.csv");
-        self.store(
-            &dark_file,
-            &RawSpectrum {
-                sample: dark.clone(),
-                dark: dark.clone(),
-                reference: dark.clone(),
-            },
-        )?;
-        self.store(
-            &ref_file,
-            &RawSpectrum {
-                sample: reference.clone(),
-                dark: dark.clone(),
-                reference: reference.clone(),
-            },
-        )?;
-        self.log(&Event::ReferenceTaken {
+        let as_raw = |sample: &Counts| RawSpectrum {
+            sample: sample.clone(),
+            dark: dark.clone(),
+            reference: sample.clone(),
+        };
+        self.store(&dark_file, &as_raw(&dark))
+            .map_err(Stop::Fault)?;
+        self.store(&ref_file, &as_raw(&reference))
+            .map_err(Stop::Fault)?;
+        self.log(Event::ReferenceTaken {
             time: now(),
             dark: dark_file,
             reference: ref_file,
-        })?;
-        (self.progress)(Progress::Note(format!(
-            "dark and {} reference taken",
-            self.reference_material
-        )));
-        if let Some(note) = self.fitter.coverage_note(&reference.wavelength_nm) {
-            (self.progress)(Progress::Note(format!("warning: spectrometer: {note}")));
+        })
+        .map_err(Stop::Fault)?;
+        self.note(format!("dark and {material} reference taken"))?;
+        if let Some(note) = plan.fitter.coverage_note(&reference.wavelength_nm) {
+            self.note(format!("warning: spectrometer: {note}"))?;
         }
         self.dark = Some(dark);
         self.reference = Some(reference);
@@ -198,194 +288,141 @@ impl Sequencer {
             .with_context(|| format!("cannot write {}", path.display()))
     }
 
-    /// Measures `sites` in the order given (attempt numbers from `next_attempt`), then the ones
-    /// that came back invalid again, up to the recipe's retries. Journals every step.
-    pub async fn measure(
+    /// Measures one site and hands its spectrum to the fitting workers; journals the fits
+    /// that finished meanwhile.
+    async fn site(
         &mut self,
         bench: &mut Bench,
-        sites: &[Site],
-        mut next_attempt: impl FnMut(usize) -> u32,
-    ) -> Outcome {
-        let mut todo: Vec<Site> = sites.to_vec();
-        for pass in 0..=self.acquire.retries {
-            if todo.is_empty() {
-                break;
-            }
-            (self.progress)(Progress::Pass {
-                pass,
-                sites: todo.len(),
-            });
-            match self.pass(bench, &todo, &mut next_attempt).await {
-                Ok(invalid) => todo.retain(|s| invalid.contains(&s.number)),
-                Err(PassEnd::Interrupted) => {
-                    return self
-                        .stopped(bench, "interrupted by the user (Ctrl-C)")
-                        .await
-                }
-                Err(PassEnd::Fault(e)) => {
-                    let reason = crate::error_text::chain_text(&e);
-                    return match self.stopped(bench, &reason).await {
-                        Outcome::Failed(f) => Outcome::Failed(f),
-                        _ => Outcome::Failed(e),
-                    };
-                }
-            }
-            if !todo.is_empty() && pass < self.acquire.retries {
-                let list: Vec<String> = todo.iter().map(|s| s.number.to_string()).collect();
-                (self.progress)(Progress::Note(format!(
-                    "measuring again: site {}",
-                    list.join(", ")
-                )));
-            }
-        }
-        Outcome::Finished
-    }
-
-    /// Journals a stop and halts the stage.
-    async fn stopped(&mut self, bench: &mut Bench, reason: &str) -> Outcome {
-        tracing::warn!(%reason, "run stopped");
-        let _ = bench.stage.stop().await;
-        if let Err(e) = self.log(&Event::RunStopped {
-            time: now(),
-            reason: reason.to_string(),
-        }) {
-            return Outcome::Failed(e);
-        }
-        if self.cancelled() {
-            Outcome::Interrupted
-        } else {
-            Outcome::Failed(anyhow::anyhow!("{reason}"))
-        }
-    }
-
-    /// One pass over `sites`; returns the numbers of the sites whose attempt came back invalid.
-    async fn pass(
-        &mut self,
-        bench: &mut Bench,
-        sites: &[Site],
+        plan: &Plan,
+        step: &SiteStep,
         next_attempt: &mut impl FnMut(usize) -> u32,
-    ) -> Result<Vec<usize>, PassEnd> {
-        let mut invalid = Vec::new();
-        let mut pending: Option<Pending> = None;
-        let scale = bench.time_scale();
-        for site in sites {
-            if self.cancelled() {
-                self.finish(pending.take(), &mut invalid).await?;
-                return Err(PassEnd::Interrupted);
-            }
-            let stage_p = bench
-                .stage_position(site)
-                .map_err(|o| PassEnd::Fault(anyhow::anyhow!("{o}")))?;
-            let mut cancel = self.cancel.clone();
-            tokio::select! {
-                r = bench.move_to_site(site) => { r.map_err(|e| PassEnd::Fault(e.into()))?; }
-                _ = cancel.wait_for(|c| *c) => {
-                    self.finish(pending.take(), &mut invalid).await?;
-                    return Err(PassEnd::Interrupted);
-                }
-            }
-            tokio::time::sleep(Duration::from_secs_f64(
-                self.acquire.settle_ms / 1000.0 / scale,
-            ))
-            .await;
-            let counts = bench
-                .spectrometer
-                .acquire(self.acquire.integration_ms, self.acquire.averages)
-                .await
-                .with_context(|| format!("site {}: acquisition failed", site.number))
-                .map_err(PassEnd::Fault)?;
-            let attempt = next_attempt(site.number);
-            let raw = RawSpectrum {
-                sample: counts,
-                dark: self.dark.clone().unwrap_or_default(),
-                reference: self.reference.clone().unwrap_or_default(),
-            };
-            let rel = format!("spectra/site-{:04}-a{attempt}.csv", site.number);
-            self.store(&rel, &raw).map_err(PassEnd::Fault)?;
-            self.log(&Event::SiteMeasured {
-                time: now(),
-                site: site.number,
-                attempt,
-                x_mm: site.x_mm,
-                y_mm: site.y_mm,
-                stage_x_mm: stage_p[0],
-                stage_y_mm: stage_p[1],
-                spectrum: rel,
+        invalid: &mut Vec<usize>,
+    ) -> Result<(), Stop> {
+        let n = step.site.number;
+        let a = plan.acquire().clone();
+        let counts = self
+            .scope
+            .guard(async {
+                bench.move_to_site(&step.site).await?;
+                bench.settle(a.settle_ms).await;
+                bench
+                    .spectrometer
+                    .acquire(a.integration_ms, a.averages)
+                    .await
+                    .with_context(|| format!("site {n}: acquisition failed"))
             })
-            .map_err(PassEnd::Fault)?;
-            // The fit of the previous site has had the whole move to finish.
-            self.finish(pending.take(), &mut invalid).await?;
-            let fitter = self.fitter.clone();
-            let material = self.reference_material.clone();
-            let job = tokio::task::spawn_blocking(move || {
-                fitter.fit_raw(&raw, &material).map_err(|e| e.to_string())
-            });
-            pending = Some((site.number, attempt, job));
-        }
-        self.finish(pending.take(), &mut invalid).await?;
-        Ok(invalid)
+            .await?;
+        let attempt = next_attempt(n);
+        let raw = RawSpectrum {
+            sample: counts,
+            dark: self.dark.clone().unwrap_or_default(),
+            reference: self.reference.clone().unwrap_or_default(),
+        };
+        let rel = format!("spectra/site-{n:04}-a{attempt}.csv");
+        self.store(&rel, &raw).map_err(Stop::Fault)?;
+        self.log(Event::SiteMeasured {
+            time: now(),
+            site: n,
+            attempt,
+            x_mm: step.site.x_mm,
+            y_mm: step.site.y_mm,
+            stage_x_mm: step.stage_mm[0],
+            stage_y_mm: step.stage_mm[1],
+            spectrum: rel,
+        })
+        .map_err(Stop::Fault)?;
+        self.publish(RunEvent::Acquired {
+            site: n,
+            attempt,
+            raw: Arc::new(raw),
+        })
+        .map_err(Stop::Fault)?;
+        // The fit of the previous site has had the whole move to finish.
+        let older = self.workers.take_older();
+        self.finish(older, invalid).await
     }
 
-    /// Waits for a fit in flight and journals its result.
+    /// Waits for fits in flight and journals their results.
     async fn finish(
         &mut self,
-        pending: Option<Pending>,
+        pending: Vec<Pending>,
         invalid: &mut Vec<usize>,
-    ) -> Result<(), PassEnd> {
-        let Some((site, attempt, job)) = pending else {
-            return Ok(());
-        };
-        let result = job.await.map_err(|e| e.to_string()).and_then(|r| r);
-        match result {
-            Ok(fit) => {
-                let (valid, flag) = judge(&fit, &self.accept);
-                if !valid {
-                    invalid.push(site);
+    ) -> Result<(), Stop> {
+        for p in pending {
+            let (site, attempt) = (p.site, p.attempt);
+            let result = p.result().await;
+            let event = match result {
+                Ok(fit) => {
+                    let (valid, flag) = judge(&fit, &self.accept);
+                    tracing::info!(site, attempt, thickness_nm = fit.thickness_nm(), gof = fit.gof, %flag, "site fitted");
+                    if !valid {
+                        invalid.push(site);
+                    }
+                    Event::SiteFitted {
+                        time: now(),
+                        site,
+                        attempt,
+                        fit,
+                        valid,
+                        flag,
+                    }
                 }
-                let thickness_nm = fit.thickness_nm();
-                tracing::info!(site, attempt, thickness_nm, gof = fit.gof, %flag, "site fitted");
-                self.log(&Event::SiteFitted {
-                    time: now(),
-                    site,
-                    attempt,
-                    fit,
-                    valid,
-                    flag: flag.clone(),
-                })
-                .map_err(PassEnd::Fault)?;
-                (self.progress)(Progress::Site {
-                    site,
-                    attempt,
-                    thickness_nm,
-                    valid,
-                    flag,
-                });
-            }
-            Err(reason) => {
-                tracing::warn!(site, attempt, %reason, "site not fitted");
-                invalid.push(site);
-                self.log(&Event::SiteFailed {
-                    time: now(),
-                    site,
-                    attempt,
-                    reason: reason.clone(),
-                })
-                .map_err(PassEnd::Fault)?;
-                (self.progress)(Progress::Site {
-                    site,
-                    attempt,
-                    thickness_nm: f64::NAN,
-                    valid: false,
-                    flag: reason,
-                });
-            }
+                Err(reason) => {
+                    tracing::warn!(site, attempt, %reason, "site not fitted");
+                    invalid.push(site);
+                    Event::SiteFailed {
+                        time: now(),
+                        site,
+                        attempt,
+                        reason,
+                    }
+                }
+            };
+            self.log(event).map_err(Stop::Fault)?;
         }
         Ok(())
     }
+
+    /// Ends a session that stopped early: journals the fits in flight, stops the stage (when
+    /// there is one), journals the stop. The outcome says why.
+    pub async fn stopped(&mut self, bench: Option<&mut Bench>, stop: Stop) -> Outcome {
+        let reason = match &stop {
+            Stop::Interrupted => "interrupted by the user (Ctrl-C or a stop signal)".to_string(),
+            Stop::Fault(e) => crate::error_text::chain_text(e),
+        };
+        tracing::warn!(%reason, "run stopped");
+        let mut ignored = Vec::new();
+        if let Err(Stop::Fault(e)) = self.finish(self.workers.take_all(), &mut ignored).await {
+            tracing::error!("a fit in flight could not be journalled: {e:#}");
+        }
+        if let Some(bench) = bench {
+            // A stage that stopped answering must not hold the stop forever.
+            match tokio::time::timeout(STOP_TIMEOUT, bench.stage.stop()).await {
+                Ok(Ok(())) => {}
+                Ok(Err(e)) => tracing::error!("stopping the stage failed: {e}"),
+                Err(_) => tracing::error!("the stage did not confirm the stop in time"),
+            }
+        }
+        if let Err(e) = self.log(Event::RunStopped {
+            time: now(),
+            reason: reason.clone(),
+        }) {
+            return Outcome::Failed(e);
+        }
+        match stop {
+            Stop::Interrupted => Outcome::Interrupted,
+            Stop::Fault(e) => Outcome::Failed(e),
+        }
+    }
 }
 
-/// Why a pass ended early.
-enum PassEnd {
-    Interrupted,
-    Fault(anyhow::Error),
+/// How long a stop may take before the session gives up waiting for the stage's answer.
+const STOP_TIMEOUT: Duration = Duration::from_secs(10);
+
+/// A fault inside a named step carries the step's name.
+fn in_step(stop: Stop, what: &'static str) -> Stop {
+    match stop {
+        Stop::Fault(e) => Stop::Fault(e.context(what)),
+        s => s,
+    }
 }

@@ -54,7 +54,7 @@ pub struct ProtocolConfig {
 }
 
 fn secs(s: f64) -> Duration {
-    Duration::from_secs_f64(s.max(0.0))
+    crate::bench::duration_s(s)
 }
 
 impl ProtocolConfig {
@@ -113,7 +113,7 @@ pub enum Command {
 
 /// What a finished command gives.
 #[derive(Debug, Clone, PartialEq)]
-pub enum Outcome {
+pub enum Completion {
     Connected {
         banner: Option<String>,
     },
@@ -249,7 +249,7 @@ pub struct Controller {
     /// What the current command is, for messages.
     doing: String,
     outbox: VecDeque<Vec<u8>>,
-    results: VecDeque<Result<Outcome, ControllerError>>,
+    results: VecDeque<Result<Completion, ControllerError>>,
     log: VecDeque<LogEntry>,
     alarm: Option<String>,
     startup_alarm: Option<String>,
@@ -309,7 +309,7 @@ impl Controller {
     }
 
     /// The outcome of the command, once it has finished.
-    pub fn poll_result(&mut self) -> Option<Result<Outcome, ControllerError>> {
+    pub fn poll_result(&mut self) -> Option<Result<Completion, ControllerError>> {
         self.results.pop_front()
     }
 
@@ -432,7 +432,7 @@ impl Controller {
     /// Stops at once: sends the reset bytes (or the stop lines), fails the command in progress
     /// with [`ControllerError::Stopped`] and forgets the position. After reset bytes the
     /// controller restarts: a start-up phase then absorbs its banner (no lines are sent), and
-    /// finishes with [`Outcome::Connected`].
+    /// finishes with [`Completion::Connected`].
     pub fn stop(&mut self, now: Duration) {
         if self.phase == Phase::Closed {
             return;
@@ -538,7 +538,7 @@ impl Controller {
                     self.after_startup(banner, now)
                 } else {
                     // After a stop: the controller has restarted; nothing more is sent.
-                    self.finish(Ok(Outcome::Connected { banner }));
+                    self.finish(Ok(Completion::Connected { banner }));
                     Phase::Ready
                 }
             }
@@ -653,15 +653,15 @@ impl Controller {
             }
             None => {
                 let outcome = match *finish {
-                    Finish::Connected => Outcome::Connected {
+                    Finish::Connected => Completion::Connected {
                         banner: self.banner_found.take(),
                     },
-                    Finish::Queued => Outcome::Queued,
-                    Finish::Homed => Outcome::Homed,
+                    Finish::Queued => Completion::Queued,
+                    Finish::Homed => Completion::Homed,
                     Finish::Idle => {
                         self.position = self.target;
                         self.queued_s = 0.0;
-                        Outcome::Idle {
+                        Completion::Idle {
                             position: self.position,
                         }
                     }
@@ -858,7 +858,7 @@ impl Controller {
             return Phase::Poll(p);
         };
         if p.single {
-            self.finish(Ok(Outcome::Status(report)));
+            self.finish(Ok(Completion::Status(report)));
             return std::mem::replace(&mut self.phase, Phase::Ready);
         }
         let idle = report
@@ -877,7 +877,7 @@ impl Controller {
         if idle && arrived {
             self.position = pos;
             self.queued_s = 0.0;
-            self.finish(Ok(Outcome::Idle { position: pos }));
+            self.finish(Ok(Completion::Idle { position: pos }));
             return std::mem::replace(&mut self.phase, Phase::Ready);
         }
         p.next_query = Some(now + self.cfg.poll_interval);
@@ -958,7 +958,7 @@ impl Controller {
         self.finish(Err(e));
     }
 
-    fn finish(&mut self, r: Result<Outcome, ControllerError>) {
+    fn finish(&mut self, r: Result<Completion, ControllerError>) {
         self.phase = Phase::Ready;
         self.results.push_back(r);
     }

@@ -5,7 +5,7 @@
 //! lines (LF or CR ends a line), and wakes the state machine at its deadlines. End of stream
 //! and EIO (how a pseudo-terminal reports a closed peer) both mean the controller is gone.
 
-use super::controller::{Command, Controller, ControllerError, LogEntry, Outcome};
+use super::controller::{Command, Completion, Controller, ControllerError, LogEntry};
 use tokio::io::{AsyncRead, AsyncReadExt, AsyncWrite, AsyncWriteExt};
 use tokio::time::Instant;
 
@@ -78,7 +78,7 @@ impl<S: Port> Link<S> {
     /// Runs one command to its end (success, fault or timeout). A command left unfinished by
     /// a dropped future is first driven to its end (its outcome discarded), so a stale reply
     /// is never taken for the new command's.
-    pub async fn run(&mut self, cmd: Command) -> Result<Outcome, LinkError> {
+    pub async fn run(&mut self, cmd: Command) -> Result<Completion, LinkError> {
         if self.ctrl.is_busy() {
             let r = self.drive().await;
             tracing::info!(port = %self.port, "finished an abandoned command first: {r:?}");
@@ -89,7 +89,7 @@ impl<S: Port> Link<S> {
     }
 
     /// Feeds the state machine until the command in progress has a result.
-    async fn drive(&mut self) -> Result<Outcome, LinkError> {
+    async fn drive(&mut self) -> Result<Completion, LinkError> {
         loop {
             self.flush().await?;
             if let Some(r) = self.ctrl.poll_result() {

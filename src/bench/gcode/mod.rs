@@ -5,6 +5,7 @@
 pub mod codec;
 pub mod controller;
 pub mod link;
+pub mod words;
 
-pub use controller::{Command, Controller, ControllerError, LogEntry, Outcome, ProtocolConfig};
+pub use controller::{Command, Completion, Controller, ControllerError, LogEntry, ProtocolConfig};
 pub use link::{Link, LinkError};

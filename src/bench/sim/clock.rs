@@ -3,7 +3,6 @@
 //! Built on `tokio::time::Instant`, so tests with paused tokio time run the simulation
 //! deterministically and at once.
 
-use std::time::Duration;
 use tokio::time::Instant;
 
 /// Virtual seconds since start, running `scale` times faster than the wall clock.
@@ -34,11 +33,11 @@ impl SimClock {
 
     /// The wall-clock instant at which virtual time reaches `t` seconds.
     pub fn instant_at(&self, t: f64) -> Instant {
-        self.start + Duration::from_secs_f64((t / self.scale).max(0.0))
+        self.start + crate::bench::duration_s(t / self.scale)
     }
 
     /// Sleeps for `virtual_s` virtual seconds.
     pub async fn sleep(&self, virtual_s: f64) {
-        tokio::time::sleep(Duration::from_secs_f64((virtual_s / self.scale).max(0.0))).await
+        tokio::time::sleep(crate::bench::duration_s(virtual_s / self.scale)).await
     }
 }

@@ -9,7 +9,7 @@
 //! wafer offset is drawn once per seed (1σ = `wafer_to_wafer_pct` of nominal).
 
 use crate::bench::machine::SimWaferSpec;
-use crate::optics::{self, Material, MaterialLibrary, OpticsError, Stack};
+use crate::optics::{self, Material, OpticsError, Stack};
 use crate::recipe::{LoadedRecipe, Wafer};
 use rand::{Rng, SeedableRng};
 use std::f64::consts::PI;
@@ -107,7 +107,7 @@ impl VirtualWafer {
         seed: u64,
     ) -> Result<VirtualWafer, OpticsError> {
         let r = &recipe.recipe;
-        let lib = MaterialLibrary::for_recipe(r, recipe.dir())?;
+        let lib = recipe.material_library()?;
         let mut stack = Stack::bare(
             lib.require(&r.film.ambient)?.clone(),
             lib.require(&r.film.substrate)?.clone(),

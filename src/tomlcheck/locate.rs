@@ -1,7 +1,7 @@
 //! Turns key paths and byte offsets into file positions (line and column, 1-based).
 
-use super::validate::{KeyPath, Problem, Seg};
-use serde::de::DeserializeOwned;
+use super::keypath::{KeyPath, Seg};
+use super::problem::Problem;
 use std::fmt;
 use std::path::{Path, PathBuf};
 use toml::de::{DeTable, DeValue};
@@ -44,35 +44,11 @@ pub fn place(text: &str, file: &Path, problem: &Problem) -> Located {
         file: file.into(),
         line: lc.line,
         col: lc.col,
-        message: format!("{}: {}", problem.path, problem.message),
-    }
-}
-
-/// Parses TOML `text` into `T` (a syntax or schema error is one located problem) and runs
-/// `validate` on it; every problem comes back with its position, sorted.
-pub fn parse_validated<T: DeserializeOwned>(
-    text: &str,
-    file: &Path,
-    validate: impl Fn(&T) -> Vec<Problem>,
-) -> Result<T, Vec<Located>> {
-    let value: T = toml::from_str(text).map_err(|e| {
-        let lc = line_col(text, e.span().map(|s| s.start).unwrap_or(0));
-        vec![Located {
-            file: file.into(),
-            line: lc.line,
-            col: lc.col,
-            message: e.message().trim().to_string(),
-        }]
-    })?;
-    let mut problems: Vec<Located> = validate(&value)
-        .iter()
-        .map(|p| place(text, file, p))
-        .collect();
-    if problems.is_empty() {
-        Ok(value)
-    } else {
-        problems.sort_by_key(|p| (p.line, p.col));
-        Err(problems)
+        message: if problem.path.0.is_empty() {
+            problem.message.clone()
+        } else {
+            format!("{}: {}", problem.path, problem.message)
+        },
     }
 }
 

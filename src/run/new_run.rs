@@ -4,6 +4,8 @@
 
 use super::folder::{RunFolder, RunMeta, RunToml};
 use super::id::{check_name, run_id};
+use super::plan::frozen::FrozenPlan;
+use super::plan::Plan;
 use crate::recipe::schema::MaterialSpec;
 use crate::recipe::{LoadedRecipe, Recipe};
 use anyhow::Context;
@@ -26,8 +28,10 @@ pub struct NewRun {
 /// Folder inside a run that holds the recipe's n,k tables.
 pub const MATERIALS_DIR: &str = "materials";
 
-/// Creates the run folder and writes `run.toml`; returns the folder and what was written.
-pub fn create(loaded: &LoadedRecipe, new: &NewRun) -> anyhow::Result<(RunFolder, RunToml)> {
+/// Creates the run folder of a checked plan, complete or not at all: everything (`run.toml`,
+/// `plan.json`, the n,k tables, `spectra/`) is written into a hidden folder beside it that is
+/// renamed into place last, so a kill at any moment leaves either no run or a resumable one.
+pub fn create(plan: &Plan, new: &NewRun) -> anyhow::Result<(RunFolder, RunToml)> {
     check_name("wafer id", &new.wafer)?;
     if !new.lot.is_empty() {
         check_name("lot", &new.lot)?;
@@ -39,32 +43,33 @@ pub fn create(loaded: &LoadedRecipe, new: &NewRun) -> anyhow::Result<(RunFolder,
         .with_context(|| format!("cannot create the runs folder {}", new.runs_dir.display()))?;
     let now = chrono::Local::now();
     let base = run_id(now, &new.wafer);
-    // Two runs of one wafer in the same second get a suffix rather than sharing a folder.
-    let (id, root) = (1..1000)
-        .map(|k| {
-            if k == 1 {
-                base.clone()
-            } else {
-                format!("{base}-{k}")
-            }
-        })
-        .map(|id| {
-            let root = new.runs_dir.join(&id);
-            (id, root)
-        })
-        .find(|(_, root)| std::fs::create_dir(root).is_ok())
-        .with_context(|| {
-            format!(
-                "cannot create a run folder for {base} in {}",
-                new.runs_dir.display()
-            )
-        })?;
-    let folder = RunFolder::new(root);
-    std::fs::create_dir_all(folder.spectra_dir())?;
-    let recipe = freeze_tables(&loaded.recipe, loaded.dir(), &folder.root)?;
-    let meta = RunToml {
+    let staging = new
+        .runs_dir
+        .join(format!(".{base}.partial-{}", std::process::id()));
+    let result = stage_and_publish(plan, new, now, &base, &staging);
+    if result.is_err() {
+        let _ = std::fs::remove_dir_all(&staging);
+    }
+    result
+}
+
+/// Writes the run into `staging`, then renames it to the first free id.
+fn stage_and_publish(
+    plan: &Plan,
+    new: &NewRun,
+    now: chrono::DateTime<chrono::Local>,
+    base: &str,
+    staging: &Path,
+) -> anyhow::Result<(RunFolder, RunToml)> {
+    let loaded = &plan.recipe;
+    std::fs::create_dir(staging)
+        .with_context(|| format!("cannot create a run folder in {}", new.runs_dir.display()))?;
+    let scratch = RunFolder::new(staging);
+    std::fs::create_dir_all(scratch.spectra_dir())?;
+    let recipe = freeze_tables(&loaded.recipe, loaded.dir(), staging)?;
+    let mut meta = RunToml {
         run: RunMeta {
-            id,
+            id: base.to_string(),
             wafer: new.wafer.clone(),
             lot: new.lot.clone(),
             operator: new.operator.clone(),
@@ -76,8 +81,30 @@ pub fn create(loaded: &LoadedRecipe, new: &NewRun) -> anyhow::Result<(RunFolder,
         recipe,
         machine: new.machine.clone(),
     };
-    write_run_toml(&folder, &meta)?;
-    Ok((folder, meta))
+    let frozen = serde_json::to_vec_pretty(&FrozenPlan::of(plan))?;
+    super::files::write_atomic(&scratch.plan_json(), &frozen)?;
+    // Two runs of one wafer in the same second get a suffix rather than sharing a folder.
+    for k in 1..1000 {
+        let id = if k == 1 {
+            base.to_string()
+        } else {
+            format!("{base}-{k}")
+        };
+        let root = new.runs_dir.join(&id);
+        if root.exists() {
+            continue;
+        }
+        meta.run.id = id;
+        write_run_toml(&scratch, &meta)?;
+        if std::fs::rename(staging, &root).is_ok() {
+            super::files::sync_dir(&new.runs_dir);
+            return Ok((RunFolder::new(root), meta));
+        }
+    }
+    anyhow::bail!(
+        "cannot create a run folder for {base} in {}",
+        new.runs_dir.display()
+    )
 }
 
 /// Writes `run.toml` atomically.

@@ -1,0 +1,57 @@
+//! The plan frozen into a run folder (`plan.json`): the sites in measuring order with their
+//! wafer and stage coordinates, and the duration bound. Derived files and later sessions read
+//! it, so a run keeps the sites it was planned with even if the pattern code changes.
+
+use super::Plan;
+use crate::recipe::Site;
+use serde::{Deserialize, Serialize};
+
+/// One planned site as frozen.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FrozenSite {
+    pub site: usize,
+    pub x_mm: f64,
+    pub y_mm: f64,
+    pub stage_x_mm: f64,
+    pub stage_y_mm: f64,
+}
+
+/// The content of `plan.json`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FrozenPlan {
+    /// Sites in measuring order.
+    pub sites: Vec<FrozenSite>,
+    /// Kinematic lower bound of the whole map, s.
+    pub duration_s: f64,
+}
+
+impl FrozenPlan {
+    /// What a plan freezes.
+    pub fn of(plan: &Plan) -> FrozenPlan {
+        FrozenPlan {
+            sites: plan
+                .sites()
+                .map(|s| FrozenSite {
+                    site: s.site.number,
+                    x_mm: s.site.x_mm,
+                    y_mm: s.site.y_mm,
+                    stage_x_mm: s.stage_mm[0],
+                    stage_y_mm: s.stage_mm[1],
+                })
+                .collect(),
+            duration_s: plan.duration_s,
+        }
+    }
+
+    /// The planned sites in measuring order.
+    pub fn ordered_sites(&self) -> Vec<Site> {
+        self.sites
+            .iter()
+            .map(|s| Site {
+                number: s.site,
+                x_mm: s.x_mm,
+                y_mm: s.y_mm,
+            })
+            .collect()
+    }
+}
