@@ -81,6 +81,35 @@ pub fn judge(fit: &FitResult, accept: &AcceptSpec) -> (bool, String) {
     (false, flags.join(";"))
 }
 
+/// The journal event for one fit of an attempt: `site-fitted`, judged by `accept`, or
+/// `site-failed` with the reason the fit could not be made.
+pub fn fit_event(
+    site: usize,
+    attempt: u32,
+    result: Result<FitResult, String>,
+    accept: &AcceptSpec,
+) -> Event {
+    match result {
+        Ok(fit) => {
+            let (valid, flag) = judge(&fit, accept);
+            Event::SiteFitted {
+                time: now(),
+                site,
+                attempt,
+                fit,
+                valid,
+                flag,
+            }
+        }
+        Err(reason) => Event::SiteFailed {
+            time: now(),
+            site,
+            attempt,
+            reason,
+        },
+    }
+}
+
 /// One measurement attempt of a site.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Attempt {

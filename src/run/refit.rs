@@ -1,7 +1,7 @@
 //! Fitting stored spectra again: after a stop (spectra stored but not fitted) and for
 //! `isopach refit` with a new model, window or method. No stage motion.
 
-use super::events::{judge, now, Event, SiteState};
+use super::events::{fit_event, Event, SiteState};
 use super::folder::RunFolder;
 use crate::fit::Fitter;
 use crate::recipe::schema::{AcceptSpec, Recipe};
@@ -17,31 +17,14 @@ pub fn fit_stored(
     reference_material: &str,
     accept: &AcceptSpec,
 ) -> Event {
-    let fitted = |fit: crate::fit::FitResult| {
-        let (valid, flag) = judge(&fit, accept);
-        Event::SiteFitted {
-            time: now(),
-            site,
-            attempt,
-            fit,
-            valid,
-            flag,
-        }
+    let result = match read_csv(&folder.root.join(rel)) {
+        Ok(SpectrumFile::Counts(raw)) => fitter
+            .fit_raw(&raw, reference_material)
+            .map_err(|e| e.to_string()),
+        Ok(SpectrumFile::Reflectance(spectrum)) => Ok(fitter.fit(&spectrum)),
+        Err(e) => Err(e.to_string()),
     };
-    let failed = |reason: String| Event::SiteFailed {
-        time: now(),
-        site,
-        attempt,
-        reason,
-    };
-    match read_csv(&folder.root.join(rel)) {
-        Ok(SpectrumFile::Counts(raw)) => match fitter.fit_raw(&raw, reference_material) {
-            Ok(fit) => fitted(fit),
-            Err(e) => failed(e.to_string()),
-        },
-        Ok(SpectrumFile::Reflectance(spectrum)) => fitted(fitter.fit(&spectrum)),
-        Err(e) => failed(e.to_string()),
-    }
+    fit_event(site, attempt, result, accept)
 }
 
 /// Every stored attempt of every site, as (site, attempt, spectrum file).

@@ -9,7 +9,7 @@
 //! reference move included) abandons that step, finishes and journals the fits in flight,
 //! stops the stage and journals the stop, so the run can be resumed.
 
-use super::events::{judge, now, Event};
+use super::events::{fit_event, now, Event};
 use super::fit_workers::{FitWorkers, Pending};
 use super::folder::RunFolder;
 use super::plan::{Plan, ReferencePlacement, SiteStep, Step};
@@ -351,33 +351,22 @@ impl Sequencer {
         for p in pending {
             let (site, attempt) = (p.site, p.attempt);
             let result = p.result().await;
-            let event = match result {
+            match &result {
                 Ok(fit) => {
-                    let (valid, flag) = judge(&fit, &self.accept);
-                    tracing::info!(site, attempt, thickness_nm = fit.thickness_nm(), gof = fit.gof, %flag, "site fitted");
-                    if !valid {
-                        invalid.push(site);
-                    }
-                    Event::SiteFitted {
-                        time: now(),
+                    tracing::info!(
                         site,
                         attempt,
-                        fit,
-                        valid,
-                        flag,
-                    }
+                        thickness_nm = fit.thickness_nm(),
+                        gof = fit.gof,
+                        "site fitted"
+                    )
                 }
-                Err(reason) => {
-                    tracing::warn!(site, attempt, %reason, "site not fitted");
-                    invalid.push(site);
-                    Event::SiteFailed {
-                        time: now(),
-                        site,
-                        attempt,
-                        reason,
-                    }
-                }
-            };
+                Err(reason) => tracing::warn!(site, attempt, %reason, "site not fitted"),
+            }
+            let event = fit_event(site, attempt, result, &self.accept);
+            if !matches!(event, Event::SiteFitted { valid: true, .. }) {
+                invalid.push(site);
+            }
             self.log(event).map_err(Stop::Fault)?;
         }
         Ok(())
