@@ -69,23 +69,28 @@ fn refit_killed_at_random_points_never_mixes_models() {
     std::fs::write(&narrow, RECIPE.replace("[420, 980]", "[550, 800]")).unwrap();
     let full = dir.path().join("full");
     copy_dir(&base, &full);
+    let mut child = refit_cmd(&full, &narrow).spawn().unwrap();
     let t0 = Instant::now();
-    assert!(refit_cmd(&full, &narrow).output().unwrap().status.success());
-    let dur = t0.elapsed().as_secs_f64();
+    let started = wait_for(&full, "refit-started");
+    let finished = wait_for(&full, "refit-finished");
+    assert!(child.wait().unwrap().success());
+    // From process start to refit-started, and from there to refit-finished (the fits).
+    let (lead, span) = (started - t0, finished - started);
     let new = thicknesses(&full);
     assert!(
         old.iter().zip(&new).all(|(a, b)| a != b),
         "the two windows give different fits at every site: {old:?} {new:?}"
     );
     let (old_window, new_window) = (window(&base), window(&full));
-    // Deterministic pseudo-random kill points over the whole refit (xorshift).
+    // Deterministic pseudo-random kill points (xorshift): one in four anywhere from the
+    // start of the process, the others inside the refit itself.
     let mut x: u64 = 0x2545_f491_4f6c_dd1d;
     let (mut mid_way, mut discarded) = (0, 0);
-    for k in 0..16 {
+    for k in 0..24 {
         x ^= x << 13;
         x ^= x >> 7;
         x ^= x << 17;
-        let at = 0.02 + 1.0 * (x % 1000) as f64 / 1000.0;
+        let at = (x % 1000) as f64 / 1000.0;
         let run = dir.path().join(format!("k{k}"));
         copy_dir(&base, &run);
         let mut child = refit_cmd(&run, &narrow)
@@ -93,7 +98,12 @@ fn refit_killed_at_random_points_never_mixes_models() {
             .stderr(Stdio::null())
             .spawn()
             .unwrap();
-        std::thread::sleep(Duration::from_secs_f64(dur * at));
+        if k % 4 == 0 {
+            std::thread::sleep((lead + span).mul_f64(1.1 * at));
+        } else {
+            wait_for(&run, "refit-started");
+            std::thread::sleep(span.mul_f64(1.2 * at));
+        }
         let _ = child.kill(); // SIGKILL
         let _ = child.wait();
         let ev = events(&run);
@@ -131,6 +141,24 @@ fn refit_killed_at_random_points_never_mixes_models() {
         }
     }
     eprintln!("refit kills: {discarded} discarded unfinished, {mid_way} of them mid-way");
+    // Every event boundary inside a refit is covered by events::tests; here kills must at
+    // least have landed inside refits.
+    assert!(discarded > 0, "no kill landed inside a refit");
+}
+
+/// Waits (up to 60 s) until the run's journal holds `event` (e.g. `refit-started`); returns
+/// when.
+fn wait_for(run: &Path, event: &str) -> Instant {
+    let t0 = Instant::now();
+    let quoted = format!("\"{event}\"");
+    while t0.elapsed() < Duration::from_secs(60) {
+        let text = std::fs::read(run.join("journal.jsonl")).unwrap_or_default();
+        if text.windows(quoted.len()).any(|w| w == quoted.as_bytes()) {
+            return Instant::now();
+        }
+        std::thread::sleep(Duration::from_micros(200));
+    }
+    panic!("no {event} in {}", run.display());
 }
 
 /// A finished 9-site run in a temp dir.
