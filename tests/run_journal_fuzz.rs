@@ -113,6 +113,12 @@ fn tail() -> impl Strategy<Value = Tail> {
     ]
 }
 
+/// An event as it reads back from JSON (serde_json's default float parsing may differ from
+/// the written value in the last bit; that is not the journal's doing).
+fn read_back(e: &Event) -> Event {
+    serde_json::from_str(&serde_json::to_string(e).unwrap()).unwrap()
+}
+
 /// Writes `events` through the journal; returns the file's bytes and each line's end offset.
 fn write(path: &Path, events: &[Event]) -> (Vec<u8>, Vec<usize>) {
     let mut j = Journal::open(path).unwrap();
@@ -149,6 +155,7 @@ proptest! {
         let dir = tempfile::tempdir().unwrap();
         let path = dir.path().join("journal.jsonl");
         let (bytes, ends) = write(&path, &events);
+        let events: Vec<Event> = events.iter().map(read_back).collect();
         let (cut, extra) = match &tail {
             Tail::Cut(c) => (*c, Vec::new()),
             Tail::Nul(c, n) => {
