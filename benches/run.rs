@@ -92,7 +92,10 @@ fn main() {
         } else {
             ("—".into(), "—".into())
         };
-        println!("| {n} | {:.0} ms | {planned:.0} mm | {full} | {ratio} |", took * 1e3);
+        println!(
+            "| {n} | {:.0} ms | {planned:.0} mm | {full} | {ratio} |",
+            took * 1e3
+        );
     }
 }
 

@@ -107,7 +107,10 @@ fn tail() -> impl Strategy<Value = Tail> {
         (
             0usize..200,
             prop::sample::select(vec![0u8, 0xFF]),
-            prop::collection::vec(any::<u8>().prop_filter("no newline", |b| *b != b'\n'), 0..64)
+            prop::collection::vec(
+                any::<u8>().prop_filter("no newline", |b| *b != b'\n'),
+                0..64
+            )
         )
             .prop_map(|(cut, first, rest)| Tail::Garbage(cut, [vec![first], rest].concat())),
     ]

@@ -215,7 +215,10 @@ fn torn_journal_tails_are_kept_aside_and_the_run_goes_on() {
     let o = isopach(&["resume", run.to_str().unwrap()]);
     let stderr = String::from_utf8_lossy(&o.stderr);
     assert!(!o.status.success());
-    assert!(stderr.contains("journal.jsonl:4: not a valid event"), "{stderr}");
+    assert!(
+        stderr.contains("journal.jsonl:4: not a valid event"),
+        "{stderr}"
+    );
 }
 
 #[test]
@@ -236,7 +239,10 @@ fn leftover_temp_files_are_removed_when_a_session_starts() {
     let o = isopach(&["resume", run.to_str().unwrap()]);
     let stderr = String::from_utf8_lossy(&o.stderr);
     assert!(o.status.success(), "{stderr}");
-    assert!(stderr.contains("removed 2 unfinished temp file"), "{stderr}");
+    assert!(
+        stderr.contains("removed 2 unfinished temp file"),
+        "{stderr}"
+    );
     assert!(leftovers.iter().all(|p| !p.exists()));
     assert!(kept.iter().all(|p| p.exists()));
 }

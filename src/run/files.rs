@@ -94,7 +94,10 @@ mod tests {
     #[test]
     fn temp_names_are_recognised_and_nothing_else() {
         assert_eq!(temp_writer(".site-0003-a1.csv.tmp4242"), Some(4242));
-        assert_eq!(temp_writer(&temp_name("sites.csv")), Some(std::process::id()));
+        assert_eq!(
+            temp_writer(&temp_name("sites.csv")),
+            Some(std::process::id())
+        );
         for name in [
             "site-0003-a1.csv.tmp4242",
             ".tmp4242",

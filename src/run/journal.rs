@@ -84,8 +84,8 @@ impl Journal {
         if let Some(t) = &torn {
             tracing::warn!("{t}");
         }
-        let mut file = open_no_follow(OpenOptions::new().create(true).append(true), path)
-            .map_err(io)?;
+        let mut file =
+            open_no_follow(OpenOptions::new().create(true).append(true), path).map_err(io)?;
         let bytes = std::fs::read(path).map_err(io)?;
         if bytes.last().is_some_and(|b| *b != b'\n') {
             file.write_all(b"\n").map_err(io)?;
@@ -357,8 +357,7 @@ mod tests {
 
     #[test]
     fn a_cut_line_closed_by_an_earlier_writer_is_skipped() {
-        let r: ReadBack<Ev> =
-            parse(Path::new("j"), b"{\"n\":1}\n{\"n\":\n{\"n\":3}\n").unwrap();
+        let r: ReadBack<Ev> = parse(Path::new("j"), b"{\"n\":1}\n{\"n\":\n{\"n\":3}\n").unwrap();
         assert_eq!(r.events, vec![Ev { n: 1 }, Ev { n: 3 }]);
         assert_eq!(r.skipped_lines, vec![2]);
         assert!(r.torn.is_none());

@@ -9,10 +9,10 @@
 use super::events::{judge, now, Event, SiteState};
 use super::folder::{read_run_toml, RunFolder};
 use super::journal;
-use anyhow::Context;
 use crate::fit::Fitter;
 use crate::recipe::schema::{AcceptSpec, Recipe};
 use crate::spectrum::{read_csv, SpectrumFile};
+use anyhow::Context;
 
 /// Fits the stored spectrum of one attempt and gives the journal event for it.
 pub fn fit_stored(

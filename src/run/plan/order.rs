@@ -174,13 +174,23 @@ impl Grid {
             .flat_map(move |y| (cx - r..=cx + r).map(move |x| (x, y)))
             .filter(move |&(x, y)| (x - cx).abs() == r || (y - cy).abs() == r)
             .filter(|&(x, y)| x >= 0 && y >= 0 && (x as usize) < self.nx && (y as usize) < self.ny)
-            .flat_map(|(x, y)| self.cells[self.cell_index((x as usize, y as usize))].iter().copied())
+            .flat_map(|(x, y)| {
+                self.cells[self.cell_index((x as usize, y as usize))]
+                    .iter()
+                    .copied()
+            })
     }
 
     /// The `k` sites nearest `p` (nearest first, ties by number), skipping `except`. Ring `r`
     /// of cells lies at least `(r - 1) × cell` from `p`, so the search stops once the k-th
     /// best is nearer than the next ring can be.
-    fn nearest_k(&self, sites: &[Site], p: (f64, f64), k: usize, except: Option<usize>) -> Vec<usize> {
+    fn nearest_k(
+        &self,
+        sites: &[Site],
+        p: (f64, f64),
+        k: usize,
+        except: Option<usize>,
+    ) -> Vec<usize> {
         let centre = self.cell_at(p);
         let here = Site {
             number: 0,
@@ -258,7 +268,9 @@ pub fn two_opt_exhaustive(mut path: Vec<Site>) -> Vec<Site> {
 /// (i,j),(i+1,j+1) (no edge after the last site).
 fn reversal_gain(path: &[Site], i: usize, j: usize) -> f64 {
     let after_j = |a: &Site| path.get(j + 1).map_or(0.0, |b| dist(a, b));
-    dist(&path[i], &path[i + 1]) + after_j(&path[j]) - dist(&path[i], &path[j]) - after_j(&path[i + 1])
+    dist(&path[i], &path[i + 1]) + after_j(&path[j])
+        - dist(&path[i], &path[j])
+        - after_j(&path[i + 1])
 }
 
 /// 2-opt that only tries moves making a site adjacent to one of its [`NEIGHBOURS`] nearest
@@ -280,8 +292,11 @@ pub fn two_opt_neighbours(mut path: Vec<Site>) -> Vec<Site> {
             (s.number, k.into_iter().map(|j| path[j].number).collect())
         })
         .collect();
-    let mut pos: std::collections::HashMap<usize, usize> =
-        path.iter().enumerate().map(|(i, s)| (s.number, i)).collect();
+    let mut pos: std::collections::HashMap<usize, usize> = path
+        .iter()
+        .enumerate()
+        .map(|(i, s)| (s.number, i))
+        .collect();
     for _sweep in 0..100 {
         let mut improved = false;
         for i in 0..n {
@@ -510,4 +525,3 @@ mod tests {
         );
     }
 }
-
