@@ -12,7 +12,7 @@ use isopach::run::events::Event;
 use isopach::run::journal::{self, Journal, JournalError};
 use proptest::prelude::*;
 use proptest::test_runner::RngSeed;
-use std::path::{Path, PathBuf};
+use std::path::Path;
 
 /// The fixed seed and bounded case count of CI, unless the environment asks otherwise.
 fn config() -> ProptestConfig {
@@ -138,14 +138,6 @@ fn write(path: &Path, events: &[Event]) -> (Vec<u8>, Vec<usize>) {
     (bytes, ends)
 }
 
-fn torn_files(dir: &Path) -> Vec<PathBuf> {
-    std::fs::read_dir(dir)
-        .unwrap()
-        .map(|e| e.unwrap().path())
-        .filter(|p| p.to_string_lossy().contains("journal.torn-"))
-        .collect()
-}
-
 proptest! {
     #![proptest_config(config())]
 
@@ -200,9 +192,9 @@ proptest! {
             (Some(a), Some(t)) => {
                 prop_assert_eq!(&a.tail, &t);
                 prop_assert_eq!(std::fs::read(&a.kept).unwrap(), &torn[t.offset as usize..]);
-                prop_assert_eq!(torn_files(dir.path()), vec![a.kept]);
+                prop_assert_eq!(journal::kept_tails(dir.path()), vec![a.kept]);
             }
-            (None, None) => prop_assert!(torn_files(dir.path()).is_empty()),
+            (None, None) => prop_assert!(journal::kept_tails(dir.path()).is_empty()),
             (a, t) => prop_assert!(false, "aside {:?} vs read {:?}", a, t),
         }
     }

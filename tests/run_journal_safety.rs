@@ -199,10 +199,8 @@ fn torn_journal_tails_are_kept_aside_and_the_run_goes_on() {
             good.as_slice()
         );
         assert!(after.len() > n_good, "tail {k}");
-        let kept: Vec<Vec<u8>> = std::fs::read_dir(&run)
-            .unwrap()
-            .map(|e| e.unwrap().path())
-            .filter(|p| p.to_string_lossy().contains("journal.torn-"))
+        let kept: Vec<Vec<u8>> = isopach::run::journal::kept_tails(&run)
+            .iter()
             .map(|p| std::fs::read(p).unwrap())
             .collect();
         assert!(kept.iter().any(|b| b == tail), "tail {k}");

@@ -117,6 +117,24 @@ impl Journal {
     }
 }
 
+/// Start of the name of a file that keeps a torn tail (`journal.torn-<time>`).
+pub const TORN_PREFIX: &str = "journal.torn-";
+
+/// The files in `dir` that keep torn tails moved out of its journal, sorted by name.
+pub fn kept_tails(dir: &Path) -> Vec<PathBuf> {
+    let mut v: Vec<PathBuf> = std::fs::read_dir(dir)
+        .map(|entries| {
+            entries
+                .filter_map(Result::ok)
+                .filter(|e| e.file_name().to_string_lossy().starts_with(TORN_PREFIX))
+                .map(|e| e.path())
+                .collect()
+        })
+        .unwrap_or_default();
+    v.sort();
+    v
+}
+
 /// Moves a torn tail out of the journal at `path`: its bytes go to `journal.torn-<time>` in
 /// the same folder (synced), then the journal is cut to its last complete line. Nothing to do
 /// (`None`) for a missing journal or one without a torn tail.
@@ -137,8 +155,8 @@ pub fn recover_tail(path: &Path) -> Result<Option<TornAside>, JournalError> {
     let stamp = chrono::Local::now().format("%Y%m%d-%H%M%S%.3f");
     let kept = (1..)
         .map(|k| match k {
-            1 => dir.join(format!("journal.torn-{stamp}")),
-            k => dir.join(format!("journal.torn-{stamp}-{k}")),
+            1 => dir.join(format!("{TORN_PREFIX}{stamp}")),
+            k => dir.join(format!("{TORN_PREFIX}{stamp}-{k}")),
         })
         .find(|p| std::fs::symlink_metadata(p).is_err())
         .unwrap_or_else(|| dir.join("journal.torn"));
@@ -272,14 +290,6 @@ mod tests {
         n: u32,
     }
 
-    fn torn_files(dir: &Path) -> Vec<PathBuf> {
-        std::fs::read_dir(dir)
-            .unwrap()
-            .map(|e| e.unwrap().path())
-            .filter(|p| p.to_string_lossy().contains("journal.torn-"))
-            .collect()
-    }
-
     #[test]
     fn torn_tail_is_skipped_then_moved_aside() {
         let dir = tempfile::tempdir().unwrap();
@@ -305,7 +315,7 @@ mod tests {
         assert_eq!(r.events, vec![Ev { n: 1 }, Ev { n: 2 }]);
         // The torn bytes left the journal whole, into a file beside it.
         assert!(r.skipped_lines.is_empty() && r.torn.is_none());
-        assert_eq!(torn_files(dir.path()), vec![aside.kept.clone()]);
+        assert_eq!(kept_tails(dir.path()), vec![aside.kept.clone()]);
         assert_eq!(std::fs::read(&aside.kept).unwrap(), tail);
     }
 
@@ -329,7 +339,7 @@ mod tests {
             let r: ReadBack<Ev> = read(&p).unwrap();
             assert_eq!(r.events.len(), 3);
             assert_eq!(
-                std::fs::read(&torn_files(dir.path())[0]).unwrap(),
+                std::fs::read(&kept_tails(dir.path())[0]).unwrap(),
                 bytes[good.len()..]
             );
         }
