@@ -69,7 +69,11 @@ fn refit_killed_at_random_points_never_mixes_models() {
     std::fs::write(&narrow, RECIPE.replace("[420, 980]", "[550, 800]")).unwrap();
     let full = dir.path().join("full");
     copy_dir(&base, &full);
-    let mut child = refit_cmd(&full, &narrow).spawn().unwrap();
+    let mut child = refit_cmd(&full, &narrow)
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .unwrap();
     let t0 = Instant::now();
     let started = wait_for(&full, "refit-started");
     let finished = wait_for(&full, "refit-finished");

@@ -156,17 +156,23 @@ pub fn discard_unfinished(folder: &RunFolder) -> anyhow::Result<Option<String>> 
          mid-way): it is discarded, its fits are ignored and every site keeps its fit from \
          before it"
     );
-    if let Some(previous) = previous {
-        let kept = folder.root.join(previous);
-        // The kept file must be a valid run.toml before it replaces the current one.
-        read_run_toml(&kept)?;
-        let bytes =
-            std::fs::read(&kept).with_context(|| format!("cannot read {}", kept.display()))?;
-        super::files::write_atomic(&folder.run_toml(), &bytes)
-            .with_context(|| format!("cannot restore {}", folder.run_toml().display()))?;
-        note.push_str(&format!(
-            "; run.toml is restored from {previous} (to apply that recipe, run the refit again)"
-        ));
+    match previous.as_ref().map(|p| (p, folder.root.join(p))) {
+        Some((previous, kept)) if kept.exists() => {
+            // The kept file must be a valid run.toml before it replaces the current one.
+            read_run_toml(&kept)?;
+            let bytes =
+                std::fs::read(&kept).with_context(|| format!("cannot read {}", kept.display()))?;
+            super::files::write_atomic(&folder.run_toml(), &bytes)
+                .with_context(|| format!("cannot restore {}", folder.run_toml().display()))?;
+            note.push_str(&format!(
+                "; run.toml is restored from {previous} (to apply that recipe, run the refit again)"
+            ));
+        }
+        Some((previous, _)) => note.push_str(&format!(
+            "; the run.toml kept from before it ({previous}) is gone, so run.toml still holds \
+             the refit's recipe: run `isopach refit` again to fit every site with it"
+        )),
+        None => {}
     }
     Ok(Some(note))
 }
