@@ -5,7 +5,7 @@
 //! good events is an error naming its line.
 //!
 //! Fixed seed and 128 cases in CI; a longer run:
-//! `PROPTEST_CASES=20000 cargo test --release --test run_journal_fuzz` (add
+//! `PROPTEST_CASES=20000 cargo test --test run_journal_fuzz` (add
 //! `PROPTEST_RNG_SEED=N` for another seed).
 
 use isopach::run::events::Event;
