@@ -2,7 +2,9 @@
 //! 1. wall time of a 49-site run on the simulated bench in real time against its lower bound
 //!    (trapezoidal move times + settle + integration × averages per site), which shows that
 //!    fitting and writing hide behind motion;
-//! 2. planned path length against a 2-opt tour, for grid and custom plans.
+//! 2. planned path length against a 2-opt tour, for grid and custom plans;
+//! 3. ordering time of large custom plans (up to the 10 000-site ceiling), and the path of the
+//!    neighbour-list 2-opt used above 500 sites against exhaustive 2-opt.
 
 use isopach::bench::machine::{parse, BUILTIN_SIMULATED};
 use isopach::recipe::{self, pattern, schema::PatternSpec, Site};
@@ -60,6 +62,41 @@ fn main() {
         &spec,
         &pattern::sites(&spec, &wafer),
     );
+    println!("\n## Large custom plans\n");
+    println!("| sites | ordering time | planned path | exhaustive 2-opt path | ratio |");
+    println!("|---|---|---|---|---|");
+    for n in [1_000, 2_000, 10_000] {
+        let sites: Vec<Site> = (1..=n)
+            .map(|number| {
+                let (r, a) = (90.0 * rnd().sqrt(), std::f64::consts::TAU * rnd());
+                Site {
+                    number,
+                    x_mm: r * a.cos(),
+                    y_mm: r * a.sin(),
+                }
+            })
+            .collect();
+        let spec = PatternSpec::Custom {
+            sites_mm: sites.iter().map(|s| [s.x_mm, s.y_mm]).collect(),
+        };
+        let t0 = Instant::now();
+        let planned = plan::path_length((0.0, 0.0), &plan::order(&spec, &sites));
+        let took = t0.elapsed().as_secs_f64();
+        // Exhaustive 2-opt grows about n² per sweep: measured up to 2 000 sites only.
+        let (full, ratio) = if n <= 2_000 {
+            let tour = plan::path_length(
+                (0.0, 0.0),
+                &plan::order::two_opt_exhaustive(plan::nearest_neighbour(&sites, (0.0, 0.0))),
+            );
+            (format!("{tour:.0} mm"), format!("{:.3}", planned / tour))
+        } else {
+            ("—".into(), "—".into())
+        };
+        println!(
+            "| {n} | {:.0} ms | {planned:.0} mm | {full} | {ratio} |",
+            took * 1e3
+        );
+    }
 }
 
 /// Planned path vs a 2-opt tour (nearest neighbour from the centre, then 2-opt).

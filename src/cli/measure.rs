@@ -126,13 +126,27 @@ fn progress_display(bar: ProgressBar) -> Box<dyn Subscriber> {
     }))
 }
 
-/// Sends the library's tracing log to `log.txt` in the run folder (appended per session).
+/// Gets an existing run ready for a session (`resume`, `remeasure`, `refit`): refuses a
+/// folder with links in it, then starts the log and says on stderr and in `log.txt` what was
+/// recovered (a torn journal tail, an unfinished refit, leftover temp files).
+pub fn prepare(folder: &RunFolder) -> anyhow::Result<()> {
+    // A run folder without links, before anything is written into it.
+    folder.read_run_toml()?;
+    log_to(folder);
+    for note in folder.prepare_session()? {
+        eprintln!("note: {note}");
+        tracing::warn!("{note}");
+    }
+    Ok(())
+}
+
+/// Sends the library's tracing log to `log.txt` in the run folder (appended per session,
+/// never through a link).
 fn log_to(folder: &RunFolder) {
-    let Ok(file) = std::fs::OpenOptions::new()
-        .create(true)
-        .append(true)
-        .open(folder.root.join("log.txt"))
-    else {
+    let Ok(file) = isopach::run::files::open_no_follow(
+        std::fs::OpenOptions::new().create(true).append(true),
+        &folder.root.join("log.txt"),
+    ) else {
         return;
     };
     let _ = tracing_subscriber::fmt()

@@ -32,39 +32,55 @@ pub struct Args {
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
     let folder = RunFolder::new(&args.run);
+    super::measure::prepare(&folder)?;
     let mut meta = folder.read_run_toml()?;
+    let (_, states) = derive::read_states(&folder, &meta)?;
+    let attempts = refit::stored_attempts(&states);
+    let mut previous = None;
+    let mut recipe_name = meta.recipe.name.clone();
     if let Some(path) = &args.recipe {
         let new = recipe::load(path)?;
-        let mut updated = refit::refit_recipe(&meta.recipe, &new.recipe)?;
-        updated = new_run::freeze_tables(&updated, new.dir(), &folder.root)?;
-        let backup = folder.root.join(format!(
+        recipe_name = new.recipe.name.clone();
+        let updated = refit::refit_recipe(&meta.recipe, &new.recipe)?;
+        meta.recipe = new_run::freeze_tables(&updated, new.dir(), &folder.root)?;
+        let name = format!(
             "run-before-refit-{}.toml",
             chrono::Local::now().format("%Y%m%d-%H%M%S")
-        ));
+        );
+        let backup = folder.root.join(&name);
         std::fs::copy(folder.run_toml(), &backup)
             .with_context(|| format!("cannot keep the old run.toml as {}", backup.display()))?;
-        meta.recipe = updated;
-        new_run::write_run_toml(&folder, &meta)?;
-        eprintln!(
-            "run.toml updated from {} (previous kept as {})",
-            path.display(),
-            backup.display()
-        );
+        previous = Some((path, name));
     }
+    // The fitter is built before anything is journalled: a recipe it refuses changes nothing.
     let loaded = new_run::loaded_recipe(&folder, &meta);
     let fitter = isopach::fit::Fitter::from_recipe(&loaded)?;
     for w in fitter.warnings() {
         eprintln!("warning: {w}");
     }
     let material = reference_material(&machine_of(&meta)?);
-    let (_, states) = derive::read_states(&folder, &meta)?;
-    let attempts = refit::stored_attempts(&states);
+    // All or nothing: the fits count only once refit-finished is journalled; a refit killed
+    // before that is discarded by the next session (run.toml restored from `previous`).
     let mut journal = Journal::open(&folder.journal())?;
     journal.append(&Event::RunStarted {
         time: now(),
         command: "refit".into(),
         sites_planned: states.len(),
     })?;
+    journal.append(&Event::RefitStarted {
+        time: now(),
+        recipe: recipe_name,
+        previous: previous.as_ref().map(|(_, name)| name.clone()),
+        spectra: attempts.len(),
+    })?;
+    if let Some((path, name)) = &previous {
+        new_run::write_run_toml(&folder, &meta)?;
+        eprintln!(
+            "run.toml updated from {} (previous kept as {})",
+            path.display(),
+            folder.root.join(name).display()
+        );
+    }
     let bar = ProgressBar::new(attempts.len() as u64);
     let events = refit::fit_all(
         &folder,
@@ -78,6 +94,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     for e in &events {
         journal.append(e)?;
     }
+    journal.append(&Event::RefitFinished { time: now() })?;
     let summary = derive::rebuild(&folder)?;
     let f = &summary.first;
     outln!(

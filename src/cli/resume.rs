@@ -20,6 +20,7 @@ pub struct Args {
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
     let folder = RunFolder::new(&args.run);
+    measure::prepare(&folder)?;
     let meta = folder.read_run_toml()?;
     let plan = isopach::run::measure::plan_of_run(&folder, &meta)?;
     measure::session(&plan, folder, meta, Which::Missing, args.yes, "resume")

@@ -4,6 +4,11 @@
 //! events. A site can have several attempts (retries, `remeasure`); each attempt can be fitted
 //! several times (`refit`): the newest fit of an attempt counts, and a site's result is its
 //! newest valid attempt, else its newest attempt.
+//!
+//! A refit is all-or-nothing: its fits sit between `refit-started` and `refit-finished` and
+//! count only once `refit-finished` is journalled. A refit killed mid-way (no
+//! `refit-finished` before the next session's `run-started`) is ignored, so no site state
+//! ever mixes two optical models.
 
 use crate::fit::FitResult;
 use crate::recipe::schema::AcceptSpec;
@@ -54,6 +59,20 @@ pub enum Event {
         attempt: u32,
         reason: String,
     },
+    /// A refit began: the fits up to `refit-finished` replace the earlier ones all at once.
+    RefitStarted {
+        time: String,
+        /// Name of the recipe the refit fits with.
+        recipe: String,
+        /// The `run.toml` kept from before the refit, relative to the run folder (`None`:
+        /// the refit keeps the run's recipe).
+        #[serde(default)]
+        previous: Option<String>,
+        /// How many stored spectra it fits.
+        spectra: usize,
+    },
+    /// Every fit of the refit begun last is journalled: they count from here on.
+    RefitFinished { time: String },
     /// The session stopped early (Ctrl-C, fault); the run can be resumed.
     RunStopped { time: String, reason: String },
     /// Every planned site has a result.
@@ -152,7 +171,35 @@ impl SiteState {
     }
 }
 
-/// Folds the journal into per-site state, for the planned sites (in site-number order).
+/// The events that count, in order, and the `refit-started` of a refit left unfinished at
+/// the end of the journal: the fits of a refit are held back until its `refit-finished` and
+/// dropped when a session begins (`run-started`) or another refit starts before it.
+pub fn settled(events: &[Event]) -> (Vec<&Event>, Option<&Event>) {
+    let mut out = Vec::with_capacity(events.len());
+    let mut refit: Option<(&Event, Vec<&Event>)> = None;
+    for e in events {
+        match e {
+            Event::RefitStarted { .. } => refit = Some((e, Vec::new())),
+            Event::RefitFinished { .. } => {
+                if let Some((_, held)) = refit.take() {
+                    out.extend(held);
+                }
+            }
+            Event::RunStarted { .. } => {
+                refit = None;
+                out.push(e);
+            }
+            e => match &mut refit {
+                Some((_, held)) => held.push(e),
+                None => out.push(e),
+            },
+        }
+    }
+    (out, refit.map(|(started, _)| started))
+}
+
+/// Folds the journal into per-site state, for the planned sites (in site-number order); the
+/// fits of an unfinished refit do not count (see [`settled`]).
 pub fn site_states(plan: &[Site], events: &[Event]) -> Vec<SiteState> {
     let mut by_site: BTreeMap<usize, SiteState> = plan
         .iter()
@@ -166,7 +213,7 @@ pub fn site_states(plan: &[Site], events: &[Event]) -> Vec<SiteState> {
             )
         })
         .collect();
-    for e in events {
+    for e in settled(events).0 {
         let (site, attempt) = match e {
             Event::SiteMeasured { site, attempt, .. }
             | Event::SiteFitted { site, attempt, .. }
@@ -298,5 +345,61 @@ mod tests {
         let line = serde_json::to_string(&e).unwrap();
         assert!(line.starts_with("{\"event\":\"site-fitted\""), "{line}");
         assert_eq!(serde_json::from_str::<Event>(&line).unwrap(), e);
+    }
+
+    #[test]
+    fn a_refit_counts_whole_or_not_at_all() {
+        let plan: Vec<Site> = (1..=3)
+            .map(|n| Site {
+                number: n,
+                x_mm: n as f64,
+                y_mm: 0.0,
+            })
+            .collect();
+        let started = |command: &str| Event::RunStarted {
+            time: String::new(),
+            command: command.into(),
+            sites_planned: 3,
+        };
+        let mut events = vec![started("run")];
+        for n in 1..=3 {
+            events.push(measured(n, 1));
+            events.push(fitted(n, 1, 100.0, 0.99));
+        }
+        let run_len = events.len();
+        events.push(started("refit"));
+        events.push(Event::RefitStarted {
+            time: String::new(),
+            recipe: "wide".into(),
+            previous: Some("run-before-refit.toml".into()),
+            spectra: 3,
+        });
+        for n in 1..=3 {
+            events.push(fitted(n, 1, 200.0, 0.99));
+        }
+        events.push(Event::RefitFinished {
+            time: String::new(),
+        });
+        let thicknesses = |events: &[Event]| -> Vec<f64> {
+            site_states(&plan, events)
+                .iter()
+                .map(|s| s.best().unwrap().fit.as_ref().unwrap().layers[0].thickness_nm)
+                .collect()
+        };
+        // A kill after any event of the refit: every site keeps the old model, until the
+        // refit is finished; then every site has the new one.
+        for cut in run_len..events.len() {
+            let (_, open) = settled(&events[..cut]);
+            assert_eq!(open.is_some(), cut > run_len + 1, "cut {cut}");
+            assert_eq!(thicknesses(&events[..cut]), vec![100.0; 3], "cut {cut}");
+        }
+        assert_eq!(thicknesses(&events), vec![200.0; 3]);
+        assert!(settled(&events).1.is_none());
+        // A session after an unfinished refit drops it, and its own fits count.
+        let mut killed = events[..run_len + 4].to_vec();
+        killed.push(started("resume"));
+        killed.push(fitted(2, 1, 300.0, 0.99));
+        assert!(settled(&killed).1.is_none());
+        assert_eq!(thicknesses(&killed), vec![100.0, 300.0, 100.0]);
     }
 }

@@ -85,7 +85,58 @@ impl RunFolder {
                 path: self.root.clone(),
             });
         }
+        self.refuse_links()?;
         read_run_toml(&self.run_toml())
+    }
+
+    /// Refuses a run folder in which a file or folder is a symbolic link (at the top, in
+    /// `spectra/` or in `materials/`): appends and writes through a planted link would reach
+    /// files outside the runs folder.
+    pub fn refuse_links(&self) -> Result<(), RunFolderError> {
+        for dir in [
+            self.root.clone(),
+            self.spectra_dir(),
+            self.root.join(super::new_run::MATERIALS_DIR),
+        ] {
+            let Ok(entries) = std::fs::read_dir(&dir) else {
+                continue;
+            };
+            for e in entries.filter_map(Result::ok) {
+                if e.file_type().is_ok_and(|t| t.is_symlink()) {
+                    return Err(RunFolderError::Link { path: e.path() });
+                }
+            }
+        }
+        Ok(())
+    }
+
+    /// Gets the run ready for a session (`resume`, `remeasure`, `refit`): refuses links,
+    /// moves a torn journal tail aside, discards a refit a kill left unfinished and removes
+    /// temp files a killed writer left. Returns a note for the operator on each thing done.
+    pub fn prepare_session(&self) -> anyhow::Result<Vec<String>> {
+        self.refuse_links()?;
+        let mut notes = Vec::new();
+        if let Some(torn) = super::journal::recover_tail(&self.journal())? {
+            notes.push(torn.to_string());
+        }
+        notes.extend(super::refit::discard_unfinished(self)?);
+        let mut removed = Vec::new();
+        for dir in [self.root.clone(), self.spectra_dir()] {
+            removed.extend(super::files::remove_leftover_temps(&dir));
+        }
+        if !removed.is_empty() {
+            let names: Vec<String> = removed
+                .iter()
+                .filter_map(|p| p.strip_prefix(&self.root).ok())
+                .map(|p| p.display().to_string())
+                .collect();
+            notes.push(format!(
+                "removed {} unfinished temp file(s) a killed session left: {}",
+                removed.len(),
+                names.join(", ")
+            ));
+        }
+        Ok(notes)
     }
 }
 
@@ -104,6 +155,9 @@ pub enum RunFolderError {
         path: PathBuf,
         source: toml::de::Error,
     },
+    /// A file or folder in the run folder is a symbolic link.
+    #[error("{} is a symbolic link: isopach does not read or write run files through links (they could reach files outside the runs folder); replace it with the file itself or remove it", path.display())]
+    Link { path: PathBuf },
     /// `run.toml` exists but cannot be read.
     #[error("cannot read {}: {source}", path.display())]
     Io {

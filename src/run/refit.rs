@@ -1,11 +1,18 @@
 //! Fitting stored spectra again: after a stop (spectra stored but not fitted) and for
 //! `isopach refit` with a new model, window or method. No stage motion.
+//!
+//! A refit is all-or-nothing (see [`super::events::settled`]): `refit-started` (naming the
+//! `run.toml` kept from before), then `run.toml` with the new recipe, the fits, and
+//! `refit-finished`. A refit killed before its end is discarded by the next session on the
+//! run ([`discard_unfinished`]): the kept `run.toml` comes back and the old fits stand.
 
 use super::events::{fit_event, Event, SiteState};
-use super::folder::RunFolder;
+use super::folder::{read_run_toml, RunFolder};
+use super::journal;
 use crate::fit::Fitter;
 use crate::recipe::schema::{AcceptSpec, Recipe};
 use crate::spectrum::{read_csv, SpectrumFile};
+use anyhow::Context;
 
 /// Fits the stored spectrum of one attempt and gives the journal event for it.
 pub fn fit_stored(
@@ -108,4 +115,47 @@ pub fn refit_recipe(frozen: &Recipe, new: &Recipe) -> Result<Recipe, PlanMismatc
     r.accept = new.accept.clone();
     r.materials = new.materials.clone();
     Ok(r)
+}
+
+/// Discards a refit that a kill left unfinished at the end of the run's journal: its fits
+/// already do not count; this puts back the `run.toml` kept from before it, so the recipe
+/// matches the fits again. Returns a note saying what was done (`None`: nothing to do).
+pub fn discard_unfinished(folder: &RunFolder) -> anyhow::Result<Option<String>> {
+    if !folder.journal().exists() {
+        return Ok(None);
+    }
+    let events = journal::read::<Event>(&folder.journal())?.events;
+    let Some(Event::RefitStarted {
+        time,
+        recipe,
+        previous,
+        ..
+    }) = super::events::settled(&events).1
+    else {
+        return Ok(None);
+    };
+    let mut note = format!(
+        "a refit with recipe \"{recipe}\" started {time} did not finish (killed or stopped \
+         mid-way): it is discarded, its fits are ignored and every site keeps its fit from \
+         before it"
+    );
+    match previous.as_ref().map(|p| (p, folder.root.join(p))) {
+        Some((previous, kept)) if kept.exists() => {
+            // The kept file must be a valid run.toml before it replaces the current one.
+            read_run_toml(&kept)?;
+            let bytes =
+                std::fs::read(&kept).with_context(|| format!("cannot read {}", kept.display()))?;
+            super::files::write_atomic(&folder.run_toml(), &bytes)
+                .with_context(|| format!("cannot restore {}", folder.run_toml().display()))?;
+            note.push_str(&format!(
+                "; run.toml is restored from {previous} (to apply that recipe, run the refit again)"
+            ));
+        }
+        Some((previous, _)) => note.push_str(&format!(
+            "; the run.toml kept from before it ({previous}) is gone, so run.toml still holds \
+             the refit's recipe: run `isopach refit` again to fit every site with it"
+        )),
+        None => {}
+    }
+    Ok(Some(note))
 }
