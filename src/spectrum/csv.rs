@@ -406,6 +406,52 @@ mod tests {
     }
 
     #[test]
+    fn more_rows_than_any_spectrometer_has_pixels_are_refused() {
+        let mut text = String::from("wavelength_nm,reflectance\n");
+        for i in 0..=MAX_PIXELS {
+            text.push_str(&format!("{},0.3\n", 400.0 + i as f64 * 0.001));
+        }
+        let e = err(&text);
+        assert!(
+            e.contains(&format!("s.csv:{}: more than {MAX_PIXELS} data rows", MAX_PIXELS + 2)),
+            "{e}"
+        );
+        // One row fewer is a spectrum.
+        let cut = text.trim_end().rfind('\n').unwrap() + 1;
+        assert!(parse_csv(&text[..cut], Path::new("s.csv")).is_ok());
+    }
+
+    #[test]
+    fn a_file_larger_than_any_spectrum_is_refused_before_it_is_read() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("huge.csv");
+        // Sparse: the size is there, the disk blocks are not.
+        let f = std::fs::File::create(&path).unwrap();
+        f.set_len(MAX_FILE_BYTES + 1).unwrap();
+        let e = read_csv(&path).unwrap_err().to_string();
+        assert!(
+            e.contains(&format!("{} bytes", MAX_FILE_BYTES + 1))
+                && e.contains(&format!("at most {MAX_FILE_BYTES} bytes")),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn a_file_reads_as_its_text_parses() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("s.csv");
+        for text in [
+            "\u{feff}# c\r\nwavelength_nm,reflectance\r\n402,0.32\r\n401,0.31\r\n400,0.3",
+            "wavelength_nm,sample,dark,reference\n400,100,10,200\n\n401,110,10,210\n402,120,10,220\n",
+            "wavelength_nm,reflectance\n400,0.3\n401,x\n",
+        ] {
+            std::fs::write(&path, text).unwrap();
+            let (file, parsed) = (read_csv(&path), parse_csv(text, &path));
+            assert_eq!(format!("{file:?}"), format!("{parsed:?}"), "{text:?}");
+        }
+    }
+
+    #[test]
     fn a_falling_file_reads_as_the_rising_one() {
         let rising = "wavelength_nm,reflectance\n400,0.3\n401,0.31\n402,0.32\n";
         let falling = "wavelength_nm,reflectance\n402,0.32\n401,0.31\n400,0.3\n";
