@@ -6,37 +6,20 @@
 
 #[path = "../tests/hostile_common/mod.rs"]
 mod hostile_common;
+#[path = "../tests/run_common/mod.rs"]
+mod run_common;
 
 use hostile_common::{peak_memory, script, spectrum_helper};
 use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
-const RECIPE: &str = r#"name = "hostile-9"
-[wafer]
-diameter_mm = 150
-edge_exclusion_mm = 5
-orientation = "flat"
-[pattern]
-kind = "standard"
-sites = 9
-[film]
-ambient = "air"
-substrate = "si"
-layers = [ { material = "sio2", nominal_nm = 600, min_nm = 100, max_nm = 2000 } ]
-wavelength_nm = [420, 980]
-[acquire]
-integration_ms = 10
-averages = 2
-settle_ms = 50
-retries = 0
-"#;
-
 fn main() {
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();
     let recipe = d.join("r.toml");
-    std::fs::write(&recipe, RECIPE).unwrap();
+    // The run tests' 9-site recipe, measured once per site (no second pass).
+    std::fs::write(&recipe, format!("{}retries = 0\n", run_common::RECIPE)).unwrap();
     println!("| input | exit | peak RSS | wall time | log.txt + journal |");
     println!("|---|---|---|---|---|");
     type Make = fn(&Path) -> PathBuf;
@@ -64,19 +47,8 @@ fn main() {
         std::fs::create_dir(&case).unwrap();
         let machine = machine_file(&case, &make(&case));
         let runs = case.join("runs");
-        let m = peak_memory(
-            Command::new(env!("CARGO_BIN_EXE_isopach")).args([
-                "run".as_ref(),
-                recipe.as_os_str(),
-                "--machine".as_ref(),
-                machine.as_os_str(),
-                "--wafer".as_ref(),
-                format!("H{i}").as_ref(),
-                "--runs".as_ref(),
-                runs.as_os_str(),
-            ]),
-            &case,
-        );
+        let args = run_common::run_args(&recipe, &machine, &format!("H{i}"), &runs);
+        let m = measure(&args, &case);
         let files = run_files_bytes(&runs);
         println!(
             "| {what} | {} | {:.1} MiB | {:.1} s | {} bytes |",
@@ -85,13 +57,13 @@ fn main() {
         last_error_line(&case, what);
     }
     for (what, path) in spectrum_files(d) {
-        let m = peak_memory(
-            Command::new(env!("CARGO_BIN_EXE_isopach")).args([
-                "fit".as_ref(),
-                path.as_os_str(),
-                "--recipe".as_ref(),
-                recipe.as_os_str(),
-            ]),
+        let m = measure(
+            &[
+                "fit".into(),
+                path.to_string_lossy().into(),
+                "--recipe".into(),
+                recipe.to_string_lossy().into(),
+            ],
             d,
         );
         println!(
@@ -101,6 +73,11 @@ fn main() {
         last_error_line(d, what);
         std::fs::remove_file(path).unwrap();
     }
+}
+
+/// Runs isopach with `args`, its output in files in `dir`; its peak memory.
+fn measure(args: &[String], dir: &Path) -> hostile_common::Measured {
+    peak_memory(Command::new(env!("CARGO_BIN_EXE_isopach")).args(args), dir)
 }
 
 /// Prints (to stderr, beside the table) the last line the child printed on stderr.
@@ -118,7 +95,11 @@ fn machine_file(dir: &Path, helper: &Path) -> PathBuf {
     let text = isopach::bench::machine::BUILTIN_SIMULATED
         .replace("[spectrometer]\nkind = \"simulated\"", &spec);
     let path = dir.join("machine.toml");
-    std::fs::write(&path, format!("{text}\n[reference]\nposition_mm = [20, 20]\n")).unwrap();
+    std::fs::write(
+        &path,
+        format!("{text}\n[reference]\nposition_mm = [20, 20]\n"),
+    )
+    .unwrap();
     path
 }
 
@@ -150,7 +131,12 @@ fn spectrum_files(dir: &Path) -> Vec<(&'static str, PathBuf)> {
     vec![
         (
             "10 million rows (over 100 MB)",
-            write("rows10m.csv", "wavelength_nm,reflectance\n", 10_000_000, &rows),
+            write(
+                "rows10m.csv",
+                "wavelength_nm,reflectance\n",
+                10_000_000,
+                &rows,
+            ),
         ),
         (
             "10 million comment lines (20 MB)",
@@ -158,7 +144,12 @@ fn spectrum_files(dir: &Path) -> Vec<(&'static str, PathBuf)> {
         ),
         (
             "100 001 rows",
-            write("rows100k.csv", "wavelength_nm,reflectance\n", 100_001, &rows),
+            write(
+                "rows100k.csv",
+                "wavelength_nm,reflectance\n",
+                100_001,
+                &rows,
+            ),
         ),
     ]
 }

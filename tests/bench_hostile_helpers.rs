@@ -22,6 +22,15 @@ fn spectrometer(program: &Path, timeout_s: f64) -> CommandSpectrometer {
     })
 }
 
+/// A helper that starts a sleeping child (its pid in `DIR/pid`) and sleeps itself.
+fn hang_helper(dir: &Path) -> std::path::PathBuf {
+    script(
+        dir,
+        "hang.sh",
+        "sleep 300 &\necho $! > \"$(dirname \"$0\")/pid\"\nsleep 300",
+    )
+}
+
 /// Messages that quote a helper stay short whatever it printed.
 const MESSAGE_MAX: usize = 1200;
 
@@ -45,7 +54,11 @@ async fn a_helper_printing_200_mb_is_killed_at_the_cap() {
     assert!(text.contains(&format!("more than {cap} bytes")), "{text}");
     assert!(text.len() < MESSAGE_MAX, "{} chars", text.len());
     // Killed at the cap, not read to its end (that would be 200 MB through a pipe).
-    assert!(start.elapsed() < Duration::from_secs(20), "{:?}", start.elapsed());
+    assert!(
+        start.elapsed() < Duration::from_secs(20),
+        "{:?}",
+        start.elapsed()
+    );
     assert!(gone(pid_in(dir.path())), "the helper survived");
 }
 
@@ -89,7 +102,10 @@ async fn a_failure_quotes_only_an_excerpt_of_stderr() {
     assert!(matches!(e, SpectrometerError::Failed { .. }), "{text}");
     assert!(text.contains("exit status: 3"), "{text}");
     assert!(text.contains("USB \\u{1b}[31mhiccup\\neee"), "{text}");
-    assert!(!text.contains('\u{1b}') && text.len() < MESSAGE_MAX, "{text}");
+    assert!(
+        !text.contains('\u{1b}') && text.len() < MESSAGE_MAX,
+        "{text}"
+    );
 }
 
 #[tokio::test]
@@ -108,7 +124,10 @@ async fn a_bad_line_is_quoted_short_and_escaped() {
         "{text}"
     );
     assert!(text.contains("401,\\u{1b}[2Jxxx"), "{text}");
-    assert!(!text.contains('\u{1b}') && text.len() < MESSAGE_MAX, "{text}");
+    assert!(
+        !text.contains('\u{1b}') && text.len() < MESSAGE_MAX,
+        "{text}"
+    );
 }
 
 #[tokio::test]
@@ -116,44 +135,43 @@ async fn an_orphaned_child_dies_with_the_helper() {
     let dir = tempfile::tempdir().unwrap();
     // The sleeping child keeps the helper's stdout open: without the group kill the read
     // would wait for it (300 s), past the 30 s timeout.
-    let helper = spectrum_helper(
-        dir.path(),
-        "sleep 300 &\n  echo $! > \"$DIR/pid\"",
-    );
+    let helper = spectrum_helper(dir.path(), "sleep 300 &\n  echo $! > \"$DIR/pid\"");
     let mut s = spectrometer(&helper, 30.0);
     let start = Instant::now();
     assert_eq!(s.acquire(10.0, 1).await.unwrap().counts.len(), 512);
-    assert!(start.elapsed() < Duration::from_secs(10), "{:?}", start.elapsed());
+    assert!(
+        start.elapsed() < Duration::from_secs(10),
+        "{:?}",
+        start.elapsed()
+    );
     assert!(gone(pid_in(dir.path())), "the orphan survived");
 }
 
 #[tokio::test]
 async fn a_timeout_kills_the_helper_and_its_children() {
     let dir = tempfile::tempdir().unwrap();
-    let helper = script(
-        dir.path(),
-        "hang.sh",
-        "sleep 300 &\necho $! > \"$(dirname \"$0\")/pid\"\nsleep 300",
-    );
+    let helper = hang_helper(dir.path());
     let mut s = spectrometer(&helper, 0.5);
     let e = s.acquire(10.0, 1).await.unwrap_err();
     assert!(matches!(e, SpectrometerError::Timeout { .. }), "{e}");
-    assert!(gone(pid_in(dir.path())), "the helper's child survived the timeout");
+    assert!(
+        gone(pid_in(dir.path())),
+        "the helper's child survived the timeout"
+    );
 }
 
 #[tokio::test]
 async fn a_dropped_acquisition_kills_the_helper_and_its_children() {
     let dir = tempfile::tempdir().unwrap();
-    let helper = script(
-        dir.path(),
-        "hang.sh",
-        "sleep 300 &\necho $! > \"$(dirname \"$0\")/pid\"\nsleep 300",
-    );
+    let helper = hang_helper(dir.path());
     let mut s = spectrometer(&helper, 60.0);
     // A stop (Ctrl-C) drops the acquisition's future, as this timeout does.
     let r = tokio::time::timeout(Duration::from_millis(500), s.acquire(10.0, 1)).await;
     assert!(r.is_err());
-    assert!(gone(pid_in(dir.path())), "the helper's child survived the drop");
+    assert!(
+        gone(pid_in(dir.path())),
+        "the helper's child survived the drop"
+    );
 }
 
 #[tokio::test]

@@ -82,8 +82,11 @@ proptest! {
 const SEED: u64 = 18;
 
 fn fixed(cases: u32) -> ProptestConfig {
+    let longer = std::env::var("PROPTEST_CASES")
+        .ok()
+        .and_then(|v| v.parse().ok());
     ProptestConfig {
-        cases,
+        cases: longer.unwrap_or(cases),
         rng_seed: proptest::test_runner::RngSeed::Fixed(SEED),
         ..ProptestConfig::default()
     }
@@ -111,8 +114,8 @@ proptest! {
 }
 
 proptest! {
-    // Each case parses 100 000 rows: a few cases pin it.
-    #![proptest_config(fixed(8))]
+    // Each case parses 100 000 rows: a few cases pin it, however long the run.
+    #![proptest_config(ProptestConfig { cases: 8, ..fixed(8) })]
 
     /// Past the pixel ceiling a file is refused at the first row too many, whatever its rows
     /// hold before that.

@@ -62,8 +62,7 @@ fn measured_sites(ev: &[Event]) -> Vec<usize> {
 
 #[test]
 fn one_failed_acquisition_is_retried_and_the_run_finishes() {
-    let (dir, recipe, machine) =
-        helper_bench("[ $n = 3 ] && { echo 'USB hiccup' >&2; exit 1; }");
+    let (dir, recipe, machine) = helper_bench("[ $n = 3 ] && { echo 'USB hiccup' >&2; exit 1; }");
     let runs = dir.path().join("runs");
     let o = run_map(&recipe, &machine, "T1", &runs);
     let run = only_run(&runs);
@@ -76,7 +75,10 @@ fn one_failed_acquisition_is_retried_and_the_run_finishes() {
     assert_eq!(measured_sites(&ev), (1..=9).collect::<Vec<_>>());
     assert!(failed(&ev).is_empty(), "{:?}", failed(&ev));
     let log = std::fs::read_to_string(run.join("log.txt")).unwrap();
-    assert!(log.contains("trying again") && log.contains("USB hiccup"), "{log}");
+    assert!(
+        log.contains("trying again") && log.contains("USB hiccup"),
+        "{log}"
+    );
 }
 
 #[test]

@@ -158,7 +158,11 @@ pub async fn acquire_retrying(
                 })
             }
             Err(e) => {
-                tracing::warn!(kind = kind.as_str(), tries, "acquisition failed, trying again: {e}");
+                tracing::warn!(
+                    kind = kind.as_str(),
+                    tries,
+                    "acquisition failed, trying again: {e}"
+                );
                 tokio::time::sleep(RETRY_PAUSE).await;
             }
         }
@@ -323,7 +327,10 @@ pub fn parse_counts_csv(text: &str) -> Result<Counts, (usize, String)> {
         let quoted = || excerpt(t, EXCERPT_CHARS);
         if !header {
             if cells.len() != 2 || !cells[0].eq_ignore_ascii_case("wavelength_nm") {
-                return Err((line, format!("header \"{}\" should be wavelength_nm,counts", quoted())));
+                return Err((
+                    line,
+                    format!("header \"{}\" should be wavelength_nm,counts", quoted()),
+                ));
             }
             header = true;
             continue;
@@ -332,7 +339,10 @@ pub fn parse_counts_csv(text: &str) -> Result<Counts, (usize, String)> {
             return Err((line, format!("{} fields, expected 2", cells.len())));
         }
         if c.counts.len() == MAX_PIXELS {
-            return Err((line, format!("more than {MAX_PIXELS} rows: no spectrometer has this many pixels")));
+            return Err((
+                line,
+                format!("more than {MAX_PIXELS} rows: no spectrometer has this many pixels"),
+            ));
         }
         let num = |s: &str| s.parse::<f64>().ok().filter(|v| v.is_finite());
         let (Some(w), Some(v)) = (num(cells[0]), num(cells[1])) else {

@@ -138,9 +138,9 @@ impl NkTable {
 /// blank and `#` comment lines and a leading byte-order mark (the rules every isopach CSV
 /// input follows).
 pub fn csv_records(text: &str) -> impl Iterator<Item = (usize, &str, Vec<&str>)> {
-    text.lines().enumerate().filter_map(|(i, raw)| {
-        csv_record(raw).map(|(t, cells)| (i + 1, t, cells))
-    })
+    text.lines()
+        .enumerate()
+        .filter_map(|(i, raw)| csv_record(raw).map(|(t, cells)| (i + 1, t, cells)))
 }
 
 /// One line of CSV text under the rules of [`csv_records`]: `None` for a blank or comment

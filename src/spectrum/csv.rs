@@ -165,7 +165,9 @@ impl<'a> Parser<'a> {
             if w == prev {
                 return Err(self.at(
                     line,
-                    format!("duplicate wavelength {w} nm (also on line {prev_line}): each pixel once"),
+                    format!(
+                        "duplicate wavelength {w} nm (also on line {prev_line}): each pixel once"
+                    ),
                 ));
             }
             let falling = w < prev;
@@ -195,10 +197,7 @@ impl<'a> Parser<'a> {
     /// Checks the whole spectrum once every line is in.
     fn finish(mut self) -> Result<SpectrumFile, SpectrumError> {
         let Some(ncol) = self.columns else {
-            return Err(self.at(
-                1,
-                "no header: the file is empty or only comments".into(),
-            ));
+            return Err(self.at(1, "no header: the file is empty or only comments".into()));
         };
         let rows = self.lines.len();
         if rows < MIN_ROWS {
@@ -413,7 +412,10 @@ mod tests {
         }
         let e = err(&text);
         assert!(
-            e.contains(&format!("s.csv:{}: more than {MAX_PIXELS} data rows", MAX_PIXELS + 2)),
+            e.contains(&format!(
+                "s.csv:{}: more than {MAX_PIXELS} data rows",
+                MAX_PIXELS + 2
+            )),
             "{e}"
         );
         // One row fewer is a spectrum.

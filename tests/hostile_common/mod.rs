@@ -83,7 +83,10 @@ pub fn pid_in(dir: &Path) -> u32 {
         {
             return pid;
         }
-        assert!(start.elapsed() < Duration::from_secs(3), "the helper wrote no pid");
+        assert!(
+            start.elapsed() < Duration::from_secs(3),
+            "the helper wrote no pid"
+        );
         std::thread::sleep(Duration::from_millis(20));
     }
 }
