@@ -10,6 +10,7 @@ use super::sim::controller::VirtualConfig;
 use super::sim::server::spawn_duplex;
 use super::sim::spectrometer::VirtualSpectrometer;
 use super::sim::wafer::{BareSample, VirtualWafer};
+use super::helper_spectrometer::HelperSpectrometer;
 use super::spectrometer::{CommandSpectrometer, Spectrometer};
 use super::stage::{GcodeStage, Stage, StageError};
 use super::transport::open_serial;
@@ -95,6 +96,10 @@ impl Bench {
         let (spectrometer, wafer): (Box<dyn Spectrometer>, _) = match m.spectrometer.kind {
             SpectrometerKind::Command => (
                 Box::new(CommandSpectrometer::from_spec(&m.spectrometer)),
+                None,
+            ),
+            SpectrometerKind::Helper => (
+                Box::new(HelperSpectrometer::from_spec(&m.spectrometer)),
                 None,
             ),
             SpectrometerKind::Simulated => {

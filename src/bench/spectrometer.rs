@@ -70,6 +70,12 @@ pub enum SpectrometerError {
     },
     #[error("the spectrometer returned {got} pixels but {expected} were expected (as many as the dark and reference spectra): check that the spectrometer's settings did not change")]
     Pixels { got: usize, expected: usize },
+    #[error("spectrometer helper `{program}`, request {request}: {message}")]
+    Helper {
+        program: String,
+        request: &'static str,
+        message: String,
+    },
     #[error("invalid acquisition settings: {0}")]
     Settings(String),
     #[error("{last} (tried {tries} times)")]
@@ -103,6 +109,11 @@ pub trait Spectrometer: Send {
     ) -> BoxFuture<'_, Result<Counts, SpectrometerError>>;
     /// What it is, for messages and run records.
     fn describe(&self) -> String;
+
+    /// Ends the session with the spectrometer (a long-running helper is told to close).
+    fn close(&mut self) -> BoxFuture<'_, Result<(), SpectrometerError>> {
+        Box::pin(async { Ok(()) })
+    }
 
     /// One acquisition of `kind`.
     fn take(

@@ -149,10 +149,17 @@ impl Sequencer {
         plan: &Plan,
         mut next_attempt: impl FnMut(usize) -> u32,
     ) -> Outcome {
-        match self.steps(bench, plan, &mut next_attempt).await {
+        let outcome = match self.steps(bench, plan, &mut next_attempt).await {
             Ok(()) => Outcome::Finished,
             Err(stop) => self.stopped(Some(bench), stop).await,
+        };
+        // A long-running spectrometer helper is told to close (dropping it kills it anyway).
+        match tokio::time::timeout(STOP_TIMEOUT, bench.spectrometer.close()).await {
+            Ok(Ok(())) => {}
+            Ok(Err(e)) => tracing::warn!("closing the spectrometer: {e}"),
+            Err(_) => tracing::warn!("the spectrometer did not close in time"),
         }
+        outcome
     }
 
     async fn steps(
