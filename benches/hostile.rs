@@ -9,7 +9,7 @@ mod hostile_common;
 #[path = "../tests/run_common/mod.rs"]
 mod run_common;
 
-use hostile_common::{peak_memory, script, spectrum_helper};
+use hostile_common::{peak_memory, script, spectrum_helper, with_spectrometer};
 use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -88,12 +88,8 @@ fn last_error_line(dir: &Path, what: &str) {
 
 /// The built-in simulated stage with `helper` as the spectrometer and an on-chuck reference.
 fn machine_file(dir: &Path, helper: &Path) -> PathBuf {
-    let spec = format!(
-        "[spectrometer]\nkind = \"command\"\ncommand = [\"{}\", \"{{kind}}\"]\ntimeout_s = 60",
-        helper.display()
-    );
-    let text = isopach::bench::machine::BUILTIN_SIMULATED
-        .replace("[spectrometer]\nkind = \"simulated\"", &spec);
+    let argv = [helper.to_str().unwrap().to_string(), "{kind}".into()];
+    let text = with_spectrometer(isopach::bench::machine::BUILTIN_SIMULATED, "command", &argv);
     let path = dir.join("machine.toml");
     std::fs::write(
         &path,

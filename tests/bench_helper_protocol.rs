@@ -6,7 +6,7 @@
 mod hostile_common;
 mod run_common;
 
-use hostile_common::{gone, pid_in, script};
+use hostile_common::{finished_run, gone, pid_in, script, with_spectrometer};
 use isopach::bench::helper_spectrometer::HelperSpectrometer;
 use isopach::bench::machine::{SpectrometerKind, SpectrometerSpec};
 use isopach::bench::Spectrometer;
@@ -15,7 +15,10 @@ use run_common::*;
 use std::time::{Duration, Instant};
 
 fn example(extra: &[&str]) -> Vec<String> {
-    let script = concat!(env!("CARGO_MANIFEST_DIR"), "/scripts/spectrometer_helper.py");
+    let script = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/scripts/spectrometer_helper.py"
+    );
     let mut argv = vec!["python3".to_string(), script.into(), "--simulate".into()];
     argv.extend(extra.iter().map(|s| s.to_string()));
     argv
@@ -42,8 +45,16 @@ async fn the_example_helper_speaks_the_protocol() {
     assert!((sample.wavelength_nm[511] - 980.0).abs() < 1e-6);
     assert!(dark.counts.iter().all(|c| *c == 100.0));
     // Reference counts above the dark; the sample's fringes move around a lower level.
-    assert!(reference.counts.iter().zip(&dark.counts).all(|(r, d)| r > d));
-    assert!(sample.counts.iter().zip(&reference.counts).any(|(s, r)| s < r));
+    assert!(reference
+        .counts
+        .iter()
+        .zip(&dark.counts)
+        .all(|(r, d)| r > d));
+    assert!(sample
+        .counts
+        .iter()
+        .zip(&reference.counts)
+        .any(|(s, r)| s < r));
     s.close().await.unwrap();
 }
 
@@ -70,7 +81,10 @@ async fn a_helper_error_reply_is_reported() {
     );
     let mut s = helper(vec![h.to_str().unwrap().into()], 5.0);
     let e = s.dark(10.0, 1).await.unwrap_err().to_string();
-    assert!(e.contains("request dark: the helper says: lamp is off"), "{e}");
+    assert!(
+        e.contains("request dark: the helper says: lamp is off"),
+        "{e}"
+    );
 }
 
 #[tokio::test]
@@ -110,31 +124,32 @@ async fn a_silent_helper_times_out_after_one_restart() {
 #[test]
 fn a_map_run_with_the_example_helper_measures_every_site() {
     let (dir, recipe, machine) = bench_dir("[reference]\nposition_mm = [20, 20]\n");
-    let argv: Vec<String> = example(&["--die-after", "4"])
-        .iter()
-        .map(|a| format!("\"{a}\""))
-        .collect();
-    let text = std::fs::read_to_string(&machine).unwrap().replace(
-        "[spectrometer]\nkind = \"simulated\"",
-        &format!(
-            "[spectrometer]\nkind = \"helper\"\ncommand = [{}]\ntimeout_s = 20",
-            argv.join(", ")
-        ),
-    );
-    std::fs::write(&machine, text).unwrap();
+    let text = std::fs::read_to_string(&machine).unwrap();
+    let argv = example(&["--die-after", "4"]);
+    std::fs::write(&machine, with_spectrometer(&text, "helper", &argv)).unwrap();
     let runs = dir.path().join("runs");
-    let o = run_map(&recipe, &machine, "P1", &runs);
-    let run = only_run(&runs);
-    let ev = events(&run);
-    assert!(
-        matches!(ev.last(), Some(Event::RunFinished { .. })),
-        "{}",
-        String::from_utf8_lossy(&o.stderr)
-    );
+    let ev = finished_run(&recipe, &machine, "P1", &runs);
     let measured = ev
         .iter()
         .filter(|e| matches!(e, Event::SiteMeasured { .. }))
         .count();
     assert!(measured >= 9, "{measured}");
-    assert!(!ev.iter().any(|e| matches!(e, Event::SiteFailed { reason, .. } if reason.contains("acquisition"))));
+    assert!(!ev
+        .iter()
+        .any(|e| matches!(e, Event::SiteFailed { reason, .. } if reason.contains("acquisition"))));
+}
+
+#[test]
+fn a_helper_kind_without_a_program_is_refused() {
+    let text = isopach::bench::machine::BUILTIN_SIMULATED.replace(
+        "[spectrometer]\nkind = \"simulated\"",
+        "[spectrometer]\nkind = \"helper\"",
+    );
+    let e = isopach::bench::machine::parse(&text, std::path::Path::new("m.toml"))
+        .unwrap_err()
+        .to_string();
+    assert!(
+        e.contains("spectrometer.command") && e.contains("needs the helper program"),
+        "{e}"
+    );
 }

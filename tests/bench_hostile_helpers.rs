@@ -4,6 +4,7 @@
 //! them without a shell.
 
 mod hostile_common;
+mod run_common; // hostile_common builds on it
 
 use hostile_common::{gone, pid_in, sample_calls, script, spectrum_helper};
 use isopach::bench::machine::{SpectrometerKind, SpectrometerSpec};

@@ -6,7 +6,7 @@
 mod hostile_common;
 mod run_common;
 
-use hostile_common::{peak_memory, script, spectrum_helper};
+use hostile_common::{finished_run, peak_memory, script, spectrum_helper, with_spectrometer};
 use isopach::run::events::Event;
 use run_common::*;
 use std::path::{Path, PathBuf};
@@ -29,13 +29,8 @@ fn helper_bench_with(make: impl FnOnce(&Path) -> PathBuf) -> (tempfile::TempDir,
 
 fn set_helper(machine: &Path, helper: &Path) {
     let text = std::fs::read_to_string(machine).unwrap();
-    let spec = format!(
-        "[spectrometer]\nkind = \"command\"\ncommand = [\"{}\", \"{{kind}}\"]\ntimeout_s = 20",
-        helper.display()
-    );
-    let text = text.replace("[spectrometer]\nkind = \"simulated\"", &spec);
-    assert!(text.contains("kind = \"command\""));
-    std::fs::write(machine, text).unwrap();
+    let argv = [helper.to_str().unwrap().to_string(), "{kind}".into()];
+    std::fs::write(machine, with_spectrometer(&text, "command", &argv)).unwrap();
 }
 
 fn failed(ev: &[Event]) -> Vec<(usize, String)> {
@@ -64,17 +59,10 @@ fn measured_sites(ev: &[Event]) -> Vec<usize> {
 fn one_failed_acquisition_is_retried_and_the_run_finishes() {
     let (dir, recipe, machine) = helper_bench("[ $n = 3 ] && { echo 'USB hiccup' >&2; exit 1; }");
     let runs = dir.path().join("runs");
-    let o = run_map(&recipe, &machine, "T1", &runs);
-    let run = only_run(&runs);
-    let ev = events(&run);
-    assert!(
-        matches!(ev.last(), Some(Event::RunFinished { .. })),
-        "{}",
-        String::from_utf8_lossy(&o.stderr)
-    );
+    let ev = finished_run(&recipe, &machine, "T1", &runs);
     assert_eq!(measured_sites(&ev), (1..=9).collect::<Vec<_>>());
     assert!(failed(&ev).is_empty(), "{:?}", failed(&ev));
-    let log = std::fs::read_to_string(run.join("log.txt")).unwrap();
+    let log = std::fs::read_to_string(only_run(&runs).join("log.txt")).unwrap();
     assert!(
         log.contains("trying again") && log.contains("USB hiccup"),
         "{log}"

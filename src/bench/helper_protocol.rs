@@ -24,7 +24,10 @@ pub const VERSION: u32 = 1;
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub enum Request {
     Hello,
-    Dark { integration_ms: f64, averages: u32 },
+    Dark {
+        integration_ms: f64,
+        averages: u32,
+    },
     Acquire {
         integration_ms: f64,
         averages: u32,
@@ -123,7 +126,13 @@ fn numbers(text: &str, what: &str) -> Result<Vec<f64>, String> {
             v.parse::<f64>()
                 .ok()
                 .filter(|v| v.is_finite())
-                .ok_or_else(|| format!("{what} {}: \"{}\" is not a finite number", i + 1, excerpt(v, 40)))
+                .ok_or_else(|| {
+                    format!(
+                        "{what} {}: \"{}\" is not a finite number",
+                        i + 1,
+                        excerpt(v, 40)
+                    )
+                })
         })
         .collect()
 }
@@ -215,11 +224,17 @@ mod tests {
         for (bad, why) in [
             ("ok pixels=2 calibration=400,1", "must be 3"),
             ("ok pixels=5 calibration=400", "2 to 4"),
-            ("ok pixels=5 calibration=400,-1", "does not increase at pixel 1"),
+            (
+                "ok pixels=5 calibration=400,-1",
+                "does not increase at pixel 1",
+            ),
             ("ok pixels=5", "no calibration="),
             ("ok pixels=x calibration=1,1", "whole number"),
             ("ready", "should start with ok"),
-            ("error no device on USB", "the helper says: no device on USB"),
+            (
+                "error no device on USB",
+                "the helper says: no device on USB",
+            ),
         ] {
             let e = parse_hello(bad).unwrap_err();
             assert!(e.contains(why), "{bad}: {e}");
@@ -228,7 +243,10 @@ mod tests {
 
     #[test]
     fn counts_are_checked() {
-        assert_eq!(parse_counts("ok counts=1,2.5,3\n", 3).unwrap(), [1.0, 2.5, 3.0]);
+        assert_eq!(
+            parse_counts("ok counts=1,2.5,3\n", 3).unwrap(),
+            [1.0, 2.5, 3.0]
+        );
         assert!(parse_counts("ok counts=1,2\n", 3)
             .unwrap_err()
             .contains("2 counts, but hello said pixels=3"));

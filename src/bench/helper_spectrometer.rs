@@ -8,7 +8,9 @@
 use super::helper_process::{spawn_in_group, ProcessGroup};
 use super::helper_protocol::{parse_bye, parse_counts, parse_hello, Hello, Request};
 use super::machine::SpectrometerSpec;
-use super::spectrometer::{check_settings, output_cap, AcquireKind, Spectrometer, SpectrometerError};
+use super::spectrometer::{
+    check_settings, output_cap, AcquireKind, Spectrometer, SpectrometerError,
+};
 use crate::error_text::{excerpt_bytes, EXCERPT_CHARS};
 use crate::spectrum::Counts;
 use futures::future::BoxFuture;
@@ -71,13 +73,12 @@ impl HelperSpectrometer {
 
     /// Starts the helper and greets it.
     async fn start(&self) -> Result<Running, SpectrometerError> {
-        let (mut child, group) =
-            spawn_in_group(&self.argv, Stdio::piped()).map_err(|source| {
-                SpectrometerError::Start {
-                    program: self.program(),
-                    source,
-                }
-            })?;
+        let (mut child, group) = spawn_in_group(&self.argv, Stdio::piped()).map_err(|source| {
+            SpectrometerError::Start {
+                program: self.program(),
+                source,
+            }
+        })?;
         let stdin = child.stdin.take().expect("stdin is piped");
         let stdout = BufReader::new(child.stdout.take().expect("stdout is piped"));
         let stderr = child.stderr.take().expect("stderr is piped");
@@ -91,11 +92,15 @@ impl HelperSpectrometer {
                 wavelength_nm: Vec::new(),
             },
         };
-        let reply = exchange(&mut running, &Request::Hello, SHORT_REPLY_BYTES, self.timeout)
-            .await
-            .map_err(|f| self.error(&Request::Hello, fault_text(f)))?;
-        running.hello =
-            parse_hello(&reply).map_err(|m| self.error(&Request::Hello, m))?;
+        let reply = exchange(
+            &mut running,
+            &Request::Hello,
+            SHORT_REPLY_BYTES,
+            self.timeout,
+        )
+        .await
+        .map_err(|f| self.error(&Request::Hello, fault_text(f)))?;
+        running.hello = parse_hello(&reply).map_err(|m| self.error(&Request::Hello, m))?;
         Ok(running)
     }
 
@@ -157,9 +162,14 @@ impl HelperSpectrometer {
         let Some(mut running) = self.running.take() else {
             return Ok(());
         };
-        let reply = exchange(&mut running, &Request::Close, SHORT_REPLY_BYTES, self.timeout)
-            .await
-            .map_err(|f| self.error(&Request::Close, fault_text(f)))?;
+        let reply = exchange(
+            &mut running,
+            &Request::Close,
+            SHORT_REPLY_BYTES,
+            self.timeout,
+        )
+        .await
+        .map_err(|f| self.error(&Request::Close, fault_text(f)))?;
         parse_bye(&reply).map_err(|m| self.error(&Request::Close, m))
     }
 }

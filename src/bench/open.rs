@@ -3,6 +3,7 @@
 //! and the CLI use them.
 
 use super::chuck::ChuckTransform;
+use super::helper_spectrometer::HelperSpectrometer;
 use super::limits::{check_site, Approach, SiteOutside, SoftLimits};
 use super::machine::{builtin_simulated, MachineFile, SpectrometerKind};
 use super::sim::clock::SimClock;
@@ -10,7 +11,6 @@ use super::sim::controller::VirtualConfig;
 use super::sim::server::spawn_duplex;
 use super::sim::spectrometer::VirtualSpectrometer;
 use super::sim::wafer::{BareSample, VirtualWafer};
-use super::helper_spectrometer::HelperSpectrometer;
 use super::spectrometer::{CommandSpectrometer, Spectrometer};
 use super::stage::{GcodeStage, Stage, StageError};
 use super::transport::open_serial;

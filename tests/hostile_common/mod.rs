@@ -1,6 +1,7 @@
 //! Shared set-up of the hostile-helper tests and bench: spectrometer helper programs written
 //! as executable `#!/bin/sh` scripts into a temp dir (the tool itself never uses a shell), a
 //! liveness check for the processes they leave behind, and the peak memory of a child.
+//! Builds on `run_common` (declare both modules).
 #![allow(dead_code)] // each test binary uses its own subset
 
 use std::os::unix::fs::PermissionsExt;
@@ -48,6 +49,43 @@ pub fn sample_calls(dir: &Path) -> u32 {
     std::fs::read_to_string(dir.join("count"))
         .map(|t| t.trim().parse().unwrap())
         .unwrap_or(0)
+}
+
+/// Machine-file text with the built-in `[spectrometer]` section replaced by `kind` with
+/// `argv` as its program (timeout 20 s).
+pub fn with_spectrometer(machine_text: &str, kind: &str, argv: &[String]) -> String {
+    let quoted: Vec<String> = argv.iter().map(|a| format!("{a:?}")).collect();
+    let spec = format!(
+        "[spectrometer]\nkind = \"{kind}\"\ncommand = [{}]\ntimeout_s = 20",
+        quoted.join(", ")
+    );
+    let text = machine_text.replace("[spectrometer]\nkind = \"simulated\"", &spec);
+    assert!(
+        text.contains(&spec),
+        "no simulated [spectrometer] section to replace"
+    );
+    text
+}
+
+/// Runs `isopach run` (see `run_common::run_args`) expecting it to finish; the run's
+/// journal events (else the run's stderr in the panic).
+pub fn finished_run(
+    recipe: &Path,
+    machine: &Path,
+    wafer: &str,
+    runs: &Path,
+) -> Vec<isopach::run::events::Event> {
+    let o = super::run_common::run_map(recipe, machine, wafer, runs);
+    let ev = super::run_common::events(&super::run_common::only_run(runs));
+    assert!(
+        matches!(
+            ev.last(),
+            Some(isopach::run::events::Event::RunFinished { .. })
+        ),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    ev
 }
 
 /// Whether process `pid` still runs (a zombie waiting for its reaper does not).
