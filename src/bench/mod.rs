@@ -6,10 +6,16 @@
 //! - [`chuck`], [`limits`]: wafer→stage transform, soft limits, anti-backlash approach;
 //! - [`stage`]: the [`stage::Stage`] trait and the G-code stage;
 //! - [`spectrometer`]: the [`spectrometer::Spectrometer`] trait and the `command` backend;
+//!   [`helper_process`]: running its program with capped output in its own process group;
+//!   [`helper_protocol`], [`helper_spectrometer`]: the `helper` backend, one long-running
+//!   program spoken to over a line protocol;
 //! - [`sim`]: the simulated twins (virtual controller, wafer, spectrometer, pseudo-terminal).
 
 pub mod chuck;
 pub mod gcode;
+pub mod helper_process;
+pub mod helper_protocol;
+pub mod helper_spectrometer;
 pub mod kinematics;
 pub mod limits;
 pub mod machine;

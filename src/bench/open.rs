@@ -3,6 +3,7 @@
 //! and the CLI use them.
 
 use super::chuck::ChuckTransform;
+use super::helper_spectrometer::HelperSpectrometer;
 use super::limits::{check_site, Approach, SiteOutside, SoftLimits};
 use super::machine::{builtin_simulated, MachineFile, SpectrometerKind};
 use super::sim::clock::SimClock;
@@ -95,6 +96,10 @@ impl Bench {
         let (spectrometer, wafer): (Box<dyn Spectrometer>, _) = match m.spectrometer.kind {
             SpectrometerKind::Command => (
                 Box::new(CommandSpectrometer::from_spec(&m.spectrometer)),
+                None,
+            ),
+            SpectrometerKind::Helper => (
+                Box::new(HelperSpectrometer::from_spec(&m.spectrometer)),
                 None,
             ),
             SpectrometerKind::Simulated => {

@@ -138,11 +138,16 @@ impl NkTable {
 /// blank and `#` comment lines and a leading byte-order mark (the rules every isopach CSV
 /// input follows).
 pub fn csv_records(text: &str) -> impl Iterator<Item = (usize, &str, Vec<&str>)> {
-    text.lines().enumerate().filter_map(|(i, raw)| {
-        let t = raw.trim().trim_start_matches('\u{feff}');
-        (!t.is_empty() && !t.starts_with('#'))
-            .then(|| (i + 1, t, t.split(',').map(str::trim).collect()))
-    })
+    text.lines()
+        .enumerate()
+        .filter_map(|(i, raw)| csv_record(raw).map(|(t, cells)| (i + 1, t, cells)))
+}
+
+/// One line of CSV text under the rules of [`csv_records`]: `None` for a blank or comment
+/// line, else the trimmed line and its trimmed cells (for readers that stream line by line).
+pub fn csv_record(raw: &str) -> Option<(&str, Vec<&str>)> {
+    let t = raw.trim().trim_start_matches('\u{feff}');
+    (!t.is_empty() && !t.starts_with('#')).then(|| (t, t.split(',').map(str::trim).collect()))
 }
 
 /// Rows of a refractiveindex.info `tabulated nk` block (wavelength in µm) as nm rows, with

@@ -5,7 +5,9 @@
 //! reference spectra → per site: move → motion complete → settle → acquire → store the raw
 //! spectrum → journal it → the fitting workers fit it while the stage moves on. Sites that come
 //! back invalid are measured again, up to the recipe's `retries`, in further passes; a site
-//! that still fails is flagged, not fatal. Ctrl-C or a fault at ANY step (homing and the
+//! that still fails is flagged, not fatal. A failed acquisition is tried again
+//! ([`acquire_retrying`]), then the site is journalled as failed and the run goes on; only
+//! [`FAILED_SITES_IN_A_ROW`] such sites in a row stop it (the spectrometer is gone). Ctrl-C or a fault at ANY step (homing and the
 //! reference move included) abandons that step, finishes and journals the fits in flight,
 //! stops the stage and journals the stop, so the run can be resumed.
 
@@ -14,6 +16,7 @@ use super::fit_workers::{FitWorkers, Pending};
 use super::folder::RunFolder;
 use super::plan::{Plan, ReferencePlacement, SiteStep, Step};
 use super::stream::{EventStream, RunEvent};
+use crate::bench::spectrometer::{acquire_retrying, AcquireKind};
 use crate::bench::Bench;
 use crate::recipe::schema::AcceptSpec;
 use crate::spectrum::{write_counts_csv, Counts, RawSpectrum};
@@ -90,6 +93,8 @@ pub struct Sequencer {
     prompt: Option<Prompt>,
     dark: Option<Counts>,
     reference: Option<Counts>,
+    /// Sites in a row whose acquisition failed.
+    failed_in_a_row: usize,
 }
 
 impl Sequencer {
@@ -112,6 +117,7 @@ impl Sequencer {
             prompt: None,
             dark: None,
             reference: None,
+            failed_in_a_row: 0,
         }
     }
 
@@ -143,10 +149,17 @@ impl Sequencer {
         plan: &Plan,
         mut next_attempt: impl FnMut(usize) -> u32,
     ) -> Outcome {
-        match self.steps(bench, plan, &mut next_attempt).await {
+        let outcome = match self.steps(bench, plan, &mut next_attempt).await {
             Ok(()) => Outcome::Finished,
             Err(stop) => self.stopped(Some(bench), stop).await,
+        };
+        // A long-running spectrometer helper is told to close (dropping it kills it anyway).
+        match tokio::time::timeout(STOP_TIMEOUT, bench.spectrometer.close()).await {
+            Ok(Ok(())) => {}
+            Ok(Err(e)) => tracing::warn!("closing the spectrometer: {e}"),
+            Err(_) => tracing::warn!("the spectrometer did not close in time"),
         }
+        outcome
     }
 
     async fn steps(
@@ -239,16 +252,16 @@ impl Sequencer {
         let (dark, reference) = self
             .scope
             .guard(async {
-                let dark = bench
-                    .spectrometer
-                    .dark(a.integration_ms, a.averages)
+                let spectrometer = bench.spectrometer.as_mut();
+                let (ms, avg) = (a.integration_ms, a.averages);
+                let dark = acquire_retrying(spectrometer, AcquireKind::Dark, ms, avg, None)
                     .await
                     .context("dark spectrum")?;
-                let reference = bench
-                    .spectrometer
-                    .reference(a.integration_ms, a.averages)
-                    .await
-                    .context("reference spectrum")?;
+                let pixels = Some(dark.counts.len());
+                let reference =
+                    acquire_retrying(spectrometer, AcquireKind::Reference, ms, avg, pixels)
+                        .await
+                        .context("reference spectrum")?;
                 Ok((dark, reference))
             })
             .await?;
@@ -300,19 +313,24 @@ impl Sequencer {
     ) -> Result<(), Stop> {
         let n = step.site.number;
         let a = plan.acquire().clone();
-        let counts = self
+        let pixels = self.reference.as_ref().map(|r| r.counts.len());
+        // A move that fails stops the run; an acquisition that fails flags the site.
+        let acquired = self
             .scope
             .guard(async {
                 bench.move_to_site(&step.site).await?;
                 bench.settle(a.settle_ms).await;
-                bench
-                    .spectrometer
-                    .acquire(a.integration_ms, a.averages)
-                    .await
-                    .with_context(|| format!("site {n}: acquisition failed"))
+                let spectrometer = bench.spectrometer.as_mut();
+                let (ms, avg) = (a.integration_ms, a.averages);
+                Ok(acquire_retrying(spectrometer, AcquireKind::Sample, ms, avg, pixels).await)
             })
             .await?;
         let attempt = next_attempt(n);
+        let counts = match acquired {
+            Ok(counts) => counts,
+            Err(e) => return self.acquisition_failed(n, attempt, e, invalid),
+        };
+        self.failed_in_a_row = 0;
         let raw = RawSpectrum {
             sample: counts,
             dark: self.dark.clone().unwrap_or_default(),
@@ -340,6 +358,34 @@ impl Sequencer {
         // The fit of the previous site has had the whole move to finish.
         let older = self.workers.take_older();
         self.finish(older, invalid).await
+    }
+
+    /// Journals a site whose acquisition failed and goes on, unless too many failed in a row.
+    fn acquisition_failed(
+        &mut self,
+        site: usize,
+        attempt: u32,
+        error: crate::bench::SpectrometerError,
+        invalid: &mut Vec<usize>,
+    ) -> Result<(), Stop> {
+        let reason = format!("acquisition failed: {error}");
+        tracing::warn!(site, attempt, %reason, "site not measured");
+        invalid.push(site);
+        self.failed_in_a_row += 1;
+        self.log(Event::SiteFailed {
+            time: now(),
+            site,
+            attempt,
+            reason: reason.clone(),
+        })
+        .map_err(Stop::Fault)?;
+        if self.failed_in_a_row >= FAILED_SITES_IN_A_ROW {
+            return Err(Stop::Fault(anyhow::anyhow!(
+                "{FAILED_SITES_IN_A_ROW} sites in a row could not be measured (last: site {site}: \
+                 {reason}): check the spectrometer, then resume the run"
+            )));
+        }
+        Ok(())
     }
 
     /// Waits for fits in flight and journals their results.
@@ -404,6 +450,10 @@ impl Sequencer {
         }
     }
 }
+
+/// Sites in a row whose acquisition failed that stop the run: one failed site is a flag on
+/// the map, several in a row mean the spectrometer is gone (common practice).
+pub const FAILED_SITES_IN_A_ROW: usize = 3;
 
 /// How long a stop may take before the session gives up waiting for the stage's answer.
 const STOP_TIMEOUT: Duration = Duration::from_secs(10);

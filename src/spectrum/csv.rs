@@ -5,8 +5,8 @@
 
 use super::saturation::clipped_pixels;
 use super::{Counts, RawSpectrum, Spectrum, SpectrumError};
-use crate::optics::table::csv_records;
-use std::io::{self, Write};
+use crate::optics::table::csv_record;
+use std::io::{self, BufRead, BufReader, Read, Write};
 use std::path::Path;
 
 /// The two forms a spectrum file can take.
@@ -22,164 +22,239 @@ pub enum SpectrumFile {
 const REFLECTANCE_LIMITS: [f64; 2] = [-0.1, 1.5];
 /// Fewest data rows a spectrum file may have.
 const MIN_ROWS: usize = 3;
+/// Most data rows (pixels) a spectrum may have. Fibre spectrometers have 512 to 16 384
+/// pixels (common practice); a hundred thousand is far past any, and refusing early keeps a
+/// wrong or hostile file from costing seconds and gigabytes.
+pub const MAX_PIXELS: usize = 100_000;
+/// Largest spectrum file read, bytes: [`MAX_PIXELS`] rows of four numbers at full precision
+/// take about 10 MB; the rest is room for comments.
+pub const MAX_FILE_BYTES: u64 = 32 << 20;
 
-/// Reads and parses a spectrum file.
+/// Reads and parses a spectrum file, line by line: no more than [`MAX_FILE_BYTES`] is ever
+/// read and only the parsed columns are held.
 pub fn read_csv(path: &Path) -> Result<SpectrumFile, SpectrumError> {
-    let bytes = std::fs::read(path).map_err(|source| SpectrumError::Io {
+    let io_err = |source| SpectrumError::Io {
         path: path.to_path_buf(),
         source,
-    })?;
-    parse_csv(&String::from_utf8_lossy(&bytes), path)
+    };
+    let file = std::fs::File::open(path).map_err(io_err)?;
+    let too_large = |bytes: String| SpectrumError::TooLarge {
+        path: path.to_path_buf(),
+        message: format!(
+            "{bytes} bytes; a spectrum file may have at most {MAX_FILE_BYTES} bytes \
+             ({MAX_PIXELS} rows of a few numbers and comments): is this a spectrum file?"
+        ),
+    };
+    let size = file.metadata().map_err(io_err)?.len();
+    if size > MAX_FILE_BYTES {
+        return Err(too_large(size.to_string()));
+    }
+    // The bound holds for files whose size the metadata does not tell (pipes, devices).
+    let mut reader = BufReader::new(file.take(MAX_FILE_BYTES + 1));
+    let mut parser = Parser::new(path);
+    let (mut buf, mut read, mut line) = (Vec::new(), 0u64, 0);
+    loop {
+        buf.clear();
+        let n = reader.read_until(b'\n', &mut buf).map_err(io_err)?;
+        if n == 0 {
+            break;
+        }
+        read += n as u64;
+        if read > MAX_FILE_BYTES {
+            return Err(too_large(format!("more than {MAX_FILE_BYTES}")));
+        }
+        line += 1;
+        parser.line(line, &String::from_utf8_lossy(&buf))?;
+    }
+    parser.finish()
 }
 
 /// Parses spectrum CSV text; `path` is used in messages.
 pub fn parse_csv(text: &str, path: &Path) -> Result<SpectrumFile, SpectrumError> {
-    let at = |line: usize, message: String| SpectrumError::Line {
-        file: path.to_path_buf(),
-        line,
-        message,
-    };
-    let mut columns: Option<usize> = None;
-    let mut rows: Vec<Vec<f64>> = Vec::new();
-    let mut lines: Vec<usize> = Vec::new();
-    // Set by the second data row: files from some instruments run from red to blue.
-    let mut descending: Option<bool> = None;
-    for (line, t, cells) in csv_records(text) {
-        let Some(ncol) = columns else {
+    let mut parser = Parser::new(path);
+    for (i, raw) in text.lines().enumerate() {
+        parser.line(i + 1, raw)?;
+    }
+    parser.finish()
+}
+
+/// The state of a spectrum file read one line at a time: the columns parsed so far.
+struct Parser<'a> {
+    path: &'a Path,
+    /// 2 or 4, once the header is read.
+    columns: Option<usize>,
+    /// Wavelength and value columns (the first `columns` are used).
+    values: [Vec<f64>; 4],
+    /// The file line of every data row.
+    lines: Vec<usize>,
+    /// Set by the second data row: files from some instruments run from red to blue.
+    descending: Option<bool>,
+}
+
+impl<'a> Parser<'a> {
+    fn new(path: &'a Path) -> Parser<'a> {
+        Parser {
+            path,
+            columns: None,
+            values: Default::default(),
+            lines: Vec::new(),
+            descending: None,
+        }
+    }
+
+    fn at(&self, line: usize, message: String) -> SpectrumError {
+        SpectrumError::Line {
+            file: self.path.to_path_buf(),
+            line,
+            message,
+        }
+    }
+
+    /// Takes line number `line` (1-based) of the file.
+    fn line(&mut self, line: usize, raw: &str) -> Result<(), SpectrumError> {
+        let Some((t, cells)) = csv_record(raw) else {
+            return Ok(());
+        };
+        let Some(ncol) = self.columns else {
             let names: Vec<String> = cells.iter().map(|c| c.to_lowercase()).collect();
-            columns = Some(match names.iter().map(String::as_str).collect::<Vec<_>>()[..] {
+            self.columns = Some(match names.iter().map(String::as_str).collect::<Vec<_>>()[..] {
                 ["wavelength_nm", "reflectance"] => 2,
                 ["wavelength_nm", "sample", "dark", "reference"] => 4,
                 _ => {
-                    return Err(at(
+                    return Err(self.at(
                         line,
                         format!("header \"{}\" is not a spectrum header: use wavelength_nm,reflectance or wavelength_nm,sample,dark,reference", short(t)),
                     ))
                 }
             });
-            continue;
+            return Ok(());
         };
         if cells.len() != ncol {
-            return Err(at(
+            return Err(self.at(
                 line,
                 format!("{} fields, the header has {ncol}", cells.len()),
             ));
         }
-        let mut row = Vec::with_capacity(ncol);
+        if self.lines.len() == MAX_PIXELS {
+            return Err(self.at(
+                line,
+                format!("more than {MAX_PIXELS} data rows: a spectrum has one row per detector pixel and no spectrometer has this many; is this a spectrum file?"),
+            ));
+        }
+        let mut row = [0.0; 4];
         for (j, c) in cells.iter().enumerate() {
             let v: f64 = c.parse().map_err(|_| {
-                at(
+                self.at(
                     line,
                     format!("\"{}\" in column {} is not a number", short(c), j + 1),
                 )
             })?;
             if !v.is_finite() {
-                return Err(at(
+                return Err(self.at(
                     line,
-                    format!("{c} in column {} is not a finite number", j + 1),
+                    format!("{} in column {} is not a finite number", short(c), j + 1),
                 ));
             }
-            row.push(v);
+            row[j] = v;
         }
         let w = row[0];
         if w <= 0.0 {
-            return Err(at(line, format!("wavelength {w} nm must be positive")));
+            return Err(self.at(line, format!("wavelength {w} nm must be positive")));
         }
-        if let Some(prev) = rows.last() {
-            if w == prev[0] {
-                return Err(at(
+        if let (Some(&prev), Some(&prev_line)) = (self.values[0].last(), self.lines.last()) {
+            if w == prev {
+                return Err(self.at(
                     line,
                     format!(
-                        "duplicate wavelength {w} nm (also on line {}): each pixel once",
-                        lines[lines.len() - 1]
+                        "duplicate wavelength {w} nm (also on line {prev_line}): each pixel once"
                     ),
                 ));
             }
-            let falling = w < prev[0];
-            match descending {
-                None => descending = Some(falling),
+            let falling = w < prev;
+            match self.descending {
+                None => self.descending = Some(falling),
                 Some(d) if d != falling => {
                     let (way, turn) = if d {
                         ("fall", "above")
                     } else {
                         ("rise", "below")
                     };
-                    return Err(at(
+                    return Err(self.at(
                         line,
-                        format!("wavelength {w} nm is {turn} the previous row's {} nm: wavelengths must {way} all the way, as they do from line {}", prev[0], lines[0]),
+                        format!("wavelength {w} nm is {turn} the previous row's {prev} nm: wavelengths must {way} all the way, as they do from line {}", self.lines[0]),
                     ));
                 }
                 Some(_) => {}
             }
         }
-        rows.push(row);
-        lines.push(line);
+        for (column, v) in self.values.iter_mut().zip(&row[..ncol]) {
+            column.push(*v);
+        }
+        self.lines.push(line);
+        Ok(())
     }
-    let Some(ncol) = columns else {
-        return Err(at(
-            1,
-            "no header: the file is empty or only comments".into(),
-        ));
-    };
-    if rows.len() < MIN_ROWS {
-        return Err(at(
-            lines.last().copied().unwrap_or(1),
-            format!(
-                "{} data rows; a spectrum needs at least {MIN_ROWS}",
-                rows.len()
-            ),
-        ));
-    }
-    if descending == Some(true) {
-        rows.reverse();
-        lines.reverse();
-    }
-    if rows.last().is_some_and(|r| r[0] < 10.0) {
-        return Err(at(
-            lines[0],
-            "every wavelength is below 10: the column is wavelength_nm (nm), these look like µm"
-                .into(),
-        ));
-    }
-    let col = |j: usize| -> Vec<f64> { rows.iter().map(|r| r[j]).collect() };
-    let wavelength_nm = col(0);
-    if ncol == 2 {
-        let reflectance = col(1);
-        check_fraction(&reflectance, &lines, &at)?;
-        return Ok(SpectrumFile::Reflectance(Spectrum {
-            wavelength_nm,
-            reflectance,
-        }));
-    }
-    let (sample, dark, reference) = (col(1), col(2), col(3));
-    for (name, v) in [("sample", &sample), ("reference", &reference)] {
-        let clipped = clipped_pixels(v);
-        let n = clipped.iter().filter(|c| **c).count();
-        if 2 * n > v.len() {
-            let first = clipped.iter().position(|c| *c).unwrap_or(0);
-            return Err(at(
-                lines[first],
-                format!("{name} counts are saturated ({n} of {} rows at {}): shorten the integration time", v.len(), v[first]),
+
+    /// Checks the whole spectrum once every line is in.
+    fn finish(mut self) -> Result<SpectrumFile, SpectrumError> {
+        let Some(ncol) = self.columns else {
+            return Err(self.at(1, "no header: the file is empty or only comments".into()));
+        };
+        let rows = self.lines.len();
+        if rows < MIN_ROWS {
+            return Err(self.at(
+                self.lines.last().copied().unwrap_or(1),
+                format!("{rows} data rows; a spectrum needs at least {MIN_ROWS}"),
             ));
         }
-    }
-    for (name, v) in [("sample", &sample), ("reference", &reference)] {
-        if v.iter().zip(&dark).all(|(s, d)| s <= d) {
-            return Err(at(
-                lines[0],
-                format!("{name} counts never exceed the dark counts: no light reached the detector (lamp, shutter, fibre?)"),
+        if self.descending == Some(true) {
+            self.values.iter_mut().for_each(|c| c.reverse());
+            self.lines.reverse();
+        }
+        if self.values[0].last().is_some_and(|w| *w < 10.0) {
+            return Err(self.at(
+                self.lines[0],
+                "every wavelength is below 10: the column is wavelength_nm (nm), these look like µm"
+                    .into(),
             ));
         }
+        let [wavelength_nm, second, dark, reference] = std::mem::take(&mut self.values);
+        if ncol == 2 {
+            check_fraction(&second, &self.lines, &|l, m| self.at(l, m))?;
+            return Ok(SpectrumFile::Reflectance(Spectrum {
+                wavelength_nm,
+                reflectance: second,
+            }));
+        }
+        let sample = second;
+        for (name, v) in [("sample", &sample), ("reference", &reference)] {
+            let clipped = clipped_pixels(v);
+            let n = clipped.iter().filter(|c| **c).count();
+            if 2 * n > v.len() {
+                let first = clipped.iter().position(|c| *c).unwrap_or(0);
+                return Err(self.at(
+                    self.lines[first],
+                    format!("{name} counts are saturated ({n} of {} rows at {}): shorten the integration time", v.len(), v[first]),
+                ));
+            }
+        }
+        for (name, v) in [("sample", &sample), ("reference", &reference)] {
+            if v.iter().zip(&dark).all(|(s, d)| s <= d) {
+                return Err(self.at(
+                    self.lines[0],
+                    format!("{name} counts never exceed the dark counts: no light reached the detector (lamp, shutter, fibre?)"),
+                ));
+            }
+        }
+        let counts = |c: Vec<f64>| Counts {
+            wavelength_nm: wavelength_nm.clone(),
+            counts: c,
+        };
+        Ok(SpectrumFile::Counts(RawSpectrum {
+            sample: counts(sample),
+            dark: counts(dark),
+            reference: counts(reference),
+        }))
     }
-    let counts = |c: Vec<f64>| Counts {
-        wavelength_nm: wavelength_nm.clone(),
-        counts: c,
-    };
-    Ok(SpectrumFile::Counts(RawSpectrum {
-        sample: counts(sample),
-        dark: counts(dark),
-        reference: counts(reference),
-    }))
 }
 
 fn check_fraction(
@@ -208,11 +283,7 @@ fn check_fraction(
 
 /// The first 40 characters of a cell, for messages.
 fn short(s: &str) -> String {
-    let mut out: String = s.chars().take(40).collect();
-    if s.chars().count() > 40 {
-        out.push('…');
-    }
-    out
+    crate::error_text::excerpt(s, 40)
 }
 
 fn write_comments<W: Write>(out: &mut W, comments: &[String]) -> io::Result<()> {
@@ -331,6 +402,55 @@ mod tests {
             "{}",
             err(sat)
         );
+    }
+
+    #[test]
+    fn more_rows_than_any_spectrometer_has_pixels_are_refused() {
+        let mut text = String::from("wavelength_nm,reflectance\n");
+        for i in 0..=MAX_PIXELS {
+            text.push_str(&format!("{},0.3\n", 400.0 + i as f64 * 0.001));
+        }
+        let e = err(&text);
+        assert!(
+            e.contains(&format!(
+                "s.csv:{}: more than {MAX_PIXELS} data rows",
+                MAX_PIXELS + 2
+            )),
+            "{e}"
+        );
+        // One row fewer is a spectrum.
+        let cut = text.trim_end().rfind('\n').unwrap() + 1;
+        assert!(parse_csv(&text[..cut], Path::new("s.csv")).is_ok());
+    }
+
+    #[test]
+    fn a_file_larger_than_any_spectrum_is_refused_before_it_is_read() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("huge.csv");
+        // Sparse: the size is there, the disk blocks are not.
+        let f = std::fs::File::create(&path).unwrap();
+        f.set_len(MAX_FILE_BYTES + 1).unwrap();
+        let e = read_csv(&path).unwrap_err().to_string();
+        assert!(
+            e.contains(&format!("{} bytes", MAX_FILE_BYTES + 1))
+                && e.contains(&format!("at most {MAX_FILE_BYTES} bytes")),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn a_file_reads_as_its_text_parses() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("s.csv");
+        for text in [
+            "\u{feff}# c\r\nwavelength_nm,reflectance\r\n402,0.32\r\n401,0.31\r\n400,0.3",
+            "wavelength_nm,sample,dark,reference\n400,100,10,200\n\n401,110,10,210\n402,120,10,220\n",
+            "wavelength_nm,reflectance\n400,0.3\n401,x\n",
+        ] {
+            std::fs::write(&path, text).unwrap();
+            let (file, parsed) = (read_csv(&path), parse_csv(text, &path));
+            assert_eq!(format!("{file:?}"), format!("{parsed:?}"), "{text:?}");
+        }
     }
 
     #[test]

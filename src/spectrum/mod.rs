@@ -7,7 +7,10 @@ mod normalise;
 mod process;
 mod saturation;
 
-pub use self::csv::{parse_csv, read_csv, write_counts_csv, write_reflectance_csv, SpectrumFile};
+pub use self::csv::{
+    parse_csv, read_csv, write_counts_csv, write_reflectance_csv, SpectrumFile, MAX_FILE_BYTES,
+    MAX_PIXELS,
+};
 pub use normalise::{assess, normalise, normalise_raw, SignalQuality};
 pub use process::{noise_sigma, quadratic_fit, savitzky_golay};
 pub use saturation::clipped_pixels;
@@ -51,6 +54,9 @@ pub enum SpectrumError {
         line: usize,
         message: String,
     },
+    /// A file too large to be a spectrum (refused before it is parsed).
+    #[error("spectrum {}: {message}", path.display())]
+    TooLarge { path: PathBuf, message: String },
     /// A problem with spectra held in memory (named by pixel and wavelength).
     #[error("{0}")]
     Invalid(String),

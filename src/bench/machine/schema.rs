@@ -189,7 +189,10 @@ impl Default for ChuckSpec {
 pub enum SpectrometerKind {
     #[default]
     Simulated,
+    /// One program run per acquisition (`bench::spectrometer`).
     Command,
+    /// One long-running program spoken to over stdin/stdout (`bench::helper_protocol`).
+    Helper,
 }
 
 /// The `[spectrometer]` section.
@@ -199,7 +202,7 @@ pub struct SpectrometerSpec {
     #[serde(default)]
     pub kind: SpectrometerKind,
     /// argv run without a shell; placeholders `{integration_ms}`, `{averages}`, `{kind}`
-    /// (`sample`, `dark` or `reference`).
+    /// (`sample`, `dark` or `reference`). For `helper`, the helper program (no placeholders).
     #[serde(default)]
     pub command: Vec<String>,
     #[serde(default = "d_spec_timeout")]

@@ -41,6 +41,10 @@ pub fn validate(m: &MachineFile) -> Vec<Problem> {
             "spectrometer.command",
             "kind = \"command\" needs a command, e.g. [\"/opt/lab/grab\", \"--ms\", \"{integration_ms}\"]",
         ),
+        SpectrometerKind::Helper if s.command.is_empty() => r.at(
+            "spectrometer.command",
+            "kind = \"helper\" needs the helper program, e.g. [\"/opt/lab/spectrometer-helper\"]",
+        ),
         _ => {}
     }
     for (i, a) in s.command.iter().enumerate() {
