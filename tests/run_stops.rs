@@ -246,3 +246,84 @@ fn ctrl_c_during_the_reference_move_stops_the_stage_and_leaves_a_resumable_run()
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     assert!(sites_once(&run, 9).iter().all(|(_, f)| f == "ok"));
 }
+
+/// Issue 18: SIGTERM and SIGHUP (a closed SSH session) stop a run like Ctrl-C: the stage is
+/// stopped, the stop journalled, exit 130, and the run resumes.
+#[test]
+fn sigterm_and_sighup_stop_like_ctrl_c() {
+    for signal in ["TERM", "HUP"] {
+        let (dir, recipe, machine) = bench_dir("");
+        let text = std::fs::read_to_string(&machine)
+            .unwrap()
+            .replace("time_scale = 50", "time_scale = 5");
+        std::fs::write(&machine, text).unwrap();
+        let runs = dir.path().join("runs");
+        let mut child = start_run(&recipe, &machine, &runs);
+        let (mut err, _) = read_until(&mut child, "reference taken");
+        std::thread::sleep(Duration::from_millis(300));
+        assert!(Command::new("kill")
+            .args([&format!("-{signal}"), &child.id().to_string()])
+            .status()
+            .unwrap()
+            .success());
+        let mut rest = String::new();
+        let _ = std::io::Read::read_to_string(&mut err, &mut rest);
+        let code = child.wait().unwrap().code();
+        let run = only_run(&runs);
+        let ev = events(&run);
+        if code == Some(0) {
+            // Finished before the signal landed: nothing to stop.
+            assert!(matches!(ev.last(), Some(Event::RunFinished { .. })));
+            continue;
+        }
+        assert_eq!(code, Some(130), "SIG{signal}: {rest}");
+        assert!(rest.contains(&format!("SIG{signal}")), "{rest}");
+        assert!(
+            matches!(ev.last(), Some(Event::RunStopped { .. })),
+            "SIG{signal}: {ev:?}"
+        );
+        let o = isopach(&["resume", run.to_str().unwrap()]);
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        assert!(sites_once(&run, 9).iter().all(|(_, f)| f == "ok"));
+    }
+}
+
+/// Issue 18: a signal in the first milliseconds leaves either no run folder or a complete,
+/// resumable one (the folder is created whole, then renamed into place).
+#[test]
+fn an_early_signal_leaves_no_folder_or_a_resumable_one() {
+    let (dir, recipe, machine) = bench_dir("");
+    for (k, delay_ms) in [0u64, 2, 5, 10, 20, 40].into_iter().enumerate() {
+        let runs = dir.path().join(format!("runs-{k}"));
+        let child = Command::new(env!("CARGO_BIN_EXE_isopach"))
+            .args(run_args(&recipe, &machine, "EARLY", &runs))
+            .stdout(Stdio::null())
+            .stderr(Stdio::null())
+            .spawn()
+            .unwrap();
+        std::thread::sleep(Duration::from_millis(delay_ms));
+        let _ = Command::new("kill")
+            .args(["-INT", &child.id().to_string()])
+            .status();
+        let mut child = child;
+        let _ = child.wait();
+        let visible: Vec<_> = std::fs::read_dir(&runs)
+            .map(|d| {
+                d.filter_map(|e| e.ok())
+                    .map(|e| e.path())
+                    .filter(|p| !p.file_name().unwrap().to_string_lossy().starts_with('.'))
+                    .filter(|p| p.is_dir())
+                    .collect()
+            })
+            .unwrap_or_default();
+        if visible.is_empty() {
+            continue;
+        }
+        let run = only_run(&runs);
+        assert!(run.join("run.toml").is_file(), "{}", run.display());
+        assert!(run.join("plan.json").is_file(), "{}", run.display());
+        let o = isopach(&["resume", run.to_str().unwrap()]);
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        sites_once(&run, 9);
+    }
+}
