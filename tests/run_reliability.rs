@@ -91,11 +91,16 @@ fn sigkill_at_random_points_then_resume_keeps_every_site_once() {
         std::thread::sleep(Duration::from_secs_f64(dur * at));
         let _ = child.kill();
         let _ = child.wait();
-        let Ok(mut entries) = std::fs::read_dir(&runs) else {
+        let Ok(entries) = std::fs::read_dir(&runs) else {
             continue;
         };
-        if entries.next().is_none() {
-            continue; // killed before the run folder existed: nothing to resume
+        // Killed before the run folder was renamed into place: at most a hidden staging
+        // folder is left, and there is nothing to resume.
+        let visible = entries
+            .filter_map(|e| e.ok())
+            .any(|e| !e.file_name().to_string_lossy().starts_with('.'));
+        if !visible {
+            continue;
         }
         let run = only_run(&runs);
         let before = if run.join("journal.jsonl").exists() {
