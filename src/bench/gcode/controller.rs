@@ -43,6 +43,8 @@ pub struct ProtocolConfig {
     pub status_query: String,
     pub poll_interval: Duration,
     pub tolerance_mm: f64,
+    /// Sent first on a stop: a real-time byte (one character) or a line; empty = none.
+    pub feed_hold: String,
     pub reset: Vec<u8>,
     pub stop: Vec<String>,
     pub max_line_len: usize,
@@ -79,9 +81,13 @@ impl ProtocolConfig {
             home: s.home.clone(),
             strategy: s.motion_complete,
             wait_line,
-            status_query: s.status_query.clone(),
+            status_query: s
+                .status_query_in_use()
+                .unwrap_or(crate::bench::machine::DEFAULT_STATUS_QUERY)
+                .to_string(),
             poll_interval: secs(s.poll_interval_ms / 1000.0),
             tolerance_mm: s.position_tolerance_mm,
+            feed_hold: s.feed_hold.trim().to_string(),
             reset: s.reset.as_bytes().to_vec(),
             stop: s.stop.clone(),
             max_line_len: s.max_line_len,
@@ -96,7 +102,9 @@ impl ProtocolConfig {
 /// An operation on the controller.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub enum Command {
-    /// Absorb start-up lines, then send the unlock and init lines.
+    /// Absorb start-up lines, send the unlock lines, then (when no banner showed that the
+    /// controller restarted) a sync exchange that discards replies left over from an earlier
+    /// session, then the init lines.
     Connect,
     /// Send one move line; done when it is acknowledged (queued).
     Move { x_mm: f64, y_mm: f64 },
@@ -162,6 +170,8 @@ pub enum ControllerError {
         len: usize,
         max: usize,
     },
+    #[error("replies left over from an earlier session kept arriving after {rounds} sync exchanges (`{line}`): the controller is still working through a queue (reset it with stage.reset, or wait for it to finish and connect again)")]
+    NoSync { line: String, rounds: u32 },
     #[error("stopped on request while {during}")]
     Stopped { during: String },
     #[error("a command is already in progress ({0})")]
@@ -185,7 +195,29 @@ enum Await {
     Ack { timeout: Duration },
     /// An acknowledgement that arrives when motion ends.
     Motion { expected_s: f64, timeout: Duration },
+    /// The sync exchange after connecting to a controller that did not restart: replies
+    /// queued by an earlier session may still arrive, so the exchange counts only once it
+    /// is recognised (see [`Sync`]).
+    Sync { timeout: Duration, sync: Sync },
 }
+
+/// How the sync exchange is recognised.
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Sync {
+    /// The line is a status query: replies before its report are stale; the `ok` after the
+    /// report ends the exchange.
+    Report { seen: bool },
+    /// The line is the wait line: every `ok` (and error) restarts a quiet period; the
+    /// exchange ends when exactly one `ok` came and the line then stayed quiet, and is tried
+    /// again (up to [`SYNC_ROUNDS`] times) when more came.
+    Quiet { replies: u32, round: u32 },
+}
+
+/// How long the line must stay quiet after the sync line's `ok` (common practice: a reply
+/// queued behind it would follow within milliseconds).
+pub const SYNC_QUIET: Duration = Duration::from_millis(300);
+/// How many times the sync line is sent before connecting fails.
+const SYNC_ROUNDS: u32 = 4;
 
 /// How many reply timeouts keep-alives can stretch one reply wait to.
 const BUSY_EXTENSIONS: u32 = 4;
@@ -429,8 +461,9 @@ impl Controller {
         Ok(())
     }
 
-    /// Stops at once: sends the reset bytes (or the stop lines), fails the command in progress
-    /// with [`ControllerError::Stopped`] and forgets the position. After reset bytes the
+    /// Stops at once: sends the feed hold ahead of anything still waiting to go out, then the
+    /// reset bytes (or the stop lines), fails the command in progress with
+    /// [`ControllerError::Stopped`] and forgets the position. After reset bytes the
     /// controller restarts: a start-up phase then absorbs its banner (no lines are sent), and
     /// finishes with [`Completion::Connected`].
     pub fn stop(&mut self, now: Duration) {
@@ -444,6 +477,7 @@ impl Controller {
         self.position = None;
         self.target = None;
         self.queued_s = 0.0;
+        self.send_feed_hold();
         if self.cfg.reset.is_empty() {
             for l in self.cfg.stop.clone() {
                 self.send_line(&l);
@@ -546,10 +580,19 @@ impl Controller {
                 queue,
                 in_flight: Some(f),
                 finish,
+            } if now >= f.deadline
+                && matches!(f.wait, Await::Sync { sync: Sync::Quiet { replies, .. }, .. } if replies > 0) =>
+            {
+                self.sync_quiet(queue, f, finish, now)
+            }
+            Phase::Lines {
+                queue,
+                in_flight: Some(f),
+                finish,
             } if now >= f.deadline => {
                 let waited_s = (now - f.sent_at).as_secs_f64();
                 let err = match f.wait {
-                    Await::Ack { .. } => ControllerError::NoReply {
+                    Await::Ack { .. } | Await::Sync { .. } => ControllerError::NoReply {
                         line: f.line,
                         waited_s,
                     },
@@ -603,15 +646,16 @@ impl Controller {
                 return std::mem::replace(&mut self.phase, Phase::Ready);
             }
         }
+        let restarted = banner.is_some();
         self.banner_found = banner;
         let timeout = self.cfg.line_timeout;
-        let lines = self
-            .cfg
-            .unlock
-            .iter()
-            .chain(&self.cfg.init)
-            .map(|l| (l.clone(), Await::Ack { timeout }))
-            .collect();
+        let ack = |l: &String| (l.clone(), Await::Ack { timeout });
+        // Unlock first: a locked controller refuses the sync and init lines.
+        let mut lines: Vec<_> = self.cfg.unlock.iter().map(ack).collect();
+        if !restarted {
+            lines.push(self.sync_line());
+        }
+        lines.extend(self.cfg.init.iter().map(ack));
         self.enter_lines(lines, Finish::Connected, now);
         std::mem::replace(&mut self.phase, Phase::Ready)
     }
@@ -641,7 +685,9 @@ impl Controller {
         match queue.pop_front() {
             Some((line, wait)) => {
                 let t = match &wait {
-                    Await::Ack { timeout } | Await::Motion { timeout, .. } => *timeout,
+                    Await::Ack { timeout }
+                    | Await::Motion { timeout, .. }
+                    | Await::Sync { timeout, .. } => *timeout,
                 };
                 *in_flight = Some(InFlight {
                     line: line.clone(),
@@ -687,6 +733,38 @@ impl Controller {
                 finish,
             };
         };
+        if let Await::Sync { timeout, sync } = f.wait {
+            match self.sync_reply(sync, &reply, now) {
+                Some(next) => {
+                    if let Sync::Quiet { replies, .. } = next {
+                        // Each reply restarts the quiet period; the first also ends the
+                        // wait for motion.
+                        if replies > 0 {
+                            f.deadline = now + SYNC_QUIET;
+                        }
+                    }
+                    f.wait = Await::Sync {
+                        timeout,
+                        sync: next,
+                    };
+                    return Phase::Lines {
+                        queue,
+                        in_flight: Some(f),
+                        finish,
+                    };
+                }
+                None if matches!(reply, Reply::Ok) => {
+                    self.phase = Phase::Lines {
+                        queue,
+                        in_flight: None,
+                        finish,
+                    };
+                    self.advance_lines(now);
+                    return std::mem::replace(&mut self.phase, Phase::Ready);
+                }
+                None => {}
+            }
+        }
         match reply {
             Reply::Ok => {
                 self.phase = Phase::Lines {
@@ -739,6 +817,80 @@ impl Controller {
                 };
             }
         }
+        std::mem::replace(&mut self.phase, Phase::Ready)
+    }
+
+    /// The sync exchange's state after `reply`; `None` when the reply is to be handled as a
+    /// plain reply (the exchange's own `ok`, or an alarm, garbage or a rejection of the
+    /// status query itself).
+    fn sync_reply(&mut self, sync: Sync, reply: &Reply, _now: Duration) -> Option<Sync> {
+        match (sync, reply) {
+            (Sync::Report { seen: false }, Reply::Status(_)) => Some(Sync::Report { seen: true }),
+            (Sync::Report { seen: false }, Reply::Ok | Reply::Error { .. }) => {
+                self.note("discarded a reply left over from an earlier session");
+                Some(sync)
+            }
+            (Sync::Report { seen: true }, Reply::Ok) => None,
+            (Sync::Quiet { replies, round }, Reply::Ok | Reply::Error { .. }) => {
+                Some(Sync::Quiet {
+                    replies: replies + 1,
+                    round,
+                })
+            }
+            (Sync::Report { .. }, Reply::Alarm { .. } | Reply::Garbled(_))
+            | (Sync::Quiet { .. }, Reply::Alarm { .. } | Reply::Garbled(_)) => None,
+            _ => Some(sync),
+        }
+    }
+
+    /// The quiet period after the sync line's replies has passed: one reply means the
+    /// controller and isopach agree; more mean some were stale, so the exchange is repeated.
+    fn sync_quiet(
+        &mut self,
+        queue: VecDeque<(String, Await)>,
+        f: InFlight,
+        finish: Finish,
+        now: Duration,
+    ) -> Phase {
+        let Await::Sync {
+            timeout,
+            sync: Sync::Quiet { replies, round },
+        } = f.wait
+        else {
+            return Phase::Ready;
+        };
+        if replies == 1 {
+            self.phase = Phase::Lines {
+                queue,
+                in_flight: None,
+                finish,
+            };
+            self.advance_lines(now);
+            return std::mem::replace(&mut self.phase, Phase::Ready);
+        }
+        self.note(&format!(
+            "discarded {} replies left over from an earlier session; syncing again",
+            replies - 1
+        ));
+        if round >= SYNC_ROUNDS {
+            self.fail(ControllerError::NoSync {
+                line: f.line,
+                rounds: round,
+            });
+            return std::mem::replace(&mut self.phase, Phase::Ready);
+        }
+        let mut queue = queue;
+        queue.push_front((
+            f.line,
+            Await::Sync {
+                timeout,
+                sync: Sync::Quiet {
+                    replies: 0,
+                    round: round + 1,
+                },
+            },
+        ));
+        self.enter_lines(queue.into(), finish, now);
         std::mem::replace(&mut self.phase, Phase::Ready)
     }
 
@@ -886,6 +1038,31 @@ impl Controller {
 
     // ----- helpers -----
 
+    /// The sync exchange's line: a line status query (its report is recognisable), else the
+    /// wait line (whose `ok` also waits out any motion an earlier session queued).
+    fn sync_line(&self) -> (String, Await) {
+        let q = &self.cfg.status_query;
+        let (line, sync) = if !q.is_empty() && !codec::is_realtime(q) {
+            (q.clone(), Sync::Report { seen: false })
+        } else {
+            (
+                self.cfg.wait_line.clone(),
+                Sync::Quiet {
+                    replies: 0,
+                    round: 1,
+                },
+            )
+        };
+        let longest_s = Trapezoid::new(
+            self.cfg.max_move_mm,
+            self.cfg.feed_mm_min,
+            self.cfg.accel_mm_s2,
+        )
+        .duration_s();
+        let timeout = self.motion_allowance(longest_s);
+        (line, Await::Sync { timeout, sync })
+    }
+
     /// How long motion of `expected_s` may take before it counts as stalled.
     fn motion_allowance(&self, expected_s: f64) -> Duration {
         secs(expected_s * 1.5) + self.cfg.line_timeout
@@ -968,6 +1145,22 @@ impl Controller {
         let mut b = line.as_bytes().to_vec();
         b.push(b'\n');
         self.outbox.push_back(b);
+    }
+
+    /// The feed hold, put ahead of every byte still waiting to go out: the stage must stop
+    /// before anything else is said to it.
+    fn send_feed_hold(&mut self) {
+        let hold = self.cfg.feed_hold.clone();
+        if hold.is_empty() {
+            return;
+        }
+        let mut bytes = hold.clone().into_bytes();
+        if !codec::is_realtime(&hold) {
+            bytes.push(b'\n');
+        }
+        self.log
+            .push_back(LogEntry::Sent(hold.escape_debug().to_string()));
+        self.outbox.push_front(bytes);
     }
 
     fn send_raw(&mut self, bytes: Vec<u8>) {

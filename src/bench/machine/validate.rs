@@ -131,10 +131,24 @@ fn check_stage(s: &StageSpec, r: &mut Problems) {
             r.at("stage.wait_line", why);
         }
     }
-    if !s.status_query.trim().is_empty() {
-        if let Some(why) = words::refusal(&s.status_query, LineRole::Setup) {
+    if let Some(q) = s.status_query_in_use() {
+        if let Some(why) = words::refusal(q, LineRole::Setup) {
             r.at("stage.status_query", why);
         }
+    }
+    if !s.feed_hold.trim().is_empty() {
+        if let Some(why) = bad_line(&s.feed_hold, s.max_line_len, LineRole::Setup) {
+            r.at(
+                "stage.feed_hold",
+                format!("{why} (feed_hold is one real-time byte such as \"!\", or one line such as \"M410\")"),
+            );
+        }
+    }
+    if s.port != SIMULATED_PORT && !s.can_stop() {
+        r.at(
+            "stage.feed_hold",
+            "Ctrl-C could not stop motion: none of stage.feed_hold, stage.stop or stage.reset is set (set feed_hold = \"!\" on grbl-style firmware, \"M410\" on Marlin-style; see docs/bench.md)",
+        );
     }
     // Real-time bytes (Ctrl-X) are what `reset` is for; anything printable is a line.
     let realtime = s
@@ -151,7 +165,7 @@ fn check_stage(s: &StageSpec, r: &mut Problems) {
             );
         }
     }
-    if s.motion_complete == MotionComplete::Poll && s.status_query.trim().is_empty() {
+    if s.motion_complete == MotionComplete::Poll && s.status_query_in_use().is_none() {
         r.at(
             "stage.status_query",
             "motion_complete = \"poll\" needs a status query, e.g. \"?\"",

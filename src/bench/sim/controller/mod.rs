@@ -107,6 +107,9 @@ pub struct VirtualController {
     /// Virtual time and kind of a fault striking the running move.
     strike: Option<(f64, Armed)>,
     stalled: bool,
+    /// Feed hold (grbl-like `!`): motion stopped where it was, the queue kept until a
+    /// resume (`~`) or a reset.
+    held: bool,
     homing: bool,
     out: VecDeque<Vec<u8>>,
     lines_seen: usize,
@@ -137,6 +140,7 @@ impl VirtualController {
             armed: None,
             strike: None,
             stalled: false,
+            held: false,
             homing: false,
             out: VecDeque::new(),
             lines_seen: 0,
@@ -176,8 +180,8 @@ impl VirtualController {
             }) => Some(*k),
             _ => None,
         };
-        if self.stalled {
-            // A stalled board still says it is busy.
+        if self.stalled || self.held {
+            // A stalled or held board still says it is busy.
             return keepalive;
         }
         let end = self
@@ -251,7 +255,7 @@ impl VirtualController {
     // ----- motion -----
 
     fn current_pos(&self) -> [f64; 2] {
-        if self.stalled {
+        if self.stalled || self.held {
             return self.pos;
         }
         match self.planner.front() {
@@ -266,7 +270,7 @@ impl VirtualController {
             return;
         }
         self.keep_alive();
-        if self.stalled {
+        if self.stalled || self.held {
             return;
         }
         if let Some((t, kind)) = self.strike {
@@ -350,6 +354,36 @@ impl VirtualController {
         self.armed = None;
         self.strike = None;
         self.stalled = false;
+    }
+
+    /// A feed hold (grbl-like `!`): motion stops where it is (at once; a real board
+    /// decelerates over a few mm) and the rest of the running move stays queued behind the
+    /// moves after it, to go on after a resume or be dropped by a reset.
+    pub(super) fn feed_hold(&mut self) {
+        if self.held || self.stalled || self.planner.is_empty() {
+            self.held = self.held || !self.planner.is_empty();
+            return;
+        }
+        self.pos = self.current_pos();
+        self.held = true;
+        self.strike = None;
+        if let Some(s) = self.planner.front_mut() {
+            s.from = self.pos;
+        }
+    }
+
+    /// A resume after a feed hold (grbl-like `~`): the held move goes on from where it
+    /// stopped, accelerating again.
+    pub(super) fn resume(&mut self) {
+        if !self.held {
+            return;
+        }
+        self.held = false;
+        self.active_start = self.now;
+        if let Some(s) = self.planner.front_mut() {
+            let dist = (s.to[0] - s.from[0]).hypot(s.to[1] - s.from[1]);
+            s.profile = Trapezoid::new(dist, s.feed_mm_min, self.cfg.accel_mm_s2);
+        }
     }
 
     /// Sends the keep-alives due while a wait blocks (dialects that send them).
@@ -605,6 +639,7 @@ impl VirtualController {
         let (state, feed_mm_min) = match (self.mode, self.homing, running) {
             (Mode::Alarm | Mode::Locked, _, _) => (State::Alarm, 0.0),
             (_, true, _) => (State::Home, 0.0),
+            _ if self.held => (State::Hold, 0.0),
             (_, _, true) if self.stalled => (State::Run, 0.0),
             (_, _, true) => (
                 State::Run,
@@ -646,6 +681,7 @@ impl VirtualController {
         self.armed = None;
         self.strike = None;
         self.stalled = false;
+        self.held = false;
         self.homing = false;
         self.absolute = true;
         self.inches = false;
@@ -692,6 +728,7 @@ pub(super) enum State {
     Idle,
     Run,
     Home,
+    Hold,
     Alarm,
 }
 
