@@ -461,8 +461,8 @@ impl Controller {
         Ok(())
     }
 
-    /// Stops at once: sends the feed hold ahead of anything still waiting to go out, then the
-    /// reset bytes (or the stop lines), fails the command in progress with
+    /// Stops at once: drops whatever was still waiting to go out, sends the feed hold, then
+    /// the reset bytes (or the stop lines), fails the command in progress with
     /// [`ControllerError::Stopped`] and forgets the position. After reset bytes the
     /// controller restarts: a start-up phase then absorbs its banner (no lines are sent), and
     /// finishes with [`Completion::Connected`].
@@ -477,6 +477,14 @@ impl Controller {
         self.position = None;
         self.target = None;
         self.queued_s = 0.0;
+        // Lines of the abandoned command not yet written are never sent: no new motion
+        // after a stop.
+        for b in std::mem::take(&mut self.outbox) {
+            self.note(&format!(
+                "not sent after the stop: {}",
+                String::from_utf8_lossy(&b).trim_end().escape_debug()
+            ));
+        }
         self.send_feed_hold();
         if self.cfg.reset.is_empty() {
             for l in self.cfg.stop.clone() {
@@ -1147,8 +1155,8 @@ impl Controller {
         self.outbox.push_back(b);
     }
 
-    /// The feed hold, put ahead of every byte still waiting to go out: the stage must stop
-    /// before anything else is said to it.
+    /// The feed hold, put first in the outbox: the stage must stop before anything else is
+    /// said to it.
     fn send_feed_hold(&mut self) {
         let hold = self.cfg.feed_hold.clone();
         if hold.is_empty() {

@@ -436,4 +436,30 @@ mod tests {
         assert!(bad_line("G21", 80, LineRole::Setup).is_none());
         assert!(bad_line("", 80, LineRole::Setup).is_some());
     }
+
+    #[test]
+    fn a_real_stage_ctrl_c_cannot_stop_is_a_located_problem() {
+        let mut m = crate::bench::machine::builtin_simulated();
+        m.stage.reset.clear();
+        assert!(
+            validate(&m).is_empty(),
+            "the simulated stage is stopped by its server"
+        );
+        m.stage.port = "/dev/ttyACM0".into();
+        let problems = validate(&m);
+        let p = problems
+            .iter()
+            .find(|p| format!("{:?}", p.path).contains("feed_hold"))
+            .unwrap_or_else(|| panic!("{problems:?}"));
+        assert!(p.message.contains("Ctrl-C could not stop motion"), "{p:?}");
+        for fix in [("feed_hold", "!"), ("feed_hold", "M410")] {
+            let mut ok = m.clone();
+            ok.stage.feed_hold = fix.1.into();
+            assert!(validate(&ok).is_empty(), "{fix:?}: {:?}", validate(&ok));
+        }
+        m.stage.feed_hold = "G0 X10".into();
+        assert!(validate(&m)
+            .iter()
+            .any(|p| format!("{:?}", p.path).contains("feed_hold")));
+    }
 }
