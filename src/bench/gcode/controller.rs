@@ -148,6 +148,12 @@ pub enum ControllerError {
     },
     #[error("controller alarm `{reply}` while {during}: the run is stopped and no motion will be sent until the alarm is cleared (check the stage, then reset and home it)")]
     Alarm { reply: String, during: String },
+    #[error("the controller is in alarm: it answered `{line}` with `{reply}` (fix: {fix})")]
+    Locked {
+        line: String,
+        reply: String,
+        fix: String,
+    },
     #[error("the controller is in alarm (`{reply}`): nothing is sent until it is reset on the user's say (`isopach stage home` resets and homes)")]
     Alarmed { reply: String },
     #[error("motion to ({x_mm:.3}, {y_mm:.3}) mm did not complete within {waited_s:.1} s (it should take {expected_s:.1} s){last}: the stage stalled, is held, or the controller dropped the reply")]
@@ -216,6 +222,8 @@ enum Sync {
 /// How long the line must stay quiet after the sync line's `ok` (common practice: a reply
 /// queued behind it would follow within milliseconds).
 pub const SYNC_QUIET: Duration = Duration::from_millis(300);
+/// How many more times the reset is sent when no banner follows it.
+const RESET_RETRIES: u8 = 2;
 /// How many times the sync line is sent before connecting fails.
 const SYNC_ROUNDS: u32 = 4;
 
@@ -249,6 +257,9 @@ enum Phase {
         last_line: Option<Duration>,
         /// Send the unlock and init lines afterwards (not after a stop).
         then_init: bool,
+        /// Times the reset is sent again when no banner follows it (a controller drops a
+        /// reset that arrives during its post-alarm delay).
+        resets_left: u8,
     },
     Lines {
         queue: VecDeque<(String, Await)>,
@@ -393,7 +404,7 @@ impl Controller {
         }
         self.doing = describe(cmd);
         match cmd {
-            Command::Connect => self.enter_startup(now),
+            Command::Connect => self.enter_startup(now, false),
             Command::Reset => {
                 if self.cfg.reset.is_empty() {
                     self.note("no stage.reset bytes configured; reconnecting without a reset");
@@ -404,7 +415,7 @@ impl Controller {
                 self.position = None;
                 self.target = None;
                 self.queued_s = 0.0;
-                self.enter_startup(now);
+                self.enter_startup(now, !self.cfg.reset.is_empty());
             }
             Command::Move { x_mm, y_mm } => {
                 let line = codec::move_line(x_mm, y_mm, self.cfg.feed_mm_min);
@@ -493,7 +504,7 @@ impl Controller {
         } else {
             self.send_raw(self.cfg.reset.clone());
             self.doing = "waiting for the controller to restart after a stop".into();
-            self.enter_startup(now);
+            self.enter_startup(now, true);
             if let Phase::Startup { then_init, .. } = &mut self.phase {
                 *then_init = false;
             }
@@ -530,6 +541,7 @@ impl Controller {
                 deadline,
                 mut banner,
                 then_init,
+                resets_left,
                 ..
             } => {
                 match reply {
@@ -546,6 +558,7 @@ impl Controller {
                     banner,
                     last_line: Some(now),
                     then_init,
+                    resets_left,
                 }
             }
             Phase::Lines {
@@ -566,6 +579,7 @@ impl Controller {
                 banner,
                 last_line,
                 then_init,
+                resets_left,
             } => {
                 let quiet = self.banner_seen(&banner)
                     && last_line.is_some_and(|t| now >= t + STARTUP_QUIET);
@@ -575,6 +589,19 @@ impl Controller {
                         banner,
                         last_line,
                         then_init,
+                        resets_left,
+                    }
+                } else if banner.is_none() && !self.cfg.banner.is_empty() && resets_left > 0 {
+                    // No restart after the reset: a controller drops a reset that arrives
+                    // during its post-alarm delay, which has passed by now.
+                    self.note("no start-up banner after the reset (a controller drops a reset sent during its post-alarm delay); sending it again");
+                    self.send_raw(self.cfg.reset.clone());
+                    Phase::Startup {
+                        deadline: now + self.cfg.startup_wait,
+                        banner,
+                        last_line,
+                        then_init,
+                        resets_left: resets_left - 1,
                     }
                 } else if then_init {
                     self.after_startup(banner, now)
@@ -626,13 +653,16 @@ impl Controller {
 
     // ----- phases -----
 
-    fn enter_startup(&mut self, now: Duration) {
+    /// Absorbs start-up lines; `after_reset` when the reset bytes have just been sent (they
+    /// are sent again, up to [`RESET_RETRIES`] times, when no banner follows).
+    fn enter_startup(&mut self, now: Duration, after_reset: bool) {
         self.startup_alarm = None;
         self.phase = Phase::Startup {
             deadline: now + self.cfg.startup_wait,
             banner: None,
             last_line: None,
             then_init: true,
+            resets_left: if after_reset { RESET_RETRIES } else { 0 },
         };
     }
 
@@ -782,6 +812,14 @@ impl Controller {
                 };
                 self.advance_lines(now);
                 return std::mem::replace(&mut self.phase, Phase::Ready);
+            }
+            Reply::Error { text, .. } if self.cfg.vocab.is_locked(&text) => {
+                let fix = self.unlock_fix();
+                self.fail(ControllerError::Locked {
+                    line: f.line,
+                    reply: text,
+                    fix,
+                });
             }
             Reply::Error { code, text } => {
                 let hint = if finish == Finish::Connected {
@@ -1045,6 +1083,26 @@ impl Controller {
     }
 
     // ----- helpers -----
+
+    /// How to get a locked controller going again, from what the machine file offers.
+    fn unlock_fix(&self) -> String {
+        let mut ways = Vec::new();
+        if !self.cfg.reset.is_empty() {
+            ways.push("`isopach stage home` resets and homes it".to_string());
+        }
+        if self.cfg.unlock.is_empty() {
+            ways.push("list its unlock line (`$X` on grbl-style firmware, `M999` on Marlin-style) in stage.unlock".into());
+        } else {
+            ways.push(format!(
+                "connecting again sends stage.unlock ({})",
+                self.cfg.unlock.join(", ")
+            ));
+        }
+        format!(
+            "check the stage and what tripped the alarm, then {}",
+            ways.join("; or ")
+        )
+    }
 
     /// The sync exchange's line: a line status query (its report is recognisable), else the
     /// wait line (whose `ok` also waits out any motion an earlier session queued).

@@ -165,6 +165,10 @@ pub struct RepliesSpec {
     /// State words of a status report that mean an alarm.
     #[serde(default = "d_alarm_states")]
     pub alarm_states: Vec<String>,
+    /// Error replies that mean the controller is locked in an alarm (it refuses every line
+    /// until it is reset or unlocked), matched at the start of the line.
+    #[serde(default = "d_locked")]
+    pub locked: Vec<String>,
 }
 
 impl Default for RepliesSpec {
@@ -176,6 +180,7 @@ impl Default for RepliesSpec {
             busy: d_busy(),
             idle_states: d_idle_states(),
             alarm_states: d_alarm_states(),
+            locked: d_locked(),
         }
     }
 }
@@ -313,6 +318,10 @@ pub struct SimControllerSpec {
     /// The reply conventions it follows.
     #[serde(default)]
     pub dialect: Dialect,
+    /// After an alarm a grbl-like board takes nothing, its reset included, for this long;
+    /// afterwards it answers every line as locked until reset, ms.
+    #[serde(default = "d_post_alarm_delay")]
+    pub post_alarm_delay_ms: f64,
 }
 
 /// Reply conventions of the virtual controller.
@@ -338,6 +347,7 @@ impl Default for SimControllerSpec {
             idle_lag_ms: d_idle_lag(),
             planner_moves: d_planner(),
             dialect: Dialect::Grbl,
+            post_alarm_delay_ms: d_post_alarm_delay(),
         }
     }
 }
@@ -484,6 +494,21 @@ fn d_init() -> Vec<String> {
 }
 fn d_home_timeout() -> f64 {
     120.0
+}
+/// grbl's "locked out during alarm" error number and Marlin-style halt messages (from memory).
+fn d_locked() -> Vec<String> {
+    [
+        "error:9",
+        "Error:Printer halted",
+        "Error:stopped",
+        "Error:halted",
+    ]
+    .map(String::from)
+    .to_vec()
+}
+/// Half a second: of the order real boards take to finish an alarm (from memory).
+fn d_post_alarm_delay() -> f64 {
+    500.0
 }
 /// The status query `poll` uses when the machine file names none.
 pub const DEFAULT_STATUS_QUERY: &str = "?";

@@ -233,6 +233,13 @@ fn check_simulation(s: &SimulationSpec, r: &mut Problems) {
         10_000.0,
         "ms",
     );
+    r.range(
+        "simulation.controller.post_alarm_delay_ms",
+        s.controller.post_alarm_delay_ms,
+        0.0,
+        10_000.0,
+        "ms",
+    );
     if s.controller.planner_moves == 0 {
         r.at(
             "simulation.controller.planner_moves",

@@ -2,8 +2,9 @@
 //! are real-time bytes, a banner
 //! at start-up and after a reset, an optional locked state cleared by `$X` or `$H`, `error:N`
 //! for lines it cannot run, `<State|MPos:x,y,z|FS:f,0>` status reports, `G4 P` in seconds,
-//! an `ALARM:N` soft-limit alarm, and in an alarm it ignores everything, status queries
-//! included, until the reset byte.
+//! an `ALARM:N` soft-limit alarm; in an alarm it ignores everything, the reset byte and
+//! status queries included, for its post-alarm delay, then answers every line `error:9`
+//! (locked) and status queries `<Alarm|…>` until the reset byte.
 //!
 //! The protocol tokens (`ok`, `error:`, `ALARM:`, `<…>`, `[MSG:…]`) are what hosts match;
 //! the message texts and the banner are our own words.
@@ -32,12 +33,14 @@ impl FirmwareDialect for GrblLike {
 
     fn real_time_byte(&self, v: &mut VirtualController, byte: u8) -> bool {
         match byte {
+            // Dropped during the post-alarm delay, as real boards do.
+            RESET_BYTE if v.deaf() => {}
             RESET_BYTE => v.reset(),
             HOLD_BYTE => v.feed_hold(),
             RESUME_BYTE => v.resume(),
             STATUS_BYTE => {
-                // Deaf in an alarm, and gone after a disconnect.
-                if v.mode() != Mode::Alarm && !v.is_disconnected() {
+                // Deaf during the post-alarm delay, and gone after a disconnect.
+                if !v.deaf() && !v.is_disconnected() {
                     let report = status_report(v);
                     v.line(&report);
                 }
@@ -56,8 +59,8 @@ impl FirmwareDialect for GrblLike {
     }
 
     fn stopped_line(&self) -> &'static str {
-        // Never sent: the board is deaf in an alarm.
-        ""
+        // After the post-alarm delay: locked until the reset byte.
+        "error:9"
     }
 
     fn is_quick_stop(&self, _line: &str) -> bool {

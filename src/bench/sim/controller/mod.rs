@@ -110,6 +110,8 @@ pub struct VirtualController {
     /// Feed hold (grbl-like `!`): motion stopped where it was, the queue kept until a
     /// resume (`~`) or a reset.
     held: bool,
+    /// Virtual time of the last alarm (the post-alarm delay runs from it).
+    alarm_at: f64,
     homing: bool,
     out: VecDeque<Vec<u8>>,
     lines_seen: usize,
@@ -141,6 +143,7 @@ impl VirtualController {
             strike: None,
             stalled: false,
             held: false,
+            alarm_at: f64::NEG_INFINITY,
             homing: false,
             out: VecDeque::new(),
             lines_seen: 0,
@@ -211,7 +214,7 @@ impl VirtualController {
             if d.real_time_byte(self, b) {
                 continue;
             }
-            if (d.deaf_in_alarm() && self.mode == Mode::Alarm) || self.disconnected {
+            if self.deaf() || self.disconnected {
                 continue;
             }
             match b {
@@ -283,8 +286,7 @@ impl VirtualController {
                         self.planner.clear();
                         self.blocker = None;
                         self.lines.clear();
-                        self.mode = Mode::Alarm;
-                        self.alarm_lines(code);
+                        self.enter_alarm(code);
                     }
                     Armed::Stall => {
                         // Freeze here: the running segment becomes a zero-length one that
@@ -443,7 +445,7 @@ impl VirtualController {
 
     fn process(&mut self) {
         while self.blocker.is_none() && !self.disconnected {
-            if self.mode == Mode::Alarm && self.dialect.deaf_in_alarm() {
+            if self.deaf() {
                 break;
             }
             let Some(line) = self.lines.pop_front() else {
@@ -606,8 +608,7 @@ impl VirtualController {
                 // Soft-limit alarm: motion is held, then the controller locks up until reset.
                 self.pos = self.current_pos();
                 self.planner.clear();
-                self.mode = Mode::Alarm;
-                self.alarm_lines(2);
+                self.enter_alarm(2);
                 return;
             }
             self.queue_move(to);
@@ -703,6 +704,21 @@ impl VirtualController {
         }
     }
 
+    /// Whether the board is still busy with an alarm: in its post-alarm delay it takes
+    /// nothing, not even a reset (dialects that are deaf in an alarm).
+    pub(super) fn deaf(&self) -> bool {
+        self.mode == Mode::Alarm
+            && self.dialect.deaf_in_alarm()
+            && self.now < self.alarm_at + self.cfg.post_alarm_delay_s
+    }
+
+    /// An alarm: motion is already stopped; the board prints it and locks.
+    fn enter_alarm(&mut self, code: u32) {
+        self.mode = Mode::Alarm;
+        self.alarm_at = self.now;
+        self.alarm_lines(code);
+    }
+
     /// What an alarm mid-move prints.
     fn alarm_lines(&mut self, code: u32) {
         for l in self.dialect.alarm(code) {
@@ -760,6 +776,7 @@ pub(super) mod test_support {
             home_mm: [0.0, 0.0],
             faults: vec![],
             dialect: Dialect::Grbl,
+            post_alarm_delay_s: 0.15,
         }
     }
 
