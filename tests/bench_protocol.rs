@@ -1035,3 +1035,125 @@ async fn where_falls_back_cleanly_when_the_status_query_is_not_answered() {
     let mut s = duplex_stage(&m).await;
     assert_eq!(s.position().await.unwrap(), Some([0.0, 0.0]));
 }
+
+// ----- alarm recovery -----
+
+/// A grbl-like board that raises a limit alarm half way through the first move line and
+/// then takes nothing, its reset included, for half a second.
+fn alarming_machine() -> MachineFile {
+    let mut m = grbl_machine();
+    m.simulation.controller.post_alarm_delay_ms = 500.0;
+    m.simulation.faults.push(machine::FaultSpec {
+        kind: machine::FaultKind::Alarm,
+        at_line: 4, // $X, G21, G90, then the move
+        code: 1,
+    });
+    m
+}
+
+/// Connects and runs into the alarm; returns the bench right after the alarm was reported.
+fn alarmed(m: &MachineFile) -> Bench {
+    let mut b = Bench::new(m);
+    assert!(matches!(
+        b.run(Command::Connect),
+        Ok(Completion::Connected { .. })
+    ));
+    b.run(Command::Move {
+        x_mm: 150.0,
+        y_mm: 150.0,
+    })
+    .unwrap();
+    match b.run(Command::WaitIdle) {
+        Err(ControllerError::Alarm { reply, .. }) => assert_eq!(reply, "ALARM:1"),
+        other => panic!("{other:?}"),
+    }
+    b
+}
+
+#[test]
+fn a_reset_dropped_in_the_post_alarm_delay_is_sent_again() {
+    let m = alarming_machine();
+    let mut b = alarmed(&m);
+    // Ctrl-C right after the alarm: the reset goes out within milliseconds and is dropped.
+    b.c.stop(b.at());
+    match b.run_until(b.now + 30.0) {
+        Some(Ok(Completion::Connected { banner: Some(_) })) => {}
+        other => panic!("{other:?} {:?}", b.log),
+    }
+    assert!(b.noted("sending it again"), "{:?}", b.log);
+    // On the user's say: reset, unlock and go on.
+    assert!(matches!(
+        b.run(Command::Reset),
+        Ok(Completion::Connected { .. })
+    ));
+    b.run(Command::Move {
+        x_mm: 20.0,
+        y_mm: 30.0,
+    })
+    .unwrap();
+    assert!(b.run(Command::WaitIdle).is_ok());
+    assert_eq!(b.stage_at(), [20.0, 30.0]);
+}
+
+#[test]
+fn a_locked_controller_is_said_to_be_in_alarm_not_silent() {
+    let m = alarming_machine();
+    let b = alarmed(&m);
+    // The next session (no reset sent on Ctrl-C, the board still in alarm after its delay).
+    let now = b.now + 5.0;
+    let mut b = Bench::reconnect(b.v, &m, now);
+    let e = b.run(Command::Connect).unwrap_err();
+    let msg = e.to_string();
+    assert!(
+        matches!(e, ControllerError::Locked { .. }),
+        "{e:?} {:?}",
+        b.log
+    );
+    assert!(
+        msg.starts_with("the controller is in alarm: it answered `$X` with `error:9`")
+            && msg.contains("(fix: ")
+            && msg.contains("isopach stage home"),
+        "{msg}"
+    );
+}
+
+// ----- the per-dialect example files of docs/bench.md -----
+
+#[test]
+fn each_dialect_example_file_connects_moves_and_stops_on_ctrl_c() {
+    for (name, hold) in [("grbl.toml", &b"!"[..]), ("marlin.toml", &b"M410\n"[..])] {
+        let m = fixture(name);
+        let mut b = Bench::new(&m);
+        assert!(
+            matches!(
+                b.run(Command::Connect),
+                Ok(Completion::Connected { banner: Some(_) })
+            ),
+            "{name}: {:?}",
+            b.log
+        );
+        b.run(Command::Move {
+            x_mm: 50.0,
+            y_mm: 60.0,
+        })
+        .unwrap();
+        assert!(b.run(Command::WaitIdle).is_ok(), "{name}");
+        assert_eq!(b.stage_at(), [50.0, 60.0], "{name}");
+        b.c.start(Command::Query, b.at()).unwrap();
+        match b.run_until(b.now + 20.0) {
+            Some(Ok(Completion::Status(s))) => {
+                assert_eq!(b.c.work_position(&s), Some([50.0, 60.0]), "{name}")
+            }
+            other => panic!("{name}: {other:?}"),
+        }
+        long_move_running(&mut b, 1.0);
+        let at_stop = b.stage_at();
+        b.c.stop(b.at());
+        let first = b.c.poll_transmit().unwrap();
+        assert_eq!(first, hold, "{name}: the feed hold goes first");
+        b.v.feed(&first, b.now);
+        b.exchange();
+        b.now += 30.0;
+        assert_eq!(b.stage_at(), at_stop, "{name}: halted");
+    }
+}
