@@ -1115,6 +1115,30 @@ fn a_locked_controller_is_said_to_be_in_alarm_not_silent() {
             && msg.contains("isopach stage home"),
         "{msg}"
     );
+    // Latched: nothing is sent until the reset, which the board now takes (its delay is
+    // over); then it unlocks and goes on.
+    assert!(b.c.alarm().is_some());
+    assert!(matches!(
+        b.c.start(
+            Command::Move {
+                x_mm: 1.0,
+                y_mm: 1.0
+            },
+            b.at()
+        ),
+        Err(ControllerError::Alarmed { .. })
+    ));
+    assert!(matches!(
+        b.run(Command::Reset),
+        Ok(Completion::Connected { .. })
+    ));
+    b.run(Command::Move {
+        x_mm: 20.0,
+        y_mm: 30.0,
+    })
+    .unwrap();
+    assert!(b.run(Command::WaitIdle).is_ok());
+    assert_eq!(b.stage_at(), [20.0, 30.0]);
 }
 
 // ----- the per-dialect example files of docs/bench.md -----

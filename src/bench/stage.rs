@@ -101,7 +101,19 @@ impl<S: Port> GcodeStage<S> {
     ) -> Result<GcodeStage<S>, StageError> {
         let ctrl = Controller::new(ProtocolConfig::from_spec(spec));
         let mut link = Link::new(stream, ctrl, port);
-        link.run(Command::Connect).await?;
+        // A controller that stays locked although its unlock line went out is in an alarm
+        // only a reset clears: with a reset configured it is still usable — the alarm stays
+        // latched, every motion is refused with what to do, and homing resets it first.
+        // Without an unlock line, being locked is a machine-file problem: the error says so.
+        let recoverable = !spec.unlock.is_empty() && !spec.reset.is_empty();
+        match link.run(Command::Connect).await {
+            Err(LinkError::Controller(e @ ControllerError::Locked { .. })) if recoverable => {
+                tracing::warn!(port, "{e}");
+            }
+            r => {
+                r?;
+            }
+        }
         Ok(GcodeStage {
             link,
             limits: SoftLimits::from_spec(spec),

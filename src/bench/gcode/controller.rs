@@ -814,6 +814,8 @@ impl Controller {
                 return std::mem::replace(&mut self.phase, Phase::Ready);
             }
             Reply::Error { text, .. } if self.cfg.vocab.is_locked(&text) => {
+                // Latched like an alarm: nothing more is sent until a reset on the user's say.
+                self.alarm = Some(text.clone());
                 let fix = self.unlock_fix();
                 self.fail(ControllerError::Locked {
                     line: f.line,
@@ -1086,22 +1088,14 @@ impl Controller {
 
     /// How to get a locked controller going again, from what the machine file offers.
     fn unlock_fix(&self) -> String {
-        let mut ways = Vec::new();
-        if !self.cfg.reset.is_empty() {
-            ways.push("`isopach stage home` resets and homes it".to_string());
-        }
-        if self.cfg.unlock.is_empty() {
-            ways.push("list its unlock line (`$X` on grbl-style firmware, `M999` on Marlin-style) in stage.unlock".into());
+        let way = if self.cfg.unlock.is_empty() {
+            "list its unlock line (`$X` on grbl-style firmware, `M999` on Marlin-style) in stage.unlock"
+        } else if self.cfg.reset.is_empty() {
+            "reset or power-cycle the controller (no stage.reset is configured), then connect again"
         } else {
-            ways.push(format!(
-                "connecting again sends stage.unlock ({})",
-                self.cfg.unlock.join(", ")
-            ));
-        }
-        format!(
-            "check the stage and what tripped the alarm, then {}",
-            ways.join("; or ")
-        )
+            "`isopach stage home` resets, unlocks and homes it"
+        };
+        format!("check the stage and what tripped the alarm, then {way}")
     }
 
     /// The sync exchange's line: a line status query (its report is recognisable), else the
