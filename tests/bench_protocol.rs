@@ -1070,6 +1070,21 @@ fn alarmed(m: &MachineFile) -> Bench {
     b
 }
 
+/// A reset on the user's say, then a move that arrives.
+fn reset_then_move_on(b: &mut Bench) {
+    assert!(matches!(
+        b.run(Command::Reset),
+        Ok(Completion::Connected { .. })
+    ));
+    b.run(Command::Move {
+        x_mm: 20.0,
+        y_mm: 30.0,
+    })
+    .unwrap();
+    assert!(b.run(Command::WaitIdle).is_ok());
+    assert_eq!(b.stage_at(), [20.0, 30.0]);
+}
+
 #[test]
 fn a_reset_dropped_in_the_post_alarm_delay_is_sent_again() {
     let m = alarming_machine();
@@ -1082,17 +1097,7 @@ fn a_reset_dropped_in_the_post_alarm_delay_is_sent_again() {
     }
     assert!(b.noted("sending it again"), "{:?}", b.log);
     // On the user's say: reset, unlock and go on.
-    assert!(matches!(
-        b.run(Command::Reset),
-        Ok(Completion::Connected { .. })
-    ));
-    b.run(Command::Move {
-        x_mm: 20.0,
-        y_mm: 30.0,
-    })
-    .unwrap();
-    assert!(b.run(Command::WaitIdle).is_ok());
-    assert_eq!(b.stage_at(), [20.0, 30.0]);
+    reset_then_move_on(&mut b);
 }
 
 #[test]
@@ -1128,17 +1133,7 @@ fn a_locked_controller_is_said_to_be_in_alarm_not_silent() {
         ),
         Err(ControllerError::Alarmed { .. })
     ));
-    assert!(matches!(
-        b.run(Command::Reset),
-        Ok(Completion::Connected { .. })
-    ));
-    b.run(Command::Move {
-        x_mm: 20.0,
-        y_mm: 30.0,
-    })
-    .unwrap();
-    assert!(b.run(Command::WaitIdle).is_ok());
-    assert_eq!(b.stage_at(), [20.0, 30.0]);
+    reset_then_move_on(&mut b);
 }
 
 // ----- the per-dialect example files of docs/bench.md -----

@@ -755,6 +755,22 @@ impl Controller {
         }
     }
 
+    /// The line in flight is done: the next one goes out, or the command finishes.
+    fn line_done(
+        &mut self,
+        queue: VecDeque<(String, Await)>,
+        finish: Finish,
+        now: Duration,
+    ) -> Phase {
+        self.phase = Phase::Lines {
+            queue,
+            in_flight: None,
+            finish,
+        };
+        self.advance_lines(now);
+        std::mem::replace(&mut self.phase, Phase::Ready)
+    }
+
     fn lines_reply(
         &mut self,
         queue: VecDeque<(String, Await)>,
@@ -791,28 +807,12 @@ impl Controller {
                         finish,
                     };
                 }
-                None if matches!(reply, Reply::Ok) => {
-                    self.phase = Phase::Lines {
-                        queue,
-                        in_flight: None,
-                        finish,
-                    };
-                    self.advance_lines(now);
-                    return std::mem::replace(&mut self.phase, Phase::Ready);
-                }
+                None if matches!(reply, Reply::Ok) => return self.line_done(queue, finish, now),
                 None => {}
             }
         }
         match reply {
-            Reply::Ok => {
-                self.phase = Phase::Lines {
-                    queue,
-                    in_flight: None,
-                    finish,
-                };
-                self.advance_lines(now);
-                return std::mem::replace(&mut self.phase, Phase::Ready);
-            }
+            Reply::Ok => return self.line_done(queue, finish, now),
             Reply::Error { text, .. } if self.cfg.vocab.is_locked(&text) => {
                 // Latched like an alarm: nothing more is sent until a reset on the user's say.
                 self.alarm = Some(text.clone());
@@ -908,13 +908,7 @@ impl Controller {
             return Phase::Ready;
         };
         if replies == 1 {
-            self.phase = Phase::Lines {
-                queue,
-                in_flight: None,
-                finish,
-            };
-            self.advance_lines(now);
-            return std::mem::replace(&mut self.phase, Phase::Ready);
+            return self.line_done(queue, finish, now);
         }
         self.note(&format!(
             "discarded {} replies left over from an earlier session; syncing again",
