@@ -846,19 +846,27 @@ fn ctrl_c_feed_hold_stops_a_grbl_like_stage_without_a_reset() {
         b.run(Command::Connect),
         Ok(Completion::Connected { .. })
     ));
-    long_move_running(&mut b, 1.0);
+    ctrl_c_during_a_long_move_halts_the_stage(&mut b, b"!");
+}
+
+/// Ctrl-C one second into a long move: `hold` is the first thing sent, the wait fails as
+/// stopped, and the stage is still where it was 30 s later, well short of its target.
+fn ctrl_c_during_a_long_move_halts_the_stage(b: &mut Bench, hold: &[u8]) {
+    long_move_running(b, 1.0);
     let at_stop = b.stage_at();
     b.c.stop(b.at());
-    assert_eq!(b.c.poll_transmit().as_deref(), Some(&b"!"[..]));
-    b.v.feed(b"!", b.now);
+    let first = b.c.poll_transmit().unwrap();
+    assert_eq!(first, hold, "the feed hold goes first");
+    b.v.feed(&first, b.now);
     assert!(matches!(
         b.c.poll_result(),
         Some(Err(ControllerError::Stopped { .. }))
     ));
+    b.exchange();
     b.now += 30.0;
     let after = b.stage_at();
     assert!(
-        (after[0] - at_stop[0]).abs() < 1e-6 && after[0] < 100.0,
+        after == at_stop && after[0] < 100.0,
         "stopped at {at_stop:?}, now at {after:?}"
     );
 }
@@ -874,17 +882,7 @@ fn ctrl_c_quick_stop_line_stops_a_marlin_like_stage() {
         b.run(Command::Connect),
         Ok(Completion::Connected { .. })
     ));
-    long_move_running(&mut b, 1.0);
-    let at_stop = b.stage_at();
-    b.c.stop(b.at());
-    assert_eq!(b.c.poll_transmit().as_deref(), Some(&b"M410\n"[..]));
-    b.v.feed(b"M410\n", b.now);
-    b.now += 30.0;
-    let after = b.stage_at();
-    assert!(
-        (after[0] - at_stop[0]).abs() < 1e-6 && after[0] < 100.0,
-        "stopped at {at_stop:?}, now at {after:?}"
-    );
+    ctrl_c_during_a_long_move_halts_the_stage(&mut b, b"M410\n");
 }
 
 #[test]
@@ -1165,14 +1163,6 @@ fn each_dialect_example_file_connects_moves_and_stops_on_ctrl_c() {
             }
             other => panic!("{name}: {other:?}"),
         }
-        long_move_running(&mut b, 1.0);
-        let at_stop = b.stage_at();
-        b.c.stop(b.at());
-        let first = b.c.poll_transmit().unwrap();
-        assert_eq!(first, hold, "{name}: the feed hold goes first");
-        b.v.feed(&first, b.now);
-        b.exchange();
-        b.now += 30.0;
-        assert_eq!(b.stage_at(), at_stop, "{name}: halted");
+        ctrl_c_during_a_long_move_halts_the_stage(&mut b, hold);
     }
 }
