@@ -19,7 +19,7 @@ fn write(dir: &Path, name: &str, text: &str) -> PathBuf {
     p
 }
 
-const SMALL: &str = "name = \"small\"\n[stage]\nport = \"/dev/isopach-none\"\ntravel_x_mm = [0, 120]\ntravel_y_mm = [0, 120]\n[chuck]\ncenter_mm = [60, 60]\n";
+const SMALL: &str = "name = \"small\"\n[stage]\nport = \"/dev/isopach-none\"\nfeed_hold = \"!\"\ntravel_x_mm = [0, 120]\ntravel_y_mm = [0, 120]\n[chuck]\ncenter_mm = [60, 60]\n";
 
 /// Runs `isopach check` on the 49-site oxide recipe with a machine file of this text.
 fn check_with(machine: &str) -> (Option<i32>, String) {

@@ -8,6 +8,7 @@ use isopach::bench::gcode::{
 };
 use isopach::bench::limits::Approach;
 use isopach::bench::machine::{self, MachineFile};
+use isopach::bench::sim::controller::{VirtualConfig, VirtualController};
 use std::path::Path;
 use std::time::Duration;
 
@@ -714,4 +715,454 @@ fn keep_alives_stretch_a_reply_wait_to_four_timeouts() {
         (358_000..=362_000).contains(&waited),
         "failed after {waited} ms"
     );
+}
+
+// ----- the state machine against the virtual controller, in virtual time -----
+
+/// A [`Controller`] wired to a [`VirtualController`], bytes passed by hand and virtual time
+/// advanced to the next deadline of either: deterministic, no tokio.
+struct Bench {
+    c: Controller,
+    v: VirtualController,
+    now: f64,
+    rx: Vec<u8>,
+    /// Every entry of the host's log, kept for assertions.
+    log: Vec<LogEntry>,
+}
+
+impl Bench {
+    /// A powered-up virtual controller of `m`, and a host not yet connected.
+    fn new(m: &MachineFile) -> Bench {
+        let v = VirtualController::new(VirtualConfig::from_machine(m), 0.0);
+        Bench::reconnect(v, m, 0.0)
+    }
+    /// A new host session on a board that keeps running (no reset on open).
+    fn reconnect(v: VirtualController, m: &MachineFile, now: f64) -> Bench {
+        Bench {
+            c: Controller::new(ProtocolConfig::from_spec(&m.stage)),
+            v,
+            now,
+            rx: Vec::new(),
+            log: Vec::new(),
+        }
+    }
+    fn at(&self) -> Duration {
+        Duration::from_secs_f64(self.now)
+    }
+    /// Moves bytes both ways until nothing is pending; the host's outbox goes first.
+    fn exchange(&mut self) {
+        loop {
+            let mut moved = false;
+            while let Some(b) = self.c.poll_transmit() {
+                self.v.feed(&b, self.now);
+                moved = true;
+            }
+            for b in self.v.take_output() {
+                self.rx.extend(b);
+                moved = true;
+            }
+            while let Some(i) = self.rx.iter().position(|&b| b == b'\n' || b == b'\r') {
+                let line: Vec<u8> = self.rx.drain(..=i).collect();
+                let line = String::from_utf8_lossy(&line[..i]).into_owned();
+                self.c.handle_line(&line, self.at());
+                moved = true;
+            }
+            while let Some(e) = self.c.poll_log() {
+                self.log.push(e);
+            }
+            if !moved {
+                return;
+            }
+        }
+    }
+    /// Lets virtual time run to `until` (or the command's result, whichever is first).
+    fn run_until(&mut self, until: f64) -> Option<Result<Completion, ControllerError>> {
+        loop {
+            self.exchange();
+            if let Some(r) = self.c.poll_result() {
+                return Some(r);
+            }
+            let next = [
+                self.c.next_deadline().map(|d| d.as_secs_f64()),
+                self.v.next_wakeup(),
+            ]
+            .into_iter()
+            .flatten()
+            .fold(until, f64::min);
+            if next >= until && self.now >= until {
+                return None;
+            }
+            self.now = next.max(self.now);
+            self.v.advance(self.now);
+            self.exchange();
+            self.c.handle_time(self.at());
+        }
+    }
+    /// Runs `cmd` to its end (at most 120 virtual seconds).
+    fn run(&mut self, cmd: Command) -> Result<Completion, ControllerError> {
+        self.c.start(cmd, self.at()).unwrap();
+        let limit = self.now + 120.0;
+        self.run_until(limit)
+            .unwrap_or_else(|| panic!("{cmd:?} hung for 120 s"))
+    }
+    fn stage_at(&mut self) -> [f64; 2] {
+        self.v.position(self.now)
+    }
+    fn noted(&self, what: &str) -> bool {
+        self.log
+            .iter()
+            .any(|e| matches!(e, LogEntry::Note(n) if n.contains(what)))
+    }
+}
+
+/// dwell.toml against the grbl-like virtual controller, banner matching.
+fn grbl_machine() -> MachineFile {
+    let mut m = fixture("dwell.toml");
+    m.simulation.controller.banner = "Grbl (virtual)".into();
+    m
+}
+
+/// Starts a long diagonal move and lets it run for `s` seconds with its wait in progress.
+fn long_move_running(b: &mut Bench, s: f64) {
+    assert!(matches!(
+        b.run(Command::Move {
+            x_mm: 190.0,
+            y_mm: 190.0
+        }),
+        Ok(Completion::Queued)
+    ));
+    b.c.start(Command::WaitIdle, b.at()).unwrap();
+    let until = b.now + s;
+    assert!(b.run_until(until).is_none(), "the move is still running");
+}
+
+#[test]
+fn ctrl_c_feed_hold_stops_a_grbl_like_stage_without_a_reset() {
+    let mut m = grbl_machine();
+    m.stage.reset.clear();
+    m.stage.feed_hold = "!".into();
+    let mut b = Bench::new(&m);
+    assert!(matches!(
+        b.run(Command::Connect),
+        Ok(Completion::Connected { .. })
+    ));
+    ctrl_c_during_a_long_move_halts_the_stage(&mut b, b"!");
+}
+
+/// Ctrl-C one second into a long move: `hold` is the first thing sent, the wait fails as
+/// stopped, and the stage is still where it was 30 s later, well short of its target.
+fn ctrl_c_during_a_long_move_halts_the_stage(b: &mut Bench, hold: &[u8]) {
+    long_move_running(b, 1.0);
+    let at_stop = b.stage_at();
+    b.c.stop(b.at());
+    let first = b.c.poll_transmit().unwrap();
+    assert_eq!(first, hold, "the feed hold goes first");
+    b.v.feed(&first, b.now);
+    assert!(matches!(
+        b.c.poll_result(),
+        Some(Err(ControllerError::Stopped { .. }))
+    ));
+    b.exchange();
+    b.now += 30.0;
+    let after = b.stage_at();
+    assert!(
+        after == at_stop && after[0] < 100.0,
+        "stopped at {at_stop:?}, now at {after:?}"
+    );
+}
+
+#[test]
+fn ctrl_c_quick_stop_line_stops_a_marlin_like_stage() {
+    let mut m = fixture("m400.toml");
+    m.stage.stop.clear();
+    m.stage.feed_hold = "M410".into();
+    m.simulation.controller.banner = "virtual printer".into();
+    let mut b = Bench::new(&m);
+    assert!(matches!(
+        b.run(Command::Connect),
+        Ok(Completion::Connected { .. })
+    ));
+    ctrl_c_during_a_long_move_halts_the_stage(&mut b, b"M410\n");
+}
+
+#[test]
+fn feed_hold_goes_out_first_then_the_reset_and_unsent_lines_never() {
+    let mut m = fixture("dwell.toml");
+    m.stage.feed_hold = "!".into();
+    let mut h = Harness::new(&m);
+    h.c.start(
+        Command::Move {
+            x_mm: 50.0,
+            y_mm: 50.0,
+        },
+        h.now,
+    )
+    .unwrap();
+    // The move line has not gone out yet when Ctrl-C comes: it never does.
+    h.c.stop(h.now);
+    assert_eq!(h.sent(), vec!["<raw !>", "<raw \\u{18}>"]);
+}
+
+#[test]
+fn stale_replies_of_an_interrupted_session_are_not_taken_for_new_ones() {
+    // Session 1 is interrupted during a long move with no reset and no feed hold configured
+    // (nothing is sent on Ctrl-C); its `G4 P0` is still queued on the board.
+    let mut m = grbl_machine();
+    m.stage.reset.clear();
+    let mut b = Bench::new(&m);
+    assert!(matches!(
+        b.run(Command::Connect),
+        Ok(Completion::Connected { .. })
+    ));
+    long_move_running(&mut b, 1.0);
+    // Session 2 opens the port: the board does not restart and keeps replying to what the
+    // first session queued.
+    let now = b.now;
+    let mut b = Bench::reconnect(b.v, &m, now);
+    match b.run(Command::Connect) {
+        Ok(Completion::Connected { banner: None }) => {}
+        other => panic!("{other:?}"),
+    }
+    assert!(b.noted("left over from an earlier session"), "{:?}", b.log);
+    assert_eq!(
+        b.stage_at(),
+        [190.0, 190.0],
+        "connected only once the old queue had run out"
+    );
+    // The reference move: its wait ends when the stage is there, not at a stale `ok`.
+    assert!(matches!(
+        b.run(Command::Move {
+            x_mm: 20.0,
+            y_mm: 30.0
+        }),
+        Ok(Completion::Queued)
+    ));
+    assert!(matches!(
+        b.run(Command::WaitIdle),
+        Ok(Completion::Idle {
+            position: Some([20.0, 30.0])
+        })
+    ));
+    assert_eq!(b.stage_at(), [20.0, 30.0]);
+    // Nothing stray afterwards: every reply was matched to its line.
+    b.log.clear();
+    b.run_until(b.now + 5.0);
+    assert!(!b.noted("stray"), "{:?}", b.log);
+}
+
+#[test]
+fn a_line_status_query_syncs_on_its_report() {
+    // Marlin-like, `M114` configured: replies before the report are stale.
+    let mut m = fixture("m400.toml");
+    m.stage.status_query = Some("M114".into());
+    m.simulation.controller.banner = "virtual printer".into();
+    let mut b = Bench::new(&m);
+    assert!(matches!(
+        b.run(Command::Connect),
+        Ok(Completion::Connected { .. })
+    ));
+    long_move_running(&mut b, 1.0);
+    let now = b.now;
+    let mut b = Bench::reconnect(b.v, &m, now);
+    assert!(matches!(
+        b.run(Command::Connect),
+        Ok(Completion::Connected { banner: None })
+    ));
+    assert!(b.noted("left over from an earlier session"), "{:?}", b.log);
+    assert!(matches!(
+        b.run(Command::Move {
+            x_mm: 20.0,
+            y_mm: 30.0
+        }),
+        Ok(Completion::Queued)
+    ));
+    assert!(matches!(
+        b.run(Command::WaitIdle),
+        Ok(Completion::Idle { .. })
+    ));
+    assert_eq!(b.stage_at(), [20.0, 30.0]);
+}
+
+// ----- `stage where`: the status query whenever one is configured -----
+
+async fn duplex_stage(
+    m: &MachineFile,
+) -> isopach::bench::stage::GcodeStage<tokio::io::DuplexStream> {
+    let host = isopach::bench::sim::server::spawn_duplex(
+        VirtualConfig::from_machine(m),
+        isopach::bench::sim::clock::SimClock::new(1.0),
+    );
+    isopach::bench::stage::GcodeStage::connect(host, &m.stage, "virtual")
+        .await
+        .unwrap()
+}
+
+#[tokio::test(start_paused = true)]
+async fn where_asks_the_controller_under_dwell_when_a_status_query_is_configured() {
+    use isopach::bench::stage::Stage;
+    let mut m = grbl_machine();
+    // Without a status query (dwell, none named) nothing is asked: unknown before a move.
+    let mut s = duplex_stage(&m).await;
+    assert_eq!(s.position().await.unwrap(), None);
+    m.stage.status_query = Some("?".into());
+    let mut s = duplex_stage(&m).await;
+    assert_eq!(s.position().await.unwrap(), Some([0.0, 0.0]));
+    assert!(s.transcript().iter().any(|l| l.contains("< <Idle|")));
+}
+
+#[tokio::test(start_paused = true)]
+async fn where_falls_back_cleanly_when_the_status_query_is_not_answered() {
+    use isopach::bench::stage::Stage;
+    // A printer board that does not know `M115` as a report: an echo and `ok`, no position.
+    let mut m = fixture("m400.toml");
+    m.simulation.controller.banner = "virtual printer".into();
+    m.stage.status_query = Some("M115".into());
+    let mut s = duplex_stage(&m).await;
+    assert_eq!(s.position().await.unwrap(), None, "unknown, not an error");
+    s.move_to(50.0, 60.0).await.unwrap();
+    assert_eq!(s.wait_idle().await.unwrap(), Some([50.0, 60.0]));
+    let before = s.transcript().len();
+    assert_eq!(s.position().await.unwrap(), Some([50.0, 60.0]));
+    assert_eq!(
+        s.transcript().len(),
+        before,
+        "not asked again once it went unanswered"
+    );
+    // And a board that answers `M114` gives its report.
+    m.stage.status_query = Some("M114".into());
+    let mut s = duplex_stage(&m).await;
+    assert_eq!(s.position().await.unwrap(), Some([0.0, 0.0]));
+}
+
+// ----- alarm recovery -----
+
+/// A grbl-like board that raises a limit alarm half way through the first move line and
+/// then takes nothing, its reset included, for half a second.
+fn alarming_machine() -> MachineFile {
+    let mut m = grbl_machine();
+    m.simulation.controller.post_alarm_delay_ms = 500.0;
+    m.simulation.faults.push(machine::FaultSpec {
+        kind: machine::FaultKind::Alarm,
+        at_line: 4, // $X, G21, G90, then the move
+        code: 1,
+    });
+    m
+}
+
+/// Connects and runs into the alarm; returns the bench right after the alarm was reported.
+fn alarmed(m: &MachineFile) -> Bench {
+    let mut b = Bench::new(m);
+    assert!(matches!(
+        b.run(Command::Connect),
+        Ok(Completion::Connected { .. })
+    ));
+    b.run(Command::Move {
+        x_mm: 150.0,
+        y_mm: 150.0,
+    })
+    .unwrap();
+    match b.run(Command::WaitIdle) {
+        Err(ControllerError::Alarm { reply, .. }) => assert_eq!(reply, "ALARM:1"),
+        other => panic!("{other:?}"),
+    }
+    b
+}
+
+/// A reset on the user's say, then a move that arrives.
+fn reset_then_move_on(b: &mut Bench) {
+    assert!(matches!(
+        b.run(Command::Reset),
+        Ok(Completion::Connected { .. })
+    ));
+    b.run(Command::Move {
+        x_mm: 20.0,
+        y_mm: 30.0,
+    })
+    .unwrap();
+    assert!(b.run(Command::WaitIdle).is_ok());
+    assert_eq!(b.stage_at(), [20.0, 30.0]);
+}
+
+#[test]
+fn a_reset_dropped_in_the_post_alarm_delay_is_sent_again() {
+    let m = alarming_machine();
+    let mut b = alarmed(&m);
+    // Ctrl-C right after the alarm: the reset goes out within milliseconds and is dropped.
+    b.c.stop(b.at());
+    match b.run_until(b.now + 30.0) {
+        Some(Ok(Completion::Connected { banner: Some(_) })) => {}
+        other => panic!("{other:?} {:?}", b.log),
+    }
+    assert!(b.noted("sending it again"), "{:?}", b.log);
+    // On the user's say: reset, unlock and go on.
+    reset_then_move_on(&mut b);
+}
+
+#[test]
+fn a_locked_controller_is_said_to_be_in_alarm_not_silent() {
+    let m = alarming_machine();
+    let b = alarmed(&m);
+    // The next session (no reset sent on Ctrl-C, the board still in alarm after its delay).
+    let now = b.now + 5.0;
+    let mut b = Bench::reconnect(b.v, &m, now);
+    let e = b.run(Command::Connect).unwrap_err();
+    let msg = e.to_string();
+    assert!(
+        matches!(e, ControllerError::Locked { .. }),
+        "{e:?} {:?}",
+        b.log
+    );
+    assert!(
+        msg.starts_with("the controller is in alarm: it answered `$X` with `error:9`")
+            && msg.contains("(fix: ")
+            && msg.contains("isopach stage home"),
+        "{msg}"
+    );
+    // Latched: nothing is sent until the reset, which the board now takes (its delay is
+    // over); then it unlocks and goes on.
+    assert!(b.c.alarm().is_some());
+    assert!(matches!(
+        b.c.start(
+            Command::Move {
+                x_mm: 1.0,
+                y_mm: 1.0
+            },
+            b.at()
+        ),
+        Err(ControllerError::Alarmed { .. })
+    ));
+    reset_then_move_on(&mut b);
+}
+
+// ----- the per-dialect example files of docs/bench.md -----
+
+#[test]
+fn each_dialect_example_file_connects_moves_and_stops_on_ctrl_c() {
+    for (name, hold) in [("grbl.toml", &b"!"[..]), ("marlin.toml", &b"M410\n"[..])] {
+        let m = fixture(name);
+        let mut b = Bench::new(&m);
+        assert!(
+            matches!(
+                b.run(Command::Connect),
+                Ok(Completion::Connected { banner: Some(_) })
+            ),
+            "{name}: {:?}",
+            b.log
+        );
+        b.run(Command::Move {
+            x_mm: 50.0,
+            y_mm: 60.0,
+        })
+        .unwrap();
+        assert!(b.run(Command::WaitIdle).is_ok(), "{name}");
+        assert_eq!(b.stage_at(), [50.0, 60.0], "{name}");
+        b.c.start(Command::Query, b.at()).unwrap();
+        match b.run_until(b.now + 20.0) {
+            Some(Ok(Completion::Status(s))) => {
+                assert_eq!(b.c.work_position(&s), Some([50.0, 60.0]), "{name}")
+            }
+            other => panic!("{name}: {other:?}"),
+        }
+        ctrl_c_during_a_long_move_halts_the_stage(&mut b, hold);
+    }
 }

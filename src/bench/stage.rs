@@ -5,9 +5,11 @@
 //! controller on a serial port and the virtual one, so the simulated bench tests it too.
 
 use super::gcode::link::Port;
-use super::gcode::{Command, Completion, Controller, Link, LinkError, LogEntry, ProtocolConfig};
+use super::gcode::{
+    Command, Completion, Controller, ControllerError, Link, LinkError, LogEntry, ProtocolConfig,
+};
 use super::limits::{Approach, LimitViolation, SoftLimits};
-use super::machine::{MotionComplete, StageSpec};
+use super::machine::StageSpec;
 use futures::future::BoxFuture;
 use std::sync::{Arc, Mutex};
 
@@ -81,7 +83,11 @@ pub struct GcodeStage<S> {
     link: Link<S>,
     limits: SoftLimits,
     approach: Approach,
-    strategy: MotionComplete,
+    /// Whether a status query is configured (and so the controller is asked where it is).
+    asks_status: bool,
+    /// Cleared once the controller has ignored or refused a status query: later position
+    /// requests fall back to the last confirmed position without waiting again.
+    answers_status: bool,
     has_home: bool,
     position: PositionHandle,
 }
@@ -95,12 +101,25 @@ impl<S: Port> GcodeStage<S> {
     ) -> Result<GcodeStage<S>, StageError> {
         let ctrl = Controller::new(ProtocolConfig::from_spec(spec));
         let mut link = Link::new(stream, ctrl, port);
-        link.run(Command::Connect).await?;
+        // A controller that stays locked although its unlock line went out is in an alarm
+        // only a reset clears: with a reset configured it is still usable — the alarm stays
+        // latched, every motion is refused with what to do, and homing resets it first.
+        // Without an unlock line, being locked is a machine-file problem: the error says so.
+        let recoverable = !spec.unlock.is_empty() && !spec.reset.is_empty();
+        match link.run(Command::Connect).await {
+            Err(LinkError::Controller(e @ ControllerError::Locked { .. })) if recoverable => {
+                tracing::warn!(port, "{e}");
+            }
+            r => {
+                r?;
+            }
+        }
         Ok(GcodeStage {
             link,
             limits: SoftLimits::from_spec(spec),
             approach: Approach::from_spec(spec),
-            strategy: spec.motion_complete,
+            asks_status: spec.status_query_in_use().is_some(),
+            answers_status: true,
             has_home: !spec.home.is_empty(),
             position: PositionHandle::default(),
         })
@@ -109,6 +128,28 @@ impl<S: Port> GcodeStage<S> {
     /// The G-code link (for its transcript and state).
     pub fn link(&self) -> &Link<S> {
         &self.link
+    }
+
+    /// The position the controller reports, when a status query is configured and answered.
+    /// A query that goes unanswered or is refused is not an error (some firmware has no
+    /// status report): the caller falls back to the last confirmed position, and the query
+    /// is not tried again on this connection.
+    async fn reported_position(&mut self) -> Result<Option<[f64; 2]>, StageError> {
+        if !(self.asks_status && self.answers_status) {
+            return Ok(None);
+        }
+        match self.link.run(Command::Query).await {
+            Ok(Completion::Status(s)) => Ok(self.link.controller().work_position(&s)),
+            Ok(_) => Ok(None),
+            Err(LinkError::Controller(
+                e @ (ControllerError::NoStatus { .. } | ControllerError::Rejected { .. }),
+            )) => {
+                tracing::info!(port = %self.link.port(), "no position from the status query ({e}); using the last confirmed one");
+                self.answers_status = false;
+                Ok(None)
+            }
+            Err(e) => Err(e.into()),
+        }
     }
 
     fn check(&self, target: [f64; 2]) -> Result<Vec<[f64; 2]>, StageError> {
@@ -166,10 +207,8 @@ impl<S: Port> Stage for GcodeStage<S> {
                 self.link.run(Command::Reset).await?;
             }
             self.link.run(Command::Home).await?;
-            if self.strategy == MotionComplete::Poll {
-                if let Completion::Status(s) = self.link.run(Command::Query).await? {
-                    self.position.set(self.link.controller().work_position(&s));
-                }
+            if let Some(p) = self.reported_position().await? {
+                self.position.set(Some(p));
             }
             Ok(())
         })
@@ -177,12 +216,10 @@ impl<S: Port> Stage for GcodeStage<S> {
 
     fn position(&mut self) -> BoxFuture<'_, Result<Option<[f64; 2]>, StageError>> {
         Box::pin(async move {
-            if self.strategy == MotionComplete::Poll {
-                if let Completion::Status(s) = self.link.run(Command::Query).await? {
-                    return Ok(self.link.controller().work_position(&s));
-                }
+            match self.reported_position().await? {
+                Some(p) => Ok(Some(p)),
+                None => Ok(self.link.controller().position()),
             }
-            Ok(self.link.controller().position())
         })
     }
 

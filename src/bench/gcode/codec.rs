@@ -47,6 +47,7 @@ pub struct Vocabulary {
     busy: Vec<String>,
     idle_states: Vec<String>,
     alarm_states: Vec<String>,
+    locked: Vec<String>,
 }
 
 fn lower(v: &[String]) -> Vec<String> {
@@ -66,7 +67,14 @@ impl Vocabulary {
             busy: lower(&r.busy),
             idle_states: lower(&r.idle_states),
             alarm_states: lower(&r.alarm_states),
+            locked: lower(&r.locked),
         }
+    }
+
+    /// Whether an error reply says the controller is locked in an alarm.
+    pub fn is_locked(&self, reply: &str) -> bool {
+        let r = reply.trim().to_lowercase();
+        self.locked.iter().any(|w| r.starts_with(w.as_str()))
     }
 
     /// Whether a status state word means "not moving".

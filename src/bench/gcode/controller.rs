@@ -43,6 +43,8 @@ pub struct ProtocolConfig {
     pub status_query: String,
     pub poll_interval: Duration,
     pub tolerance_mm: f64,
+    /// Sent first on a stop: a real-time byte (one character) or a line; empty = none.
+    pub feed_hold: String,
     pub reset: Vec<u8>,
     pub stop: Vec<String>,
     pub max_line_len: usize,
@@ -79,9 +81,13 @@ impl ProtocolConfig {
             home: s.home.clone(),
             strategy: s.motion_complete,
             wait_line,
-            status_query: s.status_query.clone(),
+            status_query: s
+                .status_query_in_use()
+                .unwrap_or(crate::bench::machine::DEFAULT_STATUS_QUERY)
+                .to_string(),
             poll_interval: secs(s.poll_interval_ms / 1000.0),
             tolerance_mm: s.position_tolerance_mm,
+            feed_hold: s.feed_hold.trim().to_string(),
             reset: s.reset.as_bytes().to_vec(),
             stop: s.stop.clone(),
             max_line_len: s.max_line_len,
@@ -96,7 +102,9 @@ impl ProtocolConfig {
 /// An operation on the controller.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub enum Command {
-    /// Absorb start-up lines, then send the unlock and init lines.
+    /// Absorb start-up lines, send the unlock lines, then (when no banner showed that the
+    /// controller restarted) a sync exchange that discards replies left over from an earlier
+    /// session, then the init lines.
     Connect,
     /// Send one move line; done when it is acknowledged (queued).
     Move { x_mm: f64, y_mm: f64 },
@@ -140,6 +148,12 @@ pub enum ControllerError {
     },
     #[error("controller alarm `{reply}` while {during}: the run is stopped and no motion will be sent until the alarm is cleared (check the stage, then reset and home it)")]
     Alarm { reply: String, during: String },
+    #[error("the controller is in alarm: it answered `{line}` with `{reply}` (fix: {fix})")]
+    Locked {
+        line: String,
+        reply: String,
+        fix: String,
+    },
     #[error("the controller is in alarm (`{reply}`): nothing is sent until it is reset on the user's say (`isopach stage home` resets and homes)")]
     Alarmed { reply: String },
     #[error("motion to ({x_mm:.3}, {y_mm:.3}) mm did not complete within {waited_s:.1} s (it should take {expected_s:.1} s){last}: the stage stalled, is held, or the controller dropped the reply")]
@@ -162,6 +176,8 @@ pub enum ControllerError {
         len: usize,
         max: usize,
     },
+    #[error("replies left over from an earlier session kept arriving after {rounds} sync exchanges (`{line}`): the controller is still working through a queue (reset it with stage.reset, or wait for it to finish and connect again)")]
+    NoSync { line: String, rounds: u32 },
     #[error("stopped on request while {during}")]
     Stopped { during: String },
     #[error("a command is already in progress ({0})")]
@@ -185,7 +201,31 @@ enum Await {
     Ack { timeout: Duration },
     /// An acknowledgement that arrives when motion ends.
     Motion { expected_s: f64, timeout: Duration },
+    /// The sync exchange after connecting to a controller that did not restart: replies
+    /// queued by an earlier session may still arrive, so the exchange counts only once it
+    /// is recognised (see [`Sync`]).
+    Sync { timeout: Duration, sync: Sync },
 }
+
+/// How the sync exchange is recognised.
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Sync {
+    /// The line is a status query: replies before its report are stale; the `ok` after the
+    /// report ends the exchange.
+    Report { seen: bool },
+    /// The line is the wait line: every `ok` (and error) restarts a quiet period; the
+    /// exchange ends when exactly one `ok` came and the line then stayed quiet, and is tried
+    /// again (up to [`SYNC_ROUNDS`] times) when more came.
+    Quiet { replies: u32, round: u32 },
+}
+
+/// How long the line must stay quiet after the sync line's `ok` (common practice: a reply
+/// queued behind it would follow within milliseconds).
+pub const SYNC_QUIET: Duration = Duration::from_millis(300);
+/// How many more times the reset is sent when no banner follows it.
+const RESET_RETRIES: u8 = 2;
+/// How many times the sync line is sent before connecting fails.
+const SYNC_ROUNDS: u32 = 4;
 
 /// How many reply timeouts keep-alives can stretch one reply wait to.
 const BUSY_EXTENSIONS: u32 = 4;
@@ -217,6 +257,9 @@ enum Phase {
         last_line: Option<Duration>,
         /// Send the unlock and init lines afterwards (not after a stop).
         then_init: bool,
+        /// Times the reset is sent again when no banner follows it (a controller drops a
+        /// reset that arrives during its post-alarm delay).
+        resets_left: u8,
     },
     Lines {
         queue: VecDeque<(String, Await)>,
@@ -361,7 +404,7 @@ impl Controller {
         }
         self.doing = describe(cmd);
         match cmd {
-            Command::Connect => self.enter_startup(now),
+            Command::Connect => self.enter_startup(now, false),
             Command::Reset => {
                 if self.cfg.reset.is_empty() {
                     self.note("no stage.reset bytes configured; reconnecting without a reset");
@@ -372,7 +415,7 @@ impl Controller {
                 self.position = None;
                 self.target = None;
                 self.queued_s = 0.0;
-                self.enter_startup(now);
+                self.enter_startup(now, !self.cfg.reset.is_empty());
             }
             Command::Move { x_mm, y_mm } => {
                 let line = codec::move_line(x_mm, y_mm, self.cfg.feed_mm_min);
@@ -429,8 +472,9 @@ impl Controller {
         Ok(())
     }
 
-    /// Stops at once: sends the reset bytes (or the stop lines), fails the command in progress
-    /// with [`ControllerError::Stopped`] and forgets the position. After reset bytes the
+    /// Stops at once: drops whatever was still waiting to go out, sends the feed hold, then
+    /// the reset bytes (or the stop lines), fails the command in progress with
+    /// [`ControllerError::Stopped`] and forgets the position. After reset bytes the
     /// controller restarts: a start-up phase then absorbs its banner (no lines are sent), and
     /// finishes with [`Completion::Connected`].
     pub fn stop(&mut self, now: Duration) {
@@ -444,6 +488,15 @@ impl Controller {
         self.position = None;
         self.target = None;
         self.queued_s = 0.0;
+        // Lines of the abandoned command not yet written are never sent: no new motion
+        // after a stop.
+        for b in std::mem::take(&mut self.outbox) {
+            self.note(&format!(
+                "not sent after the stop: {}",
+                String::from_utf8_lossy(&b).trim_end().escape_debug()
+            ));
+        }
+        self.send_feed_hold();
         if self.cfg.reset.is_empty() {
             for l in self.cfg.stop.clone() {
                 self.send_line(&l);
@@ -451,7 +504,7 @@ impl Controller {
         } else {
             self.send_raw(self.cfg.reset.clone());
             self.doing = "waiting for the controller to restart after a stop".into();
-            self.enter_startup(now);
+            self.enter_startup(now, true);
             if let Phase::Startup { then_init, .. } = &mut self.phase {
                 *then_init = false;
             }
@@ -488,6 +541,7 @@ impl Controller {
                 deadline,
                 mut banner,
                 then_init,
+                resets_left,
                 ..
             } => {
                 match reply {
@@ -504,6 +558,7 @@ impl Controller {
                     banner,
                     last_line: Some(now),
                     then_init,
+                    resets_left,
                 }
             }
             Phase::Lines {
@@ -524,6 +579,7 @@ impl Controller {
                 banner,
                 last_line,
                 then_init,
+                resets_left,
             } => {
                 let quiet = self.banner_seen(&banner)
                     && last_line.is_some_and(|t| now >= t + STARTUP_QUIET);
@@ -533,6 +589,19 @@ impl Controller {
                         banner,
                         last_line,
                         then_init,
+                        resets_left,
+                    }
+                } else if banner.is_none() && !self.cfg.banner.is_empty() && resets_left > 0 {
+                    // No restart after the reset: a controller drops a reset that arrives
+                    // during its post-alarm delay, which has passed by now.
+                    self.note("no start-up banner after the reset (a controller drops a reset sent during its post-alarm delay); sending it again");
+                    self.send_raw(self.cfg.reset.clone());
+                    Phase::Startup {
+                        deadline: now + self.cfg.startup_wait,
+                        banner,
+                        last_line,
+                        then_init,
+                        resets_left: resets_left - 1,
                     }
                 } else if then_init {
                     self.after_startup(banner, now)
@@ -546,10 +615,19 @@ impl Controller {
                 queue,
                 in_flight: Some(f),
                 finish,
+            } if now >= f.deadline
+                && matches!(f.wait, Await::Sync { sync: Sync::Quiet { replies, .. }, .. } if replies > 0) =>
+            {
+                self.sync_quiet(queue, f, finish, now)
+            }
+            Phase::Lines {
+                queue,
+                in_flight: Some(f),
+                finish,
             } if now >= f.deadline => {
                 let waited_s = (now - f.sent_at).as_secs_f64();
                 let err = match f.wait {
-                    Await::Ack { .. } => ControllerError::NoReply {
+                    Await::Ack { .. } | Await::Sync { .. } => ControllerError::NoReply {
                         line: f.line,
                         waited_s,
                     },
@@ -575,13 +653,16 @@ impl Controller {
 
     // ----- phases -----
 
-    fn enter_startup(&mut self, now: Duration) {
+    /// Absorbs start-up lines; `after_reset` when the reset bytes have just been sent (they
+    /// are sent again, up to [`RESET_RETRIES`] times, when no banner follows).
+    fn enter_startup(&mut self, now: Duration, after_reset: bool) {
         self.startup_alarm = None;
         self.phase = Phase::Startup {
             deadline: now + self.cfg.startup_wait,
             banner: None,
             last_line: None,
             then_init: true,
+            resets_left: if after_reset { RESET_RETRIES } else { 0 },
         };
     }
 
@@ -603,15 +684,16 @@ impl Controller {
                 return std::mem::replace(&mut self.phase, Phase::Ready);
             }
         }
+        let restarted = banner.is_some();
         self.banner_found = banner;
         let timeout = self.cfg.line_timeout;
-        let lines = self
-            .cfg
-            .unlock
-            .iter()
-            .chain(&self.cfg.init)
-            .map(|l| (l.clone(), Await::Ack { timeout }))
-            .collect();
+        let ack = |l: &String| (l.clone(), Await::Ack { timeout });
+        // Unlock first: a locked controller refuses the sync and init lines.
+        let mut lines: Vec<_> = self.cfg.unlock.iter().map(ack).collect();
+        if !restarted {
+            lines.push(self.sync_line());
+        }
+        lines.extend(self.cfg.init.iter().map(ack));
         self.enter_lines(lines, Finish::Connected, now);
         std::mem::replace(&mut self.phase, Phase::Ready)
     }
@@ -641,7 +723,9 @@ impl Controller {
         match queue.pop_front() {
             Some((line, wait)) => {
                 let t = match &wait {
-                    Await::Ack { timeout } | Await::Motion { timeout, .. } => *timeout,
+                    Await::Ack { timeout }
+                    | Await::Motion { timeout, .. }
+                    | Await::Sync { timeout, .. } => *timeout,
                 };
                 *in_flight = Some(InFlight {
                     line: line.clone(),
@@ -671,6 +755,22 @@ impl Controller {
         }
     }
 
+    /// The line in flight is done: the next one goes out, or the command finishes.
+    fn line_done(
+        &mut self,
+        queue: VecDeque<(String, Await)>,
+        finish: Finish,
+        now: Duration,
+    ) -> Phase {
+        self.phase = Phase::Lines {
+            queue,
+            in_flight: None,
+            finish,
+        };
+        self.advance_lines(now);
+        std::mem::replace(&mut self.phase, Phase::Ready)
+    }
+
     fn lines_reply(
         &mut self,
         queue: VecDeque<(String, Await)>,
@@ -687,15 +787,41 @@ impl Controller {
                 finish,
             };
         };
+        if let Await::Sync { timeout, sync } = f.wait {
+            match self.sync_reply(sync, &reply, now) {
+                Some(next) => {
+                    if let Sync::Quiet { replies, .. } = next {
+                        // Each reply restarts the quiet period; the first also ends the
+                        // wait for motion.
+                        if replies > 0 {
+                            f.deadline = now + SYNC_QUIET;
+                        }
+                    }
+                    f.wait = Await::Sync {
+                        timeout,
+                        sync: next,
+                    };
+                    return Phase::Lines {
+                        queue,
+                        in_flight: Some(f),
+                        finish,
+                    };
+                }
+                None if matches!(reply, Reply::Ok) => return self.line_done(queue, finish, now),
+                None => {}
+            }
+        }
         match reply {
-            Reply::Ok => {
-                self.phase = Phase::Lines {
-                    queue,
-                    in_flight: None,
-                    finish,
-                };
-                self.advance_lines(now);
-                return std::mem::replace(&mut self.phase, Phase::Ready);
+            Reply::Ok => return self.line_done(queue, finish, now),
+            Reply::Error { text, .. } if self.cfg.vocab.is_locked(&text) => {
+                // Latched like an alarm: nothing more is sent until a reset on the user's say.
+                self.alarm = Some(text.clone());
+                let fix = self.unlock_fix();
+                self.fail(ControllerError::Locked {
+                    line: f.line,
+                    reply: text,
+                    fix,
+                });
             }
             Reply::Error { code, text } => {
                 let hint = if finish == Finish::Connected {
@@ -739,6 +865,74 @@ impl Controller {
                 };
             }
         }
+        std::mem::replace(&mut self.phase, Phase::Ready)
+    }
+
+    /// The sync exchange's state after `reply`; `None` when the reply is to be handled as a
+    /// plain reply (the exchange's own `ok`, or an alarm, garbage or a rejection of the
+    /// status query itself).
+    fn sync_reply(&mut self, sync: Sync, reply: &Reply, _now: Duration) -> Option<Sync> {
+        match (sync, reply) {
+            (Sync::Report { seen: false }, Reply::Status(_)) => Some(Sync::Report { seen: true }),
+            (Sync::Report { seen: false }, Reply::Ok | Reply::Error { .. }) => {
+                self.note("discarded a reply left over from an earlier session");
+                Some(sync)
+            }
+            (Sync::Report { seen: true }, Reply::Ok) => None,
+            (Sync::Quiet { replies, round }, Reply::Ok | Reply::Error { .. }) => {
+                Some(Sync::Quiet {
+                    replies: replies + 1,
+                    round,
+                })
+            }
+            (Sync::Report { .. }, Reply::Alarm { .. } | Reply::Garbled(_))
+            | (Sync::Quiet { .. }, Reply::Alarm { .. } | Reply::Garbled(_)) => None,
+            _ => Some(sync),
+        }
+    }
+
+    /// The quiet period after the sync line's replies has passed: one reply means the
+    /// controller and isopach agree; more mean some were stale, so the exchange is repeated.
+    fn sync_quiet(
+        &mut self,
+        queue: VecDeque<(String, Await)>,
+        f: InFlight,
+        finish: Finish,
+        now: Duration,
+    ) -> Phase {
+        let Await::Sync {
+            timeout,
+            sync: Sync::Quiet { replies, round },
+        } = f.wait
+        else {
+            return Phase::Ready;
+        };
+        if replies == 1 {
+            return self.line_done(queue, finish, now);
+        }
+        self.note(&format!(
+            "discarded {} replies left over from an earlier session; syncing again",
+            replies - 1
+        ));
+        if round >= SYNC_ROUNDS {
+            self.fail(ControllerError::NoSync {
+                line: f.line,
+                rounds: round,
+            });
+            return std::mem::replace(&mut self.phase, Phase::Ready);
+        }
+        let mut queue = queue;
+        queue.push_front((
+            f.line,
+            Await::Sync {
+                timeout,
+                sync: Sync::Quiet {
+                    replies: 0,
+                    round: round + 1,
+                },
+            },
+        ));
+        self.enter_lines(queue.into(), finish, now);
         std::mem::replace(&mut self.phase, Phase::Ready)
     }
 
@@ -886,6 +1080,43 @@ impl Controller {
 
     // ----- helpers -----
 
+    /// How to get a locked controller going again, from what the machine file offers.
+    fn unlock_fix(&self) -> String {
+        let way = if self.cfg.unlock.is_empty() {
+            "list its unlock line (`$X` on grbl-style firmware, `M999` on Marlin-style) in stage.unlock"
+        } else if self.cfg.reset.is_empty() {
+            "reset or power-cycle the controller (no stage.reset is configured), then connect again"
+        } else {
+            "`isopach stage home` resets, unlocks and homes it"
+        };
+        format!("check the stage and what tripped the alarm, then {way}")
+    }
+
+    /// The sync exchange's line: a line status query (its report is recognisable), else the
+    /// wait line (whose `ok` also waits out any motion an earlier session queued).
+    fn sync_line(&self) -> (String, Await) {
+        let q = &self.cfg.status_query;
+        let (line, sync) = if !q.is_empty() && !codec::is_realtime(q) {
+            (q.clone(), Sync::Report { seen: false })
+        } else {
+            (
+                self.cfg.wait_line.clone(),
+                Sync::Quiet {
+                    replies: 0,
+                    round: 1,
+                },
+            )
+        };
+        let longest_s = Trapezoid::new(
+            self.cfg.max_move_mm,
+            self.cfg.feed_mm_min,
+            self.cfg.accel_mm_s2,
+        )
+        .duration_s();
+        let timeout = self.motion_allowance(longest_s);
+        (line, Await::Sync { timeout, sync })
+    }
+
     /// How long motion of `expected_s` may take before it counts as stalled.
     fn motion_allowance(&self, expected_s: f64) -> Duration {
         secs(expected_s * 1.5) + self.cfg.line_timeout
@@ -968,6 +1199,22 @@ impl Controller {
         let mut b = line.as_bytes().to_vec();
         b.push(b'\n');
         self.outbox.push_back(b);
+    }
+
+    /// The feed hold, put first in the outbox: the stage must stop before anything else is
+    /// said to it.
+    fn send_feed_hold(&mut self) {
+        let hold = self.cfg.feed_hold.clone();
+        if hold.is_empty() {
+            return;
+        }
+        let mut bytes = hold.clone().into_bytes();
+        if !codec::is_realtime(&hold) {
+            bytes.push(b'\n');
+        }
+        self.log
+            .push_back(LogEntry::Sent(hold.escape_debug().to_string()));
+        self.outbox.push_front(bytes);
     }
 
     fn send_raw(&mut self, bytes: Vec<u8>) {

@@ -64,7 +64,7 @@ mod tests {
 
     #[test]
     fn problems_carry_their_line() {
-        let text = "name = \"b\"\n[stage]\nport = \"/dev/ttyACM0\"\ntravel_x_mm = [200, 0]\ntravel_y_mm = [0, 200]\nbacklash_mm = -1\n";
+        let text = "name = \"b\"\n[stage]\nport = \"/dev/ttyACM0\"\ntravel_x_mm = [200, 0]\ntravel_y_mm = [0, 200]\nbacklash_mm = -1\nreset = \"\\u0018\"\n";
         let Err(MachineError::Invalid(p)) = parse(text, Path::new("m.toml")) else {
             panic!("should fail")
         };

@@ -75,16 +75,23 @@ pub struct StageSpec {
     /// The line that waits for motion to end; default `G4 P0` (dwell) or `M400` (m400).
     #[serde(default)]
     pub wait_line: Option<String>,
-    /// Status query for `poll`. One character is sent as a real-time byte without a line end
-    /// (so it draws no `ok`); anything longer is sent as a line and answered by `ok`.
-    #[serde(default = "d_status_query")]
-    pub status_query: String,
+    /// Status query. One character is sent as a real-time byte without a line end (so it
+    /// draws no `ok`); anything longer is sent as a line and answered by `ok`. Absent: `"?"`
+    /// for `poll`, and no status queries otherwise (some firmware takes a stray `?` as the
+    /// start of the next line); present, it is also used by `stage where` and after homing.
+    #[serde(default)]
+    pub status_query: Option<String>,
     /// Pause between status queries while polling, ms.
     #[serde(default = "d_poll_interval")]
     pub poll_interval_ms: f64,
     /// How close a reported position must be to the target to count as arrived, mm.
     #[serde(default = "d_position_tolerance")]
     pub position_tolerance_mm: f64,
+    /// Immediate feed hold / quick stop, sent first on a stop (Ctrl-C): one character is a
+    /// real-time byte (grbl-style `"!"`), anything longer a line (Marlin-style `"M410"`);
+    /// empty = none.
+    #[serde(default)]
+    pub feed_hold: String,
     /// Bytes sent raw (no line end) to stop motion at once and to reset the controller after
     /// an alarm, e.g. `"\u0018"` (Ctrl-X) on grbl-style firmware; empty = none.
     #[serde(default)]
@@ -122,6 +129,23 @@ pub struct StageSpec {
     pub replies: RepliesSpec,
 }
 
+impl StageSpec {
+    /// The status query in use: the one named (if not blank), else `"?"` for `poll`; `None`
+    /// when the controller is not to be asked for status.
+    pub fn status_query_in_use(&self) -> Option<&str> {
+        match self.status_query.as_deref() {
+            Some(q) if !q.trim().is_empty() => Some(q),
+            Some(_) => None,
+            None => (self.motion_complete == MotionComplete::Poll).then_some(DEFAULT_STATUS_QUERY),
+        }
+    }
+
+    /// Whether Ctrl-C can stop motion: a feed hold, stop lines or a reset is configured.
+    pub fn can_stop(&self) -> bool {
+        !(self.feed_hold.trim().is_empty() && self.stop.is_empty() && self.reset.is_empty())
+    }
+}
+
 /// The words replies start with (matched case-insensitively at the start of the line).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -141,6 +165,10 @@ pub struct RepliesSpec {
     /// State words of a status report that mean an alarm.
     #[serde(default = "d_alarm_states")]
     pub alarm_states: Vec<String>,
+    /// Error replies that mean the controller is locked in an alarm (it refuses every line
+    /// until it is reset or unlocked), matched at the start of the line.
+    #[serde(default = "d_locked")]
+    pub locked: Vec<String>,
 }
 
 impl Default for RepliesSpec {
@@ -152,6 +180,7 @@ impl Default for RepliesSpec {
             busy: d_busy(),
             idle_states: d_idle_states(),
             alarm_states: d_alarm_states(),
+            locked: d_locked(),
         }
     }
 }
@@ -292,6 +321,10 @@ pub struct SimControllerSpec {
     /// The reply conventions it follows.
     #[serde(default)]
     pub dialect: Dialect,
+    /// After an alarm a grbl-like board takes nothing, its reset included, for this long;
+    /// afterwards it answers every line as locked until reset, ms.
+    #[serde(default = "d_post_alarm_delay")]
+    pub post_alarm_delay_ms: f64,
 }
 
 /// Reply conventions of the virtual controller.
@@ -317,6 +350,7 @@ impl Default for SimControllerSpec {
             idle_lag_ms: d_idle_lag(),
             planner_moves: d_planner(),
             dialect: Dialect::Grbl,
+            post_alarm_delay_ms: d_post_alarm_delay(),
         }
     }
 }
@@ -464,9 +498,23 @@ fn d_init() -> Vec<String> {
 fn d_home_timeout() -> f64 {
     120.0
 }
-fn d_status_query() -> String {
-    "?".into()
+/// grbl's "locked out during alarm" error number and Marlin-style halt messages (from memory).
+fn d_locked() -> Vec<String> {
+    [
+        "error:9",
+        "Error:Printer halted",
+        "Error:stopped",
+        "Error:halted",
+    ]
+    .map(String::from)
+    .to_vec()
 }
+/// Half a second: of the order real boards take to finish an alarm (from memory).
+fn d_post_alarm_delay() -> f64 {
+    500.0
+}
+/// The status query `poll` uses when the machine file names none.
+pub const DEFAULT_STATUS_QUERY: &str = "?";
 fn d_poll_interval() -> f64 {
     100.0
 }

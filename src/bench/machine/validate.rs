@@ -135,10 +135,24 @@ fn check_stage(s: &StageSpec, r: &mut Problems) {
             r.at("stage.wait_line", why);
         }
     }
-    if !s.status_query.trim().is_empty() {
-        if let Some(why) = words::refusal(&s.status_query, LineRole::Setup) {
+    if let Some(q) = s.status_query_in_use() {
+        if let Some(why) = words::refusal(q, LineRole::Setup) {
             r.at("stage.status_query", why);
         }
+    }
+    if !s.feed_hold.trim().is_empty() {
+        if let Some(why) = bad_line(&s.feed_hold, s.max_line_len, LineRole::Setup) {
+            r.at(
+                "stage.feed_hold",
+                format!("{why} (feed_hold is one real-time byte such as \"!\", or one line such as \"M410\")"),
+            );
+        }
+    }
+    if s.port != SIMULATED_PORT && !s.can_stop() {
+        r.at(
+            "stage.feed_hold",
+            "Ctrl-C could not stop motion: none of stage.feed_hold, stage.stop or stage.reset is set (set feed_hold = \"!\" on grbl-style firmware, \"M410\" on Marlin-style; see docs/bench.md)",
+        );
     }
     // Real-time bytes (Ctrl-X) are what `reset` is for; anything printable is a line.
     let realtime = s
@@ -155,7 +169,7 @@ fn check_stage(s: &StageSpec, r: &mut Problems) {
             );
         }
     }
-    if s.motion_complete == MotionComplete::Poll && s.status_query.trim().is_empty() {
+    if s.motion_complete == MotionComplete::Poll && s.status_query_in_use().is_none() {
         r.at(
             "stage.status_query",
             "motion_complete = \"poll\" needs a status query, e.g. \"?\"",
@@ -219,6 +233,13 @@ fn check_simulation(s: &SimulationSpec, r: &mut Problems) {
     r.range(
         "simulation.controller.idle_lag_ms",
         s.controller.idle_lag_ms,
+        0.0,
+        10_000.0,
+        "ms",
+    );
+    r.range(
+        "simulation.controller.post_alarm_delay_ms",
+        s.controller.post_alarm_delay_ms,
         0.0,
         10_000.0,
         "ms",
@@ -425,5 +446,31 @@ mod tests {
         assert!(bad_line(&"G".repeat(80), 80, LineRole::Setup).is_some());
         assert!(bad_line("G21", 80, LineRole::Setup).is_none());
         assert!(bad_line("", 80, LineRole::Setup).is_some());
+    }
+
+    #[test]
+    fn a_real_stage_ctrl_c_cannot_stop_is_a_located_problem() {
+        let mut m = crate::bench::machine::builtin_simulated();
+        m.stage.reset.clear();
+        assert!(
+            validate(&m).is_empty(),
+            "the simulated stage is stopped by its server"
+        );
+        m.stage.port = "/dev/ttyACM0".into();
+        let problems = validate(&m);
+        let p = problems
+            .iter()
+            .find(|p| format!("{:?}", p.path).contains("feed_hold"))
+            .unwrap_or_else(|| panic!("{problems:?}"));
+        assert!(p.message.contains("Ctrl-C could not stop motion"), "{p:?}");
+        for fix in [("feed_hold", "!"), ("feed_hold", "M410")] {
+            let mut ok = m.clone();
+            ok.stage.feed_hold = fix.1.into();
+            assert!(validate(&ok).is_empty(), "{fix:?}: {:?}", validate(&ok));
+        }
+        m.stage.feed_hold = "G0 X10".into();
+        assert!(validate(&m)
+            .iter()
+            .any(|p| format!("{:?}", p.path).contains("feed_hold")));
     }
 }

@@ -19,6 +19,8 @@ pub struct VirtualConfig {
     pub home_mm: [f64; 2],
     pub faults: Vec<FaultSpec>,
     pub dialect: Dialect,
+    /// After an alarm the board takes nothing, not even a reset, for this long, s.
+    pub post_alarm_delay_s: f64,
 }
 
 impl VirtualConfig {
@@ -38,6 +40,7 @@ impl VirtualConfig {
             home_mm: [s.travel_x_mm[0], s.travel_y_mm[0]],
             faults: m.simulation.faults.clone(),
             dialect: c.dialect,
+            post_alarm_delay_s: c.post_alarm_delay_ms / 1000.0,
         }
     }
 }

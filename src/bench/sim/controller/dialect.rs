@@ -27,8 +27,9 @@ pub trait FirmwareDialect: Debug + Send + Sync {
     fn starts_locked(&self, asked: bool) -> bool;
     /// Acts on a real-time byte (one that is not part of a line); `true` if `byte` was one.
     fn real_time_byte(&self, v: &mut VirtualController, byte: u8) -> bool;
-    /// Whether the board ignores everything in an alarm (until a real-time reset); if not,
-    /// it answers every line with [`Self::stopped_line`] until [`Self::clears_alarm`].
+    /// Whether the board ignores everything, its reset included, for the post-alarm delay;
+    /// otherwise (and afterwards) it answers every line with [`Self::stopped_line`] until
+    /// [`Self::clears_alarm`] or a real-time reset.
     fn deaf_in_alarm(&self) -> bool;
     /// Whether a line clears an alarm.
     fn clears_alarm(&self, line: &str) -> bool;

@@ -1,8 +1,10 @@
-//! The grbl-like dialect (the default): `?` and Ctrl-X (0x18) are real-time bytes, a banner
+//! The grbl-like dialect (the default): `?`, `!` (feed hold), `~` (resume) and Ctrl-X (0x18)
+//! are real-time bytes, a banner
 //! at start-up and after a reset, an optional locked state cleared by `$X` or `$H`, `error:N`
 //! for lines it cannot run, `<State|MPos:x,y,z|FS:f,0>` status reports, `G4 P` in seconds,
-//! an `ALARM:N` soft-limit alarm, and in an alarm it ignores everything, status queries
-//! included, until the reset byte.
+//! an `ALARM:N` soft-limit alarm; in an alarm it ignores everything, the reset byte and
+//! status queries included, for its post-alarm delay, then answers every line `error:9`
+//! (locked) and status queries `<Alarm|…>` until the reset byte.
 //!
 //! The protocol tokens (`ok`, `error:`, `ALARM:`, `<…>`, `[MSG:…]`) are what hosts match;
 //! the message texts and the banner are our own words.
@@ -15,6 +17,10 @@ use crate::bench::machine::FaultKind;
 pub const RESET_BYTE: u8 = 0x18;
 /// The status query byte.
 pub const STATUS_BYTE: u8 = b'?';
+/// The feed hold byte: motion stops, the queue is kept.
+pub const HOLD_BYTE: u8 = b'!';
+/// The resume byte: held motion goes on.
+pub const RESUME_BYTE: u8 = b'~';
 
 /// The grbl-like dialect.
 #[derive(Debug, Clone, Copy)]
@@ -27,10 +33,14 @@ impl FirmwareDialect for GrblLike {
 
     fn real_time_byte(&self, v: &mut VirtualController, byte: u8) -> bool {
         match byte {
+            // Dropped during the post-alarm delay, as real boards do.
+            RESET_BYTE if v.deaf() => {}
             RESET_BYTE => v.reset(),
+            HOLD_BYTE => v.feed_hold(),
+            RESUME_BYTE => v.resume(),
             STATUS_BYTE => {
-                // Deaf in an alarm, and gone after a disconnect.
-                if v.mode() != Mode::Alarm && !v.is_disconnected() {
+                // Deaf during the post-alarm delay, and gone after a disconnect.
+                if !v.deaf() && !v.is_disconnected() {
                     let report = status_report(v);
                     v.line(&report);
                 }
@@ -49,8 +59,8 @@ impl FirmwareDialect for GrblLike {
     }
 
     fn stopped_line(&self) -> &'static str {
-        // Never sent: the board is deaf in an alarm.
-        ""
+        // After the post-alarm delay: locked until the reset byte.
+        "error:9"
     }
 
     fn is_quick_stop(&self, _line: &str) -> bool {
@@ -150,6 +160,7 @@ fn status_report(v: &VirtualController) -> String {
         State::Idle => "Idle",
         State::Run => "Run",
         State::Home => "Home",
+        State::Hold => "Hold:0",
         State::Alarm => "Alarm",
     };
     format!(
@@ -199,6 +210,39 @@ mod tests {
         );
         v.advance(5.0);
         assert_eq!(text(&mut v), vec!["ok"]);
+    }
+
+    #[test]
+    fn feed_hold_halts_motion_and_keeps_the_queue_until_resume() {
+        let mut v = VirtualController::new(cfg(), 0.0);
+        text(&mut v);
+        v.feed(b"G1 X100 Y0 F3000\nG4 P0\n", 0.0);
+        assert_eq!(text(&mut v), vec!["ok"]);
+        v.advance(1.07);
+        v.feed(b"!", 1.07);
+        let held = v.position(1.07);
+        assert!((held[0] - 50.0).abs() < 1e-6, "{held:?}");
+        v.advance(10.0);
+        assert_eq!(v.position(10.0), held, "held: no motion");
+        assert!(text(&mut v).is_empty(), "the dwell waits for the held move");
+        v.feed(b"?", 10.0);
+        assert_eq!(
+            text(&mut v),
+            vec!["<Hold:0|MPos:50.000,0.000,0.000|FS:0,0>"]
+        );
+        // Resume: the remaining 50 mm from rest again, 1.1 s.
+        v.feed(b"~", 10.0);
+        v.advance(11.2);
+        assert_eq!(text(&mut v), vec!["ok"]);
+        assert_eq!(v.position(11.2), [100.0, 0.0]);
+        // A reset drops a held queue.
+        v.feed(b"G1 X0\nG4 P0\n", 11.2);
+        // 0.08 s into the move (after the 0.02 s lag): 0.5 × 500 × 0.08² = 1.6 mm.
+        v.feed(b"!", 11.3);
+        v.feed(&[RESET_BYTE], 11.5);
+        v.advance(20.0);
+        let p = v.position(20.0)[0];
+        assert!((p - 98.4).abs() < 1e-6, "{p}");
     }
 
     #[test]

@@ -107,6 +107,11 @@ pub struct VirtualController {
     /// Virtual time and kind of a fault striking the running move.
     strike: Option<(f64, Armed)>,
     stalled: bool,
+    /// Feed hold (grbl-like `!`): motion stopped where it was, the queue kept until a
+    /// resume (`~`) or a reset.
+    held: bool,
+    /// Virtual time of the last alarm (the post-alarm delay runs from it).
+    alarm_at: f64,
     homing: bool,
     out: VecDeque<Vec<u8>>,
     lines_seen: usize,
@@ -137,6 +142,8 @@ impl VirtualController {
             armed: None,
             strike: None,
             stalled: false,
+            held: false,
+            alarm_at: f64::NEG_INFINITY,
             homing: false,
             out: VecDeque::new(),
             lines_seen: 0,
@@ -176,8 +183,8 @@ impl VirtualController {
             }) => Some(*k),
             _ => None,
         };
-        if self.stalled {
-            // A stalled board still says it is busy.
+        if self.stalled || self.held {
+            // A stalled or held board still says it is busy.
             return keepalive;
         }
         let end = self
@@ -207,7 +214,7 @@ impl VirtualController {
             if d.real_time_byte(self, b) {
                 continue;
             }
-            if (d.deaf_in_alarm() && self.mode == Mode::Alarm) || self.disconnected {
+            if self.deaf() || self.disconnected {
                 continue;
             }
             match b {
@@ -251,7 +258,7 @@ impl VirtualController {
     // ----- motion -----
 
     fn current_pos(&self) -> [f64; 2] {
-        if self.stalled {
+        if self.stalled || self.held {
             return self.pos;
         }
         match self.planner.front() {
@@ -266,7 +273,7 @@ impl VirtualController {
             return;
         }
         self.keep_alive();
-        if self.stalled {
+        if self.stalled || self.held {
             return;
         }
         if let Some((t, kind)) = self.strike {
@@ -279,8 +286,7 @@ impl VirtualController {
                         self.planner.clear();
                         self.blocker = None;
                         self.lines.clear();
-                        self.mode = Mode::Alarm;
-                        self.alarm_lines(code);
+                        self.enter_alarm(code);
                     }
                     Armed::Stall => {
                         // Freeze here: the running segment becomes a zero-length one that
@@ -352,6 +358,36 @@ impl VirtualController {
         self.stalled = false;
     }
 
+    /// A feed hold (grbl-like `!`): motion stops where it is (at once; a real board
+    /// decelerates over a few mm) and the rest of the running move stays queued behind the
+    /// moves after it, to go on after a resume or be dropped by a reset.
+    pub(super) fn feed_hold(&mut self) {
+        if self.held || self.stalled || self.planner.is_empty() {
+            self.held = self.held || !self.planner.is_empty();
+            return;
+        }
+        self.pos = self.current_pos();
+        self.held = true;
+        self.strike = None;
+        if let Some(s) = self.planner.front_mut() {
+            s.from = self.pos;
+        }
+    }
+
+    /// A resume after a feed hold (grbl-like `~`): the held move goes on from where it
+    /// stopped, accelerating again.
+    pub(super) fn resume(&mut self) {
+        if !self.held {
+            return;
+        }
+        self.held = false;
+        self.active_start = self.now;
+        if let Some(s) = self.planner.front_mut() {
+            let dist = (s.to[0] - s.from[0]).hypot(s.to[1] - s.from[1]);
+            s.profile = Trapezoid::new(dist, s.feed_mm_min, self.cfg.accel_mm_s2);
+        }
+    }
+
     /// Sends the keep-alives due while a wait blocks (dialects that send them).
     fn keep_alive(&mut self) {
         let Some((every_s, text)) = self.dialect.keep_alive() else {
@@ -409,7 +445,7 @@ impl VirtualController {
 
     fn process(&mut self) {
         while self.blocker.is_none() && !self.disconnected {
-            if self.mode == Mode::Alarm && self.dialect.deaf_in_alarm() {
+            if self.deaf() {
                 break;
             }
             let Some(line) = self.lines.pop_front() else {
@@ -572,8 +608,7 @@ impl VirtualController {
                 // Soft-limit alarm: motion is held, then the controller locks up until reset.
                 self.pos = self.current_pos();
                 self.planner.clear();
-                self.mode = Mode::Alarm;
-                self.alarm_lines(2);
+                self.enter_alarm(2);
                 return;
             }
             self.queue_move(to);
@@ -605,6 +640,7 @@ impl VirtualController {
         let (state, feed_mm_min) = match (self.mode, self.homing, running) {
             (Mode::Alarm | Mode::Locked, _, _) => (State::Alarm, 0.0),
             (_, true, _) => (State::Home, 0.0),
+            _ if self.held => (State::Hold, 0.0),
             (_, _, true) if self.stalled => (State::Run, 0.0),
             (_, _, true) => (
                 State::Run,
@@ -646,6 +682,7 @@ impl VirtualController {
         self.armed = None;
         self.strike = None;
         self.stalled = false;
+        self.held = false;
         self.homing = false;
         self.absolute = true;
         self.inches = false;
@@ -665,6 +702,21 @@ impl VirtualController {
         {
             self.line(&l);
         }
+    }
+
+    /// Whether the board is still busy with an alarm: in its post-alarm delay it takes
+    /// nothing, not even a reset (dialects that are deaf in an alarm).
+    pub(super) fn deaf(&self) -> bool {
+        self.mode == Mode::Alarm
+            && self.dialect.deaf_in_alarm()
+            && self.now < self.alarm_at + self.cfg.post_alarm_delay_s
+    }
+
+    /// An alarm: motion is already stopped; the board prints it and locks.
+    fn enter_alarm(&mut self, code: u32) {
+        self.mode = Mode::Alarm;
+        self.alarm_at = self.now;
+        self.alarm_lines(code);
     }
 
     /// What an alarm mid-move prints.
@@ -692,6 +744,7 @@ pub(super) enum State {
     Idle,
     Run,
     Home,
+    Hold,
     Alarm,
 }
 
@@ -723,6 +776,7 @@ pub(super) mod test_support {
             home_mm: [0.0, 0.0],
             faults: vec![],
             dialect: Dialect::Grbl,
+            post_alarm_delay_s: 0.15,
         }
     }
 
