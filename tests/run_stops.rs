@@ -44,7 +44,7 @@ fn pty_machine(
     chuck: [f64; 2],
 ) -> std::path::PathBuf {
     let text = format!(
-        "name = \"pty-bench\"\n[stage]\nport = \"{port}\"\nline_timeout_s = 0.5\nstartup_wait_s = 0.2\n\
+        "name = \"pty-bench\"\n[stage]\nport = \"{port}\"\nfeed_hold = \"!\"\nline_timeout_s = 0.5\nstartup_wait_s = 0.2\n\
          travel_x_mm = [0, 200]\ntravel_y_mm = [0, 200]\n{stage_extra}\n\
          [chuck]\ncenter_mm = [{}, {}]\n[spectrometer]\nkind = \"simulated\"\n\
          [reference]\nmaterial = \"si\"\n",
