@@ -8,6 +8,8 @@ use proptest::prelude::*;
 use proptest::test_runner::RngSeed;
 use std::path::Path;
 
+mod validation_common;
+
 /// A valid machine file; tests replace one line to break it.
 const BASE: &str = r#"name = "bench-t"
 [stage]
@@ -33,14 +35,7 @@ fn problems(text: &str) -> Vec<Located> {
 
 /// Replaces the line starting with `key` and returns the single problem reported.
 fn one(key: &str, line: &str) -> Located {
-    let text: String = BASE
-        .lines()
-        .map(|l| if l.starts_with(key) { line } else { l })
-        .collect::<Vec<_>>()
-        .join("\n");
-    let p = problems(&text);
-    assert_eq!(p.len(), 1, "expected one problem for {line:?}, got {p:#?}");
-    p.into_iter().next().unwrap()
+    validation_common::one_problem(BASE, key, line, problems)
 }
 
 #[test]

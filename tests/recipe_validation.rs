@@ -4,6 +4,8 @@ use isopach::bench::machine::{self, check_pair};
 use isopach::recipe::{self, Located, RecipeError};
 use std::path::Path;
 
+mod validation_common;
+
 /// A valid base recipe; tests replace one line to break it.
 const BASE: &str = r#"name = "t"
 [wafer]
@@ -30,14 +32,7 @@ fn problems(text: &str) -> Vec<Located> {
 
 /// Replaces the line starting with `key` and returns the single problem reported.
 fn one(key: &str, line: &str) -> Located {
-    let text: String = BASE
-        .lines()
-        .map(|l| if l.starts_with(key) { line } else { l })
-        .collect::<Vec<_>>()
-        .join("\n");
-    let p = problems(&text);
-    assert_eq!(p.len(), 1, "expected one problem for {line:?}, got {p:#?}");
-    p.into_iter().next().unwrap()
+    validation_common::one_problem(BASE, key, line, problems)
 }
 
 fn line_of(key: &str) -> usize {
