@@ -184,11 +184,6 @@ impl Plan {
         &self.recipe.recipe.accept
     }
 
-    /// Whether the stage is the virtual controller (no real motion).
-    pub fn stage_is_simulated(&self) -> bool {
-        self.machine.stage_is_simulated()
-    }
-
     /// Where the stage is before the first site: the reference piece when there is one, else
     /// the home corner (travel minima), stage frame.
     pub fn start_mm(&self) -> [f64; 2] {
