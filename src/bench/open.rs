@@ -150,10 +150,7 @@ impl Bench {
         } else {
             1.0
         };
-        tokio::time::sleep(std::time::Duration::from_secs_f64(
-            ms.max(0.0) / 1000.0 / scale,
-        ))
-        .await;
+        tokio::time::sleep(super::duration_s(ms / 1000.0 / scale)).await;
     }
 
     /// The virtual wafer, when the spectrometer is simulated (its true thickness field).

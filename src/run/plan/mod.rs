@@ -237,14 +237,23 @@ impl Plan {
             .collect()
     }
 
+    /// From the home corner: the move to the reference piece (when there is one), then every
+    /// site's legs.
     fn estimate_s(&self) -> f64 {
         let st = &self.machine.stage;
         let a = self.acquire();
         let per_site = (a.settle_ms + a.integration_ms * a.averages as f64) / 1000.0;
-        let legs: Vec<[f64; 2]> = self.sites().flat_map(|s| s.legs.clone()).collect();
+        let to_reference = match self.reference() {
+            ReferencePlacement::Position(p) => Some(p),
+            _ => None,
+        };
+        let legs: Vec<[f64; 2]> = to_reference
+            .into_iter()
+            .chain(self.sites().flat_map(|s| s.legs.clone()))
+            .collect();
         let n = self.sites().count();
         duration_lower_bound_s(
-            self.start_mm(),
+            [st.travel_x_mm[0], st.travel_y_mm[0]],
             &legs,
             st.feed_mm_min,
             st.accel_mm_s2,
