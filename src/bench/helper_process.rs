@@ -79,14 +79,15 @@ pub fn spawn_in_group(
     let (program, args) = argv
         .split_first()
         .ok_or_else(|| io::Error::new(io::ErrorKind::InvalidInput, "empty command"))?;
-    let child = tokio::process::Command::new(program)
+    let mut command = tokio::process::Command::new(program);
+    command
         .args(args)
         .stdin(stdin)
         .stdout(Stdio::piped())
         .stderr(Stdio::piped())
         .process_group(0)
-        .kill_on_drop(true)
-        .spawn()?;
+        .kill_on_drop(true);
+    let child = spawn_retrying_busy(&mut command)?;
     let pid = child
         .id()
         .ok_or_else(|| io::Error::other("the helper exited before its id was read"))?;
@@ -98,6 +99,24 @@ pub fn spawn_in_group(
             armed: AtomicBool::new(true),
         },
     ))
+}
+
+/// Spawns `command`, retrying for up to about a second while the kernel says the program
+/// file is busy (`ETXTBSY`): a helper script that was just written, or is being replaced, can
+/// still be open for writing in another process for a moment (common practice: a process
+/// forked elsewhere holds the writer's descriptor until its own `exec`).
+fn spawn_retrying_busy(command: &mut tokio::process::Command) -> io::Result<tokio::process::Child> {
+    const TRIES: u32 = 20;
+    let mut tries = 1;
+    loop {
+        match command.spawn() {
+            Err(e) if e.raw_os_error() == Some(libc::ETXTBSY) && tries < TRIES => {
+                tries += 1;
+                std::thread::sleep(Duration::from_millis(50));
+            }
+            other => return other,
+        }
+    }
 }
 
 /// Runs `argv` to its end (see the module doc): stdout up to `stdout_cap` bytes, stderr
