@@ -4,6 +4,7 @@
 //! - [`gcode`]: the G-code protocol (codec, state machine, async link);
 //! - [`transport`]: opening a serial port as a byte stream;
 //! - [`chuck`], [`limits`]: wafer→stage transform, soft limits, anti-backlash approach;
+//! - [`centring`]: the wafer's true centre and rotation from edge scans;
 //! - [`stage`]: the [`stage::Stage`] trait and the G-code stage;
 //! - [`spectrometer`]: the [`spectrometer::Spectrometer`] trait and the `command` backend;
 //!   [`helper_process`]: running its program with capped output in its own process group;
@@ -11,6 +12,7 @@
 //!   program spoken to over a line protocol;
 //! - [`sim`]: the simulated twins (virtual controller, wafer, spectrometer, pseudo-terminal).
 
+pub mod centring;
 pub mod chuck;
 pub mod gcode;
 pub mod helper_process;

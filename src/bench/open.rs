@@ -8,6 +8,7 @@ use super::limits::{check_site, Approach, SiteOutside, SoftLimits};
 use super::machine::{builtin_simulated, MachineFile, SpectrometerKind};
 use super::sim::clock::SimClock;
 use super::sim::controller::VirtualConfig;
+use super::sim::placement::Placement;
 use super::sim::server::spawn_duplex;
 use super::sim::spectrometer::VirtualSpectrometer;
 use super::sim::wafer::{BareSample, VirtualWafer};
@@ -62,6 +63,8 @@ pub struct Bench {
     simulated_stage: bool,
     clock: SimClock,
     wafer: Option<Arc<VirtualWafer>>,
+    /// Where the virtual wafer really sits (its seeded placement error applied).
+    true_transform: Option<ChuckTransform>,
 }
 
 impl Bench {
@@ -93,6 +96,9 @@ impl Bench {
         let stage = open_stage(&m, clock).await?;
         let transform = ChuckTransform::from_spec(&m.chuck);
         let seed = seed.wrapping_add(m.simulation.seed);
+        // The virtual wafer lies where a hand put it: off the file's centre and rotation by its
+        // seeded placement error; the spectrometer sees it there, the plan does not know.
+        let true_transform = Placement::draw(&m.simulation.wafer, seed).apply(&transform);
         let (spectrometer, wafer): (Box<dyn Spectrometer>, _) = match m.spectrometer.kind {
             SpectrometerKind::Command => (
                 Box::new(CommandSpectrometer::from_spec(&m.spectrometer)),
@@ -114,7 +120,7 @@ impl Bench {
                     wafer.clone(),
                     &reference,
                     stage.position_handle(),
-                    transform,
+                    true_transform,
                     // Sessions step the seed by an odd 64-bit constant (2⁶⁴/φ), so no two
                     // sessions of nearby runs share a noise stream.
                     seed.wrapping_add(1)
@@ -133,6 +139,7 @@ impl Bench {
             machine: m,
             simulated_stage,
             clock,
+            true_transform: wafer.is_some().then_some(true_transform),
             wafer,
         })
     }
@@ -145,17 +152,28 @@ impl Bench {
     /// Waits `ms` of bench time for the stage to settle (shorter in real time when the
     /// simulated parts run faster than real time).
     pub async fn settle(&self, ms: f64) {
+        tokio::time::sleep(self.settle_time(ms)).await;
+    }
+
+    /// How long [`Bench::settle`] waits for `ms` of bench time.
+    pub fn settle_time(&self, ms: f64) -> std::time::Duration {
         let scale = if self.simulated_stage {
             self.clock.scale()
         } else {
             1.0
         };
-        tokio::time::sleep(super::duration_s(ms / 1000.0 / scale)).await;
+        super::duration_s(ms / 1000.0 / scale)
     }
 
     /// The virtual wafer, when the spectrometer is simulated (its true thickness field).
     pub fn virtual_wafer(&self) -> Option<&VirtualWafer> {
         self.wafer.as_deref()
+    }
+
+    /// Where the virtual wafer really sits (its placement error applied), when the
+    /// spectrometer is simulated: the truth centring is tested against.
+    pub fn virtual_placement(&self) -> Option<ChuckTransform> {
+        self.true_transform
     }
 
     /// The stage position of a site, checked against the soft limits (approach point too).

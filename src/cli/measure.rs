@@ -61,7 +61,7 @@ pub fn session(
 
 /// A channel that becomes `true` on Ctrl-C (SIGINT), SIGTERM or SIGHUP (a closed terminal
 /// or SSH session): every one of them stops the stage and keeps the run resumable.
-fn stop_signals() -> tokio::sync::watch::Receiver<bool> {
+pub(super) fn stop_signals() -> tokio::sync::watch::Receiver<bool> {
     let (tx, rx) = tokio::sync::watch::channel(false);
     tokio::spawn(async move {
         let name = wait_for_stop_signal().await;

@@ -1,8 +1,10 @@
-//! `isopach run RECIPE [--machine M] [--wafer ID] [--lot L] [--runs DIR] [--yes] [--dry-run]`.
+//! `isopach run RECIPE [--machine M] [--wafer ID] [--lot L] [--runs DIR] [--yes] [--dry-run]
+//! [--centre]`.
 
 use super::measure::{self, Which};
 use super::output::outln;
 use anyhow::Context;
+use isopach::bench::centring::CentringSettings;
 use isopach::recipe;
 use isopach::run::new_run;
 use isopach::run::plan::{path_length, Plan};
@@ -45,6 +47,10 @@ pub struct Args {
     /// Seed of the simulated bench (default: from the wafer id, so each wafer differs).
     #[arg(long)]
     seed: Option<u64>,
+    /// Centre the wafer from edge scans first and place the sites by the measured centre
+    /// and flat/notch rotation (journalled; `resume` keeps it).
+    #[arg(long)]
+    centre: bool,
 }
 
 /// Runs the command. The plan is made and checked first: an invalid recipe, machine file or
@@ -55,7 +61,10 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         Some(p) => Some(super::machine_arg::load_for(p, &loaded.recipe)?),
         None => None,
     };
-    let plan = Plan::new(&loaded, machine.as_ref())?;
+    let mut plan = Plan::new(&loaded, machine.as_ref())?;
+    if args.centre {
+        plan = plan.with_centring(CentringSettings::default());
+    }
     if args.dry_run {
         return dry_run(&plan);
     }
@@ -123,6 +132,12 @@ fn dry_run(plan: &Plan) -> anyhow::Result<u8> {
         m.stage.accel_mm_s2,
         per_site * 1000.0
     );
+    if let Some(s) = &plan.centring {
+        outln!(
+            "the wafer is centred first ({} rays, edges searched ±{} mm about the rim): the stage positions above move by the measured centre and rotation",
+            s.rays, s.search_mm
+        );
+    }
     if let Some(problem) = plan.limit_problem() {
         eprintln!("error: {problem}");
         return Ok(super::exit::INVALID);

@@ -8,6 +8,7 @@ use super::history_entry;
 use super::journal;
 use super::outputs::{fitted_layer_names, write_run_outputs};
 use super::plan::frozen::FrozenPlan;
+use crate::bench::centring::CentringSettings;
 use crate::map::sites_table::SiteRow;
 use crate::map::stats::Summary;
 use crate::recipe::{pattern, Site, Wafer};
@@ -19,16 +20,27 @@ pub const NOT_MEASURED: &str = "not-measured";
 /// The planned sites of a run in measuring order: its frozen `plan.json`, or for a run made
 /// before plans were frozen, the frozen recipe's pattern in the order it would be planned.
 pub fn planned_order(folder: &RunFolder, meta: &RunToml) -> anyhow::Result<Vec<Site>> {
-    let path = folder.plan_json();
-    if path.exists() {
-        let text =
-            std::fs::read(&path).with_context(|| format!("cannot read {}", path.display()))?;
-        let frozen: FrozenPlan = serde_json::from_slice(&text)
-            .with_context(|| format!("{} is not a valid plan", path.display()))?;
+    if let Some(frozen) = read_frozen(folder)? {
         return Ok(frozen.ordered_sites());
     }
     let sites = pattern::sites(&meta.recipe.pattern, &Wafer::from_spec(&meta.recipe.wafer));
     Ok(super::plan::order(&meta.recipe.pattern, &sites))
+}
+
+/// The centring a run asked for (`run --centre`), as frozen in its `plan.json`.
+pub fn frozen_centring(folder: &RunFolder) -> anyhow::Result<Option<CentringSettings>> {
+    Ok(read_frozen(folder)?.and_then(|f| f.centring))
+}
+
+fn read_frozen(folder: &RunFolder) -> anyhow::Result<Option<FrozenPlan>> {
+    let path = folder.plan_json();
+    if !path.exists() {
+        return Ok(None);
+    }
+    let text = std::fs::read(&path).with_context(|| format!("cannot read {}", path.display()))?;
+    let frozen = serde_json::from_slice(&text)
+        .with_context(|| format!("{} is not a valid plan", path.display()))?;
+    Ok(Some(frozen))
 }
 
 /// The planned sites of a run, in site-number order.

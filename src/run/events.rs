@@ -10,6 +10,7 @@
 //! `refit-finished` before the next session's `run-started`) is ignored, so no site state
 //! ever mixes two optical models.
 
+use crate::bench::centring::Centring;
 use crate::fit::FitResult;
 use crate::recipe::schema::AcceptSpec;
 use crate::recipe::Site;
@@ -77,6 +78,21 @@ pub enum Event {
     RunStopped { time: String, reason: String },
     /// Every planned site has a result.
     RunFinished { time: String },
+    /// The wafer was centred from edge scans: its sites are placed by this centre and
+    /// rotation from here on (resumed sessions too).
+    WaferCentred {
+        time: String,
+        #[serde(flatten)]
+        centring: Centring,
+    },
+}
+
+/// The newest centring journalled, if any: what places the sites of the run.
+pub fn journalled_centring(events: &[Event]) -> Option<&Centring> {
+    events.iter().rev().find_map(|e| match e {
+        Event::WaferCentred { centring, .. } => Some(centring),
+        _ => None,
+    })
 }
 
 /// Current time, RFC 3339 with the local offset.

@@ -5,7 +5,7 @@
 //! supplies the human side through [`Hooks`].
 
 use super::derive;
-use super::events::{now, Event, SiteState};
+use super::events::{journalled_centring, now, Event, SiteState};
 use super::fit_workers::FitWorkers;
 use super::folder::{RunFolder, RunToml};
 use super::journal::Journal;
@@ -79,7 +79,19 @@ pub fn plan_of_run(folder: &RunFolder, meta: &RunToml) -> anyhow::Result<Plan> {
     let loaded = loaded_recipe(folder, meta);
     let machine = machine_of(meta)?;
     let order = derive::planned_order(folder, meta)?;
-    Ok(Plan::for_sites(&loaded, machine.as_ref(), &order)?.checked()?)
+    let plan = Plan::for_sites(&loaded, machine.as_ref(), &order)?;
+    // A run centred earlier keeps its measured centre; one stopped before its centring
+    // finished centres first.
+    let (events, _) = derive::read_states(folder, meta)?;
+    let plan = match (
+        journalled_centring(&events),
+        derive::frozen_centring(folder)?,
+    ) {
+        (Some(c), _) => plan.placed(c),
+        (None, Some(settings)) => plan.with_centring(settings),
+        (None, None) => plan,
+    };
+    Ok(plan.checked()?)
 }
 
 /// Runs one measuring session of `plan` on the run in `folder`.

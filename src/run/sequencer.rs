@@ -1,7 +1,8 @@
 //! The sequencer: executes a [`Plan`]'s steps on a bench under one cancellation scope and
 //! publishes every step on the run's [`EventStream`].
 //!
-//! Steps: home → reference (move to the reference piece, or ask the operator) with dark and
+//! Steps: home → centring (when asked: the sites are then placed by the measured centre and
+//! rotation, checked against the soft limits first) → reference (move to the reference piece, or ask the operator) with dark and
 //! reference spectra → per site: move → motion complete → settle → acquire → store the raw
 //! spectrum → journal it → the fitting workers fit it while the stage moves on. Sites that come
 //! back invalid are measured again, up to the recipe's `retries`, in further passes; a site
@@ -14,8 +15,10 @@
 use super::events::{fit_event, now, Event};
 use super::fit_workers::{FitWorkers, Pending};
 use super::folder::RunFolder;
-use super::plan::{Plan, ReferencePlacement, SiteStep, Step};
+use super::plan::{Plan, PlanError, ReferencePlacement, SiteStep, Step};
 use super::stream::{EventStream, RunEvent};
+use crate::bench::centring::probe::ProbeSettings;
+use crate::bench::centring::{locate, BenchProbe, CentringSettings};
 use crate::bench::spectrometer::{acquire_retrying, AcquireKind};
 use crate::bench::Bench;
 use crate::recipe::schema::AcceptSpec;
@@ -168,13 +171,18 @@ impl Sequencer {
         plan: &Plan,
         next_attempt: &mut impl FnMut(usize) -> u32,
     ) -> Result<(), Stop> {
+        // Sites go where the plan puts them (a centring journalled earlier included).
+        bench.transform = plan.transform();
+        let mut centred = None;
         for step in &plan.steps {
             match step {
                 Step::Home => self.home(bench).await?,
+                Step::Centre(settings) => centred = Some(self.centre(bench, plan, settings).await?),
                 Step::Reference(placement) => self.reference(bench, plan, *placement).await?,
                 Step::Site(_) => {}
             }
         }
+        let plan = centred.as_ref().unwrap_or(plan);
         let mut todo = plan.clone();
         for pass in 0..=plan.acquire().retries {
             let count = todo.sites().count();
@@ -203,6 +211,51 @@ impl Sequencer {
         self.scope
             .guard(async { bench.stage.home().await.context("homing failed") })
             .await
+    }
+
+    /// Finds the wafer's centre and rotation from edge scans, journals them and returns the
+    /// plan placed by them, its soft limits checked before any motion to a site.
+    async fn centre(
+        &mut self,
+        bench: &mut Bench,
+        plan: &Plan,
+        settings: &CentringSettings,
+    ) -> Result<Plan, Stop> {
+        let nominal = plan.transform();
+        self.note(format!(
+            "centring the wafer: {} rays from the nominal centre ({:.3}, {:.3}) mm",
+            settings.rays, nominal.center_mm[0], nominal.center_mm[1]
+        ))?;
+        let a = plan.acquire();
+        let probe_settings = ProbeSettings {
+            integration_ms: a.integration_ms,
+            averages: a.averages,
+            settle_ms: a.settle_ms,
+        };
+        let wafer = plan.recipe.wafer();
+        let centring = self
+            .scope
+            .guard(async {
+                let mut probe = BenchProbe::new(bench, probe_settings).await?;
+                Ok(locate(&mut probe, &wafer, &nominal, settings).await?)
+            })
+            .await
+            .map_err(|s| in_step(s, "centring the wafer"))?;
+        let placed = plan.placed(&centring);
+        bench.transform = placed.transform();
+        self.log(Event::WaferCentred {
+            time: now(),
+            centring: centring.clone(),
+        })
+        .map_err(Stop::Fault)?;
+        self.note(centring.describe(&nominal))?;
+        match placed.limit_problem() {
+            Some(problem) => Err(Stop::Fault(
+                anyhow::Error::new(PlanError::OutsideTravel(problem))
+                    .context("with the measured wafer centre"),
+            )),
+            None => Ok(placed),
+        }
     }
 
     /// Takes dark and reference spectra after bringing the reference under the probe.

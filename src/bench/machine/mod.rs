@@ -8,6 +8,7 @@
 //! [`crate::tomlcheck`]. Every firmware-specific line lives in machine files, never in code.
 
 pub mod builtin;
+pub mod chuck_edit;
 pub mod pair;
 pub mod schema;
 pub mod validate;

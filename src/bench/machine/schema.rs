@@ -419,6 +419,14 @@ pub struct SimWaferSpec {
     /// metal, n ≈ 2.8, k ≈ 3.4 near 600 nm, from memory).
     #[serde(default = "d_chuck_nk")]
     pub chuck_nk: [f64; 2],
+    /// Largest distance of the wafer's true centre from `[chuck] center_mm`, mm: a hand
+    /// placement error drawn from the seed (uniform over the disc), which centring finds.
+    #[serde(default)]
+    pub placement_offset_mm: f64,
+    /// Largest turn of the wafer from `[chuck] rotation_deg`, degrees (drawn from the seed,
+    /// uniform in ±this).
+    #[serde(default)]
+    pub placement_rotation_deg: f64,
 }
 
 impl Default for SimWaferSpec {
@@ -434,6 +442,8 @@ impl Default for SimWaferSpec {
             roughness_nm: d_roughness(),
             wafer_to_wafer_pct: d_wafer_to_wafer(),
             chuck_nk: d_chuck_nk(),
+            placement_offset_mm: 0.0,
+            placement_rotation_deg: 0.0,
         }
     }
 }

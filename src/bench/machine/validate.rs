@@ -293,6 +293,20 @@ fn check_simulation(s: &SimulationSpec, r: &mut Problems) {
             "n and k of the chuck must be zero or more, not both zero",
         );
     }
+    r.range(
+        "simulation.wafer.placement_offset_mm",
+        w.placement_offset_mm,
+        0.0,
+        50.0,
+        "mm",
+    );
+    r.range(
+        "simulation.wafer.placement_rotation_deg",
+        w.placement_rotation_deg,
+        0.0,
+        180.0,
+        "°",
+    );
     if !w.tilt_nm_per_mm.iter().all(|v| v.is_finite()) {
         r.at("simulation.wafer.tilt_nm_per_mm", "tilt is not a number");
     }

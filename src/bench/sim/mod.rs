@@ -4,6 +4,7 @@
 
 pub mod clock;
 pub mod controller;
+pub mod placement;
 pub mod pty;
 pub mod server;
 pub mod spectrometer;

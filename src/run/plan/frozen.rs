@@ -3,6 +3,7 @@
 //! it, so a run keeps the sites it was planned with even if the pattern code changes.
 
 use super::Plan;
+use crate::bench::centring::CentringSettings;
 use crate::recipe::Site;
 use serde::{Deserialize, Serialize};
 
@@ -23,6 +24,9 @@ pub struct FrozenPlan {
     pub sites: Vec<FrozenSite>,
     /// Kinematic lower bound of the whole map, s.
     pub duration_s: f64,
+    /// The wafer is centred before the sites (`run --centre`), with these settings.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub centring: Option<CentringSettings>,
 }
 
 impl FrozenPlan {
@@ -40,6 +44,7 @@ impl FrozenPlan {
                 })
                 .collect(),
             duration_s: plan.duration_s,
+            centring: plan.centring,
         }
     }
 

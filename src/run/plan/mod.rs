@@ -16,6 +16,7 @@ mod soft_limits;
 pub use estimate::duration_lower_bound_s;
 pub use order::{nearest_neighbour, order, path_length, two_opt};
 
+use crate::bench::centring::{Centring, CentringSettings};
 use crate::bench::chuck::ChuckTransform;
 use crate::bench::limits::{check_site, Approach, SiteOutside, SoftLimits};
 use crate::bench::machine::{builtin_simulated, MachineFile, SpectrometerKind};
@@ -64,6 +65,8 @@ pub struct SiteStep {
 pub enum Step {
     /// Run the machine file's homing lines.
     Home,
+    /// Find the wafer's centre and rotation from edge scans; the sites are placed by them.
+    Centre(CentringSettings),
     /// Take dark and reference spectra.
     Reference(ReferencePlacement),
     /// Measure a site.
@@ -83,6 +86,8 @@ pub struct Plan {
     pub reference_material: String,
     /// Kinematic lower bound of the duration, s (moves, settle, integration × averages).
     pub duration_s: f64,
+    /// Centre the wafer before the reference and the sites (`run --centre`).
+    pub centring: Option<CentringSettings>,
 }
 
 impl Plan {
@@ -122,6 +127,7 @@ impl Plan {
             fitter: Arc::new(fitter),
             reference_material,
             duration_s: 0.0,
+            centring: None,
         };
         plan.steps = plan.prelude();
         plan.steps
@@ -139,6 +145,23 @@ impl Plan {
             .extend(plan.site_steps(&sites).into_iter().map(Step::Site));
         plan.duration_s = plan.estimate_s();
         plan
+    }
+
+    /// The same plan, centring the wafer first with `settings`.
+    pub fn with_centring(&self, settings: CentringSettings) -> Plan {
+        let mut plan = self.clone();
+        plan.centring = Some(settings);
+        plan.only(|_| true)
+    }
+
+    /// The same plan with the wafer placed by a measured centre and rotation: site positions,
+    /// legs and their soft-limit verdicts recomputed, nothing left to centre.
+    pub fn placed(&self, centring: &Centring) -> Plan {
+        let mut plan = self.clone();
+        plan.machine.chuck.center_mm = centring.center_mm;
+        plan.machine.chuck.rotation_deg = centring.rotation_deg;
+        plan.centring = None;
+        plan.only(|_| true)
     }
 
     /// The plan if every step lies inside the soft limits; else one message that says which
@@ -194,7 +217,8 @@ impl Plan {
         }
     }
 
-    fn transform(&self) -> ChuckTransform {
+    /// The wafer → stage transform the sites are placed by.
+    pub fn transform(&self) -> ChuckTransform {
         ChuckTransform::from_spec(&self.machine.chuck)
     }
 
@@ -204,6 +228,7 @@ impl Plan {
         if !self.machine.stage.home.is_empty() {
             steps.push(Step::Home);
         }
+        steps.extend(self.centring.map(Step::Centre));
         let placement = match (
             self.machine.reference.position_mm,
             self.machine.spectrometer.kind,
