@@ -160,6 +160,13 @@ fn site_errors(run: &Path) -> Vec<(usize, f64, f64)> {
         .collect()
 }
 
+/// The largest miss and thickness error of a run's sites, for the log.
+fn worst(errors: &[(usize, f64, f64)]) -> String {
+    let miss = errors.iter().map(|e| e.1).fold(0.0, f64::max);
+    let dt = errors.iter().map(|e| e.2.abs()).fold(0.0, f64::max);
+    format!("sites up to {miss:.3} mm from the recipe's positions, thickness up to {dt:.2} nm from the truth there")
+}
+
 #[test]
 fn a_centred_run_measures_the_sites_where_the_recipe_puts_them() {
     let (dir, recipe, machine) = bench_dir(PLACED);
@@ -191,6 +198,7 @@ fn a_centred_run_measures_the_sites_where_the_recipe_puts_them() {
     let args: Vec<&str> = args.iter().map(String::as_str).collect();
     assert!(isopach(&args).status.success());
     let plain = site_errors(&only_run(&runs));
+    eprintln!("not centred: {}", worst(&plain));
     assert!(plain.iter().all(|(_, miss, _)| *miss > 0.5), "{plain:?}");
     assert!(plain.iter().any(|(_, _, dt)| dt.abs() > 1.2), "{plain:?}");
 }

@@ -327,3 +327,41 @@ fn an_early_signal_leaves_no_folder_or_a_resumable_one() {
         sites_once(&run, 9);
     }
 }
+
+/// Issue 13: Ctrl-C during centring stops the stage at once and journals the stop; nothing
+/// is centred, and `resume` centres again before measuring.
+#[test]
+fn ctrl_c_during_centring_stops_the_stage_and_resume_centres_again() {
+    let (dir, recipe, machine) = bench_dir("");
+    // Slow virtual time: centring takes some 300 readings, seconds of wall time.
+    let text = std::fs::read_to_string(&machine)
+        .unwrap()
+        .replace("time_scale = 50", "time_scale = 2");
+    std::fs::write(&machine, text).unwrap();
+    let runs = dir.path().join("runs");
+    let mut child = Command::new(env!("CARGO_BIN_EXE_isopach"))
+        .args(run_args(&recipe, &machine, "CENTRE", &runs))
+        .arg("--centre")
+        .stdout(Stdio::null())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    let (err, _) = read_until(&mut child, "centring the wafer");
+    std::thread::sleep(Duration::from_millis(300));
+    let (code, took) = interrupt(child, err);
+    assert_eq!(code, 130);
+    assert!(took < Duration::from_secs(3), "took {took:?}");
+    let run = only_run(&runs);
+    assert_stopped_and_journalled(&run);
+    let centred = |run: &Path| {
+        events(run)
+            .iter()
+            .filter(|e| matches!(e, Event::WaferCentred { .. }))
+            .count()
+    };
+    assert_eq!(centred(&run), 0);
+    let o = isopach(&["resume", run.to_str().unwrap()]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert_eq!(centred(&run), 1, "resume centres before measuring");
+    assert!(sites_once(&run, 9).iter().all(|(_, f)| f == "ok"));
+}
