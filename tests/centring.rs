@@ -182,7 +182,9 @@ fn a_centred_run_measures_the_sites_where_the_recipe_puts_them() {
         .any(|e| matches!(e, Event::WaferCentred { .. })));
     let rows = sites_once(&run, 9);
     assert!(rows.iter().all(|(_, f)| f == "ok"), "{rows:?}");
-    for (site, miss, dt) in site_errors(&run) {
+    let centred = site_errors(&run);
+    eprintln!("centred: {}", worst(&centred));
+    for (site, miss, dt) in centred {
         assert!(
             miss < 0.1,
             "site {site} measured {miss} mm from where the recipe puts it"

@@ -157,15 +157,19 @@ mod tests {
 
     #[test]
     fn adds_a_missing_section_and_refuses_a_layout_it_cannot_follow() {
-        let bare = "name = \"b\"\n[stage]\nport = \"simulated\"\n";
-        let out = set_chuck(bare, Path::new("b.toml"), [100.0, 101.0], 0.5).unwrap();
-        assert!(out.starts_with(bare));
+        let stage =
+            "[stage]\nport = \"simulated\"\ntravel_x_mm = [0, 300]\ntravel_y_mm = [0, 300]\n";
+        let bare = format!("name = \"b\"\n{stage}");
+        let out = set_chuck(&bare, Path::new("b.toml"), [100.0, 101.0], 0.5).unwrap();
+        assert!(out.starts_with(&bare));
         assert!(
             out.ends_with("\n[chuck]\ncenter_mm = [100, 101]\nrotation_deg = 0.5\n"),
             "{out}"
         );
-        let inline =
-            "name = \"c\"\nchuck = { center_mm = [1, 2] }\n[stage]\nport = \"simulated\"\n";
-        assert!(set_chuck(inline, Path::new("c.toml"), [3.0, 4.0], 0.0).is_err());
+        // The file itself is valid; only the edit would break it.
+        let inline = format!("name = \"c\"\nchuck = {{ center_mm = [1, 2] }}\n{stage}");
+        parse(&inline, Path::new("c.toml")).unwrap();
+        let e = set_chuck(&inline, Path::new("c.toml"), [3.0, 4.0], 0.0).unwrap_err();
+        assert!(e.to_string().contains("set [chuck] center_mm"), "{e}");
     }
 }

@@ -2,7 +2,8 @@
 //! process is touched.
 //!
 //! A [`Plan`] holds the ordered steps of a session (home, reference, then every site with its
-//! wafer and stage coordinates and its anti-backlash approach), the soft-limit verdict of every
+//! wafer and stage coordinates and its anti-backlash approach; centring first when asked:
+//! [`Plan::placed`] then places the sites by the measured centre), the soft-limit verdict of every
 //! site, a kinematic bound on the duration and the validated fit set-up. `sites`, `check`,
 //! `run --dry-run`, `run`, `resume` and `remeasure` all read the same value; the sequencer only
 //! executes it. A run freezes its plan into `plan.json` so derived files read what was planned,
@@ -368,6 +369,37 @@ mod tests {
             [20.0, 20.0],
             "sites start from the reference piece"
         );
+    }
+
+    #[test]
+    fn a_measured_centre_moves_every_site_and_is_checked_against_the_soft_limits() {
+        let p = Plan::new(&recipe(), None)
+            .unwrap()
+            .with_centring(Default::default());
+        assert!(matches!(p.steps[1], Step::Centre(_)), "{:?}", p.steps[1]);
+        let mut c = crate::bench::centring::Centring {
+            center_mm: [242.0, 239.0],
+            rotation_deg: 2.0,
+            radius_mm: 75.0,
+            mark_angle_deg: Some(-88.0),
+            edges_used: 16,
+            edges_rejected: 0,
+            rays_lost: 0,
+            residual_mm: 0.0,
+            probes: 0,
+        };
+        let q = p.placed(&c);
+        assert!(!q.steps.iter().any(|s| matches!(s, Step::Centre(_))));
+        for (a, b) in p.sites().zip(q.sites()) {
+            let want = q.transform().to_stage(a.site.x_mm, a.site.y_mm);
+            assert_eq!(b.stage_mm, want);
+            assert_ne!(a.stage_mm, b.stage_mm);
+        }
+        assert!(q.limit_problem().is_none());
+        // A centre that puts edge sites past the 480 mm travel is refused before any motion.
+        c.center_mm = [420.0, 240.0];
+        let msg = p.placed(&c).limit_problem().expect("outside the travel");
+        assert!(msg.contains("outside the soft limits"), "{msg}");
     }
 
     #[test]
