@@ -235,3 +235,49 @@ fn resume_keeps_the_journalled_centre() {
         assert!(miss < 0.1, "site {site}: {miss} mm");
     }
 }
+
+#[test]
+fn ctrl_c_during_bench_centre_stops_and_writes_nothing() {
+    use std::io::{BufRead, BufReader};
+    use std::process::{Command, Stdio};
+    use std::time::{Duration, Instant};
+    let (_dir, recipe, machine) = bench_dir(PLACED);
+    // Slow virtual time: the scan takes many seconds of wall time.
+    let before = std::fs::read_to_string(&machine)
+        .unwrap()
+        .replace("time_scale = 50", "time_scale = 2");
+    std::fs::write(&machine, &before).unwrap();
+    let mut child = Command::new(env!("CARGO_BIN_EXE_isopach"))
+        .args(["bench", "centre", "--write-machine"])
+        .arg("--recipe")
+        .arg(&recipe)
+        .arg("--machine")
+        .arg(&machine)
+        .stdout(Stdio::null())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    let mut err = BufReader::new(child.stderr.take().unwrap());
+    let mut line = String::new();
+    while !line.contains("centring the wafer") {
+        line.clear();
+        assert!(err.read_line(&mut line).unwrap() > 0, "no centring started");
+    }
+    std::thread::sleep(Duration::from_millis(300));
+    let sent = Instant::now();
+    assert!(Command::new("kill")
+        .args(["-INT", &child.id().to_string()])
+        .status()
+        .unwrap()
+        .success());
+    let mut rest = String::new();
+    let _ = std::io::Read::read_to_string(&mut err, &mut rest);
+    assert_eq!(child.wait().unwrap().code(), Some(130), "{rest}");
+    assert!(
+        sent.elapsed() < Duration::from_secs(3),
+        "{:?}",
+        sent.elapsed()
+    );
+    assert!(rest.contains("nothing was written"), "{rest}");
+    assert_eq!(std::fs::read_to_string(&machine).unwrap(), before);
+}

@@ -18,9 +18,8 @@ use isopach::bench::sim::controller::VirtualConfig;
 use isopach::bench::sim::pty::PtyController;
 use isopach::bench::{Bench, ChuckTransform, MachineFile};
 use isopach::recipe::LoadedRecipe;
-use isopach::run::sequencer::{Scope, Stop};
+use isopach::run::sequencer::{stop_stage, Scope, Stop};
 use std::path::PathBuf;
-use std::time::Duration;
 
 /// Arguments of `isopach bench`.
 #[derive(clap::Args, Debug)]
@@ -114,9 +113,6 @@ fn serve(machine: Option<PathBuf>, time_scale: Option<f64>) -> anyhow::Result<u8
     })
 }
 
-/// How long a stop may take before the command gives up waiting for the stage's answer.
-const STOP_TIMEOUT: Duration = Duration::from_secs(10);
-
 fn centre(a: CentreArgs) -> anyhow::Result<u8> {
     let recipe = isopach::recipe::load(&a.recipe)?;
     let m = match &a.machine {
@@ -141,10 +137,8 @@ fn centre(a: CentreArgs) -> anyhow::Result<u8> {
             Err(_) => Err(Stop::Interrupted),
         };
         if let (Err(_), Ok(bench)) = (&result, &mut bench) {
-            match tokio::time::timeout(STOP_TIMEOUT, bench.stage.stop()).await {
-                Ok(Ok(())) => {}
-                Ok(Err(e)) => eprintln!("stopping the stage failed: {e}"),
-                Err(_) => eprintln!("the stage did not confirm the stop in time"),
+            if let Err(e) = stop_stage(bench).await {
+                eprintln!("{e}");
             }
         }
         match (bench, result) {

@@ -484,11 +484,8 @@ impl Sequencer {
             tracing::error!("a fit in flight could not be journalled: {e:#}");
         }
         if let Some(bench) = bench {
-            // A stage that stopped answering must not hold the stop forever.
-            match tokio::time::timeout(STOP_TIMEOUT, bench.stage.stop()).await {
-                Ok(Ok(())) => {}
-                Ok(Err(e)) => tracing::error!("stopping the stage failed: {e}"),
-                Err(_) => tracing::error!("the stage did not confirm the stop in time"),
+            if let Err(e) = stop_stage(bench).await {
+                tracing::error!("{e}");
             }
         }
         if let Err(e) = self.log(Event::RunStopped {
@@ -510,6 +507,16 @@ pub const FAILED_SITES_IN_A_ROW: usize = 3;
 
 /// How long a stop may take before the session gives up waiting for the stage's answer.
 const STOP_TIMEOUT: Duration = Duration::from_secs(10);
+
+/// Stops the stage, waiting at most [`STOP_TIMEOUT`]: a stage that stopped answering must
+/// not hold the stop forever. The error says which.
+pub async fn stop_stage(bench: &mut Bench) -> Result<(), String> {
+    match tokio::time::timeout(STOP_TIMEOUT, bench.stage.stop()).await {
+        Ok(Ok(())) => Ok(()),
+        Ok(Err(e)) => Err(format!("stopping the stage failed: {e}")),
+        Err(_) => Err("the stage did not confirm the stop in time".into()),
+    }
+}
 
 /// A fault inside a named step carries the step's name.
 fn in_step(stop: Stop, what: &'static str) -> Stop {

@@ -40,6 +40,33 @@ impl EdgeProbe for GeometricProbe {
     }
 }
 
+/// A probe over `wafer` placed by `truth`: 1000 counts on it, `off` beyond its edge.
+fn probe(
+    wafer: Wafer,
+    truth: ChuckTransform,
+    off: f64,
+    limits: [f64; 2],
+    seed: u64,
+) -> GeometricProbe {
+    GeometricProbe {
+        wafer,
+        truth,
+        on: 1000.0,
+        off,
+        limits,
+        rng: rand_chacha::ChaCha8Rng::seed_from_u64(seed),
+    }
+}
+
+/// Centres `w` with the default settings from where `nom` says it is.
+fn centre(
+    p: &mut GeometricProbe,
+    w: &Wafer,
+    nom: &ChuckTransform,
+) -> Result<Centring, CentringError> {
+    futures::executor::block_on(locate(p, w, nom, &CentringSettings::default()))
+}
+
 fn wafer(diameter_mm: f64, mark: &str, angle_deg: f64) -> Wafer {
     let spec: crate::recipe::schema::WaferSpec = toml::from_str(&format!(
         "diameter_mm = {diameter_mm}\nedge_exclusion_mm = 3\norientation = \"{mark}\"\norientation_angle_deg = {angle_deg}"
@@ -56,21 +83,8 @@ fn centre_error(w: Wafer, nominal: ChuckTransform, seed: u64, off: f64) -> (f64,
         ..Default::default()
     };
     let truth = Placement::draw(&spec, seed).apply(&nominal);
-    let mut probe = GeometricProbe {
-        wafer: w,
-        truth,
-        on: 1000.0,
-        off,
-        limits: [0.0, 480.0],
-        rng: rand_chacha::ChaCha8Rng::seed_from_u64(seed),
-    };
-    let c = futures::executor::block_on(locate(
-        &mut probe,
-        &w,
-        &nominal,
-        &CentringSettings::default(),
-    ))
-    .unwrap_or_else(|e| panic!("{w:?} seed {seed}: {e}"));
+    let mut probe = probe(w, truth, off, [0.0, 480.0], seed);
+    let c = centre(&mut probe, &w, &nominal).unwrap_or_else(|e| panic!("{w:?} seed {seed}: {e}"));
     let d = (c.center_mm[0] - truth.center_mm[0]).hypot(c.center_mm[1] - truth.center_mm[1]);
     (d, wrap_deg(c.rotation_deg - truth.rotation_deg).abs(), c)
 }
@@ -138,15 +152,8 @@ fn without_a_mark_the_centre_is_found_and_the_rotation_kept() {
         center_mm: [241.7, 238.9],
         ..nom
     };
-    let mut probe = GeometricProbe {
-        wafer: w,
-        truth,
-        on: 1000.0,
-        off: 100.0,
-        limits: [0.0, 480.0],
-        rng: rand_chacha::ChaCha8Rng::seed_from_u64(1),
-    };
-    let c = futures::executor::block_on(locate(&mut probe, &w, &nom, &Default::default())).unwrap();
+    let mut probe = probe(w, truth, 100.0, [0.0, 480.0], 1);
+    let c = centre(&mut probe, &w, &nom).unwrap();
     assert!((c.center_mm[0] - 241.7).abs() < 0.1 && (c.center_mm[1] - 238.9).abs() < 0.1);
     assert_eq!(c.rotation_deg, 12.0);
     assert_eq!(c.mark_angle_deg, None);
@@ -159,22 +166,15 @@ fn rays_past_a_soft_limit_are_lost_and_too_few_is_an_error() {
         center_mm: [100.0, 100.0],
         ..nominal(0.0, false)
     };
-    let probe = |limits| GeometricProbe {
-        wafer: w,
-        truth: nom,
-        on: 1000.0,
-        off: 100.0,
-        limits,
-        rng: rand_chacha::ChaCha8Rng::seed_from_u64(2),
-    };
+    let boxed = |limits| probe(w, nom, 100.0, limits, 2);
     // The box [−10, 195] clips the four rays nearest +x and +y: the rest still centre it.
-    let mut p = probe([-10.0, 195.0]);
-    let c = futures::executor::block_on(locate(&mut p, &w, &nom, &Default::default())).unwrap();
+    let mut p = boxed([-10.0, 195.0]);
+    let c = centre(&mut p, &w, &nom).unwrap();
     assert_eq!(c.rays_lost, 4, "{c:?}");
     assert!((c.center_mm[0] - 100.0).abs() < 0.1 && (c.center_mm[1] - 100.0).abs() < 0.1);
     // A box smaller than the wafer leaves no ray (11.25° + k·22.5°) an edge.
-    let mut p = probe([20.0, 180.0]);
-    let e = futures::executor::block_on(locate(&mut p, &w, &nom, &Default::default())).unwrap_err();
+    let mut p = boxed([20.0, 180.0]);
+    let e = centre(&mut p, &w, &nom).unwrap_err();
     assert!(
         matches!(e, CentringError::TooFewEdges { found: 0, .. }),
         "{e}"
@@ -189,16 +189,8 @@ fn a_mark_turned_past_the_search_is_reported_not_guessed() {
         rotation_deg: 25.0,
         ..nom
     };
-    let mut probe = GeometricProbe {
-        wafer: w,
-        truth,
-        on: 1000.0,
-        off: 100.0,
-        limits: [0.0, 480.0],
-        rng: rand_chacha::ChaCha8Rng::seed_from_u64(4),
-    };
-    let e =
-        futures::executor::block_on(locate(&mut probe, &w, &nom, &Default::default())).unwrap_err();
+    let mut probe = probe(w, truth, 100.0, [0.0, 480.0], 4);
+    let e = centre(&mut probe, &w, &nom).unwrap_err();
     assert!(
         matches!(e, CentringError::NoMark { mark: "notch", .. }),
         "{e}"
