@@ -57,8 +57,10 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         eprintln!("warning: {w}");
     }
     let material = reference_material(&machine_of(&meta)?);
-    let (_, states) = derive::read_states(&folder, &meta)?;
+    let (journalled, states) = derive::read_states(&folder, &meta)?;
     let attempts = refit::stored_attempts(&states);
+    // Each spectrum normalised by the reference interpolated in time, as when measured.
+    let timeline = isopach::run::drift::ReferenceTimeline::from_events(&journalled);
     let mut journal = Journal::open(&folder.journal())?;
     journal.append(&Event::RunStarted {
         time: now(),
@@ -69,6 +71,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     let events = refit::fit_all(
         &folder,
         &attempts,
+        &timeline,
         &fitter,
         &material,
         &meta.recipe.accept,

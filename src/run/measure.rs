@@ -5,6 +5,7 @@
 //! supplies the human side through [`Hooks`].
 
 use super::derive;
+use super::drift::ReferenceTimeline;
 use super::events::{now, Event, SiteState};
 use super::fit_workers::FitWorkers;
 use super::folder::{RunFolder, RunToml};
@@ -134,6 +135,7 @@ pub async fn session(
         sites_planned: plan.sites().count(),
     })?;
     // Spectra stored before a stop but not fitted are fitted first: no motion needed.
+    let timeline = ReferenceTimeline::from_events(&events);
     for s in &states {
         for a in s.unfitted() {
             if let Some(rel) = &a.spectrum {
@@ -142,6 +144,7 @@ pub async fn session(
                     s.site.number,
                     a.attempt,
                     rel,
+                    &timeline,
                     &plan.fitter,
                     &plan.reference_material,
                     plan.accept(),

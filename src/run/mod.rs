@@ -2,6 +2,7 @@
 //! subscribers (journal, fitting workers), the run folder and what is derived from it.
 
 pub mod derive;
+pub mod drift;
 pub mod events;
 pub mod files;
 pub mod fit_workers;

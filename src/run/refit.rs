@@ -1,18 +1,22 @@
 //! Fitting stored spectra again: after a stop (spectra stored but not fitted) and for
 //! `isopach refit` with a new model, window or method. No stage motion.
 
+use super::drift::ReferenceTimeline;
 use super::events::{judge, now, Event, SiteState};
 use super::folder::RunFolder;
 use crate::fit::Fitter;
 use crate::recipe::schema::{AcceptSpec, Recipe};
 use crate::spectrum::{read_csv, SpectrumFile};
 
-/// Fits the stored spectrum of one attempt and gives the journal event for it.
+/// Fits the stored spectrum of one attempt, normalised by the reference interpolated in time
+/// (`timeline`, see [`super::drift`]), and gives the journal event for it.
+#[allow(clippy::too_many_arguments)] // one attempt, its references and the fit set-up
 pub fn fit_stored(
     folder: &RunFolder,
     site: usize,
     attempt: u32,
     rel: &str,
+    timeline: &ReferenceTimeline,
     fitter: &Fitter,
     reference_material: &str,
     accept: &AcceptSpec,
@@ -35,9 +39,15 @@ pub fn fit_stored(
         reason,
     };
     match read_csv(&folder.root.join(rel)) {
-        Ok(SpectrumFile::Counts(raw)) => match fitter.fit_raw(&raw, reference_material) {
+        Ok(SpectrumFile::Counts(raw)) => match timeline
+            .corrected(folder, site, attempt, raw)
+            .and_then(|raw| {
+                fitter
+                    .fit_raw(&raw, reference_material)
+                    .map_err(|e| e.to_string())
+            }) {
             Ok(fit) => fitted(fit),
-            Err(e) => failed(e.to_string()),
+            Err(e) => failed(e),
         },
         Ok(SpectrumFile::Reflectance(spectrum)) => fitted(fitter.fit(&spectrum)),
         Err(e) => failed(e.to_string()),
@@ -60,6 +70,7 @@ pub fn stored_attempts(states: &[SiteState]) -> Vec<(usize, u32, String)> {
 pub fn fit_all(
     folder: &RunFolder,
     attempts: &[(usize, u32, String)],
+    timeline: &ReferenceTimeline,
     fitter: &Fitter,
     reference_material: &str,
     accept: &AcceptSpec,
@@ -82,6 +93,7 @@ pub fn fit_all(
                                 *site,
                                 *attempt,
                                 rel,
+                                timeline,
                                 fitter,
                                 reference_material,
                                 accept,

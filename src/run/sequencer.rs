@@ -9,6 +9,7 @@
 //! reference move included) abandons that step, finishes and journals the fits in flight,
 //! stops the stage and journals the stop, so the run can be resumed.
 
+use super::drift::{normalised_between, seconds, TakenReference};
 use super::events::{judge, now, Event};
 use super::fit_workers::{FitWorkers, Pending};
 use super::folder::RunFolder;
@@ -90,6 +91,10 @@ pub struct Sequencer {
     prompt: Option<Prompt>,
     dark: Option<Counts>,
     reference: Option<Counts>,
+    /// The latest reference of this session, with its time.
+    last_reference: Option<TakenReference>,
+    /// Sites measured since it: site, attempt, time, spectrum.
+    since_reference: Vec<(usize, u32, f64, Arc<RawSpectrum>)>,
 }
 
 impl Sequencer {
@@ -112,6 +117,8 @@ impl Sequencer {
             prompt: None,
             dark: None,
             reference: None,
+            last_reference: None,
+            since_reference: Vec::new(),
         }
     }
 
@@ -155,25 +162,40 @@ impl Sequencer {
         plan: &Plan,
         next_attempt: &mut impl FnMut(usize) -> u32,
     ) -> Result<(), Stop> {
-        for step in &plan.steps {
-            match step {
-                Step::Home => self.home(bench).await?,
-                Step::Reference(placement) => self.reference(bench, plan, *placement).await?,
-                Step::Site(_) => {}
-            }
-        }
         let mut todo = plan.clone();
         for pass in 0..=plan.acquire().retries {
             let count = todo.sites().count();
             if count == 0 {
                 break;
             }
-            self.publish(RunEvent::Pass { pass, sites: count })
-                .map_err(Stop::Fault)?;
+            if pass > 0 {
+                self.publish(RunEvent::Pass { pass, sites: count })
+                    .map_err(Stop::Fault)?;
+            }
             let mut invalid = Vec::new();
-            for step in todo.sites() {
-                self.site(bench, plan, step, next_attempt, &mut invalid)
-                    .await?;
+            // A later pass skips the prelude (homed and referenced already) but takes the
+            // lamp-drift references placed between its sites.
+            let first_site = todo
+                .steps
+                .iter()
+                .position(|s| matches!(s, Step::Site(_)))
+                .unwrap_or(0);
+            let from = if pass == 0 { 0 } else { first_site };
+            for (i, step) in todo.steps.iter().enumerate().skip(from) {
+                match step {
+                    Step::Home => self.home(bench).await?,
+                    Step::Reference(placement) => {
+                        self.reference(bench, plan, *placement).await?;
+                        if pass == 0 && i + 1 == first_site {
+                            self.publish(RunEvent::Pass { pass, sites: count })
+                                .map_err(Stop::Fault)?;
+                        }
+                    }
+                    Step::Site(step) => {
+                        self.site(bench, plan, step, next_attempt, &mut invalid)
+                            .await?
+                    }
+                }
             }
             self.finish(self.workers.take_all(), &mut invalid).await?;
             todo = plan.only(|s| invalid.contains(&s.number));
@@ -264,19 +286,46 @@ impl Sequencer {
             .map_err(Stop::Fault)?;
         self.store(&ref_file, &as_raw(&reference))
             .map_err(Stop::Fault)?;
+        let time = now();
+        let taken = TakenReference {
+            t: seconds(&time).unwrap_or_default(),
+            dark: dark.clone(),
+            reference: reference.clone(),
+        };
         self.log(Event::ReferenceTaken {
-            time: now(),
+            time,
             dark: dark_file,
             reference: ref_file,
         })
         .map_err(Stop::Fault)?;
+        self.renormalise(&taken);
         self.note(format!("dark and {material} reference taken"))?;
         if let Some(note) = plan.fitter.coverage_note(&reference.wavelength_nm) {
             self.note(format!("warning: spectrometer: {note}"))?;
         }
         self.dark = Some(dark);
         self.reference = Some(reference);
+        self.last_reference = Some(taken);
         Ok(())
+    }
+
+    /// Fits the sites measured since the previous reference again, each normalised by the
+    /// reference interpolated at its time between that one and `taken` (see [`super::drift`]);
+    /// the new fits supersede the first ones in the journal.
+    fn renormalise(&mut self, taken: &TakenReference) {
+        let since = std::mem::take(&mut self.since_reference);
+        let Some(before) = &self.last_reference else {
+            return;
+        };
+        for (site, attempt, t, raw) in since {
+            match normalised_between(&raw, before, taken, t) {
+                Some(raw) => self.workers.start(site, attempt, Arc::new(raw)),
+                None => tracing::warn!(
+                    site,
+                    "references on different wavelength axes: the site keeps its first fit"
+                ),
+            }
+        }
     }
 
     /// Writes a raw spectrum file (relative path in the run folder) atomically.
@@ -320,8 +369,12 @@ impl Sequencer {
         };
         let rel = format!("spectra/site-{n:04}-a{attempt}.csv");
         self.store(&rel, &raw).map_err(Stop::Fault)?;
+        let raw = Arc::new(raw);
+        let time = now();
+        self.since_reference
+            .push((n, attempt, seconds(&time).unwrap_or_default(), raw.clone()));
         self.log(Event::SiteMeasured {
-            time: now(),
+            time,
             site: n,
             attempt,
             x_mm: step.site.x_mm,
@@ -334,7 +387,7 @@ impl Sequencer {
         self.publish(RunEvent::Acquired {
             site: n,
             attempt,
-            raw: Arc::new(raw),
+            raw,
         })
         .map_err(Stop::Fault)?;
         // The fit of the previous site has had the whole move to finish.
@@ -355,6 +408,8 @@ impl Sequencer {
                 Ok(fit) => {
                     let (valid, flag) = judge(&fit, &self.accept);
                     tracing::info!(site, attempt, thickness_nm = fit.thickness_nm(), gof = fit.gof, %flag, "site fitted");
+                    // A later fit of the same spectrum (renormalised) has the last word.
+                    invalid.retain(|s| *s != site);
                     if !valid {
                         invalid.push(site);
                     }

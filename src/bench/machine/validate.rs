@@ -246,8 +246,8 @@ fn check_simulation(s: &SimulationSpec, r: &mut Problems) {
         r.range(
             &format!("simulation.spectrometer.{key}"),
             v,
-            -1000.0,
-            1000.0,
+            -1e4,
+            1e4,
             "%/h",
         );
     }
