@@ -10,6 +10,7 @@ pub mod folder;
 pub mod history_entry;
 pub mod id;
 pub mod journal;
+pub mod machine_change;
 pub mod measure;
 pub mod new_run;
 pub mod outputs;
