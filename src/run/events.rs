@@ -89,6 +89,19 @@ pub fn judge(fit: &FitResult, accept: &AcceptSpec) -> (bool, String) {
     (false, flags.join(";"))
 }
 
+/// The `site-fitted` event of `fit` for a site attempt, judged by `accept`.
+pub fn fitted(site: usize, attempt: u32, fit: FitResult, accept: &AcceptSpec) -> Event {
+    let (valid, flag) = judge(&fit, accept);
+    Event::SiteFitted {
+        time: now(),
+        site,
+        attempt,
+        fit,
+        valid,
+        flag,
+    }
+}
+
 /// One measurement attempt of a site.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Attempt {

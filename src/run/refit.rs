@@ -2,7 +2,7 @@
 //! `isopach refit` with a new model, window or method. No stage motion.
 
 use super::drift::ReferenceTimeline;
-use super::events::{judge, now, Event, SiteState};
+use super::events::{fitted, now, Event, SiteState};
 use super::folder::RunFolder;
 use crate::fit::Fitter;
 use crate::recipe::schema::{AcceptSpec, Recipe};
@@ -21,17 +21,7 @@ pub fn fit_stored(
     reference_material: &str,
     accept: &AcceptSpec,
 ) -> Event {
-    let fitted = |fit: crate::fit::FitResult| {
-        let (valid, flag) = judge(&fit, accept);
-        Event::SiteFitted {
-            time: now(),
-            site,
-            attempt,
-            fit,
-            valid,
-            flag,
-        }
-    };
+    let fitted = |fit| fitted(site, attempt, fit, accept);
     let failed = |reason: String| Event::SiteFailed {
         time: now(),
         site,

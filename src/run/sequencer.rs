@@ -8,9 +8,13 @@
 //! that still fails is flagged, not fatal. Ctrl-C or a fault at ANY step (homing and the
 //! reference move included) abandons that step, finishes and journals the fits in flight,
 //! stops the stage and journals the stop, so the run can be resumed.
+//!
+//! Lamp-drift references placed by the plan between sites are executed like any step; when
+//! one is taken, the sites measured since the previous one are fitted again with the reference
+//! interpolated in time ([`super::drift`]).
 
 use super::drift::{normalised_between, seconds, TakenReference};
-use super::events::{judge, now, Event};
+use super::events::{fitted, now, Event};
 use super::fit_workers::{FitWorkers, Pending};
 use super::folder::RunFolder;
 use super::plan::{Plan, ReferencePlacement, SiteStep, Step};
@@ -406,21 +410,19 @@ impl Sequencer {
             let result = p.result().await;
             let event = match result {
                 Ok(fit) => {
-                    let (valid, flag) = judge(&fit, &self.accept);
-                    tracing::info!(site, attempt, thickness_nm = fit.thickness_nm(), gof = fit.gof, %flag, "site fitted");
-                    // A later fit of the same spectrum (renormalised) has the last word.
-                    invalid.retain(|s| *s != site);
-                    if !valid {
-                        invalid.push(site);
+                    let event = fitted(site, attempt, fit, &self.accept);
+                    if let Event::SiteFitted {
+                        fit, valid, flag, ..
+                    } = &event
+                    {
+                        tracing::info!(site, attempt, thickness_nm = fit.thickness_nm(), gof = fit.gof, %flag, "site fitted");
+                        // A later fit of the same spectrum (renormalised) has the last word.
+                        invalid.retain(|s| *s != site);
+                        if !valid {
+                            invalid.push(site);
+                        }
                     }
-                    Event::SiteFitted {
-                        time: now(),
-                        site,
-                        attempt,
-                        fit,
-                        valid,
-                        flag,
-                    }
+                    event
                 }
                 Err(reason) => {
                     tracing::warn!(site, attempt, %reason, "site not fitted");
