@@ -9,8 +9,9 @@ mod run_common;
 use run_common::*;
 
 /// Lamp drift of the test bench, % per hour of virtual time: at least 3 % over the test map
-/// (a 9-site run lasts about a virtual minute at these settings; the test measures it).
-const DRIFT_PCT_PER_HOUR: f64 = 600.0;
+/// (a 9-site run lasts 20–40 virtual seconds at these settings, longer under load; the test
+/// measures the drift it got).
+const DRIFT_PCT_PER_HOUR: f64 = 900.0;
 
 /// Runs the test recipe with `extra` machine lines; returns the run folder.
 fn drift_run(dir: &Path, extra: &str, wafer: &str) -> std::path::PathBuf {
