@@ -216,9 +216,10 @@ impl Sequencer {
             }
             self.finish(self.workers.take_all(), &mut invalid).await?;
             todo = plan.only(|s| invalid.contains(&s.number));
-            let left: Vec<String> = todo.sites().map(|s| s.site.number.to_string()).collect();
+            let left: Vec<usize> = todo.sites().map(|s| s.site.number).collect();
             if !left.is_empty() && pass < plan.acquire().retries {
-                self.note(format!("measuring again: site {}", left.join(", ")))?;
+                let sites = crate::site_list::site_list(left);
+                self.note(format!("measuring again: site {sites}"))?;
             }
         }
         Ok(())
