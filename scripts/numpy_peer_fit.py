@@ -8,10 +8,11 @@ program, timed against isopach's criterion benchmark (benches/fit.rs) in one run
 The problems are the bench's: 2048 pixels with 0.3 % Gaussian noise,
   single  SiO2 on Si, 420-980 nm, true 1234 nm, search 100-3000 nm
   bilayer Si3N4 (80-250 nm, true 163) on SiO2 (300-800 nm, true 512) on Si, 400-1000 nm.
-The algorithm is isopach's (docs/fitting.md): a grid over every fitted thickness with a step
+The algorithm is isopach's (src/fit/model.rs): a grid over every fitted thickness with a step
 of lambda_min / (10 n) on a pixel subset (5 pixels per fringe at the shortest wavelength for
-the thickest stack), the best local minima of chi^2 refined by Levenberg-Marquardt on that
-subset, the best polished on all pixels. Reflectance is the closed-form Airy sum of the
+the thickest stack), up to 12 local minima of chi^2 moved to their parabola vertex, refined by
+a short Levenberg-Marquardt on that subset unless their predicted chi^2 cannot compete, the
+best polished on all pixels. Reflectance is the closed-form Airy sum of the
 stack at normal incidence (the transfer-matrix result for one or two layers), evaluated for
 the whole grid at once as numpy arrays; the polish is scipy.optimize.least_squares
 (method "lm") with the analytic Jacobian. One thread: numpy's BLAS is not used by these
@@ -100,19 +101,71 @@ def search_stride(lam, stack, upper):
 def local_minima(chi2):
     """Indices of the grid points no higher than any neighbour (all axes), best first."""
     pad = np.pad(chi2, 1, constant_values=np.inf)
-    core = tuple(slice(1, -1) for _ in chi2.shape)
     is_min = np.ones(chi2.shape, dtype=bool)
     for shift in np.ndindex(*([3] * chi2.ndim)):
         if all(s == 1 for s in shift):
             continue
         window = tuple(slice(s, s + n) for s, n in zip(shift, chi2.shape))
         is_min &= chi2 <= pad[window]
-    del core
     idx = np.argwhere(is_min)
     return idx[np.argsort(chi2[tuple(idx.T)])]
 
 
-def fit(stack, measured, lower, upper, candidates=3):
+def refined_start(chi2, axes, i):
+    """A parabola through each axis' neighbours: the start moved to its vertex (at most one
+    step) and the chi^2 it predicts there (isopach's `Grid::refined`)."""
+    start = np.array([ax[j] for ax, j in zip(axes, i)])
+    predicted = chi2[tuple(i)]
+    for a, ax in enumerate(axes):
+        if 0 < i[a] < len(ax) - 1:
+            lo, hi = list(i), list(i)
+            lo[a] -= 1
+            hi[a] += 1
+            f0, fm, fp = chi2[tuple(i)], chi2[tuple(lo)], chi2[tuple(hi)]
+            curv = (fp + fm - 2.0 * f0) / 2.0
+            if curv > 0 and np.isfinite(fp + fm):
+                slope = (fp - fm) / 2.0
+                off = np.clip(-slope / (2.0 * curv), -1.0, 1.0)
+                start[a] += off * (ax[1] - ax[0])
+                predicted -= slope * slope / (4.0 * curv)
+    return start, predicted
+
+
+# isopach's settings (src/fit/model.rs): 12 candidates; the coarse LM on the search pixels
+# stops after 15 iterations or a relative chi^2 change of 1e-6 or a step under 0.01 nm; the
+# polish on all pixels stops at a step under 1e-4 nm; a basin predicted above
+# 4 chi2_best + 36 s^2 is skipped.
+CANDIDATES = 12
+AMBIGUITY_DCHI2 = 9.0
+
+
+def solve(s, y, x0, lower, upper, coarse):
+    """scipy least_squares (MINPACK lmder) with the analytic Jacobian; R and dR/dd computed
+    once per point (lmder asks for both at the same x)."""
+    memo = {}
+
+    def at(x):
+        key = x.tobytes()
+        if key not in memo:
+            memo.clear()
+            memo[key] = s.reflectance(x, jac=True)
+        return memo[key]
+
+    scale = max(1.0, float(np.max(np.abs(x0))))
+    r = least_squares(
+        lambda x: at(x)[0] - y,
+        x0,
+        jac=lambda x: np.stack(at(x)[1], axis=-1),
+        method="lm",
+        xtol=(0.01 if coarse else 1e-4) / scale,
+        ftol=1e-6 if coarse else 1e-10,
+        max_nfev=16 if coarse else None,
+    )
+    r.x = np.clip(r.x, lower, upper)
+    return r
+
+
+def fit(stack, measured, lower, upper):
     lam = stack.lam
     steps = [lam[0] / (10.0 * np.real(n[0])) for n in stack.n[1:-1]]
     axes = [np.linspace(lo, hi, int(np.ceil((hi - lo) / s)) + 1) for lo, hi, s in zip(lower, upper, steps)]
@@ -125,18 +178,20 @@ def fit(stack, measured, lower, upper, candidates=3):
         part = flat[start:start + 4096]
         chi2[start:start + len(part)] = np.sum((small.reflectance(part) - measured[sub]) ** 2, axis=-1)
     chi2 = chi2.reshape(grid.shape[:-1])
-
-    def solve(s, y, x0):
-        return least_squares(
-            lambda x: s.reflectance(x) - y,
-            x0,
-            jac=lambda x: np.stack(s.reflectance(x, jac=True)[1], axis=-1),
-            method="lm",
-        )
-
-    refined = [solve(small, measured[sub], grid[tuple(i)]) for i in local_minima(chi2)[:candidates]]
-    best = min(refined, key=lambda r: r.cost)
-    return solve(stack, measured, best.x).x
+    starts = sorted((refined_start(chi2, axes, i) for i in local_minima(chi2)[:CANDIDATES]),
+                    key=lambda sp: sp[1])
+    dof_sub = max(1, len(sub) - len(axes))
+    refined = []
+    for start, predicted in starts:
+        if refined:
+            best = 2.0 * refined[0].cost
+            if predicted > 4.0 * best + 4.0 * AMBIGUITY_DCHI2 * best / dof_sub:
+                continue
+        r = solve(small, measured[sub], start, lower, upper, coarse=True)
+        if not any(np.all(np.abs(q.x - r.x) < np.maximum(0.2 * np.array(steps), 0.5)) for q in refined):
+            refined.append(r)
+            refined.sort(key=lambda q: q.cost)
+    return solve(stack, measured, refined[0].x, lower, upper, coarse=False).x
 
 
 def problem(names, lam, truth):
