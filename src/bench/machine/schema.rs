@@ -597,7 +597,7 @@ fn d_sim_banner() -> String {
     "isopach virtual stage 1.0 (simulated)".into()
 }
 fn d_idle_lag() -> f64 {
-    20.0
+    2.0
 }
 fn d_planner() -> usize {
     8
