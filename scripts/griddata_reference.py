@@ -6,10 +6,14 @@ Writes fixtures/map/griddata_49.csv: the 49 sites of the standard pattern on a 1
 then an 81 x 81 grid over the usable disc with the true value and scipy's linear and cubic
 (Clough-Tocher) griddata values (NaN outside the sites' convex hull).
 
-With --timing it also times griddata for the benchmark cases of docs/performance.md
-(49 sites -> 512^2 grid, 5000 sites -> 1024^2 grid) and prints each method's error.
+With --timing it times griddata for the benchmark cases of docs/performance.md on the very
+points isopach's benchmark uses (49 sites -> 512^2 grid; 5000 sites on Vogel's sunflower
+spiral -> 1024^2 grid), wall and CPU, median and spread of repeated calls, and prints each
+method's error; with --dense it prints scipy's errors on the 256^2 grid of the dense-site test
+(tests/map_interpolation.rs), the bound that test holds isopach to.
 
-Run: python3 scripts/griddata_reference.py [--timing]
+Run: python3 scripts/griddata_reference.py --fixture | --timing | --dense
+(the fixture is written only with --fixture).
 """
 import math
 import sys
@@ -71,33 +75,69 @@ def write_fixture(path):
               f"over {ok.sum()} of {len(gx)} nodes")
 
 
-def timing():
-    rng = np.random.default_rng(20261203)
-    cases = []
-    sites = standard_49()
-    cases.append(("49 sites -> 512^2", sites, 512))
-    r = R_USABLE * np.sqrt(rng.uniform(0, 1, 5000))
-    a = rng.uniform(0, 2 * math.pi, 5000)
-    cases.append(("5000 sites -> 1024^2", np.column_stack([r * np.cos(a), r * np.sin(a)]), 1024))
+def spiral(n):
+    """Vogel's sunflower spiral over the usable disc: the points of benches/map.rs and of the
+    dense-site test (radius 69.5 mm)."""
+    golden = math.pi * (3.0 - math.sqrt(5.0))
+    i = np.arange(n, dtype=float)
+    r = 69.5 * np.sqrt((i + 0.5) / n)
+    a = i * golden
+    return np.column_stack([r * np.cos(a), r * np.sin(a)])
+
+
+def errors(pts, n, method):
+    """griddata of the analytic field at `pts` on an n x n grid over the usable disc; returns
+    (estimate, truth, inside)."""
+    values = analytic(pts[:, 0], pts[:, 1])
+    xs = np.linspace(-R_USABLE, R_USABLE, n)
+    gx, gy = np.meshgrid(xs, xs)
+    est = griddata(pts, values, (gx, gy), method=method)
+    return est, analytic(gx, gy), gx * gx + gy * gy <= R_USABLE ** 2
+
+
+def report(label, method, est, truth, inside, extra=""):
+    ok = inside & np.isfinite(est)
+    err = est[ok] - truth[ok]
+    print(f"{label:22s} {method:6s} {extra} rms {np.sqrt(np.mean(err**2)):.4f} nm"
+          f"  max {np.abs(err).max():.4f} nm  ({ok.sum() / inside.sum() * 100:.1f} % of disc)")
+
+
+def timing(repeats=7):
+    """Wall and CPU time of each griddata call (Qhull and the interpolation run on one
+    thread), median and range over `repeats` calls, timed like the criterion figures."""
+    cases = [("49 sites -> 512^2", standard_49(), 512), ("5000 sites -> 1024^2", spiral(5000), 1024)]
     for label, pts, n in cases:
-        values = analytic(pts[:, 0], pts[:, 1])
-        xs = np.linspace(-R_USABLE, R_USABLE, n)
-        gx, gy = np.meshgrid(xs, xs)
-        truth = analytic(gx, gy)
-        inside = gx * gx + gy * gy <= R_USABLE ** 2
         for method in ["linear", "cubic"]:
-            best = math.inf
-            for _ in range(3):
-                t0 = time.perf_counter()
+            values = analytic(pts[:, 0], pts[:, 1])
+            xs = np.linspace(-R_USABLE, R_USABLE, n)
+            gx, gy = np.meshgrid(xs, xs)
+            walls, cpus = [], []
+            for _ in range(repeats):
+                w0, c0 = time.perf_counter(), time.process_time()
                 est = griddata(pts, values, (gx, gy), method=method)
-                best = min(best, time.perf_counter() - t0)
-            ok = inside & np.isfinite(est)
-            err = est[ok] - truth[ok]
-            print(f"{label:22s} {method:6s} {best * 1000:9.1f} ms  rms {np.sqrt(np.mean(err**2)):.4f} nm"
-                  f"  max {np.abs(err).max():.4f} nm  ({ok.sum() / inside.sum() * 100:.1f} % of disc)")
+                cpus.append(time.process_time() - c0)
+                walls.append(time.perf_counter() - w0)
+            truth, inside = analytic(gx, gy), gx * gx + gy * gy <= R_USABLE ** 2
+            ms = lambda v: f"{np.median(v) * 1000:7.1f} ms [{min(v) * 1000:.1f}-{max(v) * 1000:.1f}]"
+            report(label, method, est, truth, inside, f"wall {ms(walls)} cpu {ms(cpus)}")
+
+
+def dense():
+    """scipy's errors on the dense-site test's points and 256^2 grid."""
+    for method in ["linear", "cubic"]:
+        est, truth, inside = errors(spiral(5000), 256, method)
+        report("5000 sites -> 256^2", method, est, truth, inside)
 
 
 if __name__ == "__main__":
-    write_fixture("fixtures/map/griddata_49.csv")
-    if "--timing" in sys.argv:
+    args = set(sys.argv[1:])
+    if not args & {"--fixture", "--timing", "--dense"}:
+        sys.exit(__doc__)
+    print(f"scipy {scipy.__version__}, numpy {np.__version__}; load average "
+          f"{' '.join(f'{x:.2f}' for x in __import__('os').getloadavg())}")
+    if "--fixture" in args:
+        write_fixture("fixtures/map/griddata_49.csv")
+    if "--timing" in args:
         timing()
+    if "--dense" in args:
+        dense()

@@ -19,5 +19,6 @@ pub mod map;
 pub mod optics;
 pub mod recipe;
 pub mod run;
+pub mod site_list;
 pub mod spectrum;
 pub mod tomlcheck;

@@ -64,14 +64,18 @@ async fn counts_scale_with_integration_time_and_saturate() {
 #[tokio::test(start_paused = true)]
 async fn seeded_noise_is_reproducible() {
     let r = recipe("oxide-150-49.toml");
-    let mut a = Bench::open(None, &r, 7).await.unwrap();
-    let mut b = Bench::open(None, &r, 7).await.unwrap();
-    let mut c = Bench::open(None, &r, 8).await.unwrap();
-    let (x, y, z) = (
-        a.spectrometer.reference(20.0, 1).await.unwrap(),
-        b.spectrometer.reference(20.0, 1).await.unwrap(),
-        c.spectrometer.reference(20.0, 1).await.unwrap(),
-    );
+    // Each bench is opened and read in turn, so each spectrum is taken at the same virtual
+    // time after its bench opened: the virtual lamp drifts with that time.
+    let reference = |seed| {
+        let r = &r;
+        async move {
+            let mut bench = Bench::open(None, r, seed).await.unwrap();
+            bench.spectrometer.reference(20.0, 1).await.unwrap()
+        }
+    };
+    let x = reference(7).await;
+    let y = reference(7).await;
+    let z = reference(8).await;
     assert_eq!(x, y);
     assert_ne!(x, z);
 }

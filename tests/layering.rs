@@ -10,7 +10,7 @@ use std::path::{Path, PathBuf};
 /// Floors, lowest first. A module may use modules of lower floors only; modules on one floor
 /// do not use each other.
 const FLOORS: &[&[&str]] = &[
-    &["error_text", "tomlcheck"],
+    &["error_text", "site_list", "tomlcheck"],
     &["optics"],
     &["recipe"],
     &["spectrum", "map"],

@@ -293,3 +293,28 @@ proptest! {
         }
     }
 }
+
+#[test]
+fn a_reference_placed_by_hand_cannot_be_repeated_for_lamp_drift() {
+    // BASE has no [spectrometer]: simulated, nothing to place, so repeats are fine.
+    assert!(problems(&format!("{BASE}[reference]\nevery_sites = 10\n")).is_empty());
+    let real = format!(
+        "{BASE}[spectrometer]\nkind = \"command\"\ncommand = [\"/opt/lab/grab\"]\n[reference]\nevery_min = 15\n"
+    );
+    let p = problems(&real);
+    assert_eq!(p.len(), 1, "{p:?}");
+    let text = p[0].to_string();
+    assert!(
+        text.contains("reference.every_min") && text.contains("position_mm"),
+        "{text}"
+    );
+    // With an on-chuck reference piece it can.
+    assert!(problems(&format!("{real}position_mm = [10, 10]\n")).is_empty());
+    let p = problems(&format!(
+        "{BASE}[simulation.spectrometer]\nlamp_drift_pct_per_hour = 1e9\n"
+    ));
+    assert!(
+        p[0].to_string().contains("lamp_drift_pct_per_hour"),
+        "{p:?}"
+    );
+}

@@ -149,23 +149,35 @@ fn dense_sites_follow_the_analytic_field_on_the_grid() {
         })
         .collect();
     let grid = Field::new(&sites, &wafer_150()).unwrap().grid(256, 0.0);
-    let mut errs = Vec::new();
+    // Every filled node, and those inside the sites' hull (r ≤ 69 mm: the spiral's outer
+    // sites lie at 69.4–69.5 mm), where scipy's griddata fills too.
+    let (mut errs, mut hull) = (Vec::new(), Vec::new());
     for j in 0..grid.ny() {
         for i in 0..grid.nx() {
             let v = grid.at(i, j);
             if v.is_finite() {
-                errs.push(v - analytic(grid.x(i), grid.y(j), 70.0));
+                let (x, y) = (grid.x(i), grid.y(j));
+                let e = v - analytic(x, y, 70.0);
+                errs.push(e);
+                if x.hypot(y) <= 69.0 {
+                    hull.push(e);
+                }
             }
         }
     }
-    let max = errs.iter().fold(0.0f64, |m, e| m.max(e.abs()));
+    let max = |e: &[f64]| e.iter().fold(0.0f64, |m, e| m.max(e.abs()));
     eprintln!(
-        "5000 sites, 256² grid: rms {:.4} nm, max {:.4} nm",
+        "5000 sites, 256² grid: rms {:.4} nm, max {:.4} nm over the disc; rms {:.4} nm, max {:.4} nm inside the hull",
         rms(&errs),
-        max
+        max(&errs),
+        rms(&hull),
+        max(&hull)
     );
-    // Bounds: scipy linear's figures on the same points (0.012 nm RMS, 0.445 nm max).
+    // scipy linear on the same points and grid (`python3 scripts/griddata_reference.py
+    // --dense`, scipy 1.17.1): rms 0.0048 nm, max 0.096 nm inside the hull (97.9 % of the
+    // disc). isopach is below both inside the hull (measured 0.0011 nm, 0.028 nm), and fills
+    // the rim too, where its max stays below scipy's max inside the hull.
     assert!(errs.len() > 40_000, "{} filled nodes", errs.len());
-    assert!(rms(&errs) < 0.012, "rms {}", rms(&errs));
-    assert!(max < 0.445, "max {max}");
+    assert!(rms(&hull) < 0.0048, "rms {}", rms(&hull));
+    assert!(max(&errs) < 0.096, "max {}", max(&errs));
 }

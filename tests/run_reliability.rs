@@ -38,32 +38,11 @@ fn a_run_measures_every_site_and_fits_the_virtual_wafer() {
             .count(),
         9
     );
-    // Every fitted thickness matches the virtual wafer's true thickness at that site: the same
-    // bench (machine and seed from run.toml) rebuilt here gives the truth.
-    let folder = RunFolder::new(&run);
-    let meta = folder.read_run_toml().unwrap();
-    let loaded = isopach::run::new_run::loaded_recipe(&folder, &meta);
-    let machine = isopach::run::measure::machine_of(&meta).unwrap();
-    let rt = tokio::runtime::Runtime::new().unwrap();
-    let bench = rt
-        .block_on(isopach::bench::Bench::open(
-            machine.as_ref(),
-            &loaded,
-            meta.run.seed,
-        ))
-        .unwrap();
-    let truth = bench.virtual_wafer().expect("simulated spectrometer");
-    let rows = isopach::map::sites_table::read_file(&run.join("sites.csv")).unwrap();
-    for r in &rows {
-        let want = truth.thickness_nm(r.x_mm, r.y_mm).unwrap();
+    // Every fitted thickness matches the virtual wafer's true thickness at that site.
+    for (site, got, want) in fitted_and_true(&run) {
         // Optics target with noise: max(1 nm, 0.2 %); sites.csv keeps 1 pm.
         let tol = (1.0f64).max(0.002 * want);
-        assert!(
-            (r.thickness_nm[0] - want).abs() <= tol,
-            "site {}: {} vs {want}",
-            r.site,
-            r.thickness_nm[0]
-        );
+        assert!((got - want).abs() <= tol, "site {site}: {got} vs {want}");
     }
 }
 

@@ -66,6 +66,12 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
                 m.name, plan.reference_material
             );
         }
+        if plan.repeats_reference() {
+            outln!(
+                "note: the reference is taken {} times in a map (lamp drift: [reference] every_sites/every_min); each site is normalised by the reference interpolated in time",
+                plan.references()
+            );
+        }
     }
     Ok(super::exit::OK)
 }

@@ -13,6 +13,7 @@ use isopach::run::measure::{self, Hooks, SessionReport};
 use isopach::run::plan::Plan;
 use isopach::run::sequencer::Outcome;
 use isopach::run::stream::{RunEvent, Subscriber, Watcher};
+use isopach::site_list::site_list;
 use std::sync::Arc;
 
 pub use isopach::run::measure::Which;
@@ -176,26 +177,25 @@ fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: SessionRepor
             outln!("  {}", attempts_line(state));
         }
     }
-    let bad: Vec<String> = report
+    let bad: Vec<usize> = report
         .states
         .iter()
         .filter(|s| !s.is_valid())
-        .map(|s| s.site.number.to_string())
+        .map(|s| s.site.number)
         .collect();
     if !bad.is_empty() && matches!(report.outcome, Outcome::Finished) {
         outln!(
             "  sites without a valid result: {} (isopach remeasure {} --failed)",
-            bad.join(", "),
+            site_list(bad),
             folder.root.display()
         );
     }
     if let Some(c) = f.spec.as_ref().filter(|c| !c.sites_out.is_empty()) {
-        let out: Vec<String> = c.sites_out.iter().map(|n| n.to_string()).collect();
         outln!(
             "  out of spec [{}, {}] nm: site {}",
             c.lo_nm,
             c.hi_nm,
-            out.join(", ")
+            site_list(c.sites_out.iter().copied())
         );
     }
     match report.outcome {

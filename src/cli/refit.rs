@@ -34,7 +34,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     let folder = RunFolder::new(&args.run);
     super::measure::prepare(&folder)?;
     let mut meta = folder.read_run_toml()?;
-    let (_, states) = derive::read_states(&folder, &meta)?;
+    let (journalled, states) = derive::read_states(&folder, &meta)?;
     let attempts = refit::stored_attempts(&states);
     let mut previous = None;
     let mut recipe_name = meta.recipe.name.clone();
@@ -61,6 +61,8 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     let material = reference_material(&machine_of(&meta)?);
     // All or nothing: the fits count only once refit-finished is journalled; a refit killed
     // before that is discarded by the next session (run.toml restored from `previous`).
+    // Each spectrum normalised by the reference interpolated in time, as when measured.
+    let timeline = isopach::run::drift::ReferenceTimeline::from_events(&journalled);
     let mut journal = Journal::open(&folder.journal())?;
     journal.append(&Event::RunStarted {
         time: now(),
@@ -85,15 +87,16 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     let events = refit::fit_all(
         &folder,
         &attempts,
+        &timeline,
         &fitter,
         &material,
         &meta.recipe.accept,
         &|| bar.inc(1),
     );
     bar.finish_and_clear();
-    for e in &events {
-        journal.append(e)?;
-    }
+    // One write and one sync for all the fits: they count only once refit-finished is
+    // journalled, so a kill in between loses nothing that counted.
+    journal.append_all(&events)?;
     journal.append(&Event::RefitFinished { time: now() })?;
     let summary = derive::rebuild(&folder)?;
     let f = &summary.first;

@@ -7,7 +7,7 @@ use anyhow::Context;
 use isopach::bench::centring::CentringSettings;
 use isopach::recipe;
 use isopach::run::new_run;
-use isopach::run::plan::{path_length, Plan};
+use isopach::run::plan::{path_length, Plan, Step};
 use std::path::PathBuf;
 
 /// Arguments of `isopach run`.
@@ -107,16 +107,30 @@ fn dry_run(plan: &Plan) -> anyhow::Result<u8> {
         "stage_x",
         "stage_y"
     );
-    for (i, s) in plan.sites().enumerate() {
-        outln!(
-            "{:>5} {:>5} {:>9.3} {:>9.3} {:>10.3} {:>10.3}",
-            i + 1,
-            s.site.number,
-            s.site.x_mm,
-            s.site.y_mm,
-            s.stage_mm[0],
-            s.stage_mm[1]
-        );
+    let mut order = 0;
+    // The lamp-drift references between sites are steps of the plan too.
+    for step in plan
+        .steps
+        .iter()
+        .skip_while(|s| !matches!(s, Step::Site(_)))
+    {
+        match step {
+            Step::Site(s) => {
+                order += 1;
+                outln!(
+                    "{:>5} {:>5} {:>9.3} {:>9.3} {:>10.3} {:>10.3}",
+                    order,
+                    s.site.number,
+                    s.site.x_mm,
+                    s.site.y_mm,
+                    s.stage_mm[0],
+                    s.stage_mm[1]
+                );
+            }
+            Step::Reference(_) => outln!("{:>5} reference taken again (lamp drift)", ""),
+            // Before the sites, said below the table.
+            Step::Home | Step::Centre(_) => {}
+        }
     }
     let a = plan.acquire();
     let m = &plan.machine;

@@ -74,6 +74,14 @@ pub enum Event {
     },
     /// Every fit of the refit begun last is journalled: they count from here on.
     RefitFinished { time: String },
+    /// `resume --machine` replaced the run's machine file (names of the old and new file, the
+    /// dotted keys that changed); later sessions use the new one, frozen in `run.toml`.
+    MachineChanged {
+        time: String,
+        old: String,
+        new: String,
+        keys: Vec<String>,
+    },
     /// The session stopped early (Ctrl-C, fault); the run can be resumed.
     RunStopped { time: String, reason: String },
     /// Every planned site has a result.

@@ -4,6 +4,7 @@
 
 use super::stream::{RunEvent, Subscriber};
 use crate::fit::{FitResult, Fitter};
+use crate::spectrum::RawSpectrum;
 use std::collections::VecDeque;
 use std::sync::{Arc, Mutex};
 use tokio::task::JoinHandle;
@@ -59,22 +60,23 @@ impl FitWorkers {
     pub fn take_all(&self) -> Vec<Pending> {
         self.lock().drain(..).collect()
     }
+
+    /// Starts fitting `raw` as `site`, `attempt` (a new spectrum, or a stored one normalised
+    /// again by an interpolated reference); its result queues behind the fits in flight.
+    pub fn start(&self, site: usize, attempt: u32, raw: Arc<RawSpectrum>) {
+        let fitter = self.fitter.clone();
+        let material = self.reference_material.clone();
+        let job = tokio::task::spawn_blocking(move || {
+            fitter.fit_raw(&raw, &material).map_err(|e| e.to_string())
+        });
+        self.lock().push_back(Pending { site, attempt, job });
+    }
 }
 
 impl Subscriber for FitWorkers {
     fn on_event(&mut self, event: &RunEvent) -> anyhow::Result<()> {
         if let RunEvent::Acquired { site, attempt, raw } = event {
-            let fitter = self.fitter.clone();
-            let material = self.reference_material.clone();
-            let raw = raw.clone();
-            let job = tokio::task::spawn_blocking(move || {
-                fitter.fit_raw(&raw, &material).map_err(|e| e.to_string())
-            });
-            self.lock().push_back(Pending {
-                site: *site,
-                attempt: *attempt,
-                job,
-            });
+            self.start(*site, *attempt, raw.clone());
         }
         Ok(())
     }

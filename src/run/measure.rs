@@ -5,6 +5,7 @@
 //! supplies the human side through [`Hooks`].
 
 use super::derive;
+use super::drift::ReferenceTimeline;
 use super::events::{journalled_centring, now, Event, SiteState};
 use super::fit_workers::FitWorkers;
 use super::folder::{RunFolder, RunToml};
@@ -76,10 +77,19 @@ pub fn reference_material(machine: &Option<MachineFile>) -> String {
 
 /// The plan of an existing run: its frozen recipe, machine file and site order, checked.
 pub fn plan_of_run(folder: &RunFolder, meta: &RunToml) -> anyhow::Result<Plan> {
+    plan_on_machine(folder, meta, machine_of(meta)?.as_ref())
+}
+
+/// The plan of an existing run on `machine` (a corrected machine file), checked against its
+/// soft limits.
+pub fn plan_on_machine(
+    folder: &RunFolder,
+    meta: &RunToml,
+    machine: Option<&MachineFile>,
+) -> anyhow::Result<Plan> {
     let loaded = loaded_recipe(folder, meta);
-    let machine = machine_of(meta)?;
     let order = derive::planned_order(folder, meta)?;
-    let plan = Plan::for_sites(&loaded, machine.as_ref(), &order)?;
+    let plan = Plan::for_sites(&loaded, machine, &order)?;
     // A run centred earlier keeps its measured centre; one stopped before its centring
     // finished centres first.
     let (events, _) = derive::read_states(folder, meta)?;
@@ -146,6 +156,7 @@ pub async fn session(
         sites_planned: plan.sites().count(),
     })?;
     // Spectra stored before a stop but not fitted are fitted first: no motion needed.
+    let timeline = ReferenceTimeline::from_events(&events);
     for s in &states {
         for a in s.unfitted() {
             if let Some(rel) = &a.spectrum {
@@ -154,6 +165,7 @@ pub async fn session(
                     s.site.number,
                     a.attempt,
                     rel,
+                    &timeline,
                     &plan.fitter,
                     &plan.reference_material,
                     plan.accept(),

@@ -2,6 +2,7 @@
 //! subscribers (journal, fitting workers), the run folder and what is derived from it.
 
 pub mod derive;
+pub mod drift;
 pub mod events;
 pub mod files;
 pub mod fit_workers;
@@ -9,6 +10,7 @@ pub mod folder;
 pub mod history_entry;
 pub mod id;
 pub mod journal;
+pub mod machine_change;
 pub mod measure;
 pub mod new_run;
 pub mod outputs;

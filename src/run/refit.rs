@@ -6,6 +6,7 @@
 //! `refit-finished`. A refit killed before its end is discarded by the next session on the
 //! run ([`discard_unfinished`]): the kept `run.toml` comes back and the old fits stand.
 
+use super::drift::ReferenceTimeline;
 use super::events::{fit_event, Event, SiteState};
 use super::folder::{read_run_toml, RunFolder};
 use super::journal;
@@ -14,23 +15,31 @@ use crate::recipe::schema::{AcceptSpec, Recipe};
 use crate::spectrum::{read_csv, SpectrumFile};
 use anyhow::Context;
 
-/// Fits the stored spectrum of one attempt and gives the journal event for it.
+/// Fits the stored spectrum of one attempt, normalised by the reference interpolated in time
+/// (`timeline`, see [`super::drift`]), and gives the journal event for it.
+#[allow(clippy::too_many_arguments)] // one attempt, its references and the fit set-up
 pub fn fit_stored(
     folder: &RunFolder,
     site: usize,
     attempt: u32,
     rel: &str,
+    timeline: &ReferenceTimeline,
     fitter: &Fitter,
     reference_material: &str,
     accept: &AcceptSpec,
 ) -> Event {
-    let result = match read_csv(&folder.root.join(rel)) {
-        Ok(SpectrumFile::Counts(raw)) => fitter
-            .fit_raw(&raw, reference_material)
-            .map_err(|e| e.to_string()),
-        Ok(SpectrumFile::Reflectance(spectrum)) => Ok(fitter.fit(&spectrum)),
-        Err(e) => Err(e.to_string()),
-    };
+    let result =
+        match read_csv(&folder.root.join(rel)) {
+            Ok(SpectrumFile::Counts(raw)) => timeline
+                .corrected(folder, site, attempt, raw)
+                .and_then(|raw| {
+                    fitter
+                        .fit_raw(&raw, reference_material)
+                        .map_err(|e| e.to_string())
+                }),
+            Ok(SpectrumFile::Reflectance(spectrum)) => Ok(fitter.fit(&spectrum)),
+            Err(e) => Err(e.to_string()),
+        };
     fit_event(site, attempt, result, accept)
 }
 
@@ -50,6 +59,7 @@ pub fn stored_attempts(states: &[SiteState]) -> Vec<(usize, u32, String)> {
 pub fn fit_all(
     folder: &RunFolder,
     attempts: &[(usize, u32, String)],
+    timeline: &ReferenceTimeline,
     fitter: &Fitter,
     reference_material: &str,
     accept: &AcceptSpec,
@@ -72,6 +82,7 @@ pub fn fit_all(
                                 *site,
                                 *attempt,
                                 rel,
+                                timeline,
                                 fitter,
                                 reference_material,
                                 accept,

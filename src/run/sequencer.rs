@@ -2,8 +2,8 @@
 //! publishes every step on the run's [`EventStream`].
 //!
 //! Steps: home → centring (when asked: the sites are then placed by the measured centre and
-//! rotation, checked against the soft limits first) → reference (move to the reference piece, or ask the operator) with dark and
-//! reference spectra → per site: move → motion complete → settle → acquire → store the raw
+//! rotation, checked against the soft limits first) → reference (move to the reference piece,
+//! or ask the operator) with dark and reference spectra → per site: move → motion complete → settle → acquire → store the raw
 //! spectrum → journal it → the fitting workers fit it while the stage moves on. Sites that come
 //! back invalid are measured again, up to the recipe's `retries`, in further passes; a site
 //! that still fails is flagged, not fatal. A failed acquisition is tried again
@@ -11,7 +11,12 @@
 //! [`FAILED_SITES_IN_A_ROW`] such sites in a row stop it (the spectrometer is gone). Ctrl-C or a fault at ANY step (homing and the
 //! reference move included) abandons that step, finishes and journals the fits in flight,
 //! stops the stage and journals the stop, so the run can be resumed.
+//!
+//! Lamp-drift references placed by the plan between sites are executed like any step; when
+//! one is taken, the sites measured since the previous one are fitted again with the reference
+//! interpolated in time ([`super::drift`]).
 
+use super::drift::{normalised_between, seconds, TakenReference};
 use super::events::{fit_event, now, Event};
 use super::fit_workers::{FitWorkers, Pending};
 use super::folder::RunFolder;
@@ -98,6 +103,10 @@ pub struct Sequencer {
     reference: Option<Counts>,
     /// Sites in a row whose acquisition failed.
     failed_in_a_row: usize,
+    /// The latest reference of this session, with its time.
+    last_reference: Option<TakenReference>,
+    /// Sites measured since it: site, attempt, time, spectrum.
+    since_reference: Vec<(usize, u32, f64, Arc<RawSpectrum>)>,
 }
 
 impl Sequencer {
@@ -121,6 +130,8 @@ impl Sequencer {
             dark: None,
             reference: None,
             failed_in_a_row: 0,
+            last_reference: None,
+            since_reference: Vec::new(),
         }
     }
 
@@ -173,34 +184,67 @@ impl Sequencer {
     ) -> Result<(), Stop> {
         // Sites go where the plan puts them (a centring journalled earlier included).
         bench.transform = plan.transform();
-        let mut centred = None;
-        for step in &plan.steps {
-            match step {
-                Step::Home => self.home(bench).await?,
-                Step::Centre(settings) => centred = Some(self.centre(bench, plan, settings).await?),
-                Step::Reference(placement) => self.reference(bench, plan, *placement).await?,
-                Step::Site(_) => {}
+        // Centring (after homing) replaces the plan by one placed by the measured centre;
+        // the first pass goes on from the step after it.
+        let centred;
+        let (plan, start) = match plan.steps.iter().position(|s| matches!(s, Step::Centre(_))) {
+            Some(i) => {
+                for step in &plan.steps[..i] {
+                    if let Step::Home = step {
+                        self.home(bench).await?;
+                    }
+                }
+                let Step::Centre(settings) = &plan.steps[i] else {
+                    unreachable!("found above")
+                };
+                centred = self.centre(bench, plan, settings).await?;
+                (&centred, i)
             }
-        }
-        let plan = centred.as_ref().unwrap_or(plan);
+            None => (plan, 0),
+        };
         let mut todo = plan.clone();
         for pass in 0..=plan.acquire().retries {
             let count = todo.sites().count();
             if count == 0 {
                 break;
             }
-            self.publish(RunEvent::Pass { pass, sites: count })
-                .map_err(Stop::Fault)?;
+            if pass > 0 {
+                self.publish(RunEvent::Pass { pass, sites: count })
+                    .map_err(Stop::Fault)?;
+            }
             let mut invalid = Vec::new();
-            for step in todo.sites() {
-                self.site(bench, plan, step, next_attempt, &mut invalid)
-                    .await?;
+            // A later pass skips the prelude (homed and referenced already) but takes the
+            // lamp-drift references placed between its sites.
+            let first_site = todo
+                .steps
+                .iter()
+                .position(|s| matches!(s, Step::Site(_)))
+                .unwrap_or(0);
+            let from = if pass == 0 { start } else { first_site };
+            for (i, step) in todo.steps.iter().enumerate().skip(from) {
+                match step {
+                    Step::Home => self.home(bench).await?,
+                    // The placed plan has nothing left to centre.
+                    Step::Centre(_) => {}
+                    Step::Reference(placement) => {
+                        self.reference(bench, plan, *placement).await?;
+                        if pass == 0 && i + 1 == first_site {
+                            self.publish(RunEvent::Pass { pass, sites: count })
+                                .map_err(Stop::Fault)?;
+                        }
+                    }
+                    Step::Site(step) => {
+                        self.site(bench, plan, step, next_attempt, &mut invalid)
+                            .await?
+                    }
+                }
             }
             self.finish(self.workers.take_all(), &mut invalid).await?;
             todo = plan.only(|s| invalid.contains(&s.number));
-            let left: Vec<String> = todo.sites().map(|s| s.site.number.to_string()).collect();
+            let left: Vec<usize> = todo.sites().map(|s| s.site.number).collect();
             if !left.is_empty() && pass < plan.acquire().retries {
-                self.note(format!("measuring again: site {}", left.join(", ")))?;
+                let sites = crate::site_list::site_list(left);
+                self.note(format!("measuring again: site {sites}"))?;
             }
         }
         Ok(())
@@ -318,6 +362,9 @@ impl Sequencer {
                 Ok((dark, reference))
             })
             .await?;
+        // Timed when the light was collected, not after the files are synced: the lamp-drift
+        // interpolation compares this time with the sites' (see [`super::drift`]).
+        let time = now();
         let tag = chrono::Local::now().format("%H%M%S%3f").to_string();
         let dark_file = format!("spectra/dark-{tag}.csv");
         let ref_file = format!("spectra/reference-{tag}.csv");
@@ -330,19 +377,45 @@ impl Sequencer {
             .map_err(Stop::Fault)?;
         self.store(&ref_file, &as_raw(&reference))
             .map_err(Stop::Fault)?;
+        let taken = TakenReference {
+            t: seconds(&time).unwrap_or_default(),
+            dark: dark.clone(),
+            reference: reference.clone(),
+        };
         self.log(Event::ReferenceTaken {
-            time: now(),
+            time,
             dark: dark_file,
             reference: ref_file,
         })
         .map_err(Stop::Fault)?;
+        self.renormalise(&taken);
         self.note(format!("dark and {material} reference taken"))?;
         if let Some(note) = plan.fitter.coverage_note(&reference.wavelength_nm) {
             self.note(format!("warning: spectrometer: {note}"))?;
         }
         self.dark = Some(dark);
         self.reference = Some(reference);
+        self.last_reference = Some(taken);
         Ok(())
+    }
+
+    /// Fits the sites measured since the previous reference again, each normalised by the
+    /// reference interpolated at its time between that one and `taken` (see [`super::drift`]);
+    /// the new fits supersede the first ones in the journal.
+    fn renormalise(&mut self, taken: &TakenReference) {
+        let since = std::mem::take(&mut self.since_reference);
+        let Some(before) = &self.last_reference else {
+            return;
+        };
+        for (site, attempt, t, raw) in since {
+            match normalised_between(&raw, before, taken, t) {
+                Some(raw) => self.workers.start(site, attempt, Arc::new(raw)),
+                None => tracing::warn!(
+                    site,
+                    "references on different wavelength axes: the site keeps its first fit"
+                ),
+            }
+        }
     }
 
     /// Writes a raw spectrum file (relative path in the run folder) atomically.
@@ -378,6 +451,8 @@ impl Sequencer {
                 Ok(acquire_retrying(spectrometer, AcquireKind::Sample, ms, avg, pixels).await)
             })
             .await?;
+        // Timed when the light was collected (see the reference step).
+        let time = now();
         let attempt = next_attempt(n);
         let counts = match acquired {
             Ok(counts) => counts,
@@ -391,8 +466,11 @@ impl Sequencer {
         };
         let rel = format!("spectra/site-{n:04}-a{attempt}.csv");
         self.store(&rel, &raw).map_err(Stop::Fault)?;
+        let raw = Arc::new(raw);
+        self.since_reference
+            .push((n, attempt, seconds(&time).unwrap_or_default(), raw.clone()));
         self.log(Event::SiteMeasured {
-            time: now(),
+            time,
             site: n,
             attempt,
             x_mm: step.site.x_mm,
@@ -405,7 +483,7 @@ impl Sequencer {
         self.publish(RunEvent::Acquired {
             site: n,
             attempt,
-            raw: Arc::new(raw),
+            raw,
         })
         .map_err(Stop::Fault)?;
         // The fit of the previous site has had the whole move to finish.
@@ -463,6 +541,9 @@ impl Sequencer {
                 Err(reason) => tracing::warn!(site, attempt, %reason, "site not fitted"),
             }
             let event = fit_event(site, attempt, result, &self.accept);
+            // A later fit of the same spectrum (renormalised by the next reference) has the
+            // last word.
+            invalid.retain(|s| *s != site);
             if !matches!(event, Event::SiteFitted { valid: true, .. }) {
                 invalid.push(site);
             }

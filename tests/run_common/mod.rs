@@ -124,3 +124,31 @@ pub fn strip_faults(run: &Path) {
     }
     std::fs::write(run.join("run.toml"), toml::to_string(&meta).unwrap()).unwrap();
 }
+
+/// Every row of a run's `sites.csv` as (site, fitted nm, true nm): the truth is the virtual
+/// wafer of the same bench (machine file and seed from run.toml) rebuilt here.
+pub fn fitted_and_true(run: &Path) -> Vec<(usize, f64, f64)> {
+    let folder = RunFolder::new(run);
+    let meta = folder.read_run_toml().unwrap();
+    let loaded = isopach::run::new_run::loaded_recipe(&folder, &meta);
+    let machine = isopach::run::measure::machine_of(&meta).unwrap();
+    let rt = tokio::runtime::Runtime::new().unwrap();
+    let bench = rt
+        .block_on(isopach::bench::Bench::open(
+            machine.as_ref(),
+            &loaded,
+            meta.run.seed,
+        ))
+        .unwrap();
+    let truth = bench.virtual_wafer().expect("simulated spectrometer");
+    let rows = isopach::map::sites_table::read_file(&run.join("sites.csv")).unwrap();
+    rows.iter()
+        .map(|r| {
+            (
+                r.site,
+                r.thickness_nm[0],
+                truth.thickness_nm(r.x_mm, r.y_mm).unwrap(),
+            )
+        })
+        .collect()
+}

@@ -1074,7 +1074,15 @@ impl Controller {
             self.finish(Ok(Completion::Idle { position: pos }));
             return std::mem::replace(&mut self.phase, Phase::Ready);
         }
-        p.next_query = Some(now + self.cfg.poll_interval);
+        // The next report: one interval on, or just after the move should end by its
+        // kinematics when that comes sooner, so arrival is seen without a whole interval's lag.
+        let regular = now + self.cfg.poll_interval;
+        let due = p.started + secs(p.expected_s) + self.cfg.poll_interval / 8;
+        p.next_query = Some(if now < due && due < regular {
+            due
+        } else {
+            regular
+        });
         Phase::Poll(p)
     }
 

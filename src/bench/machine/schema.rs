@@ -257,6 +257,14 @@ pub struct ReferenceSpec {
     /// Stage position of an on-chuck reference piece, mm.
     #[serde(default)]
     pub position_mm: Option<[f64; 2]>,
+    // Lamp drift: the reference taken again during a map (0 = only at the start).
+    /// Take the reference again after every this many sites.
+    #[serde(default)]
+    pub every_sites: u32,
+    /// Take the reference again at least every this many minutes (placed by the plan's
+    /// duration estimate).
+    #[serde(default)]
+    pub every_min: f64,
 }
 
 impl Default for ReferenceSpec {
@@ -264,6 +272,8 @@ impl Default for ReferenceSpec {
         ReferenceSpec {
             material: d_ref_material(),
             position_mm: None,
+            every_sites: 0,
+            every_min: 0.0,
         }
     }
 }
@@ -478,6 +488,14 @@ pub struct SimSpectrometerSpec {
     /// Highest count the digitiser gives.
     #[serde(default = "d_full_scale")]
     pub full_scale_counts: f64,
+    // Lamp drift, driven by the virtual clock.
+    /// Lamp output change, % of its start value per hour of virtual time (negative: dimming).
+    #[serde(default = "d_lamp_drift")]
+    pub lamp_drift_pct_per_hour: f64,
+    /// Slow spectral tilt, % per hour: the red end gains and the blue end loses this much
+    /// relative to the middle of the range (a lamp's colour temperature wandering).
+    #[serde(default)]
+    pub lamp_tilt_pct_per_hour: f64,
 }
 
 impl Default for SimSpectrometerSpec {
@@ -492,10 +510,16 @@ impl Default for SimSpectrometerSpec {
             dark_offset_counts: d_dark_offset(),
             dark_counts_per_ms: d_dark_rate(),
             full_scale_counts: d_full_scale(),
+            lamp_drift_pct_per_hour: d_lamp_drift(),
+            lamp_tilt_pct_per_hour: 0.0,
         }
     }
 }
 
+fn d_lamp_drift() -> f64 {
+    // A halogen lamp's output wanders by a few % per hour after warm-up (common practice).
+    -2.0
+}
 fn d_baud() -> u32 {
     115_200
 }
@@ -583,7 +607,7 @@ fn d_sim_banner() -> String {
     "isopach virtual stage 1.0 (simulated)".into()
 }
 fn d_idle_lag() -> f64 {
-    20.0
+    2.0
 }
 fn d_planner() -> usize {
     8

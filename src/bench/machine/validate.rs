@@ -76,8 +76,29 @@ pub fn validate(m: &MachineFile) -> Vec<Problem> {
             );
         }
     }
+    check_reference_repeats(m, &mut r);
     check_simulation(&m.simulation, &mut r);
     r.0
+}
+
+/// Lamp-drift references: a repeated reference must be reachable without a person.
+fn check_reference_repeats(m: &MachineFile, r: &mut Problems) {
+    let f = &m.reference;
+    r.range("reference.every_min", f.every_min, 0.0, 1440.0, "min");
+    let repeats = f.every_sites > 0 || f.every_min > 0.0;
+    let by_hand = f.position_mm.is_none() && m.spectrometer.kind != SpectrometerKind::Simulated;
+    if repeats && by_hand {
+        let key = if f.every_sites > 0 {
+            "reference.every_sites"
+        } else {
+            "reference.every_min"
+        };
+        r.at(
+            key,
+            "a reference placed by hand cannot be taken again unattended: give [reference] \
+             position_mm (an on-chuck reference piece) or remove every_sites/every_min",
+        );
+    }
 }
 
 fn check_stage(s: &StageSpec, r: &mut Problems) {
@@ -230,6 +251,24 @@ fn check_stage(s: &StageSpec, r: &mut Problems) {
 
 fn check_simulation(s: &SimulationSpec, r: &mut Problems) {
     r.range("simulation.time_scale", s.time_scale, 0.01, 10_000.0, "×");
+    for (key, v) in [
+        (
+            "lamp_drift_pct_per_hour",
+            s.spectrometer.lamp_drift_pct_per_hour,
+        ),
+        (
+            "lamp_tilt_pct_per_hour",
+            s.spectrometer.lamp_tilt_pct_per_hour,
+        ),
+    ] {
+        r.range(
+            &format!("simulation.spectrometer.{key}"),
+            v,
+            -1e4,
+            1e4,
+            "%/h",
+        );
+    }
     r.range(
         "simulation.controller.idle_lag_ms",
         s.controller.idle_lag_ms,

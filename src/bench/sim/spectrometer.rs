@@ -6,6 +6,10 @@
 //! `S = R(λ)·rate(λ)·t`, shot noise of `(S + dark·t)·g` electrons (g electrons per count) and
 //! Gaussian read noise; each frame is rounded and clipped to `[0, full scale]`, and frames are
 //! averaged. It takes as long (in virtual time) as the frames would.
+//!
+//! The lamp drifts with virtual time: its output changes by `lamp_drift_pct_per_hour`, and a
+//! slow spectral tilt (`lamp_tilt_pct_per_hour`) raises one end of the range against the
+//! other, so references taken at different times differ as on a real bench.
 
 use super::clock::SimClock;
 use super::wafer::SampleModel;
@@ -117,6 +121,22 @@ impl VirtualSpectrometer {
             .collect()
     }
 
+    /// The lamp's output relative to its start, per pixel, after `hours` of virtual time:
+    /// `(1 + drift·h)·(1 + tilt·h·u)` with `u` running from −1 (blue end) to +1 (red end).
+    pub fn lamp_factor(&self, hours: f64) -> Vec<f64> {
+        let s = &self.spec;
+        let [a, b] = s.wavelength_nm;
+        let level = 1.0 + s.lamp_drift_pct_per_hour / 100.0 * hours;
+        let tilt = s.lamp_tilt_pct_per_hour / 100.0 * hours;
+        self.wavelength_nm
+            .iter()
+            .map(|&l| {
+                let u = (2.0 * (l - a) / (b - a).max(f64::MIN_POSITIVE)) - 1.0;
+                (level * (1.0 + tilt * u)).max(0.0)
+            })
+            .collect()
+    }
+
     /// Draws one acquisition (pure apart from the generator; no waiting).
     pub fn render(
         &mut self,
@@ -140,10 +160,11 @@ impl VirtualSpectrometer {
         let t = integration_ms;
         let dark = s.dark_counts_per_ms * t;
         let read = Normal::new(0.0, 1.0).expect("unit normal");
+        let lamp = self.lamp_factor(self.clock.now() / 3600.0);
         let mut sum = vec![0.0; refl.len()];
         for _ in 0..averages {
             for (i, acc) in sum.iter_mut().enumerate() {
-                let signal = self.rate[i] * refl[i].max(0.0) * t;
+                let signal = self.rate[i] * lamp[i] * refl[i].max(0.0) * t;
                 let var = (signal + dark) / s.electrons_per_count + s.read_noise_counts.powi(2);
                 let v =
                     s.dark_offset_counts + dark + signal + var.sqrt() * read.sample(&mut self.rng);
@@ -206,6 +227,33 @@ impl Spectrometer for VirtualSpectrometer {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn the_lamp_drifts_and_tilts_with_virtual_time() {
+        let spec = SimSpectrometerSpec {
+            lamp_drift_pct_per_hour: 3.0,
+            lamp_tilt_pct_per_hour: 1.0,
+            ..SimSpectrometerSpec::default()
+        };
+        use crate::bench::sim::wafer::BareSample;
+        let lib = crate::optics::MaterialLibrary::builtin();
+        let m = |n: &str| lib.require(n).unwrap().clone();
+        let si = || BareSample::new(m("air"), m("si"));
+        let v = VirtualSpectrometer::new(
+            &spec,
+            Arc::new(si()),
+            &si(),
+            PositionHandle::default(),
+            ChuckTransform::from_spec(&Default::default()),
+            1,
+            SimClock::new(1.0),
+        );
+        assert!(v.lamp_factor(0.0).iter().all(|f| *f == 1.0));
+        let f = v.lamp_factor(2.0);
+        // 3 %/h for 2 h: +6 % overall; tilt 1 %/h: ∓2 % at the ends.
+        assert!((f[0] - 1.06 * 0.98).abs() < 1e-12, "{}", f[0]);
+        assert!((f[f.len() - 1] - 1.06 * 1.02).abs() < 1e-12);
+    }
 
     #[test]
     fn planck_peak_follows_wien() {

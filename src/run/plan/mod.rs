@@ -131,8 +131,7 @@ impl Plan {
             centring: None,
         };
         plan.steps = plan.prelude();
-        plan.steps
-            .extend(plan.site_steps(sites).into_iter().map(Step::Site));
+        plan.steps.extend(plan.measuring_steps(sites));
         plan.duration_s = plan.estimate_s();
         Ok(plan)
     }
@@ -142,8 +141,7 @@ impl Plan {
         let sites: Vec<Site> = self.sites().map(|s| s.site).filter(|s| keep(s)).collect();
         let mut plan = self.clone();
         plan.steps = self.prelude();
-        plan.steps
-            .extend(plan.site_steps(&sites).into_iter().map(Step::Site));
+        plan.steps.extend(plan.measuring_steps(&sites));
         plan.duration_s = plan.estimate_s();
         plan
     }
@@ -230,62 +228,119 @@ impl Plan {
             steps.push(Step::Home);
         }
         steps.extend(self.centring.map(Step::Centre));
-        let placement = match (
+        steps.push(Step::Reference(self.placement()));
+        steps
+    }
+
+    fn placement(&self) -> ReferencePlacement {
+        match (
             self.machine.reference.position_mm,
             self.machine.spectrometer.kind,
         ) {
             (Some(p), _) => ReferencePlacement::Position(p),
             (None, SpectrometerKind::Simulated) => ReferencePlacement::Simulated,
             (None, _) => ReferencePlacement::ByHand,
-        };
-        steps.push(Step::Reference(placement));
-        steps
+        }
     }
 
-    fn site_steps(&self, sites: &[Site]) -> Vec<SiteStep> {
+    /// Whether the machine file asks for the reference again during a map and it can be
+    /// taken unattended (a reference placed by hand cannot; validation says so).
+    pub fn repeats_reference(&self) -> bool {
+        let r = &self.machine.reference;
+        (r.every_sites > 0 || r.every_min > 0.0) && self.placement() != ReferencePlacement::ByHand
+    }
+
+    /// How many references the plan takes (the first one included).
+    pub fn references(&self) -> usize {
+        self.steps
+            .iter()
+            .filter(|s| matches!(s, Step::Reference(_)))
+            .count()
+    }
+
+    /// Seconds a step takes at least when the stage is at `here`, and where it leaves the
+    /// stage: the moves along its legs, then settle and acquisition.
+    fn step_s(&self, here: [f64; 2], step: &Step) -> (f64, [f64; 2]) {
+        let st = &self.machine.stage;
+        let a = self.acquire();
+        let frames_s = a.integration_ms * a.averages as f64 / 1000.0;
+        let (legs, per_step, end) = match step {
+            Step::Home => return (0.0, here),
+            // Every ray takes at least one reading; how many more depends on what it finds.
+            Step::Centre(c) => {
+                let per_reading = a.settle_ms / 1000.0 + frames_s;
+                return (c.rays as f64 * per_reading, here);
+            }
+            Step::Site(s) => (s.legs.clone(), a.settle_ms / 1000.0 + frames_s, s.stage_mm),
+            // Dark and reference: two acquisitions.
+            Step::Reference(ReferencePlacement::Position(p)) => (vec![*p], 2.0 * frames_s, *p),
+            Step::Reference(_) => (Vec::new(), 2.0 * frames_s, here),
+        };
+        let t = duration_lower_bound_s(here, &legs, st.feed_mm_min, st.accel_mm_s2, 1, per_step);
+        (t, end)
+    }
+
+    /// The site steps in the order given, with the lamp-drift references between them when
+    /// the machine file asks for them: before a site once `every_sites` sites were measured
+    /// since the last reference, or once the site would end more than `every_min` after it
+    /// (by this plan's own duration estimate), and one after the last site so that every
+    /// site lies between two references.
+    fn measuring_steps(&self, sites: &[Site]) -> Vec<Step> {
         let transform = self.transform();
         let limits = SoftLimits::from_spec(&self.machine.stage);
         let approach = Approach::from_spec(&self.machine.stage);
-        let mut here = Some(self.start_mm());
-        sites
-            .iter()
-            .map(|s| {
-                let stage_mm = transform.to_stage(s.x_mm, s.y_mm);
-                let legs = approach.moves(here, stage_mm);
-                here = Some(stage_mm);
-                SiteStep {
+        let every_sites = self.machine.reference.every_sites as usize;
+        let every_s = self.machine.reference.every_min * 60.0;
+        let repeats = self.repeats_reference();
+        let reference = Step::Reference(self.placement());
+        let mut here = self.start_mm();
+        let (mut since_sites, mut since_s) = (0usize, 0.0);
+        let mut steps = Vec::new();
+        for s in sites {
+            let stage_mm = transform.to_stage(s.x_mm, s.y_mm);
+            let site = |from: [f64; 2]| {
+                Step::Site(SiteStep {
                     site: *s,
                     stage_mm,
-                    legs,
+                    legs: approach.moves(Some(from), stage_mm),
                     outside: check_site(s, &transform, &limits, &approach).err(),
-                }
-            })
-            .collect()
+                })
+            };
+            let mut step = site(here);
+            let (mut t, _) = self.step_s(here, &step);
+            let due = (every_sites > 0 && since_sites >= every_sites)
+                || (every_s > 0.0 && since_s + t > every_s);
+            if repeats && since_sites > 0 && due {
+                let (t_ref, at) = self.step_s(here, &reference);
+                steps.push(reference.clone());
+                here = at;
+                step = site(here);
+                t = self.step_s(here, &step).0;
+                (since_sites, since_s) = (0, t_ref);
+            }
+            steps.push(step);
+            here = stage_mm;
+            since_sites += 1;
+            since_s += t;
+        }
+        if repeats && since_sites > 0 {
+            steps.push(reference);
+        }
+        steps
     }
 
-    /// From the home corner: the move to the reference piece (when there is one), then every
-    /// site's legs.
+    /// From the home corner: every step in order (the moves to the reference piece and its
+    /// dark and reference acquisitions, each site's legs, settle and acquisition).
     fn estimate_s(&self) -> f64 {
         let st = &self.machine.stage;
-        let a = self.acquire();
-        let per_site = (a.settle_ms + a.integration_ms * a.averages as f64) / 1000.0;
-        let to_reference = match self.reference() {
-            ReferencePlacement::Position(p) => Some(p),
-            _ => None,
-        };
-        let legs: Vec<[f64; 2]> = to_reference
-            .into_iter()
-            .chain(self.sites().flat_map(|s| s.legs.clone()))
-            .collect();
-        let n = self.sites().count();
-        duration_lower_bound_s(
-            [st.travel_x_mm[0], st.travel_y_mm[0]],
-            &legs,
-            st.feed_mm_min,
-            st.accel_mm_s2,
-            n,
-            per_site,
-        )
+        let mut here = [st.travel_x_mm[0], st.travel_y_mm[0]];
+        let mut total = 0.0;
+        for step in &self.steps {
+            let (t, next) = self.step_s(here, step);
+            total += t;
+            here = next;
+        }
+        total
     }
 }
 
@@ -368,6 +423,86 @@ mod tests {
             p.start_mm(),
             [20.0, 20.0],
             "sites start from the reference piece"
+        );
+    }
+
+    /// The kinds of the steps after the prelude: `R` reference, `S` site.
+    fn shape(p: &Plan) -> String {
+        p.steps
+            .iter()
+            .skip_while(|s| !matches!(s, Step::Site(_)))
+            .map(|s| if matches!(s, Step::Site(_)) { 'S' } else { 'R' })
+            .collect()
+    }
+
+    #[test]
+    fn references_every_n_sites_are_steps_of_the_plan() {
+        let mut m = machine::builtin_simulated();
+        m.reference.every_sites = 10;
+        let p = Plan::new(&recipe(), Some(&m)).unwrap();
+        let want: String = (0..49)
+            .map(|i| if i > 0 && i % 10 == 0 { "RS" } else { "S" })
+            .collect::<String>()
+            + "R";
+        assert_eq!(shape(&p), want);
+        assert_eq!(p.references(), 1 + 5);
+        let plain = Plan::new(&recipe(), None).unwrap();
+        assert!(p.duration_s > plain.duration_s, "references take time");
+        // A subset (remeasure, a retry pass) gets its own references.
+        assert_eq!(shape(&p.only(|s| s.number <= 12)), "SSSSSSSSSSRSSR");
+    }
+
+    #[test]
+    fn references_every_t_minutes_follow_the_duration_estimate() {
+        let mut m = machine::builtin_simulated();
+        let plain = Plan::new(&recipe(), Some(&m)).unwrap();
+        m.reference.every_min = plain.duration_s / 60.0 / 3.5;
+        let p = Plan::new(&recipe(), Some(&m)).unwrap();
+        // About a quarter of the map between references: three between, one closing.
+        assert_eq!(p.references(), 1 + 4, "{}", shape(&p));
+        // No stretch between references is estimated longer than every_min.
+        let mut here = p.start_mm();
+        let mut since = 0.0;
+        for step in p.steps.iter().skip_while(|s| !matches!(s, Step::Site(_))) {
+            let (t, next) = p.step_s(here, step);
+            here = next;
+            if matches!(step, Step::Reference(_)) {
+                since = t;
+            } else {
+                since += t;
+                assert!(since <= m.reference.every_min * 60.0 + 1e-9);
+            }
+        }
+    }
+
+    #[test]
+    fn a_reference_placed_by_hand_is_not_repeated() {
+        let mut m = machine::builtin_simulated();
+        m.spectrometer.kind = SpectrometerKind::Command;
+        m.spectrometer.command = vec!["/opt/lab/grab".into()];
+        m.reference.every_sites = 5;
+        let p = Plan::new(&recipe(), Some(&m)).unwrap();
+        assert!(!p.repeats_reference());
+        assert_eq!(p.references(), 1);
+        m.reference.position_mm = Some([20.0, 20.0]);
+        let p = Plan::new(&recipe(), Some(&m)).unwrap();
+        assert_eq!(p.references(), 1 + 10);
+        // The site after a reference is approached from the reference piece.
+        let i = p
+            .steps
+            .iter()
+            .rposition(|s| matches!(s, Step::Reference(_)))
+            .unwrap();
+        let after = p.steps[..i]
+            .iter()
+            .rposition(|s| matches!(s, Step::Reference(_)))
+            .unwrap();
+        let Step::Site(s) = &p.steps[after + 1] else {
+            panic!()
+        };
+        assert_eq!(
+            s.legs,
+            Approach::from_spec(&m.stage).moves(Some([20.0, 20.0]), s.stage_mm)
         );
     }
 
