@@ -7,6 +7,7 @@
 //!    neighbour-list 2-opt used above 500 sites against exhaustive 2-opt.
 
 use isopach::bench::machine::{parse, BUILTIN_SIMULATED};
+use isopach::history::location::HistoryLocation;
 use isopach::recipe::{self, pattern, schema::PatternSpec, Site};
 use isopach::run::events::Event;
 use isopach::run::measure::{self, Hooks, Which};
@@ -165,6 +166,7 @@ fn real_time_run(recipe_path: &Path) -> (usize, f64, f64) {
             &meta,
             &Which::Missing,
             "bench",
+            &HistoryLocation::from_setting(None, dir.path()).unwrap(),
             hooks,
         ))
         .unwrap();

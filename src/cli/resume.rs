@@ -15,13 +15,24 @@ pub struct Args {
     /// Do not ask before the first motion of a real stage.
     #[arg(long)]
     yes: bool,
+    #[command(flatten)]
+    history: super::history_arg::HistoryArg,
 }
 
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
+    let history = args.history.location_of_run(&args.run)?;
     let folder = RunFolder::new(&args.run);
     measure::prepare(&folder)?;
     let meta = folder.read_run_toml()?;
     let plan = isopach::run::measure::plan_of_run(&folder, &meta)?;
-    measure::session(&plan, folder, meta, Which::Missing, args.yes, "resume")
+    measure::session(
+        &plan,
+        folder,
+        meta,
+        Which::Missing,
+        args.yes,
+        "resume",
+        &history,
+    )
 }

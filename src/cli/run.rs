@@ -45,6 +45,8 @@ pub struct Args {
     /// Seed of the simulated bench (default: from the wafer id, so each wafer differs).
     #[arg(long)]
     seed: Option<u64>,
+    #[command(flatten)]
+    history: super::history_arg::HistoryArg,
 }
 
 /// Runs the command. The plan is made and checked first: an invalid recipe, machine file or
@@ -56,6 +58,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         None => None,
     };
     let plan = Plan::new(&loaded, machine.as_ref())?;
+    let history = args.history.location(&args.runs)?;
     if args.dry_run {
         return dry_run(&plan);
     }
@@ -76,7 +79,15 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     };
     let (folder, meta) = new_run::create(&plan, &new)?;
     eprintln!("run {} in {}", meta.run.id, folder.root.display());
-    measure::session(&plan, folder, meta, Which::Missing, args.yes, "run")
+    measure::session(
+        &plan,
+        folder,
+        meta,
+        Which::Missing,
+        args.yes,
+        "run",
+        &history,
+    )
 }
 
 /// A stable seed from the wafer id (FNV-1a), so every simulated wafer is its own.
