@@ -5,7 +5,7 @@
 use super::location::ServerUrl;
 use super::schema::{self, Migration};
 use super::store::{HistoryStore, Statement, StoreError, Value};
-use futures::future::{BoxFuture, FutureExt};
+use futures::future::{try_join_all, BoxFuture, FutureExt};
 use std::future::Future;
 use std::time::Duration;
 use tokio_postgres::types::{ToSql, Type};
@@ -44,19 +44,27 @@ impl PgStore {
 
     async fn transact_now(&mut self, statements: Vec<Statement>) -> Result<(), StoreError> {
         let tx = self.client.transaction().await?;
-        let mut prepared: Vec<(&str, tokio_postgres::Statement)> = Vec::new();
-        for s in &statements {
-            let stmt = match prepared.iter().find(|(sql, _)| *sql == s.sql) {
-                Some((_, stmt)) => stmt.clone(),
-                None => {
-                    let stmt = tx.prepare(s.sql).await?;
-                    prepared.push((s.sql, stmt.clone()));
-                    stmt
-                }
-            };
-            let params = params_for(&s.params, stmt.params());
-            tx.execute(&stmt, &refs(&params)).await?;
-        }
+        let mut distinct: Vec<&'static str> = statements.iter().map(|s| s.sql).collect();
+        distinct.sort_unstable();
+        distinct.dedup();
+        let prepared = try_join_all(distinct.iter().map(|sql| tx.prepare(sql))).await?;
+        let bound: Vec<(tokio_postgres::Statement, Vec<Param>)> = statements
+            .iter()
+            .map(|s| {
+                let stmt = prepared[distinct.binary_search(&s.sql).unwrap_or(0)].clone();
+                let params = params_for(&s.params, stmt.params());
+                (stmt, params)
+            })
+            .collect();
+        // Pipelined: the client sends every statement before the first answer comes back, in
+        // order, and the server runs them in order; the first error fails the transaction.
+        let tx_ref = &tx;
+        try_join_all(
+            bound
+                .iter()
+                .map(|(stmt, params)| async move { tx_ref.execute(stmt, &refs(params)).await }),
+        )
+        .await?;
         tx.commit().await?;
         Ok(())
     }
