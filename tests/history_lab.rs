@@ -155,6 +155,21 @@ fn four_benches_land_once(history: &str, rebuilt: &str) -> Lab {
             assert!(r.id.folder.starts_with(lab.runs_dir(k).to_str().unwrap()));
         }
     }
+    // Runs given by id are found through the history, whichever bench measured them.
+    let (a, b) = (&runs[0].id, &runs[runs.len() - 1].id);
+    assert_ne!(a.bench, b.bench);
+    let o = isopach(&[
+        "compare",
+        &a.run_id,
+        &b.run_id,
+        "--history",
+        history,
+        "--json",
+    ]);
+    assert_ok(&o, "compare by run id");
+    let cmp: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    assert_eq!(cmp["wafers"][0]["folder"], a.folder.as_str());
+    assert_eq!(cmp["wafers"][1]["folder"], b.folder.as_str());
     // The same run folders rebuilt into a fresh history give the very same records.
     lab.rebuild_into(rebuilt);
     assert_eq!(format!("{runs:?}"), format!("{:?}", runs_in(rebuilt)));
