@@ -13,6 +13,7 @@ use super::schema;
 use super::sqlite::SqliteStore;
 use super::store::{HistoryStore, Statement, StoreError, Value};
 use serde::Serialize;
+use std::collections::HashMap;
 
 /// Why the history could not be read or written; names the history with its password hidden.
 #[derive(Debug, thiserror::Error)]
@@ -273,54 +274,44 @@ impl History {
                 }
             })
             .collect();
-        let key = |r: &[Value]| (Cells(r).text(0), Cells(r).text(1));
-        let index: std::collections::HashMap<(String, String), usize> = runs
+        let index: HashMap<(String, String), usize> = runs
             .iter()
             .enumerate()
             .map(|(i, r)| ((r.id.bench.clone(), r.id.run_id.clone()), i))
             .collect();
-        for r in &sessions {
-            let c = Cells(r);
-            if let Some(&i) = index.get(&key(r)) {
-                runs[i].sessions.push(SessionRecord {
-                    session: c.count(2),
-                    command: c.text(3),
-                    started: c.text(4),
-                    ended: c.text(5),
-                    outcome: c.text(6),
-                });
-            }
-        }
-        for r in &layers {
-            let c = Cells(r);
-            if let Some(&i) = index.get(&key(r)) {
-                runs[i].layers.push(LayerRecord {
-                    layer: c.count(2),
-                    material: c.text(3),
-                    sites_total: c.count(4),
-                    sites_valid: c.count(5),
-                    mean_nm: c.real(6),
-                    std_nm: c.real(7),
-                    min_nm: c.real(8),
-                    max_nm: c.real(9),
-                    nu_1sigma_pct: c.real(10),
-                    nu_range_pct: c.real(11),
-                });
-            }
-        }
-        for r in &sites {
-            let c = Cells(r);
-            if let Some(&i) = index.get(&key(r)) {
-                runs[i].sites.push(SiteRecord {
-                    site: c.count(2),
-                    layer: c.count(3),
-                    x_mm: c.real(4),
-                    y_mm: c.real(5),
-                    thickness_nm: c.real(6),
-                    valid: c.flag(7),
-                });
-            }
-        }
+        attach(&mut runs, &index, &sessions, |run, c| {
+            run.sessions.push(SessionRecord {
+                session: c.count(2),
+                command: c.text(3),
+                started: c.text(4),
+                ended: c.text(5),
+                outcome: c.text(6),
+            })
+        });
+        attach(&mut runs, &index, &layers, |run, c| {
+            run.layers.push(LayerRecord {
+                layer: c.count(2),
+                material: c.text(3),
+                sites_total: c.count(4),
+                sites_valid: c.count(5),
+                mean_nm: c.real(6),
+                std_nm: c.real(7),
+                min_nm: c.real(8),
+                max_nm: c.real(9),
+                nu_1sigma_pct: c.real(10),
+                nu_range_pct: c.real(11),
+            })
+        });
+        attach(&mut runs, &index, &sites, |run, c| {
+            run.sites.push(SiteRecord {
+                site: c.count(2),
+                layer: c.count(3),
+                x_mm: c.real(4),
+                y_mm: c.real(5),
+                thickness_nm: c.real(6),
+                valid: c.flag(7),
+            })
+        });
         runs.sort_by(|a, b| {
             (&a.id.started, &a.id.bench, &a.id.run_id).cmp(&(
                 &b.id.started,
@@ -345,6 +336,21 @@ impl History {
             .iter()
             .map(|r| (Cells(r).text(0), Cells(r).text(1)))
             .collect())
+    }
+}
+
+/// Hands each row (keyed by bench and run id in its first two columns) to its run.
+fn attach(
+    runs: &mut [RunRecord],
+    index: &HashMap<(String, String), usize>,
+    rows: &[Vec<Value>],
+    mut add: impl FnMut(&mut RunRecord, Cells),
+) {
+    for r in rows {
+        let c = Cells(r);
+        if let Some(&i) = index.get(&(c.text(0), c.text(1))) {
+            add(&mut runs[i], c);
+        }
     }
 }
 

@@ -16,7 +16,7 @@ const CONNECT_WAIT: Duration = Duration::from_secs(5);
 /// How long to wait for any one call (a transaction, a query, the migrations).
 pub const ANSWER_WAIT: Duration = Duration::from_secs(30);
 /// The advisory lock that makes concurrent first users migrate one at a time.
-const MIGRATION_LOCK: i64 = 0x6973_6f70_6163_68; // "isopach"
+const MIGRATION_LOCK: i64 = 0x0069_736f_7061_6368; // "isopach" in ASCII
 
 /// A connection to the history's server.
 pub struct PgStore {
