@@ -182,8 +182,13 @@ fn mark_pending(runs_dir: &Path, run_id: &str) {
     }
 }
 
+/// Clears one mark; the folder of marks goes once empty, so a runs folder whose history is up
+/// to date holds only run folders (and the default history file).
 fn clear_pending(runs_dir: &Path, run_id: &str) {
-    let _ = std::fs::remove_file(runs_dir.join(PENDING_DIR).join(run_id));
+    let dir = runs_dir.join(PENDING_DIR);
+    let _ = std::fs::remove_file(dir.join(run_id));
+    // Fails while other marks are left: that is the point.
+    let _ = std::fs::remove_dir(&dir);
 }
 
 /// Every run folder (a folder with a `run.toml`) directly inside `runs_dir`, sorted by name.
