@@ -57,6 +57,7 @@ pub fn kind(e: &anyhow::Error) -> Kind {
 fn kind_of_cause(cause: &(dyn std::error::Error + 'static)) -> Option<Kind> {
     use crate::bench::{BenchError, MachineError};
     use crate::fit::FitError;
+    use crate::history::location::LocationError;
     use crate::map::MapError;
     use crate::optics::OpticsError;
     use crate::recipe::RecipeError;
@@ -78,6 +79,7 @@ fn kind_of_cause(cause: &(dyn std::error::Error + 'static)) -> Option<Kind> {
         || cause.is::<OpticsError>()
         || cause.is::<NameError>()
         || cause.is::<PlanMismatch>()
+        || cause.is::<LocationError>()
     {
         return Some(Kind::InvalidInput);
     }

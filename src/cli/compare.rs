@@ -1,10 +1,13 @@
-//! `isopach compare RUN RUN... [--delta] [--per-min T] [--json] [--out FILE] [--sheet FILE]`.
+//! `isopach compare RUN RUN... [--delta] [--per-min T] [--json] [--out FILE] [--sheet FILE]
+//! [--history URL]`; a RUN that is not a folder is looked up as a run id in the history.
 
 use super::figures::num;
 use super::output::outln;
 use anyhow::bail;
 use isopach::compare::{self, WaferRun};
 use isopach::error::InputError;
+use isopach::history::db::History;
+use isopach::history::location::HistoryLocation;
 use isopach::map::render::{MapInput, RenderOptions, ValueRange};
 use serde_json::{json, Value};
 use std::path::{Path, PathBuf};
@@ -15,9 +18,11 @@ use std::path::{Path, PathBuf};
   isopach compare runs/20261202-0905-W01 runs/20261202-0931-W02 runs/20261202-0958-W03
   isopach compare runs/*-W07-pre runs/*-W07-post --delta --out delta.svg
   isopach compare before/ after/ --delta --per-min 12.5 --json      # etch rate in nm/min
-  isopach compare runs/*-L2612-* --sheet lot.svg                   # maps on one colour scale")]
+  isopach compare runs/*-L2612-* --sheet lot.svg                   # maps on one colour scale
+  isopach compare 20261202-0905-W01 20261202-0931-W02 --history postgres://isopach@db.lab/isopach")]
 pub struct Args {
-    /// Run folders to compare (at least two, or one with --sheet).
+    /// Run folders to compare (at least two, or one with --sheet); a run id that is not a
+    /// folder is found through the history.
     #[arg(required = true, num_args = 1..)]
     runs: Vec<PathBuf>,
     /// Difference of two runs, second minus first (site by site, or through interpolation).
@@ -38,14 +43,15 @@ pub struct Args {
     /// Draw every run's map on one common colour scale into this SVG file.
     #[arg(long)]
     sheet: Option<PathBuf>,
+    #[command(flatten)]
+    history: super::history_arg::HistoryArg,
 }
 
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
     check_args(&args)?;
     let layer = args.layer - 1;
-    let runs: Vec<WaferRun> = args
-        .runs
+    let runs: Vec<WaferRun> = run_folders(&args)?
         .iter()
         .map(|p| WaferRun::load(p))
         .collect::<Result<_, _>>()?;
@@ -172,6 +178,45 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         outln!("{t}");
     }
     Ok(super::exit::OK)
+}
+
+/// The run folders asked for: each argument that is a folder, else the folder the history
+/// (of `runs/`, or `--history`) keeps for that run id.
+fn run_folders(args: &Args) -> anyhow::Result<Vec<PathBuf>> {
+    let is_id = |p: &PathBuf| !p.is_dir() && p.components().count() == 1;
+    if !args.runs.iter().any(is_id) {
+        return Ok(args.runs.clone());
+    }
+    let location = args.history.location(Path::new("runs"))?;
+    if !location.is_server() && !matches!(&location, HistoryLocation::Sqlite(p) if p.is_file()) {
+        // No history to look in: the folder error below names the argument.
+        return Ok(args.runs.clone());
+    }
+    super::history_arg::block_on(async {
+        let mut history = History::open(&location).await?;
+        let mut out = Vec::new();
+        for p in &args.runs {
+            if !is_id(p) {
+                out.push(p.clone());
+                continue;
+            }
+            let id = p.to_string_lossy();
+            let found = history.folders_of(&id).await?;
+            match found.as_slice() {
+                [] => out.push(p.clone()),
+                [(_, folder)] => out.push(PathBuf::from(folder)),
+                many => {
+                    let list: Vec<String> = many.iter().map(|(b, f)| format!("{b}: {f}")).collect();
+                    return Err(InputError::argument(format!(
+                        "run id {id} is in the history {location} for several benches ({}): give the run folder instead",
+                        list.join("; ")
+                    ))
+                    .into());
+                }
+            }
+        }
+        anyhow::Ok(out)
+    })?
 }
 
 /// Refuses argument combinations that cannot be compared, before any run is read.

@@ -7,6 +7,7 @@ use super::figures::{figures_line, no_valid_site};
 use super::output::outln;
 use super::safety::{confirm_motion, wait_for_operator};
 use indicatif::{ProgressBar, ProgressStyle};
+use isopach::history::location::HistoryLocation;
 use isopach::run::events::{Attempt, Event, SiteState};
 use isopach::run::folder::{RunFolder, RunToml};
 use isopach::run::measure::{self, Hooks, SessionReport};
@@ -26,6 +27,7 @@ pub fn session(
     which: Which,
     assume_yes: bool,
     command: &str,
+    history: &HistoryLocation,
 ) -> anyhow::Result<u8> {
     log_to(&folder);
     let runtime = tokio::runtime::Builder::new_multi_thread()
@@ -45,7 +47,7 @@ pub fn session(
             subscribers: vec![progress_display(bar.clone())],
             cancel,
         };
-        let report = measure::session(plan, &folder, &meta, &which, command, hooks).await;
+        let report = measure::session(plan, &folder, &meta, &which, command, history, hooks).await;
         bar.finish_and_clear();
         report
     });
@@ -163,6 +165,9 @@ fn log_to(folder: &RunFolder) {
 /// Prints the outcome and figures; returns the exit code.
 fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: SessionReport) -> u8 {
     let f = &report.summary.first;
+    if let Some(note) = &report.history_note {
+        eprintln!("warning: {note}");
+    }
     if report.measured.is_empty() {
         eprintln!("every site asked for already has a valid result: nothing to measure");
     }

@@ -9,6 +9,7 @@ mod check;
 mod compare;
 mod figures;
 mod fit;
+mod history_arg;
 mod machine_arg;
 mod measure;
 mod output;

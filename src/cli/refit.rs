@@ -9,7 +9,7 @@ use isopach::run::events::{now, Event};
 use isopach::run::folder::RunFolder;
 use isopach::run::journal::Journal;
 use isopach::run::measure::{machine_of, reference_material};
-use isopach::run::{derive, new_run, refit};
+use isopach::run::{derive, history_entry, new_run, refit};
 use std::path::PathBuf;
 
 /// Arguments of `isopach refit`.
@@ -27,10 +27,13 @@ pub struct Args {
     /// A recipe with a new film model, window or method.
     #[arg(long)]
     recipe: Option<PathBuf>,
+    #[command(flatten)]
+    history: super::history_arg::HistoryArg,
 }
 
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
+    let history = args.history.location_of_run(&args.run)?;
     let folder = RunFolder::new(&args.run);
     super::measure::prepare(&folder)?;
     let mut meta = folder.read_run_toml()?;
@@ -99,6 +102,9 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     journal.append_all(&events)?;
     journal.append(&Event::RefitFinished { time: now() })?;
     let summary = derive::rebuild(&folder)?;
+    if let Some(note) = super::history_arg::block_on(history_entry::record(&history, &folder))? {
+        eprintln!("warning: {note}");
+    }
     let f = &summary.first;
     outln!(
         "refitted {} spectra of run {}: {}",

@@ -27,10 +27,13 @@ pub struct Args {
     /// Do not ask before the first motion of a real stage.
     #[arg(long)]
     yes: bool,
+    #[command(flatten)]
+    history: super::history_arg::HistoryArg,
 }
 
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
+    let history = args.history.location_of_run(&args.run)?;
     let folder = RunFolder::new(&args.run);
     measure::prepare(&folder)?;
     let meta = folder.read_run_toml()?;
@@ -52,5 +55,5 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         }
         Which::Sites(args.sites)
     };
-    measure::session(&plan, folder, meta, which, args.yes, "remeasure")
+    measure::session(&plan, folder, meta, which, args.yes, "remeasure", &history)
 }

@@ -27,10 +27,13 @@ pub struct Args {
     /// Do not ask before the first motion of a real stage.
     #[arg(long)]
     yes: bool,
+    #[command(flatten)]
+    history: super::history_arg::HistoryArg,
 }
 
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
+    let history = args.history.location_of_run(&args.run)?;
     let folder = RunFolder::new(&args.run);
     measure::prepare(&folder)?;
     let mut meta = folder.read_run_toml()?;
@@ -62,7 +65,15 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             plan
         }
     };
-    measure::session(&plan, folder, meta, Which::Missing, args.yes, "resume")
+    measure::session(
+        &plan,
+        folder,
+        meta,
+        Which::Missing,
+        args.yes,
+        "resume",
+        &history,
+    )
 }
 
 /// Journals the change and freezes the new machine file in `run.toml` (the previous one kept

@@ -51,6 +51,8 @@ pub struct Args {
     /// and flat/notch rotation (journalled; `resume` keeps it).
     #[arg(long)]
     centre: bool,
+    #[command(flatten)]
+    history: super::history_arg::HistoryArg,
 }
 
 /// Runs the command. The plan is made and checked first: an invalid recipe, machine file or
@@ -65,6 +67,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     if args.centre {
         plan = plan.with_centring(CentringSettings::default());
     }
+    let history = args.history.location(&args.runs)?;
     if args.dry_run {
         return dry_run(&plan);
     }
@@ -85,7 +88,15 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     };
     let (folder, meta) = new_run::create(&plan, &new)?;
     eprintln!("run {} in {}", meta.run.id, folder.root.display());
-    measure::session(&plan, folder, meta, Which::Missing, args.yes, "run")
+    measure::session(
+        &plan,
+        folder,
+        meta,
+        Which::Missing,
+        args.yes,
+        "run",
+        &history,
+    )
 }
 
 /// A stable seed from the wafer id (FNV-1a), so every simulated wafer is its own.

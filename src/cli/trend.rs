@@ -1,9 +1,11 @@
-//! `isopach trend [--recipe NAME] [--lot L] [--runs DIR] [--rebuild] [--out FILE] [--json]`.
+//! `isopach trend [--recipe NAME] [--lot L] [--bench NAME] [--site N] [--runs DIR] [--history URL]
+//! [--rebuild] [--out FILE] [--json]`.
 
 use super::figures::num;
 use super::output::outln;
 use isopach::error::InputError;
-use isopach::history::{chart, control, db::History, record};
+use isopach::history::db::{History, TrendQuery};
+use isopach::history::{chart, control};
 use isopach::run::history_entry;
 use serde_json::json;
 use std::path::PathBuf;
@@ -13,7 +15,9 @@ use std::path::PathBuf;
 #[command(after_help = "Examples:
   isopach trend --recipe oxide-150-49
   isopach trend --recipe oxide-150-49 --lot L2612 --out trend.svg
-  isopach trend --rebuild                 # re-index every run folder under runs/")]
+  isopach trend --rebuild                 # re-index every run folder under runs/
+  isopach trend --history postgres://isopach@db.lab/isopach --bench bench-b
+  isopach trend --recipe oxide-150-49 --site 1      # the centre site's value, run to run")]
 pub struct Args {
     /// Only runs of this recipe (its `name`).
     #[arg(long)]
@@ -21,10 +25,18 @@ pub struct Args {
     /// Only runs of this lot.
     #[arg(long)]
     lot: Option<String>,
-    /// The folder holding the run folders and the history database.
+    /// Only runs measured on this bench (its machine file's `name`).
+    #[arg(long)]
+    bench: Option<String>,
+    /// Follow one site's value instead of the layer's mean.
+    #[arg(long, value_name = "N")]
+    site: Option<usize>,
+    /// The folder holding the run folders (and, by default, the history database).
     #[arg(long, default_value = "runs")]
     runs: PathBuf,
-    /// Rebuild the history from the run folders first.
+    #[command(flatten)]
+    history: super::history_arg::HistoryArg,
+    /// Rebuild this runs folder's runs in the history from its run folders first.
     #[arg(long)]
     rebuild: bool,
     /// Which fitted layer (1 = top fitted layer).
@@ -44,32 +56,42 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         .layer
         .checked_sub(1)
         .ok_or_else(|| InputError::argument("--layer counts from 1"))?;
-    if !args.runs.is_dir() {
+    let location = args.history.location(&args.runs)?;
+    // A server history needs no runs folder, unless one is to be rebuilt into it.
+    if (args.rebuild || !location.is_server()) && !args.runs.is_dir() {
         return Err(InputError::argument(format!(
             "no runs folder {} (give --runs DIR)",
             args.runs.display()
         ))
         .into());
     }
-    if args.rebuild {
-        let (n, skipped) = history_entry::rebuild_history(&args.runs)?;
-        eprintln!(
-            "history rebuilt from {n} run folder(s) in {}",
-            args.runs.display()
-        );
-        for (folder, why) in skipped {
-            eprintln!("  skipped {}: {why}", folder.display());
+    let query = TrendQuery {
+        layer,
+        recipe: args.recipe.clone(),
+        lot: args.lot.clone(),
+        bench: args.bench.clone(),
+        site: args.site,
+    };
+    let points = super::history_arg::block_on(async {
+        if args.rebuild {
+            let (n, skipped) = history_entry::rebuild_history(&args.runs, &location).await?;
+            eprintln!(
+                "history {location} rebuilt from {n} run folder(s) in {}",
+                args.runs.display()
+            );
+            for (folder, why) in skipped {
+                eprintln!("  skipped {}: {why}", folder.display());
+            }
         }
-    }
-    let history = History::open(&record::db_path(&args.runs))?;
-    let points = history.trend(args.recipe.as_deref(), args.lot.as_deref(), layer)?;
+        anyhow::Ok(History::open(&location).await?.trend(&query).await?)
+    })??;
     let means: Vec<f64> = points.iter().map(|p| p.mean_nm).collect();
     let nus: Vec<f64> = points.iter().map(|p| p.nu_1sigma_pct).collect();
     let (lm, sm) = control_of(&means);
     let (ln, sn) = control_of(&nus);
     if let Some(out) = &args.out {
         let title = format!(
-            "run chart{}{}",
+            "run chart{}{}{}{}",
             args.recipe
                 .as_deref()
                 .map(|r| format!(" — {r}"))
@@ -77,7 +99,12 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             args.lot
                 .as_deref()
                 .map(|l| format!(", lot {l}"))
-                .unwrap_or_default()
+                .unwrap_or_default(),
+            args.bench
+                .as_deref()
+                .map(|b| format!(", bench {b}"))
+                .unwrap_or_default(),
+            args.site.map(|n| format!(", site {n}")).unwrap_or_default()
         );
         super::output::write_scene(out, &chart::chart(&points, &title))?;
         eprintln!("run chart written to {}", out.display());
@@ -87,7 +114,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             .iter()
             .enumerate()
             .map(|(i, p)| {
-                json!({"run": p.run_id, "wafer": p.wafer, "lot": p.lot, "started": p.started,
+                json!({"run": p.run_id, "bench": p.bench, "wafer": p.wafer, "lot": p.lot, "started": p.started,
                        "mean_nm": p.mean_nm, "nu_1sigma_pct": p.nu_1sigma_pct, "sites_valid": p.sites_valid,
                        "mean_signals": sm.get(i), "nu_signals": sn.get(i)})
             })
@@ -107,12 +134,26 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         );
         return Ok(super::exit::OK);
     }
+    // The bench column appears when the runs come from more than one bench.
+    let benches = points.iter().any(|p| p.bench != points[0].bench);
+    let bench_cell = |b: &str| {
+        if benches {
+            format!("{b:<16} ")
+        } else {
+            String::new()
+        }
+    };
     outln!(
-        "{:<22} {:<16} {:<10} {:>10} {:>8}  signals",
+        "{:<22} {}{:<16} {:<10} {:>10} {:>8}  signals",
         "started",
+        bench_cell("bench"),
         "wafer",
         "lot",
-        "mean_nm",
+        if args.site.is_some() {
+            "site_nm"
+        } else {
+            "mean_nm"
+        },
         "NU_%"
     );
     for (i, p) in points.iter().enumerate() {
@@ -133,8 +174,9 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             s.push("no valid site".into());
         }
         outln!(
-            "{:<22} {:<16} {:<10} {:>10} {:>8}  {}",
+            "{:<22} {}{:<16} {:<10} {:>10} {:>8}  {}",
             p.started.get(..19).unwrap_or(&p.started),
+            bench_cell(&p.bench),
             p.wafer,
             p.lot,
             num(p.mean_nm),

@@ -1,5 +1,6 @@
 //! The run chart of a trend: mean thickness and % non-uniformity per run, each with its centre
-//! line and ±3σ individuals limits; points beyond the limits are ringed.
+//! line and ±3σ individuals limits; points beyond the limits are ringed. Each point takes the
+//! colour of the bench that measured the run, named in a legend.
 //!
 //! Built as a [`Scene`] so the map writers give both SVG (text as text) and PNG.
 
@@ -18,6 +19,27 @@ const GRID: Rgb = Rgb(0xd8, 0xdc, 0xe0);
 const POINT: Rgb = Rgb(0x1f, 0x5f, 0x8b);
 const LIMIT: Rgb = Rgb(0xa0, 0x52, 0x2d);
 const ALERT: Rgb = Rgb(0xc0, 0x1c, 0x28);
+/// Bench colours, told apart on screen and in grey print (none is the alert red).
+const BENCH_COLOURS: [Rgb; 6] = [
+    POINT,
+    Rgb(0xe0, 0x8a, 0x00),
+    Rgb(0x2e, 0x8b, 0x57),
+    Rgb(0x6a, 0x3d, 0x9a),
+    Rgb(0x00, 0x9e, 0xb0),
+    Rgb(0x8c, 0x56, 0x4b),
+];
+
+/// The benches of `points` in order of first appearance, each with its colour.
+pub fn bench_colours(points: &[TrendPoint]) -> Vec<(String, Rgb)> {
+    let mut out: Vec<(String, Rgb)> = Vec::new();
+    for p in points {
+        if !out.iter().any(|(b, _)| *b == p.bench) {
+            let colour = BENCH_COLOURS[out.len() % BENCH_COLOURS.len()];
+            out.push((p.bench.clone(), colour));
+        }
+    }
+    out
+}
 
 /// Draws the chart of `points` (oldest first) titled `title`.
 pub fn chart(points: &[TrendPoint], title: &str) -> Scene {
@@ -30,14 +52,33 @@ pub fn chart(points: &[TrendPoint], title: &str) -> Scene {
     scene.text(WIDTH / 2.0, 30.0, title, 18.0, Anchor::Middle, INK, "title");
     let means: Vec<f64> = points.iter().map(|p| p.mean_nm).collect();
     let nus: Vec<f64> = points.iter().map(|p| p.nu_1sigma_pct).collect();
-    panel(&mut scene, 60.0, &means, "mean thickness (nm)", points);
+    let benches = bench_colours(points);
+    let colours: Vec<Rgb> = points
+        .iter()
+        .map(|p| {
+            benches
+                .iter()
+                .find(|(b, _)| *b == p.bench)
+                .map_or(POINT, |(_, c)| *c)
+        })
+        .collect();
+    panel(
+        &mut scene,
+        60.0,
+        &means,
+        "mean thickness (nm)",
+        points,
+        &colours,
+    );
     panel(
         &mut scene,
         60.0 + PANEL_H + 40.0,
         &nus,
         "1σ non-uniformity (%)",
         points,
+        &colours,
     );
+    bench_legend(&mut scene, &benches);
     scene.text(
         LEFT,
         scene.height - 14.0,
@@ -50,7 +91,51 @@ pub fn chart(points: &[TrendPoint], title: &str) -> Scene {
     scene
 }
 
-fn panel(scene: &mut Scene, top: f64, values: &[f64], label: &str, points: &[TrendPoint]) {
+/// One marker and name per bench, above the limits' legend.
+fn bench_legend(scene: &mut Scene, benches: &[(String, Rgb)]) {
+    let y = scene.height - 40.0;
+    scene.text(
+        LEFT,
+        y + 4.0,
+        "bench:",
+        11.0,
+        Anchor::Start,
+        INK,
+        "bench-legend",
+    );
+    let mut x = LEFT + 50.0;
+    for (i, (name, colour)) in benches.iter().enumerate() {
+        scene.items.push(Item::Marker {
+            x,
+            y,
+            r: 4.0,
+            site: i + 1,
+            excluded: false,
+            colour: *colour,
+            halo: Rgb(0xff, 0xff, 0xff),
+        });
+        let shown = if name.is_empty() { "(unknown)" } else { name };
+        scene.text(
+            x + 8.0,
+            y + 4.0,
+            shown,
+            11.0,
+            Anchor::Start,
+            INK,
+            "bench-name",
+        );
+        x += 24.0 + 6.5 * shown.chars().count() as f64;
+    }
+}
+
+fn panel(
+    scene: &mut Scene,
+    top: f64,
+    values: &[f64],
+    label: &str,
+    points: &[TrendPoint],
+    colours: &[Rgb],
+) {
     let plot_h = PANEL_H - 40.0;
     let lim = limits(values);
     let with_limits = values
@@ -139,13 +224,26 @@ fn panel(scene: &mut Scene, top: f64, values: &[f64], label: &str, points: &[Tre
     let flagged = lim.map(|l| signals(values, &l)).unwrap_or_default();
     for (i, v) in values.iter().enumerate().filter(|(_, v)| v.is_finite()) {
         let out = flagged.get(i).is_some_and(|s| !s.is_empty());
+        let (x, y) = (plot.px(i as f64), plot.py(*v));
+        if out {
+            // The ring: an alert disc behind the bench-coloured point.
+            scene.items.push(Item::Marker {
+                x,
+                y,
+                r: 7.0,
+                site: i + 1,
+                excluded: false,
+                colour: ALERT,
+                halo: ALERT,
+            });
+        }
         scene.items.push(Item::Marker {
-            x: plot.px(i as f64),
-            y: plot.py(*v),
-            r: if out { 5.0 } else { 3.5 },
+            x,
+            y,
+            r: if out { 4.5 } else { 3.5 },
             site: i + 1,
             excluded: false,
-            colour: if out { ALERT } else { POINT },
+            colour: colours.get(i).copied().unwrap_or(POINT),
             halo: Rgb(0xff, 0xff, 0xff),
         });
     }

@@ -1,22 +1,22 @@
 //! What the history keeps of a run, made from plain values (the run's identity, its site rows
 //! and their summary), and the index kept up to date.
 //!
-//! The history knows nothing of run folders: `run` hands it the rows it has just derived
-//! (`run::derive::rebuild`), or reads them back for `trend --rebuild` (`run::history_entry`).
+//! The history knows nothing of run folders: `run` reads a run's rows and sessions from its
+//! folder and hands them over (`run::history_entry`), at the end of a session and for
+//! `trend --rebuild`.
 
-pub use super::db::RunIdentity;
-use super::db::{History, HistoryError, LayerRecord, RunRecord, SiteRecord};
+use super::db::{LayerRecord, RunRecord, SiteRecord};
+pub use super::db::{RunIdentity, SessionRecord};
 use crate::map::sites_table::SiteRow;
 use crate::map::stats::Summary;
-use std::path::{Path, PathBuf};
 
-/// The history database of a runs folder (a dot file, so `runs/*` lists only run folders).
-pub fn db_path(runs_dir: &Path) -> PathBuf {
-    runs_dir.join(".history.sqlite")
-}
-
-/// The history record of a run from its identity, summary and site rows.
-pub fn record_of(id: RunIdentity, summary: &Summary, rows: &[SiteRow]) -> RunRecord {
+/// The history record of a run from its identity, sessions, summary and site rows.
+pub fn record_of(
+    id: RunIdentity,
+    sessions: Vec<SessionRecord>,
+    summary: &Summary,
+    rows: &[SiteRow],
+) -> RunRecord {
     let layers = summary
         .all_layers()
         .iter()
@@ -50,15 +50,10 @@ pub fn record_of(id: RunIdentity, summary: &Summary, rows: &[SiteRow]) -> RunRec
                 })
         })
         .collect();
-    RunRecord { id, layers, sites }
-}
-
-/// Records (or re-records) one run in the history of `runs_dir`.
-pub fn record(runs_dir: &Path, run: &RunRecord) -> Result<(), HistoryError> {
-    History::open(&db_path(runs_dir))?.record(run)
-}
-
-/// Replaces the whole history of `runs_dir` with `runs`, in one transaction.
-pub fn rebuild(runs_dir: &Path, runs: &[RunRecord]) -> Result<(), HistoryError> {
-    History::open(&db_path(runs_dir))?.rebuild(runs)
+    RunRecord {
+        id,
+        sessions,
+        layers,
+        sites,
+    }
 }

@@ -1,10 +1,10 @@
-//! Rebuilding a run folder's derived files from its journal: `sites.csv`, `summary.json`, the
-//! maps, and the run's entry in the history. Deterministic: the same journal gives the same
-//! files, so a rebuild after a crash matches a clean run.
+//! Rebuilding a run folder's derived files from its journal: `sites.csv`, `summary.json` and
+//! the maps (the run's entry in the history is written from them by `history_entry`).
+//! Deterministic: the same journal gives the same files, so a rebuild after a crash matches a
+//! clean run.
 
 use super::events::{site_states, Event, SiteState};
 use super::folder::{RunFolder, RunToml};
-use super::history_entry;
 use super::journal;
 use super::outputs::{fitted_layer_names, write_run_outputs};
 use super::plan::frozen::FrozenPlan;
@@ -94,20 +94,11 @@ pub fn rows(states: &[SiteState], layers: usize) -> Vec<SiteRow> {
         .collect()
 }
 
-/// Rewrites every derived file of the run from its journal and updates the history; returns
-/// the summary.
+/// Rewrites every derived file of the run from its journal; returns the summary.
 pub fn rebuild(folder: &RunFolder) -> anyhow::Result<Summary> {
     let meta = folder.read_run_toml()?;
     let (_, states) = read_states(folder, &meta)?;
     let layers = fitted_layer_names(&meta.recipe).len().max(1);
     let rows = rows(&states, layers);
-    let summary = write_run_outputs(folder, &rows, &meta)?;
-    if let Err(e) = history_entry::record(folder, &meta, &rows, &summary) {
-        // The history is an index that `trend --rebuild` can recreate; the run itself is safe.
-        tracing::warn!(
-            "run history not updated: {}",
-            crate::error_text::chain_text(&e)
-        );
-    }
-    Ok(summary)
+    Ok(write_run_outputs(folder, &rows, &meta)?)
 }

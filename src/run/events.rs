@@ -103,6 +103,25 @@ pub fn journalled_centring(events: &[Event]) -> Option<&Centring> {
     })
 }
 
+impl Event {
+    /// When the event happened (RFC 3339).
+    pub fn time(&self) -> &str {
+        match self {
+            Event::RunStarted { time, .. }
+            | Event::ReferenceTaken { time, .. }
+            | Event::SiteMeasured { time, .. }
+            | Event::SiteFitted { time, .. }
+            | Event::SiteFailed { time, .. }
+            | Event::RefitStarted { time, .. }
+            | Event::RefitFinished { time }
+            | Event::MachineChanged { time, .. }
+            | Event::WaferCentred { time, .. }
+            | Event::RunStopped { time, .. }
+            | Event::RunFinished { time } => time,
+        }
+    }
+}
+
 /// Current time, RFC 3339 with the local offset.
 pub fn now() -> String {
     chrono::Local::now().to_rfc3339_opts(chrono::SecondsFormat::Millis, false)

@@ -1,8 +1,8 @@
 //! One measuring session on a run (what `run`, `resume` and `remeasure` share): the run's
 //! plan (checked before anything is touched), spectra left unfitted by a stop fitted first,
 //! the bench opened inside the session's cancellation scope, real motion confirmed, the plan
-//! executed by the sequencer, the end journalled and the derived files rebuilt. The caller
-//! supplies the human side through [`Hooks`].
+//! executed by the sequencer, the end journalled, the derived files rebuilt and the run sent
+//! to the history. The caller supplies the human side through [`Hooks`].
 
 use super::derive;
 use super::drift::ReferenceTimeline;
@@ -16,6 +16,7 @@ use super::refit::fit_stored;
 use super::sequencer::{Outcome, Prompt, Scope, Sequencer};
 use super::stream::{EventStream, RunEvent, Subscriber};
 use crate::bench::{machine::builtin_simulated, Bench, MachineFile};
+use crate::history::location::HistoryLocation;
 use crate::map::stats::Summary;
 use anyhow::Context;
 use std::collections::BTreeMap;
@@ -54,6 +55,8 @@ pub struct SessionReport {
     pub states: Vec<SiteState>,
     /// Numbers of the sites this session set out to measure, in plan order.
     pub measured: Vec<usize>,
+    /// Why the run is not (yet) in the history, when its write failed; the run is safe.
+    pub history_note: Option<String>,
 }
 
 /// The machine file frozen in a run (`None`: the built-in simulated bench).
@@ -104,13 +107,15 @@ pub fn plan_on_machine(
     Ok(plan.checked()?)
 }
 
-/// Runs one measuring session of `plan` on the run in `folder`.
+/// Runs one measuring session of `plan` on the run in `folder`, then records the run in the
+/// history at `history`.
 pub async fn session(
     plan: &Plan,
     folder: &RunFolder,
     meta: &RunToml,
     which: &Which,
     command: &str,
+    history: &HistoryLocation,
     hooks: Hooks,
 ) -> anyhow::Result<SessionReport> {
     if let Some(problem) = plan.limit_problem() {
@@ -230,10 +235,12 @@ pub async fn session(
         seq.log(Event::RunFinished { time: now() })?;
     }
     let summary = derive::rebuild(folder)?;
+    let history_note = super::history_entry::record(history, folder).await;
     Ok(SessionReport {
         outcome,
         summary,
         states,
         measured: todo.sites().map(|s| s.site.number).collect(),
+        history_note,
     })
 }
