@@ -13,7 +13,7 @@ pub mod quality;
 mod result;
 
 pub use fitter::Fitter;
-pub use result::{FitResult, LayerResult};
+pub use result::{FitResult, LayerResult, Term};
 
 use std::path::PathBuf;
 

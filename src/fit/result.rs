@@ -49,6 +49,19 @@ impl FitResult {
     }
 }
 
+/// A fitted parameter other than a thickness (a systematic term), with its statistical σ
+/// and its correlation with the first fitted thickness.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Term {
+    pub name: String,
+    #[serde(serialize_with = "nan_as_null", deserialize_with = "null_as_nan")]
+    pub value: f64,
+    #[serde(serialize_with = "nan_as_null", deserialize_with = "null_as_nan")]
+    pub sigma: f64,
+    #[serde(serialize_with = "nan_as_null", deserialize_with = "null_as_nan")]
+    pub correlation_with_thickness: f64,
+}
+
 fn nan_as_null<S: Serializer>(v: &f64, s: S) -> Result<S::Ok, S::Error> {
     if v.is_finite() {
         s.serialize_f64(*v)
