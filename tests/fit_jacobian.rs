@@ -38,6 +38,7 @@ proptest! {
             steps: vec![10.0; fitted.len()],
             scale: true,
             tilt: true,
+            slit: None,
         };
         let mut x: Vec<f64> = fitted.iter().map(|i| d[*i] + 1.0).collect();
         x.push(scale);

@@ -36,16 +36,26 @@ pub struct Args {
     /// Also fit a linear tilt of the intensity across the window (a slow baseline drift).
     #[arg(long)]
     tilt: bool,
+    /// FWHM of the spectrometer's slit function in nm; the model is convolved with it.
+    #[arg(long, value_name = "NM", default_value_t = 0.0)]
+    resolution_nm: f64,
 }
 
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
+    if !(args.resolution_nm >= 0.0 && args.resolution_nm <= 50.0) {
+        Err(isopach::error::InputError::argument(format!(
+            "--resolution-nm {}: give the slit function's FWHM in nm, 0 to 50",
+            args.resolution_nm
+        )))?;
+    }
     let loaded = recipe::load(&args.recipe)?;
     // A material or stack the recipe describes but that cannot be built is bad input.
     let fitter = Fitter::from_recipe(&loaded)
         .with_context(|| format!("cannot set up fitting for {}", args.recipe.display()))?
         .with_scale_factor(args.scale)
-        .with_tilt(args.tilt);
+        .with_tilt(args.tilt)
+        .with_resolution_nm(args.resolution_nm);
     for w in fitter.warnings() {
         eprintln!("warning: {w}");
     }

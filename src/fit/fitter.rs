@@ -1,6 +1,7 @@
 //! [`Fitter`]: everything a recipe fixes about fitting (materials, stack, window, angles,
 //! bounds) resolved once, then any number of spectra fitted with it, from any thread.
 
+use super::instrument::Slit;
 use super::kernel::{channels, Channel, Prepared, MAX_LAYERS};
 use super::model::{self, Setup};
 use super::quality::{self, gof};
@@ -40,6 +41,10 @@ pub struct Fitter {
     channels: Vec<Channel>,
     fit_scale: bool,
     fit_tilt: bool,
+    /// FWHM of the spectrometer's slit function, nm (0: ideal).
+    resolution_nm: f64,
+    /// The stack prepared on the slit's fine grid, for the last pixel grid seen.
+    smeared: RwLock<Option<Arc<Smeared>>>,
     warnings: Vec<String>,
     /// The per-pixel model of the last wavelength grid seen (a map uses one grid).
     cache: RwLock<Option<Arc<Prepared>>>,
@@ -50,6 +55,15 @@ pub struct Fitter {
 }
 
 type ReferenceCache = (String, Vec<f64>, Arc<Vec<f64>>);
+
+/// A pixel grid (`Prepared::wavelength_nm` of the pixels), its slit and the stack prepared on
+/// the slit's fine grid.
+#[derive(Debug)]
+struct Smeared {
+    pixels_nm: Vec<f64>,
+    slit: Slit,
+    fine: Prepared,
+}
 
 /// What a method returns: thickness of every layer, σ of the fitted ones, χ², flags.
 type Outcome = (Vec<f64>, Vec<f64>, f64, Vec<String>, Vec<Term>);
@@ -157,6 +171,8 @@ impl Fitter {
             channels,
             fit_scale: film.fit_scale,
             fit_tilt: film.fit_tilt,
+            resolution_nm: 0.0,
+            smeared: RwLock::new(None),
             warnings,
             cache: RwLock::new(None),
             reference_cache: RwLock::new(None),
@@ -177,6 +193,17 @@ impl Fitter {
     /// `fit_tilt`.
     pub fn with_tilt(mut self, on: bool) -> Fitter {
         self.fit_tilt |= on;
+        self
+    }
+
+    /// Models the spectrometer's slit function: a Gaussian of this FWHM in nm (0: ideal),
+    /// as the machine file's `spectrometer.resolution_nm` says.
+    pub fn with_resolution_nm(mut self, fwhm_nm: f64) -> Fitter {
+        self.resolution_nm = if fwhm_nm.is_finite() {
+            fwhm_nm.max(0.0)
+        } else {
+            0.0
+        };
         self
     }
 
@@ -425,6 +452,33 @@ impl Fitter {
         p
     }
 
+    /// The slit and the fine-grid model for a pixel grid (cached like [`Fitter::prepared`]).
+    fn smeared(&self, pixels_nm: &[f64]) -> Arc<Smeared> {
+        if let Ok(guard) = self.smeared.read() {
+            if let Some(s) = guard.as_ref().filter(|s| s.pixels_nm == pixels_nm) {
+                return Arc::clone(s);
+            }
+        }
+        let slit = Slit::gaussian(pixels_nm, self.resolution_nm);
+        let materials: Vec<Material> = self.layers.iter().map(|l| l.material.clone()).collect();
+        let fine = Prepared::new(
+            &self.ambient,
+            &materials,
+            &self.substrate,
+            &self.channels,
+            &slit.fine_nm,
+        );
+        let s = Arc::new(Smeared {
+            pixels_nm: pixels_nm.to_vec(),
+            slit,
+            fine,
+        });
+        if let Ok(mut guard) = self.smeared.write() {
+            *guard = Some(Arc::clone(&s));
+        }
+        s
+    }
+
     /// The recipe's search range of each fitted layer.
     fn bounds(&self) -> Vec<(f64, f64)> {
         self.fitted
@@ -589,6 +643,7 @@ impl Fitter {
         bounds: &[(f64, f64)],
     ) -> Option<model::ModelFit> {
         let bounds = &self.widened(w, bounds);
+        let smeared = (self.resolution_nm > 0.0).then(|| self.smeared(&w.wavelength_nm));
         let l_min = w.wavelength_nm[0];
         let l_max = w.wavelength_nm[w.len() - 1];
         let stride = ((self.pixels_per_fringe(w, bounds) / SEARCH_PIXELS_PER_FRINGE).floor()
@@ -617,6 +672,7 @@ impl Fitter {
                 .collect(),
             scale: self.fit_scale,
             tilt: self.fit_tilt,
+            slit: smeared.as_ref().map(|s| (&s.fine, &s.slit)),
         };
         model::fit(&setup, &search)
     }

@@ -5,6 +5,7 @@
 pub mod extrema;
 mod fitter;
 pub mod fourier;
+pub mod instrument;
 pub mod kernel;
 pub mod lm;
 pub mod model;

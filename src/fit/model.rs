@@ -3,6 +3,7 @@
 //! local minima; σ from the covariance scaled by the residual variance; every other minimum
 //! within noise of the best is reported as a rival.
 
+use super::instrument::Slit;
 use super::kernel::Prepared;
 use super::lm::{self, Problem, Settings};
 use super::quality;
@@ -23,6 +24,11 @@ pub struct Setup<'a> {
     pub steps: Vec<f64>,
     pub scale: bool,
     pub tilt: bool,
+    /// The spectrometer's slit function and the stack prepared on its fine grid: the model
+    /// of pixel j is then the slit-weighted average of the fine grid's reflectance (the
+    /// grid search still uses `prep`, the unconvolved model, which has its minima at the
+    /// same fringe phases).
+    pub slit: Option<(&'a Prepared, &'a Slit)>,
 }
 
 /// The outcome of a model fit.
@@ -88,8 +94,20 @@ impl Problem for Lsq<'_> {
         let (l0, l1) = (lam[0], lam[lam.len() - 1]);
         let mut grad = vec![0.0; d.len()];
         let mut chi2 = 0.0;
+        let smeared = self
+            .setup
+            .slit
+            .map(|(fine, slit)| smeared_model(fine, slit, &d));
         for (i, &j) in self.pixels.iter().enumerate() {
-            let r = self.setup.prep.reflectance_grad(j, &d, &mut grad);
+            let r = match (&smeared, self.setup.slit) {
+                (Some((fr, fg)), Some((_, slit))) => {
+                    for (l, g) in grad.iter_mut().enumerate() {
+                        *g = slit.apply_strided(j, fg, d.len(), l);
+                    }
+                    slit.apply(j, fr)
+                }
+                _ => self.setup.prep.reflectance_grad(j, &d, &mut grad),
+            };
             let u = tilt_coordinate(lam[j], l0, l1);
             let f = s * (1.0 + t * u);
             res[i] = f * r - self.setup.measured[j];
@@ -109,6 +127,17 @@ impl Problem for Lsq<'_> {
         }
         chi2
     }
+}
+
+/// R and dR/dd (layers fastest) at every point of the slit's fine grid.
+fn smeared_model(fine: &Prepared, slit: &Slit, d: &[f64]) -> (Vec<f64>, Vec<f64>) {
+    let n = slit.fine_nm.len();
+    let mut r = vec![0.0; n];
+    let mut g = vec![0.0; n * d.len()];
+    for k in 0..n {
+        r[k] = fine.reflectance_grad(k, d, &mut g[k * d.len()..(k + 1) * d.len()]);
+    }
+    (r, g)
 }
 
 /// Where a wavelength lies in the window, −1 at `first` to +1 at `last`: the coordinate of

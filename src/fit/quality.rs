@@ -23,7 +23,8 @@ pub const BELOW_RESOLUTION: &str = "below-resolution";
 pub const NO_FIT: &str = "no-fit";
 
 /// Flags that make a site invalid whatever its goodness of fit.
-pub const INVALIDATING: [&str; 4] = [NO_FIT, SATURATED, LOW_SIGNAL, OUTSIDE_RANGE];
+/// (`poor-fit` also stands when the gof passes but the residual is far above the noise.)
+pub const INVALIDATING: [&str; 5] = [NO_FIT, SATURATED, LOW_SIGNAL, OUTSIDE_RANGE, POOR_FIT];
 
 /// Smallest noise σ (reflectance) assumed: a spectrometer's digitisation and stray light
 /// keep real spectra above about 10⁻⁴ of full scale (common practice), and a smaller floor

@@ -28,7 +28,7 @@ pub struct FitResult {
 
 impl FitResult {
     /// Whether the site counts: a thickness for every layer, gof ≥ `min_gof`, and no flag
-    /// that invalidates it (`no-fit`, `saturated`, `low-signal`).
+    /// that invalidates it (`no-fit`, `saturated`, `low-signal`, `outside-range`, `poor-fit`).
     pub fn is_valid(&self, min_gof: f64) -> bool {
         self.gof >= min_gof
             && self.layers.iter().all(|l| l.thickness_nm.is_finite())

@@ -236,6 +236,14 @@ pub struct SpectrometerSpec {
     pub command: Vec<String>,
     #[serde(default = "d_spec_timeout")]
     pub timeout_s: f64,
+    /// FWHM of the spectrometer's slit function, nm (0: finer than anything the fit sees).
+    /// The fit convolves its model with it; frozen into each run with the machine file.
+    #[serde(default, skip_serializing_if = "is_zero")]
+    pub resolution_nm: f64,
+}
+
+fn is_zero(v: &f64) -> bool {
+    *v == 0.0
 }
 
 impl Default for SpectrometerSpec {
@@ -244,6 +252,7 @@ impl Default for SpectrometerSpec {
             kind: SpectrometerKind::Simulated,
             command: Vec::new(),
             timeout_s: d_spec_timeout(),
+            resolution_nm: 0.0,
         }
     }
 }
@@ -468,6 +477,26 @@ pub struct SimSpectrometerSpec {
     /// Highest count the digitiser gives.
     #[serde(default = "d_full_scale")]
     pub full_scale_counts: f64,
+    /// FWHM of the virtual slit function, nm (0: ideal). Give the same value as
+    /// `spectrometer.resolution_nm` for the fit to model it.
+    #[serde(default, skip_serializing_if = "is_zero")]
+    pub resolution_nm: f64,
+    /// Level of the sample light against the reference's (a reference taken at another
+    /// focus): 1 = none. Fitted by a recipe's `fit_scale`.
+    #[serde(default = "d_one", skip_serializing_if = "is_one")]
+    pub sample_scale: f64,
+    /// A tilt of that level across the detector range, ± this fraction at its ends.
+    /// Fitted by a recipe's `fit_tilt`.
+    #[serde(default, skip_serializing_if = "is_zero")]
+    pub sample_tilt: f64,
+}
+
+fn d_one() -> f64 {
+    1.0
+}
+
+fn is_one(v: &f64) -> bool {
+    *v == 1.0
 }
 
 impl Default for SimSpectrometerSpec {
@@ -482,6 +511,9 @@ impl Default for SimSpectrometerSpec {
             dark_offset_counts: d_dark_offset(),
             dark_counts_per_ms: d_dark_rate(),
             full_scale_counts: d_full_scale(),
+            resolution_nm: 0.0,
+            sample_scale: 1.0,
+            sample_tilt: 0.0,
         }
     }
 }
