@@ -29,6 +29,7 @@ fn helper(argv: Vec<String>, timeout_s: f64) -> HelperSpectrometer {
         kind: SpectrometerKind::Helper,
         command: argv,
         timeout_s,
+        resolution_nm: 0.0,
     })
 }
 

@@ -20,6 +20,7 @@ fn spectrometer(program: &Path, timeout_s: f64) -> CommandSpectrometer {
         kind: SpectrometerKind::Command,
         command: vec![program.to_str().unwrap().into(), "{kind}".into()],
         timeout_s,
+        resolution_nm: 0.0,
     })
 }
 

@@ -1,5 +1,6 @@
 //! The analytic Jacobian of the model fit matches central finite differences (property test),
-//! for absorbing and transparent layers, oblique incidence and a cone, with the scale factor.
+//! for absorbing and transparent layers, oblique incidence and a cone, with the scale factor
+//! and the tilt.
 
 use isopach::fit::kernel::{channels, Prepared};
 use isopach::fit::model::{residuals_and_jacobian, Setup};
@@ -16,6 +17,7 @@ proptest! {
         theta in 0.0f64..40.0,
         na in prop_oneof![Just(0.0), 0.05f64..0.4],
         scale in 0.8f64..1.2,
+        tilt in -0.1f64..0.1,
         fitted_mask in 1usize..8,
     ) {
         let lib = MaterialLibrary::builtin();
@@ -35,13 +37,16 @@ proptest! {
             upper: vec![1e5; fitted.len()],
             steps: vec![10.0; fitted.len()],
             scale: true,
+            tilt: true,
+            slit: None,
         };
         let mut x: Vec<f64> = fitted.iter().map(|i| d[*i] + 1.0).collect();
         x.push(scale);
+        x.push(tilt);
         let p = x.len();
         let (_, jac) = residuals_and_jacobian(&setup, &x);
         for a in 0..p {
-            let h = if a + 1 == p { 1e-6 } else { 1e-4 };
+            let h = if a + 2 >= p { 1e-6 } else { 1e-4 };
             let (mut xp, mut xm) = (x.clone(), x.clone());
             xp[a] += h;
             xm[a] -= h;

@@ -33,15 +33,29 @@ pub struct Args {
     /// Also fit an intensity scale factor (when the reference level is uncertain).
     #[arg(long)]
     scale: bool,
+    /// Also fit a linear tilt of the intensity across the window (a slow baseline drift).
+    #[arg(long)]
+    tilt: bool,
+    /// FWHM of the spectrometer's slit function in nm; the model is convolved with it.
+    #[arg(long, value_name = "NM", default_value_t = 0.0)]
+    resolution_nm: f64,
 }
 
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
+    if !(args.resolution_nm >= 0.0 && args.resolution_nm <= 50.0) {
+        Err(isopach::error::InputError::argument(format!(
+            "--resolution-nm {}: give the slit function's FWHM in nm, 0 to 50",
+            args.resolution_nm
+        )))?;
+    }
     let loaded = recipe::load(&args.recipe)?;
     // A material or stack the recipe describes but that cannot be built is bad input.
     let fitter = Fitter::from_recipe(&loaded)
         .with_context(|| format!("cannot set up fitting for {}", args.recipe.display()))?
-        .with_scale_factor(args.scale);
+        .with_scale_factor(args.scale)
+        .with_tilt(args.tilt)
+        .with_resolution_nm(args.resolution_nm);
     for w in fitter.warnings() {
         eprintln!("warning: {w}");
     }
@@ -62,14 +76,21 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         eprintln!("warning: {}: {note}", args.spectrum.display());
     }
     // No pixel in the window is bad input (exit 2); a method that finds no answer failed (1).
-    let result = fitter
-        .try_fit(&measured, &quality)
+    let (result, terms) = fitter
+        .try_fit_with_terms(&measured, &quality)
         .with_context(|| args.spectrum.display().to_string())?;
     // The part of the spectrum the fit used.
     let [lo, hi] = fitter.window_nm();
     let w = measured.window(lo, hi);
     if args.json {
-        outln!("{}", serde_json::to_string(&result)?);
+        let json = serde_json::to_string(&result)?;
+        if terms.is_empty() {
+            outln!("{json}");
+        } else {
+            // The contract object, extended with the systematic terms that were fitted.
+            let terms = serde_json::to_string(&terms)?;
+            outln!("{},\"terms\":{terms}}}", json.trim_end_matches('}'));
+        }
     } else {
         for l in &result.layers {
             outln!(
@@ -77,6 +98,15 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
                 l.material,
                 l.thickness_nm,
                 l.sigma_nm
+            );
+        }
+        for t in &terms {
+            outln!(
+                "{:<10} {:>10.5} ± {:.5}    (correlation with thickness {:+.2})",
+                t.name,
+                t.value,
+                t.sigma,
+                t.correlation_with_thickness
             );
         }
         outln!("method {}, gof {:.5}", result.method, result.gof);

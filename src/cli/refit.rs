@@ -57,11 +57,16 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     }
     // The fitter is built before anything is journalled: a recipe it refuses changes nothing.
     let loaded = new_run::loaded_recipe(&folder, &meta);
-    let fitter = isopach::fit::Fitter::from_recipe(&loaded)?;
+    let machine = machine_of(&meta)?;
+    let fitter = isopach::fit::Fitter::from_recipe(&loaded)?.with_resolution_nm(
+        machine
+            .as_ref()
+            .map_or(0.0, |m| m.spectrometer.resolution_nm),
+    );
     for w in fitter.warnings() {
         eprintln!("warning: {w}");
     }
-    let material = reference_material(&machine_of(&meta)?);
+    let material = reference_material(&machine);
     // All or nothing: the fits count only once refit-finished is journalled; a refit killed
     // before that is discarded by the next session (run.toml restored from `previous`).
     // Each spectrum normalised by the reference interpolated in time, as when measured.

@@ -1,10 +1,11 @@
 //! [`Fitter`]: everything a recipe fixes about fitting (materials, stack, window, angles,
 //! bounds) resolved once, then any number of spectra fitted with it, from any thread.
 
+use super::instrument::Slit;
 use super::kernel::{channels, Channel, Prepared, MAX_LAYERS};
 use super::model::{self, Setup};
 use super::quality::{self, gof};
-use super::result::{FitResult, LayerResult};
+use super::result::{FitResult, LayerResult, Term};
 use super::{extrema, fourier, FitError};
 use crate::optics::tmm::{cone_nodes, cone_samples, cos_theta};
 use crate::optics::{reflectance, Material, MaterialLibrary, Stack};
@@ -39,6 +40,11 @@ pub struct Fitter {
     min_gof: f64,
     channels: Vec<Channel>,
     fit_scale: bool,
+    fit_tilt: bool,
+    /// FWHM of the spectrometer's slit function, nm (0: ideal).
+    resolution_nm: f64,
+    /// The stack prepared on the slit's fine grid, for the last pixel grid seen.
+    smeared: RwLock<Option<Arc<Smeared>>>,
     warnings: Vec<String>,
     /// The per-pixel model of the last wavelength grid seen (a map uses one grid).
     cache: RwLock<Option<Arc<Prepared>>>,
@@ -50,15 +56,30 @@ pub struct Fitter {
 
 type ReferenceCache = (String, Vec<f64>, Arc<Vec<f64>>);
 
+/// A pixel grid (`Prepared::wavelength_nm` of the pixels), its slit and the stack prepared on
+/// the slit's fine grid.
+#[derive(Debug)]
+struct Smeared {
+    pixels_nm: Vec<f64>,
+    slit: Slit,
+    fine: Prepared,
+}
+
 /// What a method returns: thickness of every layer, σ of the fitted ones, χ², flags.
-type Outcome = (Vec<f64>, Vec<f64>, f64, Vec<String>);
+type Outcome = (Vec<f64>, Vec<f64>, f64, Vec<String>, Vec<Term>);
 
 /// Fewest pixels the window must hold.
 const MIN_PIXELS: usize = 16;
 /// Grid points per fringe-order basin: the search step is λ_min/(STEPS_PER_WAVE · n).
 const STEPS_PER_WAVE: f64 = 10.0;
+/// Fewer fringes than this across the window and the grid step shrinks in proportion.
+const FEW_FRINGES: f64 = 4.0;
+/// At most this much finer.
+const MAX_REFINEMENT: f64 = 20.0;
 /// Search pixels per fringe at the shortest wavelength and the thickest film.
 const SEARCH_PIXELS_PER_FRINGE: f64 = 5.0;
+/// The search reaches this many fringe orders (at the longest wavelength) beyond each bound.
+const ORDER_MARGIN: f64 = 1.5;
 /// Fewer pixels per fringe than this and `auto` uses the Fourier method.
 const MODEL_MIN_PIXELS_PER_FRINGE: f64 = 3.0;
 
@@ -148,7 +169,10 @@ impl Fitter {
             na: film.na,
             min_gof: recipe.accept.min_gof,
             channels,
-            fit_scale: false,
+            fit_scale: film.fit_scale,
+            fit_tilt: film.fit_tilt,
+            resolution_nm: 0.0,
+            smeared: RwLock::new(None),
             warnings,
             cache: RwLock::new(None),
             reference_cache: RwLock::new(None),
@@ -157,10 +181,29 @@ impl Fitter {
     }
 
     /// Also fits an intensity scale factor (for spectra whose absolute level is uncertain,
-    /// e.g. a reference taken at another focus). Off by default: it correlates with the
-    /// thickness of very thin films, which are read from the absolute level.
+    /// e.g. a reference taken at another focus), on top of the recipe's `fit_scale`. Off by
+    /// default: it correlates with the thickness of very thin films, which are read from
+    /// the absolute level.
     pub fn with_scale_factor(mut self, on: bool) -> Fitter {
-        self.fit_scale = on;
+        self.fit_scale |= on;
+        self
+    }
+
+    /// Also fits a linear tilt of the intensity across the window, on top of the recipe's
+    /// `fit_tilt`.
+    pub fn with_tilt(mut self, on: bool) -> Fitter {
+        self.fit_tilt |= on;
+        self
+    }
+
+    /// Models the spectrometer's slit function: a Gaussian of this FWHM in nm (0: ideal),
+    /// as the machine file's `spectrometer.resolution_nm` says.
+    pub fn with_resolution_nm(mut self, fwhm_nm: f64) -> Fitter {
+        self.resolution_nm = if fwhm_nm.is_finite() {
+            fwhm_nm.max(0.0)
+        } else {
+            0.0
+        };
         self
     }
 
@@ -224,6 +267,15 @@ impl Fitter {
         spectrum: &Spectrum,
         quality: &SignalQuality,
     ) -> Result<FitResult, FitError> {
+        self.try_fit_with_terms(spectrum, quality).map(|(r, _)| r)
+    }
+
+    /// [`Fitter::try_fit`], with the fitted systematic terms (scale, tilt) of a model fit.
+    pub fn try_fit_with_terms(
+        &self,
+        spectrum: &Spectrum,
+        quality: &SignalQuality,
+    ) -> Result<(FitResult, Vec<Term>), FitError> {
         let w = spectrum.window(self.window[0], self.window[1]);
         w.validate(MIN_PIXELS).map_err(|e| match e {
             crate::spectrum::SpectrumError::Invalid(m) => crate::spectrum::SpectrumError::Invalid(
@@ -253,14 +305,17 @@ impl Fitter {
             // Ending on an edge of the narrowed range means the Fourier guess misled the
             // search: the Fourier answer itself is the safer one.
             let d = outcome.0[self.fitted[0]];
-            let (lo, hi) = (bounds[0], recipe_bounds[0]);
+            let (lo, hi) = (
+                self.widened(&w, &bounds)[0],
+                self.widened(&w, &recipe_bounds)[0],
+            );
             let edge = |x: f64, r: f64| (d - x).abs() <= 1e-3 && (x - r).abs() > 1e-3;
             if edge(lo.0, hi.0) || edge(lo.1, hi.1) {
                 method = FitMethod::Fourier;
                 outcome = self.run_method(method, &prep, &w, &recipe_bounds)?;
             }
         }
-        let (thickness, sigma, chi2, mut flags) = outcome;
+        let (thickness, sigma, chi2, mut flags, terms) = outcome;
         let g = gof(chi2, &w.reflectance);
         let at_bound = self.fitted.iter().any(|&i| {
             let l = &self.layers[i];
@@ -270,11 +325,11 @@ impl Fitter {
         if at_bound {
             flags.push(quality::AT_BOUND.to_string());
         }
-        if g < self.min_gof {
+        if g < self.min_gof && !flags.iter().any(|f| f == quality::POOR_FIT) {
             flags.push(quality::POOR_FIT.to_string());
         }
         flags.extend(quality_flags(quality));
-        Ok(FitResult {
+        let result = FitResult {
             method: method.as_str().to_string(),
             layers: self
                 .fitted
@@ -288,7 +343,8 @@ impl Fitter {
                 .collect(),
             gof: g,
             flags,
-        })
+        };
+        Ok((result, terms))
     }
 
     /// Checks that `material` is known here (built in, or the recipe's own).
@@ -396,6 +452,33 @@ impl Fitter {
         p
     }
 
+    /// The slit and the fine-grid model for a pixel grid (cached like [`Fitter::prepared`]).
+    fn smeared(&self, pixels_nm: &[f64]) -> Arc<Smeared> {
+        if let Ok(guard) = self.smeared.read() {
+            if let Some(s) = guard.as_ref().filter(|s| s.pixels_nm == pixels_nm) {
+                return Arc::clone(s);
+            }
+        }
+        let slit = Slit::gaussian(pixels_nm, self.resolution_nm);
+        let materials: Vec<Material> = self.layers.iter().map(|l| l.material.clone()).collect();
+        let fine = Prepared::new(
+            &self.ambient,
+            &materials,
+            &self.substrate,
+            &self.channels,
+            &slit.fine_nm,
+        );
+        let s = Arc::new(Smeared {
+            pixels_nm: pixels_nm.to_vec(),
+            slit,
+            fine,
+        });
+        if let Ok(mut guard) = self.smeared.write() {
+            *guard = Some(Arc::clone(&s));
+        }
+        s
+    }
+
     /// The recipe's search range of each fitted layer.
     fn bounds(&self) -> Vec<(f64, f64)> {
         self.fitted
@@ -457,21 +540,100 @@ impl Fitter {
                 let mut all = self.nominal();
                 all[self.fitted[0]] = d;
                 let chi2 = chi2(prep, &w.reflectance, &all);
-                Ok((all, vec![s], chi2, flags))
+                Ok((all, vec![s], chi2, flags, Vec::new()))
             }
             _ => {
                 let fit = self.model_fit(prep, w, bounds).ok_or_else(|| FitError::Method {
                     method: "model",
                     message: "the model gives no finite reflectance over the window: check the materials' formulas".into(),
                 })?;
-                let flags = if fit.ambiguous {
-                    vec![quality::AMBIGUOUS.to_string()]
-                } else {
-                    Vec::new()
-                };
-                Ok((fit.thickness, fit.sigma, fit.chi2, flags))
+                let flags = self.model_flags(&fit);
+                let mut thickness = fit.thickness.clone();
+                // An answer outside the range is reported at the bound it passed (flagged
+                // invalid): the recipe's range is a promise about what the map shows.
+                for (&i, (lo, hi)) in self.fitted.iter().zip(self.bounds()) {
+                    thickness[i] = thickness[i].clamp(lo, hi);
+                }
+                let terms = self.terms(&fit);
+                Ok((thickness, fit.sigma, fit.chi2, flags, terms))
             }
         }
+    }
+
+    /// The fitted scale and tilt with σ and correlation with the first thickness, from the
+    /// full covariance.
+    fn terms(&self, fit: &model::ModelFit) -> Vec<Term> {
+        let nf = self.fitted.len();
+        let np = fit.params;
+        let cov = |a: usize, b: usize| fit.covariance.as_ref().map_or(f64::NAN, |c| c[a * np + b]);
+        let mut out = Vec::new();
+        let mut a = nf;
+        for (on, name, value) in [
+            (self.fit_scale, "scale", fit.scale),
+            (self.fit_tilt, "tilt", fit.tilt),
+        ] {
+            if on {
+                out.push(Term {
+                    name: name.to_string(),
+                    value,
+                    sigma: cov(a, a).max(0.0).sqrt(),
+                    correlation_with_thickness: cov(a, 0) / (cov(a, a) * cov(0, 0)).sqrt(),
+                });
+                a += 1;
+            }
+        }
+        out
+    }
+
+    /// Flags of a model fit: a best or rival solution outside the recipe's range, rivals
+    /// within noise, and a residual far above the spectrum's own noise.
+    fn model_flags(&self, fit: &model::ModelFit) -> Vec<String> {
+        let mut flags = Vec::new();
+        let bounds = self.bounds();
+        let outside = |d: &[f64]| {
+            d.iter().zip(&bounds).any(|(d, (lo, hi))| {
+                let tol = (1e-3f64).max(1e-6 * (hi - lo));
+                *d < lo - tol || *d > hi + tol
+            })
+        };
+        let best: Vec<f64> = self.fitted.iter().map(|&i| fit.thickness[i]).collect();
+        if outside(&best) || fit.rivals.iter().any(|r| outside(&r.thickness)) {
+            flags.push(quality::OUTSIDE_RANGE.to_string());
+        }
+        if !fit.rivals.is_empty() {
+            flags.push(quality::AMBIGUOUS.to_string());
+        }
+        let red = quality::reduced_chi2(fit.chi2, fit.residuals.len(), fit.params, fit.noise_sigma);
+        if red > quality::STRUCTURE_REDUCED_CHI2
+            && quality::lag1_autocorrelation(&fit.residuals) > quality::STRUCTURE_AUTOCORRELATION
+        {
+            flags.push(quality::RESIDUAL_STRUCTURE.to_string());
+        }
+        if red > quality::MAX_REDUCED_CHI2 {
+            flags.push(quality::POOR_FIT.to_string());
+        }
+        flags
+    }
+
+    /// The search range of each fitted layer widened by more than one fringe order on each
+    /// side (never below zero), so that a film just outside the recipe's range is found
+    /// there instead of being mistaken for a neighbouring order inside it.
+    fn widened(&self, w: &Spectrum, bounds: &[(f64, f64)]) -> Vec<(f64, f64)> {
+        let l_max = w.wavelength_nm[w.len() - 1];
+        let sin0 = self.ambient.index(l_max).re * self.incidence_deg.to_radians().sin();
+        self.fitted
+            .iter()
+            .zip(bounds)
+            .map(|(&i, &(lo, hi))| {
+                let n = self.layers[i].material.index(l_max).re.max(1.0);
+                // One order at the longest wavelength (the widest spacing), with a margin.
+                let order = l_max / (2.0 * (n * n - sin0 * sin0).max(0.01).sqrt());
+                (
+                    (lo - ORDER_MARGIN * order).max(0.0),
+                    hi + ORDER_MARGIN * order,
+                )
+            })
+            .collect()
     }
 
     fn model_fit(
@@ -480,7 +642,10 @@ impl Fitter {
         w: &Spectrum,
         bounds: &[(f64, f64)],
     ) -> Option<model::ModelFit> {
+        let bounds = &self.widened(w, bounds);
+        let smeared = (self.resolution_nm > 0.0).then(|| self.smeared(&w.wavelength_nm));
         let l_min = w.wavelength_nm[0];
+        let l_max = w.wavelength_nm[w.len() - 1];
         let stride = ((self.pixels_per_fringe(w, bounds) / SEARCH_PIXELS_PER_FRINGE).floor()
             as usize)
             .clamp(1, (w.len() / 48).max(1));
@@ -495,11 +660,19 @@ impl Fitter {
             steps: self
                 .fitted
                 .iter()
-                .map(|i| {
-                    l_min / (STEPS_PER_WAVE * self.layers[*i].material.index(l_min).re.max(1.0))
+                .zip(bounds)
+                .map(|(i, b)| {
+                    let n = self.layers[*i].material.index(l_min).re.max(1.0);
+                    // Fringes the thickest film shows across the window: with few, every
+                    // order's basin looks alike and only a finer grid ranks them right.
+                    let fringes = 2.0 * n * b.1 * (1.0 / l_min - 1.0 / l_max);
+                    let finer = (FEW_FRINGES / fringes.max(1e-9)).clamp(1.0, MAX_REFINEMENT);
+                    l_min / (STEPS_PER_WAVE * finer * n)
                 })
                 .collect(),
             scale: self.fit_scale,
+            tilt: self.fit_tilt,
+            slit: smeared.as_ref().map(|s| (&s.fine, &s.slit)),
         };
         model::fit(&setup, &search)
     }

@@ -24,6 +24,8 @@ pub struct Solution {
     pub chi2: f64,
     /// (JᵀJ)⁻¹ at the solution, if it is invertible (row-major p × p).
     pub inv_jtj: Option<Vec<f64>>,
+    /// Residuals at the solution.
+    pub residuals: Vec<f64>,
     pub iterations: usize,
     /// Residual evaluations made.
     pub evaluations: usize,
@@ -123,6 +125,7 @@ pub fn minimise(
         x,
         chi2,
         inv_jtj,
+        residuals: res,
         iterations,
         evaluations,
     }

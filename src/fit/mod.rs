@@ -5,6 +5,7 @@
 pub mod extrema;
 mod fitter;
 pub mod fourier;
+pub mod instrument;
 pub mod kernel;
 pub mod lm;
 pub mod model;
@@ -13,7 +14,7 @@ pub mod quality;
 mod result;
 
 pub use fitter::Fitter;
-pub use result::{FitResult, LayerResult};
+pub use result::{FitResult, LayerResult, Term};
 
 use std::path::PathBuf;
 

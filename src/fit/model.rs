@@ -1,12 +1,17 @@
 //! The `model` method: a global grid search over every fitted thickness, dense enough that
 //! no fringe-order minimum falls between grid points, then Levenberg–Marquardt from the best
-//! local minima; σ from the covariance scaled by the residual variance.
+//! local minima; σ from the covariance scaled by the residual variance; every other minimum
+//! within noise of the best is reported as a rival.
 
+use super::instrument::Slit;
 use super::kernel::Prepared;
 use super::lm::{self, Problem, Settings};
+use super::quality;
 
 /// What to fit: thicknesses of every layer (`base`, nm), which of them vary, their bounds
-/// and grid steps, and whether an intensity scale factor is fitted too.
+/// and grid steps, and which systematic terms are fitted too: an intensity scale s and a
+/// tilt t of it across the window, the model being s·(1 + t·u)·R with u running from −1 at
+/// the first pixel to +1 at the last.
 #[derive(Debug, Clone)]
 pub struct Setup<'a> {
     pub prep: &'a Prepared,
@@ -18,6 +23,12 @@ pub struct Setup<'a> {
     pub upper: Vec<f64>,
     pub steps: Vec<f64>,
     pub scale: bool,
+    pub tilt: bool,
+    /// The spectrometer's slit function and the stack prepared on its fine grid: the model
+    /// of pixel j is then the slit-weighted average of the fine grid's reflectance (the
+    /// grid search still uses `prep`, the unconvolved model, which has its minima at the
+    /// same fringe phases).
+    pub slit: Option<(&'a Prepared, &'a Slit)>,
 }
 
 /// The outcome of a model fit.
@@ -28,11 +39,27 @@ pub struct ModelFit {
     /// σ of each fitted thickness.
     pub sigma: Vec<f64>,
     pub scale: f64,
+    /// The fitted tilt t (0 when not fitted).
+    pub tilt: f64,
     pub chi2: f64,
-    /// Another local minimum fits within the noise.
-    pub ambiguous: bool,
-    /// The runner-up thicknesses (fitted layers), if any other minimum was found.
-    pub runner_up: Option<Vec<f64>>,
+    /// Number of fitted parameters (thicknesses and systematic terms).
+    pub params: usize,
+    /// The covariance s²(JᵀJ)⁻¹ of every fitted parameter (thicknesses, then scale and
+    /// tilt when fitted), row-major; `None` when JᵀJ is singular.
+    pub covariance: Option<Vec<f64>>,
+    /// The noise σ the spectrum shows by itself ([`quality::noise_sigma`]).
+    pub noise_sigma: f64,
+    /// Measured minus modelled reflectance at every pixel.
+    pub residuals: Vec<f64>,
+    /// Other local minima that fit within the noise of the best (Δχ² < 9 noise variances).
+    pub rivals: Vec<Minimum>,
+}
+
+/// A local minimum of χ²: the fitted layers' thicknesses and its χ² on every pixel.
+#[derive(Debug, Clone)]
+pub struct Minimum {
+    pub thickness: Vec<f64>,
+    pub chi2: f64,
 }
 
 /// Least-squares problem over a pixel subset.
@@ -53,7 +80,7 @@ impl Lsq<'_> {
 
 impl Problem for Lsq<'_> {
     fn params(&self) -> usize {
-        self.setup.fitted.len() + usize::from(self.setup.scale)
+        self.setup.params()
     }
     fn residuals(&self) -> usize {
         self.pixels.len()
@@ -62,22 +89,79 @@ impl Problem for Lsq<'_> {
         let d = self.thickness(x);
         let p = self.params();
         let nf = self.setup.fitted.len();
-        let s = if self.setup.scale { x[nf] } else { 1.0 };
+        let (s, t) = self.setup.systematic(x);
+        let lam = &self.setup.prep.wavelength_nm;
+        let (l0, l1) = (lam[0], lam[lam.len() - 1]);
         let mut grad = vec![0.0; d.len()];
         let mut chi2 = 0.0;
+        let smeared = self
+            .setup
+            .slit
+            .map(|(fine, slit)| smeared_model(fine, slit, &d));
         for (i, &j) in self.pixels.iter().enumerate() {
-            let r = self.setup.prep.reflectance_grad(j, &d, &mut grad);
-            res[i] = s * r - self.setup.measured[j];
+            let r = match (&smeared, self.setup.slit) {
+                (Some((fr, fg)), Some((_, slit))) => {
+                    for (l, g) in grad.iter_mut().enumerate() {
+                        *g = slit.apply_strided(j, fg, d.len(), l);
+                    }
+                    slit.apply(j, fr)
+                }
+                _ => self.setup.prep.reflectance_grad(j, &d, &mut grad),
+            };
+            let u = tilt_coordinate(lam[j], l0, l1);
+            let f = s * (1.0 + t * u);
+            res[i] = f * r - self.setup.measured[j];
             chi2 += res[i] * res[i];
             let row = &mut jac[i * p..(i + 1) * p];
             for (a, l) in self.setup.fitted.iter().enumerate() {
-                row[a] = s * grad[*l];
+                row[a] = f * grad[*l];
             }
+            let mut a = nf;
             if self.setup.scale {
-                row[nf] = r;
+                row[a] = (1.0 + t * u) * r;
+                a += 1;
+            }
+            if self.setup.tilt {
+                row[a] = s * u * r;
             }
         }
         chi2
+    }
+}
+
+/// R and dR/dd (layers fastest) at every point of the slit's fine grid.
+fn smeared_model(fine: &Prepared, slit: &Slit, d: &[f64]) -> (Vec<f64>, Vec<f64>) {
+    let n = slit.fine_nm.len();
+    let mut r = vec![0.0; n];
+    let mut g = vec![0.0; n * d.len()];
+    for k in 0..n {
+        r[k] = fine.reflectance_grad(k, d, &mut g[k * d.len()..(k + 1) * d.len()]);
+    }
+    (r, g)
+}
+
+/// Where a wavelength lies in the window, −1 at `first` to +1 at `last`: the coordinate of
+/// the tilt term.
+pub fn tilt_coordinate(wavelength_nm: f64, first: f64, last: f64) -> f64 {
+    (2.0 * wavelength_nm - first - last) / (last - first).max(f64::MIN_POSITIVE)
+}
+
+impl Setup<'_> {
+    /// Fitted parameters: thicknesses, then the scale and the tilt when they are fitted.
+    pub fn params(&self) -> usize {
+        self.fitted.len() + usize::from(self.scale) + usize::from(self.tilt)
+    }
+
+    /// The scale and tilt at `x` (1 and 0 when not fitted).
+    fn systematic(&self, x: &[f64]) -> (f64, f64) {
+        let nf = self.fitted.len();
+        let s = if self.scale { x[nf] } else { 1.0 };
+        let t = if self.tilt {
+            x[nf + usize::from(self.scale)]
+        } else {
+            0.0
+        };
+        (s, t)
     }
 }
 
@@ -213,8 +297,8 @@ fn grid_search(setup: &Setup, pixels: &[usize]) -> Grid {
         for i in 0..n {
             let mut idx = outer.clone();
             idx[sweep] = i;
-            chi2[grid.flatten(&idx)] = if setup.scale {
-                // χ² at the best scale s = Σ R R_m / Σ R².
+            chi2[grid.flatten(&idx)] = if setup.scale || setup.tilt {
+                // χ² at the best scale s = Σ R R_m / Σ R² (a small tilt moves no basin).
                 (smm - srm[i] * srm[i] / srr[i].max(1e-300)).max(0.0)
             } else {
                 sse[i]
@@ -240,30 +324,43 @@ fn grid_search(setup: &Setup, pixels: &[usize]) -> Grid {
     }
 }
 
+/// Range of the fitted intensity scale: a reference 5× off is no longer a scale error.
+const SCALE_LIMITS: [f64; 2] = [0.2, 5.0];
+/// Largest fitted tilt: ±50 % across the window.
+const TILT_LIMIT: f64 = 0.5;
 /// Candidates refined on the search pixels before the final polish.
 const CANDIDATES: usize = 12;
-/// Δχ² (in units of the residual variance) below which a second minimum is "within noise":
+/// Δχ² (in units of the noise variance) below which a second minimum is "within noise":
 /// a 3σ likelihood-ratio distinction for one parameter (common practice).
 const AMBIGUITY_DCHI2: f64 = 9.0;
 
 /// Fits the model: grid search on `search_pixels`, LM refinement there, then LM on every
-/// pixel from the best (and from the runner-up when it is close). `None` when the grid holds
-/// no finite χ² (a material whose index is not finite over the window).
+/// pixel from the best, and from every other minimum that may come within noise of it.
+/// `None` when the grid holds no finite χ² (a material whose index is not finite over the
+/// window).
 pub fn fit(setup: &Setup, search_pixels: &[usize]) -> Option<ModelFit> {
     let all: Vec<usize> = (0..setup.prep.len()).collect();
     let grid = grid_search(setup, search_pixels);
     let nf = setup.fitted.len();
+    let np = setup.params();
     let x0 = |v: Vec<f64>| -> Vec<f64> {
         let mut x = v;
         if setup.scale {
             x.push(1.0);
         }
+        if setup.tilt {
+            x.push(0.0);
+        }
         x
     };
     let (mut lo, mut hi) = (setup.lower.clone(), setup.upper.clone());
     if setup.scale {
-        lo.push(0.2);
-        hi.push(5.0);
+        lo.push(SCALE_LIMITS[0]);
+        hi.push(SCALE_LIMITS[1]);
+    }
+    if setup.tilt {
+        lo.push(-TILT_LIMIT);
+        hi.push(TILT_LIMIT);
     }
     let coarse = Settings {
         max_iterations: 15,
@@ -279,77 +376,100 @@ pub fn fit(setup: &Setup, search_pixels: &[usize]) -> Option<ModelFit> {
         pixels: &all,
     };
     let same_pixels = search_pixels.len() == all.len();
+    let dof = |n: usize| (n as f64 - np as f64).max(1.0);
+    // The noise variance the subset's χ² differences are judged against, before the noise
+    // is known: the best's residual variance, at least the floor.
+    let floor2 = quality::NOISE_FLOOR * quality::NOISE_FLOOR;
+    let var_sub = |chi2: f64| (chi2 / dof(search_pixels.len())).max(floor2);
     // Refine the best local minima on the search pixels, most promising first. A basin
     // whose predicted χ² is far above the best refined one can neither win nor be within
     // noise of it: skip it (the prediction is rough, hence the generous margin).
-    let mut starts: Vec<(Vec<f64>, f64)> = grid
-        .local_minima()
-        .into_iter()
-        .take(CANDIDATES)
-        .map(|f| grid.refined(&grid.unflatten(f)))
+    // The best CANDIDATES minima, and every further one nearly as low: on a narrow window
+    // neighbouring orders look alike and the grid's sampling alone may rank the true one
+    // far down.
+    let minima = grid.local_minima();
+    let lowest = minima.first().map_or(0.0, |f| grid.chi2[*f]);
+    let mut starts: Vec<(Vec<f64>, f64)> = minima
+        .iter()
+        .enumerate()
+        .take_while(|(k, f)| *k < CANDIDATES || grid.chi2[**f] <= 4.0 * lowest)
+        .map(|(_, f)| grid.refined(&grid.unflatten(*f)))
         .collect();
     starts.sort_by(|a, b| a.1.total_cmp(&b.1));
-    let dof_sub = (search_pixels.len() as f64 - (nf + usize::from(setup.scale)) as f64).max(1.0);
+    let distinct = |a: &[f64], b: &[f64], tol: &dyn Fn(usize) -> f64| {
+        (0..nf).any(|i| (a[i] - b[i]).abs() >= tol(i))
+    };
     let mut refined: Vec<lm::Solution> = Vec::new();
     for (start, predicted) in starts {
         if let Some(best) = refined.first() {
-            let s2 = best.chi2 / dof_sub;
-            if predicted > 4.0 * best.chi2 + 4.0 * AMBIGUITY_DCHI2 * s2 {
+            if predicted > 4.0 * best.chi2 + 4.0 * AMBIGUITY_DCHI2 * var_sub(best.chi2) {
                 continue;
             }
         }
         let s = lm::minimise(&sub, &x0(start), &lo, &hi, coarse);
-        let dup = refined
-            .iter()
-            .any(|r| (0..nf).all(|a| (r.x[a] - s.x[a]).abs() < (0.2 * setup.steps[a]).max(0.5)));
-        if !dup {
+        let tol = |a: usize| (0.2 * setup.steps[a]).max(0.5);
+        if refined.iter().all(|r| distinct(&r.x, &s.x, &tol)) {
             refined.push(s);
             refined.sort_by(|a, b| a.chi2.total_cmp(&b.chi2));
         }
     }
-    refined.sort_by(|a, b| a.chi2.total_cmp(&b.chi2));
-    let dof = |n: usize| (n as f64 - (nf + usize::from(setup.scale)) as f64).max(1.0);
     let fine = Settings {
         x_tol: 1e-4,
         ..Settings::default()
     };
-    let polish = |s: &lm::Solution| lm::minimise(&full, &s.x, &lo, &hi, fine);
-    let first = refined.first().filter(|r| r.chi2.is_finite())?;
-    let best = polish(first);
-    let s2 = best.chi2 / dof(all.len());
-    let mut ambiguous = false;
-    let mut runner_up = None;
-    if let Some(second) = refined.get(1) {
-        let s2_sub = first.chi2 / dof(search_pixels.len());
-        let close_on_subset = second.chi2 - first.chi2 < 4.0 * AMBIGUITY_DCHI2 * s2_sub;
-        if close_on_subset || same_pixels {
-            let second = if same_pixels {
-                second.clone()
-            } else {
-                polish(second)
-            };
-            ambiguous = second.chi2 - best.chi2 < AMBIGUITY_DCHI2 * s2
-                && (0..nf).any(|a| (second.x[a] - best.x[a]).abs() > 0.5);
-            runner_up = Some(second.x[..nf].to_vec());
+    let polish = |s: &lm::Solution| {
+        if same_pixels {
+            s.clone()
         } else {
-            runner_up = Some(second.x[..nf].to_vec());
+            lm::minimise(&full, &s.x, &lo, &hi, fine)
         }
-    }
+    };
+    let first = refined.first().filter(|r| r.chi2.is_finite())?;
+    let best = if same_pixels {
+        lm::minimise(&full, &first.x, &lo, &hi, fine)
+    } else {
+        polish(first)
+    };
+    let s2 = best.chi2 / dof(all.len());
+    let noise = quality::noise_sigma(setup.measured, &best.residuals);
+    // Differences of χ² are judged against the larger of the noise and the residual
+    // variance: a model that misses a term cannot tell orders apart more finely than it fits.
+    let var = s2.max(noise * noise);
+    // Every other minimum that the subset says may come within noise is polished on every
+    // pixel; those that do are rivals of the best.
+    let rivals: Vec<Minimum> = refined[1..]
+        .iter()
+        .filter(|r| {
+            same_pixels || r.chi2 - first.chi2 < 4.0 * AMBIGUITY_DCHI2 * var_sub(first.chi2)
+        })
+        .map(polish)
+        .filter(|r| r.chi2 - best.chi2 < AMBIGUITY_DCHI2 * var && distinct(&r.x, &best.x, &|_| 0.5))
+        .map(|r| Minimum {
+            thickness: r.x[..nf].to_vec(),
+            chi2: r.chi2,
+        })
+        .collect();
+    let covariance: Option<Vec<f64>> = best
+        .inv_jtj
+        .as_ref()
+        .map(|inv| inv.iter().map(|v| v * s2).collect());
     let sigma = (0..nf)
-        .map(|a| match &best.inv_jtj {
-            Some(inv) => (inv[a * (nf + usize::from(setup.scale)) + a] * s2)
-                .max(0.0)
-                .sqrt(),
+        .map(|a| match &covariance {
+            Some(c) => c[a * np + a].max(0.0).sqrt(),
             None => f64::NAN,
         })
         .collect();
     Some(ModelFit {
         thickness: full.thickness(&best.x),
         sigma,
-        scale: if setup.scale { best.x[nf] } else { 1.0 },
+        scale: setup.systematic(&best.x).0,
+        tilt: setup.systematic(&best.x).1,
         chi2: best.chi2,
-        ambiguous,
-        runner_up,
+        params: np,
+        covariance,
+        noise_sigma: noise,
+        residuals: best.residuals,
+        rivals,
     })
 }
 

@@ -1,4 +1,5 @@
-//! Fit quality: goodness of fit, σ from the covariance, and the flag names of a result.
+//! Fit quality: goodness of fit, the noise a spectrum shows by itself, reduced χ², residual
+//! structure, and the flag names of a result.
 
 /// Goodness of fit below the recipe's `min_gof`.
 pub const POOR_FIT: &str = "poor-fit";
@@ -6,6 +7,12 @@ pub const POOR_FIT: &str = "poor-fit";
 pub const AT_BOUND: &str = "at-bound";
 /// Another thickness fits within the noise.
 pub const AMBIGUOUS: &str = "ambiguous";
+/// The best solution, or one within the noise of it, lies outside the search range: the
+/// number reported (held at the bound) is not the film's.
+pub const OUTSIDE_RANGE: &str = "outside-range";
+/// The residual is far above the spectrum's own noise and smooth: the model lacks a term
+/// (an unmodelled layer, a wrong index, an instrument effect).
+pub const RESIDUAL_STRUCTURE: &str = "residual-structure";
 /// Too little light for a trustworthy fit.
 pub const LOW_SIGNAL: &str = "low-signal";
 /// Part of the spectrum was clipped by the detector.
@@ -16,7 +23,63 @@ pub const BELOW_RESOLUTION: &str = "below-resolution";
 pub const NO_FIT: &str = "no-fit";
 
 /// Flags that make a site invalid whatever its goodness of fit.
-pub const INVALIDATING: [&str; 3] = [NO_FIT, SATURATED, LOW_SIGNAL];
+/// (`poor-fit` also stands when the gof passes but the residual is far above the noise.)
+pub const INVALIDATING: [&str; 5] = [NO_FIT, SATURATED, LOW_SIGNAL, OUTSIDE_RANGE, POOR_FIT];
+
+/// Smallest noise σ (reflectance) assumed: a spectrometer's digitisation and stray light
+/// keep real spectra above about 10⁻⁴ of full scale (common practice), and a smaller floor
+/// would make tiny model imperfections look significant on noise-free synthetic spectra.
+pub const NOISE_FLOOR: f64 = 2e-4;
+/// Reduced χ² above which a fit is poor whatever its gof: the residual is 5× the noise.
+pub const MAX_REDUCED_CHI2: f64 = 25.0;
+/// Reduced χ² above which a smooth residual is reported as structure.
+pub const STRUCTURE_REDUCED_CHI2: f64 = 4.0;
+/// Lag-1 autocorrelation of the residual above which it counts as smooth (white noise ≈ 0).
+pub const STRUCTURE_AUTOCORRELATION: f64 = 0.5;
+
+/// Noise σ of one series from its own pixel-to-pixel scatter: the median absolute third
+/// difference, which removes any quadratic trend, scaled to a Gaussian σ
+/// (third difference of white noise has variance 20σ²; median |x| = 0.6745σ for a Gaussian).
+/// Signal that varies within a few pixels inflates it.
+pub fn scatter_sigma(values: &[f64]) -> f64 {
+    if values.len() < 8 {
+        return f64::NAN;
+    }
+    let mut d3: Vec<f64> = values
+        .windows(4)
+        .map(|w| (w[3] - 3.0 * w[2] + 3.0 * w[1] - w[0]).abs())
+        .collect();
+    let mid = d3.len() / 2;
+    let (_, median, _) = d3.select_nth_unstable_by(mid, f64::total_cmp);
+    *median / (0.6745 * 20f64.sqrt())
+}
+
+/// The noise σ of a measured spectrum, estimated from the spectrum itself: the smaller of
+/// the scatter of the spectrum and the scatter of the fit's residual (the model takes out
+/// fringes too dense for differences to remove), never below [`NOISE_FLOOR`].
+pub fn noise_sigma(measured: &[f64], residuals: &[f64]) -> f64 {
+    let s = scatter_sigma(measured).min(scatter_sigma(residuals));
+    if s.is_nan() {
+        NOISE_FLOOR
+    } else {
+        s.max(NOISE_FLOOR)
+    }
+}
+
+/// χ² per degree of freedom in units of the noise variance (≈ 1 when the model explains
+/// everything but the noise).
+pub fn reduced_chi2(chi2: f64, pixels: usize, params: usize, noise_sigma: f64) -> f64 {
+    chi2 / ((pixels as f64 - params as f64).max(1.0) * noise_sigma * noise_sigma)
+}
+
+/// Lag-1 autocorrelation of a residual: ≈ 0 for white noise, near 1 for a smooth misfit.
+pub fn lag1_autocorrelation(residuals: &[f64]) -> f64 {
+    let ss: f64 = residuals.iter().map(|r| r * r).sum();
+    if !(ss > 0.0) {
+        return 0.0;
+    }
+    residuals.windows(2).map(|w| w[0] * w[1]).sum::<f64>() / ss
+}
 
 /// Goodness of fit in 0..1: the coefficient of determination 1 − χ²/Σ(R_m − mean)²,
 /// clamped (common practice in reflectometry).
@@ -45,5 +108,26 @@ mod tests {
         assert!((gof(tss, &m)).abs() < 1e-12);
         assert!((gof(tss / 2.0, &m) - 0.5).abs() < 1e-12);
         assert_eq!(gof(1.0, &m), 0.0);
+    }
+
+    #[test]
+    fn scatter_sees_the_noise_and_not_a_smooth_trend() {
+        use rand::SeedableRng;
+        use rand_distr::{Distribution, Normal};
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(3);
+        let noise = Normal::new(0.0, 0.003).unwrap();
+        let smooth: Vec<f64> = (0..2000)
+            .map(|i| 0.3 + 0.1 * (i as f64 / 300.0).sin())
+            .collect();
+        let noisy: Vec<f64> = smooth.iter().map(|v| v + noise.sample(&mut rng)).collect();
+        let s = scatter_sigma(&noisy);
+        assert!((s - 0.003).abs() < 0.0003, "{s}");
+        assert!(scatter_sigma(&smooth) < 1e-6);
+        assert_eq!(noise_sigma(&smooth, &smooth), NOISE_FLOOR);
+        let white: Vec<f64> = noisy.iter().zip(&smooth).map(|(a, b)| a - b).collect();
+        assert!(lag1_autocorrelation(&white).abs() < 0.1);
+        let trend: Vec<f64> = smooth.iter().map(|v| v - 0.3).collect();
+        assert!(lag1_autocorrelation(&trend) > 0.99);
+        assert!((reduced_chi2(0.009 * 0.009 * 101.0, 102, 1, 0.009) - 1.0).abs() < 1e-12);
     }
 }

@@ -28,7 +28,7 @@ pub struct FitResult {
 
 impl FitResult {
     /// Whether the site counts: a thickness for every layer, gof ≥ `min_gof`, and no flag
-    /// that invalidates it (`no-fit`, `saturated`, `low-signal`).
+    /// that invalidates it (`no-fit`, `saturated`, `low-signal`, `outside-range`, `poor-fit`).
     pub fn is_valid(&self, min_gof: f64) -> bool {
         self.gof >= min_gof
             && self.layers.iter().all(|l| l.thickness_nm.is_finite())
@@ -47,6 +47,19 @@ impl FitResult {
     pub fn thickness_nm(&self) -> f64 {
         self.layers.first().map_or(f64::NAN, |l| l.thickness_nm)
     }
+}
+
+/// A fitted parameter other than a thickness (a systematic term), with its statistical σ
+/// and its correlation with the first fitted thickness.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Term {
+    pub name: String,
+    #[serde(serialize_with = "nan_as_null", deserialize_with = "null_as_nan")]
+    pub value: f64,
+    #[serde(serialize_with = "nan_as_null", deserialize_with = "null_as_nan")]
+    pub sigma: f64,
+    #[serde(serialize_with = "nan_as_null", deserialize_with = "null_as_nan")]
+    pub correlation_with_thickness: f64,
 }
 
 fn nan_as_null<S: Serializer>(v: &f64, s: S) -> Result<S::Ok, S::Error> {

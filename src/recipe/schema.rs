@@ -109,6 +109,16 @@ pub struct FilmSpec {
     /// Numerical aperture of the illumination cone; 0 = collimated.
     #[serde(default)]
     pub na: f64,
+    /// Also fit an intensity scale factor (a reference taken at another focus).
+    #[serde(default, skip_serializing_if = "is_false")]
+    pub fit_scale: bool,
+    /// Also fit a linear tilt of the intensity across the window (a slow baseline drift).
+    #[serde(default, skip_serializing_if = "is_false")]
+    pub fit_tilt: bool,
+}
+
+fn is_false(b: &bool) -> bool {
+    !*b
 }
 
 /// One film layer.

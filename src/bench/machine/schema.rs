@@ -236,6 +236,14 @@ pub struct SpectrometerSpec {
     pub command: Vec<String>,
     #[serde(default = "d_spec_timeout")]
     pub timeout_s: f64,
+    /// FWHM of the spectrometer's slit function, nm (0: finer than anything the fit sees).
+    /// The fit convolves its model with it; frozen into each run with the machine file.
+    #[serde(default, skip_serializing_if = "is_zero")]
+    pub resolution_nm: f64,
+}
+
+fn is_zero(v: &f64) -> bool {
+    *v == 0.0
 }
 
 impl Default for SpectrometerSpec {
@@ -244,6 +252,7 @@ impl Default for SpectrometerSpec {
             kind: SpectrometerKind::Simulated,
             command: Vec::new(),
             timeout_s: d_spec_timeout(),
+            resolution_nm: 0.0,
         }
     }
 }
@@ -496,6 +505,26 @@ pub struct SimSpectrometerSpec {
     /// relative to the middle of the range (a lamp's colour temperature wandering).
     #[serde(default)]
     pub lamp_tilt_pct_per_hour: f64,
+    /// FWHM of the virtual slit function, nm (0: ideal). Give the same value as
+    /// `spectrometer.resolution_nm` for the fit to model it.
+    #[serde(default, skip_serializing_if = "is_zero")]
+    pub resolution_nm: f64,
+    /// Level of the sample light against the reference's (a reference taken at another
+    /// focus): 1 = none. Fitted by a recipe's `fit_scale`.
+    #[serde(default = "d_one", skip_serializing_if = "is_one")]
+    pub sample_scale: f64,
+    /// A tilt of that level across the detector range, ± this fraction at its ends.
+    /// Fitted by a recipe's `fit_tilt`.
+    #[serde(default, skip_serializing_if = "is_zero")]
+    pub sample_tilt: f64,
+}
+
+fn d_one() -> f64 {
+    1.0
+}
+
+fn is_one(v: &f64) -> bool {
+    *v == 1.0
 }
 
 impl Default for SimSpectrometerSpec {
@@ -512,6 +541,9 @@ impl Default for SimSpectrometerSpec {
             full_scale_counts: d_full_scale(),
             lamp_drift_pct_per_hour: d_lamp_drift(),
             lamp_tilt_pct_per_hour: 0.0,
+            resolution_nm: 0.0,
+            sample_scale: 1.0,
+            sample_tilt: 0.0,
         }
     }
 }

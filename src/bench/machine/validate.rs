@@ -56,6 +56,13 @@ pub fn validate(m: &MachineFile) -> Vec<Problem> {
         }
     }
     r.range("spectrometer.timeout_s", s.timeout_s, 0.1, 3600.0, "s");
+    r.range(
+        "spectrometer.resolution_nm",
+        s.resolution_nm,
+        0.0,
+        50.0,
+        "nm",
+    );
     if m.reference.material.trim().is_empty() {
         r.at("reference.material", "the reference material is empty");
     }
@@ -416,6 +423,27 @@ fn check_simulation(s: &SimulationSpec, r: &mut Problems) {
             "full scale must exceed the dark offset",
         );
     }
+    r.range(
+        "simulation.spectrometer.resolution_nm",
+        d.resolution_nm,
+        0.0,
+        50.0,
+        "nm",
+    );
+    r.range(
+        "simulation.spectrometer.sample_scale",
+        d.sample_scale,
+        0.2,
+        5.0,
+        "",
+    );
+    r.range(
+        "simulation.spectrometer.sample_tilt",
+        d.sample_tilt,
+        -0.5,
+        0.5,
+        "",
+    );
     for (i, f) in s.faults.iter().enumerate() {
         if f.at_line == 0 {
             r.at(

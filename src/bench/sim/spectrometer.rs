@@ -1,6 +1,7 @@
 //! The virtual spectrometer: lamp (blackbody) × detector response × the reflectance of what
 //! lies under the probe at the stage's current position, with integration-time scaling, dark
-//! offset and current, shot and read noise, digitiser saturation, and a seeded generator.
+//! offset and current, shot and read noise, digitiser saturation, and a seeded generator;
+//! optionally a slit function and a sample level and tilt off the reference's.
 //!
 //! Per frame and pixel, in counts: `offset + dark·t + S + noise`, with the signal
 //! `S = R(λ)·rate(λ)·t`, shot noise of `(S + dark·t)·g` electrons (g electrons per count) and
@@ -17,6 +18,8 @@ use crate::bench::chuck::ChuckTransform;
 use crate::bench::machine::SimSpectrometerSpec;
 use crate::bench::spectrometer::{check_settings, Spectrometer, SpectrometerError};
 use crate::bench::stage::PositionHandle;
+use crate::fit::instrument::Slit;
+use crate::fit::model::tilt_coordinate;
 use crate::spectrum::Counts;
 use futures::future::BoxFuture;
 use rand::SeedableRng;
@@ -61,6 +64,8 @@ pub struct VirtualSpectrometer {
     transform: ChuckTransform,
     rng: ChaCha8Rng,
     clock: SimClock,
+    /// The slit function, when the spec gives a resolution.
+    slit: Option<Slit>,
 }
 
 impl VirtualSpectrometer {
@@ -94,6 +99,8 @@ impl VirtualSpectrometer {
             .map(|s| spec.peak_counts_per_ms * s / peak)
             .collect();
         let reference = reference.reflectance(0.0, 0.0, &wavelength_nm);
+        let slit =
+            (spec.resolution_nm > 0.0).then(|| Slit::gaussian(&wavelength_nm, spec.resolution_nm));
         VirtualSpectrometer {
             spec: spec.clone(),
             wavelength_nm,
@@ -104,6 +111,7 @@ impl VirtualSpectrometer {
             transform,
             rng: ChaCha8Rng::seed_from_u64(seed),
             clock,
+            slit,
         }
     }
 
@@ -137,6 +145,24 @@ impl VirtualSpectrometer {
             .collect()
     }
 
+    /// The sample's reflectance as the detector sees it against the reference: through the
+    /// slit function, at the spec's level and tilt.
+    fn imperfect(&self, reflectance: impl Fn(&[f64]) -> Vec<f64>) -> Vec<f64> {
+        let seen = match &self.slit {
+            Some(slit) => slit.convolve(&reflectance(&slit.fine_nm)),
+            None => reflectance(&self.wavelength_nm),
+        };
+        let (first, last) = (
+            self.wavelength_nm[0],
+            self.wavelength_nm[self.wavelength_nm.len() - 1],
+        );
+        let (scale, tilt) = (self.spec.sample_scale, self.spec.sample_tilt);
+        seen.iter()
+            .zip(&self.wavelength_nm)
+            .map(|(r, l)| scale * (1.0 + tilt * tilt_coordinate(*l, first, last)) * r)
+            .collect()
+    }
+
     /// Draws one acquisition (pure apart from the generator; no waiting).
     pub fn render(
         &mut self,
@@ -153,7 +179,7 @@ impl VirtualSpectrometer {
                     SpectrometerError::Settings("the stage position is unknown (moving or not yet homed): wait for motion to end before acquiring".into())
                 })?;
                 let w = self.transform.to_wafer(p[0], p[1]);
-                self.sample.reflectance(w[0], w[1], &self.wavelength_nm)
+                self.imperfect(|l| self.sample.reflectance(w[0], w[1], l))
             }
         };
         let s = &self.spec;

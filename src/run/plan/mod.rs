@@ -108,9 +108,11 @@ impl Plan {
         sites: &[Site],
     ) -> Result<Plan, PlanError> {
         let machine = machine.cloned().unwrap_or_else(builtin_simulated);
-        let fitter = Fitter::from_recipe(recipe).map_err(|e| {
-            PlanError::FitSetup(crate::error_text::chain_text(&anyhow::Error::new(e)))
-        })?;
+        let fitter = Fitter::from_recipe(recipe)
+            .map_err(|e| {
+                PlanError::FitSetup(crate::error_text::chain_text(&anyhow::Error::new(e)))
+            })?
+            .with_resolution_nm(machine.spectrometer.resolution_nm);
         let reference_material = machine.reference.material.clone();
         fitter
             .reference_reflectance(&reference_material, &[fitter.window_nm()[0]])
