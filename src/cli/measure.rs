@@ -3,7 +3,7 @@
 //! printed outcome. The session itself is
 //! `isopach::run::measure::session`.
 
-use super::figures::{figures_line, no_valid_site};
+use super::figures::{figures_line, no_valid_site, verdict_code, verdict_line};
 use super::output::outln;
 use super::safety::{confirm_motion, wait_for_operator};
 use indicatif::{ProgressBar, ProgressStyle};
@@ -198,13 +198,17 @@ fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: SessionRepor
             out.join(", ")
         );
     }
+    let finished = matches!(report.outcome, Outcome::Finished);
+    if let Some(line) = verdict_line(&report.summary).filter(|_| finished) {
+        outln!("  {line}");
+    }
     match report.outcome {
         Outcome::Finished => match no_valid_site(f, &folder.root) {
             Some(why) => {
                 eprintln!("{command} failed: {why}");
                 super::exit::FAILED
             }
-            None => super::exit::OK,
+            None => verdict_code(&report.summary),
         },
         Outcome::Interrupted => {
             eprintln!(

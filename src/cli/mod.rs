@@ -31,6 +31,9 @@ pub mod exit {
     /// The input is invalid (recipe, machine file, spectrum, arguments, a run folder or site
     /// that does not exist); clap's usage errors exit 2 as well.
     pub const INVALID: u8 = 2;
+    /// The run completed but fails its recipe's `[accept]` run limits (mean, 1σ, NU, share
+    /// of valid sites): the work was done, the wafer is out.
+    pub const ACCEPT_FAILED: u8 = 3;
     /// Stopped by the user (Ctrl-C); the run can be resumed.
     pub const INTERRUPTED: u8 = 130;
 }

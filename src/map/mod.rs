@@ -20,9 +20,11 @@ pub mod site_plan;
 pub mod sites_table;
 pub mod stats;
 pub mod svg;
+pub mod verdict;
 pub mod xy_plot;
 
 pub use error::MapError;
 pub use render::{render_png, render_svg, MapInput, RenderOptions, ValueRange};
 pub use sites_table::SiteRow;
 pub use stats::{LayerSummary, Summary};
+pub use verdict::Verdict;
