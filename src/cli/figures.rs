@@ -2,7 +2,8 @@
 //! `render`: figures that do not exist (no valid site, σ of one site) are left out, never
 //! printed as NaN; and the verdict on a run with no valid site at all.
 
-use isopach::map::stats::{LayerSummary, Summary};
+use isopach::map::stats::LayerSummary;
+use isopach::map::Verdict;
 use std::path::Path;
 
 /// `49 of 49 sites valid; mean …, 1σ … (… %), range … (… %)`, leaving out figures that do
@@ -24,14 +25,14 @@ pub fn figures_line(f: &LayerSummary) -> String {
 }
 
 /// `verdict PASS: mean … in [990, 1010] nm; …` when the recipe sets run limits.
-pub fn verdict_line(s: &Summary) -> Option<String> {
-    s.verdict.as_ref().map(|v| format!("verdict {}", v.line()))
+pub fn verdict_line(v: Option<&Verdict>) -> Option<String> {
+    v.map(|v| format!("verdict {}", v.line()))
 }
 
 /// The exit code of a completed run with valid sites: `ACCEPT_FAILED` when it fails its
 /// recipe's run limits, else `OK`.
-pub fn verdict_code(s: &Summary) -> u8 {
-    match &s.verdict {
+pub fn verdict_code(v: Option<&Verdict>) -> u8 {
+    match v {
         Some(v) if !v.pass => super::exit::ACCEPT_FAILED,
         _ => super::exit::OK,
     }

@@ -9,18 +9,21 @@ mod check;
 mod compare;
 mod figures;
 mod fit;
+mod live_server;
 mod machine_arg;
 mod measure;
 mod output;
 mod refit;
 mod remeasure;
 mod render;
+mod report;
 mod resume;
 mod run;
 mod safety;
 mod sites;
 mod stage;
 mod trend;
+mod watch;
 
 /// Exit codes (documented in docs/cli.md and the README).
 pub mod exit {
@@ -64,6 +67,10 @@ enum Command {
     Refit(refit::Args),
     /// Draw a run's map again.
     Render(render::Args),
+    /// Serve the live page of a running or finished run (loopback only).
+    Watch(watch::Args),
+    /// One page for the process log: map, sites, histogram, figures, PASS/FAIL verdict.
+    Report(report::Args),
     /// Compare wafers: table, wafer-to-wafer figures, delta or rate map.
     Compare(compare::Args),
     /// Run-to-run history with control limits.
@@ -89,6 +96,8 @@ pub fn main() -> ExitCode {
         Command::Remeasure(a) => remeasure::run(a),
         Command::Refit(a) => refit::run(a),
         Command::Render(a) => render::run(a),
+        Command::Report(a) => report::run(a),
+        Command::Watch(a) => watch::run(a),
         Command::Compare(a) => compare::run(a),
         Command::Trend(a) => trend::run(a),
         Command::Fit(a) => fit::run(a),

@@ -107,8 +107,8 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         eprintln!("refit failed: {why}");
         return Ok(super::exit::FAILED);
     }
-    if let Some(line) = verdict_line(&summary) {
+    if let Some(line) = verdict_line(summary.verdict.as_ref()) {
         outln!("  {line}");
     }
-    Ok(verdict_code(&summary))
+    Ok(verdict_code(summary.verdict.as_ref()))
 }

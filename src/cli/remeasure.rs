@@ -52,5 +52,5 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         }
         Which::Sites(args.sites)
     };
-    measure::session(&plan, folder, meta, which, args.yes, "remeasure")
+    measure::session(&plan, folder, meta, which, args.yes, "remeasure", None)
 }

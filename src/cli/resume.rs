@@ -23,5 +23,13 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     measure::prepare(&folder)?;
     let meta = folder.read_run_toml()?;
     let plan = isopach::run::measure::plan_of_run(&folder, &meta)?;
-    measure::session(&plan, folder, meta, Which::Missing, args.yes, "resume")
+    measure::session(
+        &plan,
+        folder,
+        meta,
+        Which::Missing,
+        args.yes,
+        "resume",
+        None,
+    )
 }

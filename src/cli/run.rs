@@ -45,6 +45,13 @@ pub struct Args {
     /// Seed of the simulated bench (default: from the wafer id, so each wafer differs).
     #[arg(long)]
     seed: Option<u64>,
+    /// Serve a live page of the run on the loopback interface (the address is printed); it
+    /// stays up after the run until Ctrl-C.
+    #[arg(long)]
+    watch: bool,
+    /// Address of the live page with --watch (loopback only; port 0 = a free one).
+    #[arg(long, default_value = super::live_server::DEFAULT_LISTEN, requires = "watch")]
+    listen: std::net::SocketAddr,
 }
 
 /// Runs the command. The plan is made and checked first: an invalid recipe, machine file or
@@ -55,6 +62,9 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         Some(p) => Some(super::machine_arg::load_for(p, &loaded.recipe)?),
         None => None,
     };
+    if args.watch {
+        super::live_server::loopback_only(args.listen)?;
+    }
     let plan = Plan::new(&loaded, machine.as_ref())?;
     if args.dry_run {
         return dry_run(&plan);
@@ -76,7 +86,8 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     };
     let (folder, meta) = new_run::create(&plan, &new)?;
     eprintln!("run {} in {}", meta.run.id, folder.root.display());
-    measure::session(&plan, folder, meta, Which::Missing, args.yes, "run")
+    let watch = args.watch.then_some(args.listen);
+    measure::session(&plan, folder, meta, Which::Missing, args.yes, "run", watch)
 }
 
 /// A stable seed from the wafer id (FNV-1a), so every simulated wafer is its own.

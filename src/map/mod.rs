@@ -11,6 +11,7 @@ pub mod error;
 pub mod interpolate;
 pub mod layout;
 pub mod levels;
+pub mod pdf;
 pub mod png;
 pub mod radial;
 pub mod render;

@@ -9,6 +9,7 @@
 
 mod colour_bar;
 mod radial_profile;
+mod report;
 mod stats_panel;
 mod wafer;
 
@@ -22,6 +23,8 @@ use colour_bar::colour_bar;
 use radial_profile::radial_plot;
 use stats_panel::stats_panel;
 use wafer::{markers, spec_rings, wafer_and_field};
+
+pub use report::{bins, report_page, ReportInput, REPORT_HEIGHT, REPORT_WIDTH};
 
 /// Page size, layout px.
 pub const WIDTH: f64 = 1200.0;
@@ -93,7 +96,20 @@ pub fn page(input: &MapInput, opts: &RenderOptions) -> Scene {
     if let Some(spec) = &stats.spec {
         spec_rings(&mut scene, input, spec, &to_px);
     }
-    colour_bar(&mut scene, input, &levels, &colours, (lo, hi));
+    if sites.is_empty() {
+        // A scale with nothing on it would suggest values that were never measured.
+        scene.text(
+            origin.0,
+            origin.1,
+            "No valid site: no colours, no colour bar (the excluded sites are listed at right)",
+            13.0,
+            Anchor::Middle,
+            EXCLUDED,
+            "no-valid-site",
+        );
+    } else {
+        colour_bar(&mut scene, input, &levels, &colours, (lo, hi));
+    }
     stats_panel(&mut scene, input, &stats);
     radial_plot(&mut scene, input, &stats, &sites);
     footer(&mut scene, input, &levels, stats.spec.as_ref());
@@ -211,7 +227,7 @@ fn header(scene: &mut Scene, input: &MapInput, stats: &LayerSummary) {
 }
 
 /// An RFC 3339 time as `2026-12-03 14:22 +01:00`; anything else is shown as given.
-fn readable_time(t: &str) -> String {
+pub fn readable_time(t: &str) -> String {
     chrono::DateTime::parse_from_rfc3339(t)
         .map(|d| d.format("%Y-%m-%d %H:%M %:z").to_string())
         .unwrap_or_else(|_| t.to_string())
