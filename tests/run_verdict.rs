@@ -17,29 +17,44 @@ fn summary_of(run: &std::path::Path) -> serde_json::Value {
     serde_json::from_str(&std::fs::read_to_string(run.join("summary.json")).unwrap()).unwrap()
 }
 
-#[test]
-fn a_run_inside_its_limits_passes_with_exit_0() {
-    let (dir, recipe, machine) =
-        bench_with_limits("mean_nm = [500, 700]\nmax_std_nm = 50\nmin_valid_pct = 50");
+/// Runs the 9-site recipe with these `[accept]` lines; checks the exit code and returns the
+/// verdict line printed, the run folder and the temp dir that holds it.
+fn run_judged(
+    limits: &str,
+    wafer: &str,
+    code: i32,
+) -> (String, std::path::PathBuf, tempfile::TempDir) {
+    let (dir, recipe, machine) = bench_with_limits(limits);
     let runs = dir.path().join("runs");
-    let out = run_map(&recipe, &machine, "PASS1", &runs);
+    let out = run_map(&recipe, &machine, wafer, &runs);
     let stdout = String::from_utf8_lossy(&out.stdout);
     assert_eq!(
         out.status.code(),
-        Some(0),
+        Some(code),
         "{stdout}\n{}",
         String::from_utf8_lossy(&out.stderr)
     );
     let line = stdout
         .lines()
         .find(|l| l.contains("verdict"))
-        .expect(&stdout);
+        .expect(&stdout)
+        .to_string();
+    (line, only_run(&runs), dir)
+}
+
+#[test]
+fn a_run_inside_its_limits_passes_with_exit_0() {
+    let (line, run, _dir) = run_judged(
+        "mean_nm = [500, 700]\nmax_std_nm = 50\nmin_valid_pct = 50",
+        "PASS1",
+        0,
+    );
     assert!(line.contains("verdict PASS: mean "), "{line}");
     assert!(
         line.contains("in [500, 700] nm") && line.contains("≤ 50 nm"),
         "{line}"
     );
-    let s = summary_of(&only_run(&runs));
+    let s = summary_of(&run);
     assert_eq!(s["verdict"]["pass"], true);
     assert_eq!(s["verdict"]["checks"].as_array().unwrap().len(), 3);
     // The value judged is the summary's own figure.
@@ -49,27 +64,13 @@ fn a_run_inside_its_limits_passes_with_exit_0() {
 #[test]
 fn a_run_outside_its_limits_fails_with_exit_3_and_keeps_every_file() {
     // The simulated wafer varies by more than a picometre: 1σ ≤ 0.001 nm cannot hold.
-    let (dir, recipe, machine) = bench_with_limits("max_std_nm = 0.001\nmean_nm = [500, 700]");
-    let runs = dir.path().join("runs");
-    let out = run_map(&recipe, &machine, "FAIL1", &runs);
-    let stdout = String::from_utf8_lossy(&out.stdout);
-    assert_eq!(
-        out.status.code(),
-        Some(3),
-        "{stdout}\n{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let line = stdout
-        .lines()
-        .find(|l| l.contains("verdict"))
-        .expect(&stdout);
+    let (line, run, _dir) = run_judged("max_std_nm = 0.001\nmean_nm = [500, 700]", "FAIL1", 3);
     // Only the broken limit is the reason.
     assert!(
         line.contains("verdict FAIL: 1σ ") && line.contains(" > 0.001 nm"),
         "{line}"
     );
     assert!(!line.contains("mean"), "{line}");
-    let run = only_run(&runs);
     for f in [
         "sites.csv",
         "summary.json",

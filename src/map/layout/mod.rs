@@ -19,6 +19,7 @@ use super::levels::{nice_levels, Levels};
 use super::render::{MapInput, RenderOptions};
 use super::scene::{Anchor, Item, Scene, Stroke};
 use super::stats::{LayerSummary, SpecCheck, Summary};
+use super::xy_plot::PlotStyle;
 use colour_bar::colour_bar;
 use radial_profile::radial_plot;
 use stats_panel::stats_panel;
@@ -38,6 +39,17 @@ const WAFER_RIM: Rgb = Rgb(0xdc, 0xdf, 0xe2);
 const EXCLUDED: Rgb = Rgb(0x9b, 0x2d, 0x3a);
 /// The ring around a site outside the recipe's specification window.
 const OUT_OF_SPEC: Rgb = Rgb(0xd4, 0x5d, 0x0b);
+
+/// The look of the XY plots on the map and report pages.
+const PAGE_PLOT: PlotStyle = PlotStyle {
+    ink: INK,
+    muted: MUTED,
+    grid: Rgb(0xec, 0xed, 0xee),
+    frame: RULE,
+    fill: Some(Rgb(0xff, 0xff, 0xff)),
+    tick_size: 10.5,
+    title_size: 11.5,
+};
 
 /// Map square: left, top, side (px); the wafer diameter spans `MAP_SIDE − 2·MAP_MARGIN`.
 const MAP_LEFT: f64 = 24.0;

@@ -14,7 +14,7 @@ use crate::map::scene::{Anchor, Item, Scene, Stroke};
 use crate::map::sheet::place;
 use crate::map::stats::LayerSummary;
 use crate::map::verdict::Verdict;
-use crate::map::xy_plot::{Axis, PlotStyle, Ticks, XyPlot};
+use crate::map::xy_plot::{Axis, Ticks, XyPlot};
 
 /// Page size, layout px (about the A4 aspect).
 pub const REPORT_WIDTH: f64 = super::WIDTH;
@@ -245,15 +245,7 @@ fn histogram(
             ticks: Ticks::Round(4),
         },
         y_title_x: left - 40.0,
-        style: PlotStyle {
-            ink: INK,
-            muted: MUTED,
-            grid: Rgb(0xec, 0xed, 0xee),
-            frame: RULE,
-            fill: Some(Rgb(0xff, 0xff, 0xff)),
-            tick_size: 10.5,
-            title_size: 11.5,
-        },
+        style: super::PAGE_PLOT,
     };
     plot.axes(scene);
     let span = (values.iter().cloned().fold(f64::NEG_INFINITY, f64::max)
