@@ -101,7 +101,7 @@ fn a_watched_run_shows_every_site_and_the_figures_of_its_summary() {
         &url,
         &[
             &format!("--screenshot={}", shot.display()),
-            "--window-size=1000,700",
+            "--window-size=1200,760",
             "--virtual-time-budget=3000",
             "--timeout=8000",
         ],
