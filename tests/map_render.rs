@@ -215,3 +215,45 @@ fn write_recipe_examples() {
         std::fs::write(out.join(format!("{name}.png")), png).unwrap();
     }
 }
+
+/// Issue 14, "pages that do not mislead": a run with no valid site draws no colour bar (a
+/// scale would suggest values never measured) and says why on the map; site numbers can be
+/// shown so a site named in a list can be found.
+#[test]
+fn no_valid_site_draws_no_colour_bar_and_says_why() {
+    let loaded = recipe("oxide-150-49");
+    let mut rows = analytic_rows(&loaded);
+    for r in &mut rows {
+        r.flag = "low-signal".into();
+    }
+    let meta = run_toml(&loaded, "W00");
+    let svg = render_svg(&run_map_input(&rows, &meta, 0), &RenderOptions::default());
+    assert!(!svg.contains(r#"class="colour-bar-unit""#));
+    assert!(svg.contains(r#"class="no-valid-site""#) && svg.contains("No valid site"));
+    // With valid sites the bar is there and the sentence is not.
+    let svg = render_svg(
+        &run_map_input(&analytic_rows(&loaded), &meta, 0),
+        &RenderOptions::default(),
+    );
+    assert!(svg.contains(r#"class="colour-bar-unit""#) && !svg.contains("no-valid-site"));
+}
+
+#[test]
+fn site_numbers_can_be_shown_once_per_site() {
+    let loaded = recipe("oxide-150-49");
+    let mut rows = analytic_rows(&loaded);
+    rows[34].flag = "poor-fit".into();
+    let meta = run_toml(&loaded, "W07");
+    let input = run_map_input(&rows, &meta, 0);
+    assert!(!render_svg(&input, &RenderOptions::default()).contains("site-number"));
+    let opts = RenderOptions {
+        numbers: true,
+        ..RenderOptions::default()
+    };
+    let tags = parse_xml(&render_svg(&input, &opts));
+    let n = tags
+        .iter()
+        .filter(|t| attr(t, "class") == Some("site-number"))
+        .count();
+    assert_eq!(n, 49, "one number per site, the excluded site 35 included");
+}

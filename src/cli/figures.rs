@@ -3,6 +3,7 @@
 //! printed as NaN; and the verdict on a run with no valid site at all.
 
 use isopach::map::stats::LayerSummary;
+use isopach::map::Verdict;
 use std::path::Path;
 
 /// `49 of 49 sites valid; mean …, 1σ … (… %), range … (… %)`, leaving out figures that do
@@ -21,6 +22,20 @@ pub fn figures_line(f: &LayerSummary) -> String {
         ));
     }
     line
+}
+
+/// `verdict PASS: mean … in [990, 1010] nm; …` when the recipe sets run limits.
+pub fn verdict_line(v: Option<&Verdict>) -> Option<String> {
+    v.map(|v| format!("verdict {}", v.line()))
+}
+
+/// The exit code of a completed run with valid sites: `ACCEPT_FAILED` when it fails its
+/// recipe's run limits, else `OK`.
+pub fn verdict_code(v: Option<&Verdict>) -> u8 {
+    match v {
+        Some(v) if !v.pass => super::exit::ACCEPT_FAILED,
+        _ => super::exit::OK,
+    }
 }
 
 /// A figure for a table with three decimals, `-` when it does not exist.

@@ -3,23 +3,27 @@
 //! printed outcome. The session itself is
 //! `isopach::run::measure::session`.
 
-use super::figures::{figures_line, no_valid_site};
+use super::figures::{figures_line, no_valid_site, verdict_code, verdict_line};
 use super::output::outln;
 use super::safety::{confirm_motion, wait_for_operator};
 use indicatif::{ProgressBar, ProgressStyle};
 use isopach::history::location::HistoryLocation;
 use isopach::run::events::{Attempt, Event, SiteState};
 use isopach::run::folder::{RunFolder, RunToml};
+use isopach::run::live::{LiveFeed, LiveHub, LiveState};
 use isopach::run::measure::{self, Hooks, SessionReport};
 use isopach::run::plan::Plan;
 use isopach::run::sequencer::Outcome;
 use isopach::run::stream::{RunEvent, Subscriber, Watcher};
 use isopach::site_list::site_list;
+use std::io::IsTerminal;
 use std::sync::Arc;
 
 pub use isopach::run::measure::Which;
 
-/// Runs one measuring session of `plan` on the run in `folder`; returns the exit code.
+/// Runs one measuring session of `plan` on the run in `folder`; returns the exit code. With
+/// `watch`, a live page is served at that (loopback) address and stays up after the session
+/// until a stop signal.
 pub fn session(
     plan: &Plan,
     folder: RunFolder,
@@ -28,27 +32,46 @@ pub fn session(
     assume_yes: bool,
     command: &str,
     history: &HistoryLocation,
+    watch: Option<std::net::SocketAddr>,
 ) -> anyhow::Result<u8> {
     log_to(&folder);
     let runtime = tokio::runtime::Builder::new_multi_thread()
         .enable_all()
         .build()?;
     let report = runtime.block_on(async {
+        let live = match watch {
+            Some(addr) => Some(live_feed(&folder, addr).await?),
+            None => None,
+        };
         let cancel = stop_signals();
         let bar = ProgressBar::new(0);
         bar.set_style(
-            ProgressStyle::with_template("{spinner} site {pos}/{len} [{bar:30}] ETA {eta} {msg}")
+            ProgressStyle::with_template("{spinner} {pos}/{len} sites [{bar:30}] ETA {eta} {msg}")
                 .unwrap_or_else(|_| ProgressStyle::default_bar())
                 .progress_chars("=> "),
         );
+        // Not a terminal (a log, a pipe, CI): plain lines instead of a bar that cannot draw.
+        let display = if std::io::stderr().is_terminal() {
+            progress_display(bar.clone())
+        } else {
+            bar.set_draw_target(indicatif::ProgressDrawTarget::hidden());
+            progress_lines(seconds_per_site(plan))
+        };
+        let mut subscribers = vec![display];
+        let url = live.as_ref().map(|(_, url)| url.clone());
+        subscribers.extend(live.map(|(feed, _)| Box::new(feed) as Box<dyn Subscriber>));
         let hooks = Hooks {
             confirm: Box::new(move |port| confirm_motion(port, assume_yes)),
             prompt: Some(Arc::new(wait_for_operator)),
-            subscribers: vec![progress_display(bar.clone())],
+            subscribers,
             cancel,
         };
         let report = measure::session(plan, &folder, &meta, &which, command, history, hooks).await;
         bar.finish_and_clear();
+        if let Some(url) = url {
+            eprintln!("{command} ended; the live page stays at {url} until Ctrl-C");
+            wait_for_stop_signal().await;
+        }
         report
     });
     // A prompt still waiting on the terminal must not keep the program alive.
@@ -60,6 +83,20 @@ pub fn session(
         ))
     })?;
     Ok(print(&folder, &meta, command, report))
+}
+
+/// Serves the live page of the run in `folder` at `addr` and returns the subscriber that feeds
+/// it, with the page's address (printed on stderr).
+async fn live_feed(
+    folder: &RunFolder,
+    addr: std::net::SocketAddr,
+) -> anyhow::Result<(LiveFeed, String)> {
+    let state = LiveState::read(folder)?;
+    let hub = LiveHub::new(&state);
+    let bound = super::live_server::serve(hub.clone(), addr).await?;
+    let url = format!("http://{bound}/");
+    eprintln!("live view: {url}");
+    Ok((LiveFeed { state, hub }, url))
 }
 
 /// A channel that becomes `true` on Ctrl-C (SIGINT), SIGTERM or SIGHUP (a closed terminal
@@ -77,7 +114,7 @@ pub(super) fn stop_signals() -> tokio::sync::watch::Receiver<bool> {
 }
 
 #[cfg(unix)]
-async fn wait_for_stop_signal() -> &'static str {
+pub async fn wait_for_stop_signal() -> &'static str {
     use tokio::signal::unix::{signal, SignalKind};
     let (Ok(mut term), Ok(mut hup)) = (
         signal(SignalKind::terminate()),
@@ -94,7 +131,7 @@ async fn wait_for_stop_signal() -> &'static str {
 }
 
 #[cfg(not(unix))]
-async fn wait_for_stop_signal() -> &'static str {
+pub async fn wait_for_stop_signal() -> &'static str {
     let _ = tokio::signal::ctrl_c().await;
     "Ctrl-C"
 }
@@ -127,6 +164,65 @@ fn progress_display(bar: ProgressBar) -> Box<dyn Subscriber> {
         RunEvent::Note(n) => bar.println(n),
         _ => {}
     }))
+}
+
+/// The plan's estimated seconds per site (its duration bound over its sites).
+fn seconds_per_site(plan: &Plan) -> f64 {
+    plan.duration_s / plan.sites().count().max(1) as f64
+}
+
+/// One plain line per site for a log: `[5/49] site 17: 1001.23 nm · about 40 s left`, the
+/// time left from the plan's estimate for the measurements still to come.
+fn progress_lines(per_site_s: f64) -> Box<dyn Subscriber> {
+    let (mut done, mut total) = (0usize, 0usize);
+    Box::new(Watcher(move |e: &RunEvent| {
+        let result = match e {
+            RunEvent::Pass { sites, .. } => {
+                total += sites;
+                return;
+            }
+            RunEvent::Journal(Event::SiteFitted {
+                site,
+                fit,
+                valid,
+                flag,
+                ..
+            }) => (
+                *site,
+                if *valid {
+                    format!("{:.2} nm", fit.thickness_nm())
+                } else {
+                    flag.clone()
+                },
+            ),
+            RunEvent::Journal(Event::SiteFailed { site, reason, .. }) => (*site, reason.clone()),
+            RunEvent::Note(n) => {
+                eprintln!("{n}");
+                return;
+            }
+            _ => return,
+        };
+        done += 1;
+        eprintln!(
+            "[{done}/{}] site {}: {} · {}",
+            total.max(done),
+            result.0,
+            result.1,
+            time_left(total.saturating_sub(done), per_site_s)
+        );
+    }))
+}
+
+/// `about 40 s left`, `about 3 min left` for `remaining` sites, `done` for none.
+fn time_left(remaining: usize, per_site_s: f64) -> String {
+    let s = (remaining as f64 * per_site_s).max(1.0);
+    if remaining == 0 {
+        "done".into()
+    } else if s < 90.0 {
+        format!("about {s:.0} s left")
+    } else {
+        format!("about {:.0} min left", s / 60.0)
+    }
 }
 
 /// Gets an existing run ready for a session (`resume`, `remeasure`, `refit`): refuses a
@@ -203,13 +299,17 @@ fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: SessionRepor
             site_list(c.sites_out.iter().copied())
         );
     }
+    let finished = matches!(report.outcome, Outcome::Finished);
+    if let Some(line) = verdict_line(report.summary.verdict.as_ref()).filter(|_| finished) {
+        outln!("  {line}");
+    }
     match report.outcome {
         Outcome::Finished => match no_valid_site(f, &folder.root) {
             Some(why) => {
                 eprintln!("{command} failed: {why}");
                 super::exit::FAILED
             }
-            None => super::exit::OK,
+            None => verdict_code(report.summary.verdict.as_ref()),
         },
         Outcome::Interrupted => {
             eprintln!(

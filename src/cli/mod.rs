@@ -10,18 +10,21 @@ mod compare;
 mod figures;
 mod fit;
 mod history_arg;
+mod live_server;
 mod machine_arg;
 mod measure;
 mod output;
 mod refit;
 mod remeasure;
 mod render;
+mod report;
 mod resume;
 mod run;
 mod safety;
 mod sites;
 mod stage;
 mod trend;
+mod watch;
 
 /// Exit codes (documented in docs/cli.md and the README).
 pub mod exit {
@@ -32,6 +35,9 @@ pub mod exit {
     /// The input is invalid (recipe, machine file, spectrum, arguments, a run folder or site
     /// that does not exist); clap's usage errors exit 2 as well.
     pub const INVALID: u8 = 2;
+    /// The run completed but fails its recipe's `[accept]` run limits (mean, 1σ, NU, share
+    /// of valid sites): the work was done, the wafer is out.
+    pub const ACCEPT_FAILED: u8 = 3;
     /// Stopped by the user (Ctrl-C); the run can be resumed.
     pub const INTERRUPTED: u8 = 130;
 }
@@ -62,6 +68,10 @@ enum Command {
     Refit(refit::Args),
     /// Draw a run's map again.
     Render(render::Args),
+    /// Serve the live page of a running or finished run (loopback only).
+    Watch(watch::Args),
+    /// One page for the process log: map, sites, histogram, figures, PASS/FAIL verdict.
+    Report(report::Args),
     /// Compare wafers: table, wafer-to-wafer figures, delta or rate map.
     Compare(compare::Args),
     /// Run-to-run history with control limits.
@@ -87,6 +97,8 @@ pub fn main() -> ExitCode {
         Command::Remeasure(a) => remeasure::run(a),
         Command::Refit(a) => refit::run(a),
         Command::Render(a) => render::run(a),
+        Command::Report(a) => report::run(a),
+        Command::Watch(a) => watch::run(a),
         Command::Compare(a) => compare::run(a),
         Command::Trend(a) => trend::run(a),
         Command::Fit(a) => fit::run(a),

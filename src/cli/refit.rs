@@ -1,6 +1,6 @@
 //! `isopach refit RUN [--recipe R]`: fit the stored spectra again, no stage motion.
 
-use super::figures::{figures_line, no_valid_site};
+use super::figures::{figures_line, no_valid_site, verdict_code, verdict_line};
 use super::output::outln;
 use anyhow::Context;
 use indicatif::ProgressBar;
@@ -121,5 +121,8 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         eprintln!("refit failed: {why}");
         return Ok(super::exit::FAILED);
     }
-    Ok(super::exit::OK)
+    if let Some(line) = verdict_line(summary.verdict.as_ref()) {
+        outln!("  {line}");
+    }
+    Ok(verdict_code(summary.verdict.as_ref()))
 }

@@ -55,5 +55,14 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         }
         Which::Sites(args.sites)
     };
-    measure::session(&plan, folder, meta, which, args.yes, "remeasure", &history)
+    measure::session(
+        &plan,
+        folder,
+        meta,
+        which,
+        args.yes,
+        "remeasure",
+        &history,
+        None,
+    )
 }

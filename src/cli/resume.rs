@@ -73,6 +73,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         args.yes,
         "resume",
         &history,
+        None,
     )
 }
 

@@ -53,6 +53,13 @@ pub struct Args {
     centre: bool,
     #[command(flatten)]
     history: super::history_arg::HistoryArg,
+    /// Serve a live page of the run on the loopback interface (the address is printed); it
+    /// stays up after the run until Ctrl-C.
+    #[arg(long)]
+    watch: bool,
+    /// Address of the live page with --watch (loopback only; port 0 = a free one).
+    #[arg(long, default_value = super::live_server::DEFAULT_LISTEN, requires = "watch")]
+    listen: std::net::SocketAddr,
 }
 
 /// Runs the command. The plan is made and checked first: an invalid recipe, machine file or
@@ -63,6 +70,9 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         Some(p) => Some(super::machine_arg::load_for(p, &loaded.recipe)?),
         None => None,
     };
+    if args.watch {
+        super::live_server::loopback_only(args.listen)?;
+    }
     let mut plan = Plan::new(&loaded, machine.as_ref())?;
     if args.centre {
         plan = plan.with_centring(CentringSettings::default());
@@ -96,6 +106,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         args.yes,
         "run",
         &history,
+        args.watch.then_some(args.listen),
     )
 }
 

@@ -29,6 +29,9 @@ pub enum MapError {
     /// The PNG image could not be drawn or encoded.
     #[error("cannot draw the PNG map: {0}")]
     Png(String),
+    /// The PDF page could not be made.
+    #[error("cannot make the PDF page: {0}")]
+    Pdf(String),
 }
 
 impl MapError {

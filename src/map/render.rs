@@ -57,6 +57,9 @@ pub struct RenderOptions {
     pub levels: usize,
     /// Print each site's value beside its marker (when the sites are far enough apart).
     pub values: bool,
+    /// Print each site's number above its marker (when the sites are far enough apart), so
+    /// a site named in a list can be found on the map.
+    pub numbers: bool,
     /// Colour range; `None` = the range of this map's values.
     pub range: Option<ValueRange>,
     /// Interpolation grid nodes across the usable diameter.
@@ -70,6 +73,7 @@ impl Default for RenderOptions {
         RenderOptions {
             levels: 10,
             values: true,
+            numbers: false,
             range: None,
             grid: 400,
             png_scale: 1.0,

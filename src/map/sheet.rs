@@ -21,6 +21,15 @@ fn translate(item: &mut Item, dx: f64, dy: f64) {
     }
 }
 
+/// Draws `page` onto `into` with its top-left corner at (dx, dy) px (its background is not
+/// drawn: `into`'s shows through).
+pub fn place(into: &mut Scene, page: Scene, dx: f64, dy: f64) {
+    for mut item in page.items {
+        translate(&mut item, dx, dy);
+        into.items.push(item);
+    }
+}
+
 /// Tiles pages row by row, `columns` per row, into one page.
 pub fn tile(pages: Vec<Scene>, columns: usize) -> Scene {
     let columns = columns.max(1);
@@ -39,10 +48,7 @@ pub fn tile(pages: Vec<Scene>, columns: usize) -> Scene {
     };
     for (i, page) in pages.into_iter().enumerate() {
         let (dx, dy) = ((i % columns) as f64 * w, (i / columns) as f64 * h);
-        for mut item in page.items {
-            translate(&mut item, dx, dy);
-            out.items.push(item);
-        }
+        place(&mut out, page, dx, dy);
     }
     out
 }

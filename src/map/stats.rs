@@ -119,6 +119,9 @@ pub struct Summary {
     pub first: LayerSummary,
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub layers: Vec<LayerSummary>,
+    /// PASS or FAIL against the recipe's run limits (absent when it sets none).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub verdict: Option<super::verdict::Verdict>,
 }
 
 impl Summary {
@@ -136,7 +139,11 @@ impl Summary {
         if layers.len() == 1 {
             layers.clear();
         }
-        Summary { first, layers }
+        Summary {
+            first,
+            layers,
+            verdict: None,
+        }
     }
 
     /// The same figures with the first layer checked against a specification window.
@@ -149,11 +156,18 @@ impl Summary {
         self
     }
 
+    /// The same figures judged against the run limits of `accept` (first layer).
+    pub fn with_verdict(mut self, accept: &crate::recipe::schema::AcceptSpec) -> Summary {
+        self.verdict = super::verdict::Verdict::judge(accept, &self.first);
+        self
+    }
+
     /// Figures from plain values (all counted valid; no positions, so no radial fit).
     pub fn from_values(values: &[f64]) -> Summary {
         Summary {
             first: LayerSummary::from_values(values),
             layers: Vec::new(),
+            verdict: None,
         }
     }
 
@@ -285,7 +299,7 @@ impl Moments {
 }
 
 /// Serde for figures that may not exist: NaN is written as `null` and read back as NaN.
-mod nan_as_null {
+pub(super) mod nan_as_null {
     use serde::{Deserialize, Deserializer, Serializer};
 
     pub fn serialize<S: Serializer>(v: &f64, s: S) -> Result<S::Ok, S::Error> {

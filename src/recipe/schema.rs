@@ -209,7 +209,8 @@ impl Default for AcquireSpec {
     }
 }
 
-/// Acceptance criteria for a site.
+/// Acceptance criteria: for a site (`min_gof`, `spec_nm`) and, optionally, limits a completed
+/// run must meet to pass (on the first fitted layer's figures; see `map::verdict`).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct AcceptSpec {
@@ -218,6 +219,18 @@ pub struct AcceptSpec {
     /// Specification window for the (first fitted) thickness; out-of-spec sites are flagged.
     #[serde(default)]
     pub spec_nm: Option<[f64; 2]>,
+    /// The run's mean thickness must lie in `[lo, hi]` nm (bounds inclusive).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub mean_nm: Option<[f64; 2]>,
+    /// The run's 1σ (sample standard deviation) must be at most this, nm.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub max_std_nm: Option<f64>,
+    /// The run's non-uniformity 100·σ/mean must be at most this, %.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub max_nu_pct: Option<f64>,
+    /// At least this share of the planned sites must have a valid result, %.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub min_valid_pct: Option<f64>,
 }
 
 fn default_min_gof() -> f64 {
@@ -229,6 +242,10 @@ impl Default for AcceptSpec {
         AcceptSpec {
             min_gof: default_min_gof(),
             spec_nm: None,
+            mean_nm: None,
+            max_std_nm: None,
+            max_nu_pct: None,
+            min_valid_pct: None,
         }
     }
 }

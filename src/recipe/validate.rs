@@ -6,7 +6,7 @@
 
 use super::geometry::Wafer;
 use super::pattern::{self, STANDARD_COUNTS};
-use super::schema::{FilmSpec, FitMethod, PatternSpec, Recipe};
+use super::schema::{AcceptSpec, FilmSpec, FitMethod, PatternSpec, Recipe};
 use crate::optics::{spec, BUILTIN_NAMES};
 use crate::tomlcheck::{nearest, num, KeyPath, Problem, Problems, Seg};
 
@@ -373,11 +373,41 @@ fn check_film(recipe: &Recipe, r: &mut Problems) {
             );
         }
     }
+    check_run_limits(&recipe.accept, r);
     if !(recipe.accept.min_gof >= 0.0 && recipe.accept.min_gof <= 1.0) {
         r.at(
             "accept.min_gof",
             format!("min_gof {} must be in [0, 1]", recipe.accept.min_gof),
         );
+    }
+}
+
+/// The limits a completed run must meet: a mean window that is a window, and limits that can
+/// be met (non-finite numbers are reported where they were read).
+fn check_run_limits(a: &AcceptSpec, r: &mut Problems) {
+    if let Some([lo, hi]) = a.mean_nm.filter(|w| w.iter().all(|v| v.is_finite())) {
+        if !(lo < hi) {
+            r.at(
+                "accept.mean_nm",
+                format!("mean window [{lo}, {hi}] nm is reversed or empty; write [lower, upper]"),
+            );
+        }
+    }
+    for (key, v) in [("max_std_nm", a.max_std_nm), ("max_nu_pct", a.max_nu_pct)] {
+        if let Some(v) = v.filter(|v| v.is_finite() && *v < 0.0) {
+            r.at(
+                &format!("accept.{key}"),
+                format!("{key} {v} is negative: no run could pass; give a limit ≥ 0"),
+            );
+        }
+    }
+    if let Some(v) = a.min_valid_pct.filter(|v| v.is_finite()) {
+        if !(0.0..=100.0).contains(&v) {
+            r.at(
+                "accept.min_valid_pct",
+                format!("min_valid_pct {v} must be a share in [0, 100] %"),
+            );
+        }
     }
 }
 

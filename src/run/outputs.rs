@@ -53,6 +53,7 @@ pub fn run_summary(rows: &[SiteRow], meta: &RunToml) -> Summary {
         wafer.usable_radius(),
     )
     .with_spec(rows, meta.recipe.accept.spec_nm)
+    .with_verdict(&meta.recipe.accept)
 }
 
 fn put(path: &Path, bytes: &[u8]) -> Result<(), MapError> {

@@ -9,6 +9,7 @@
 
 mod colour_bar;
 mod radial_profile;
+mod report;
 mod stats_panel;
 mod wafer;
 
@@ -18,10 +19,13 @@ use super::levels::{nice_levels, Levels};
 use super::render::{MapInput, RenderOptions};
 use super::scene::{Anchor, Item, Scene, Stroke};
 use super::stats::{LayerSummary, SpecCheck, Summary};
+use super::xy_plot::PlotStyle;
 use colour_bar::colour_bar;
 use radial_profile::radial_plot;
 use stats_panel::stats_panel;
 use wafer::{markers, spec_rings, wafer_and_field};
+
+pub use report::{bins, report_page, ReportInput, REPORT_HEIGHT, REPORT_WIDTH};
 
 /// Page size, layout px.
 pub const WIDTH: f64 = 1200.0;
@@ -35,6 +39,17 @@ const WAFER_RIM: Rgb = Rgb(0xdc, 0xdf, 0xe2);
 const EXCLUDED: Rgb = Rgb(0x9b, 0x2d, 0x3a);
 /// The ring around a site outside the recipe's specification window.
 const OUT_OF_SPEC: Rgb = Rgb(0xd4, 0x5d, 0x0b);
+
+/// The look of the XY plots on the map and report pages.
+const PAGE_PLOT: PlotStyle = PlotStyle {
+    ink: INK,
+    muted: MUTED,
+    grid: Rgb(0xec, 0xed, 0xee),
+    frame: RULE,
+    fill: Some(Rgb(0xff, 0xff, 0xff)),
+    tick_size: 10.5,
+    title_size: 11.5,
+};
 
 /// Map square: left, top, side (px); the wafer diameter spans `MAP_SIDE − 2·MAP_MARGIN`.
 const MAP_LEFT: f64 = 24.0;
@@ -93,7 +108,20 @@ pub fn page(input: &MapInput, opts: &RenderOptions) -> Scene {
     if let Some(spec) = &stats.spec {
         spec_rings(&mut scene, input, spec, &to_px);
     }
-    colour_bar(&mut scene, input, &levels, &colours, (lo, hi));
+    if sites.is_empty() {
+        // A scale with nothing on it would suggest values that were never measured.
+        scene.text(
+            origin.0,
+            origin.1,
+            "No valid site: no colours, no colour bar (the excluded sites are listed at right)",
+            13.0,
+            Anchor::Middle,
+            EXCLUDED,
+            "no-valid-site",
+        );
+    } else {
+        colour_bar(&mut scene, input, &levels, &colours, (lo, hi));
+    }
     stats_panel(&mut scene, input, &stats);
     radial_plot(&mut scene, input, &stats, &sites);
     footer(&mut scene, input, &levels, stats.spec.as_ref());
@@ -211,7 +239,7 @@ fn header(scene: &mut Scene, input: &MapInput, stats: &LayerSummary) {
 }
 
 /// An RFC 3339 time as `2026-12-03 14:22 +01:00`; anything else is shown as given.
-fn readable_time(t: &str) -> String {
+pub fn readable_time(t: &str) -> String {
     chrono::DateTime::parse_from_rfc3339(t)
         .map(|d| d.format("%Y-%m-%d %H:%M %:z").to_string())
         .unwrap_or_else(|_| t.to_string())

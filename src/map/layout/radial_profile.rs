@@ -1,12 +1,12 @@
 //! The radial profile of the map page: every valid site's value against its distance from
 //! the centre, the edge-exclusion radius, and the even-polynomial radial fit.
 
-use super::{fmt, value_decimals, INK, MUTED, PANEL, RULE};
-use crate::map::colour::{self, Rgb};
+use super::{fmt, value_decimals, INK, MUTED, PANEL};
+use crate::map::colour;
 use crate::map::render::MapInput;
 use crate::map::scene::{Scene, Stroke};
 use crate::map::stats::LayerSummary;
-use crate::map::xy_plot::{padded_range, Axis, PlotStyle, Ticks, XyPlot};
+use crate::map::xy_plot::{padded_range, Axis, Ticks, XyPlot};
 
 /// Draws the profile of `sites` (x mm, y mm, value) with the fit of `s`.
 pub(super) fn radial_plot(
@@ -37,15 +37,7 @@ pub(super) fn radial_plot(
             ticks: Ticks::Round(5),
         },
         y_title_x: PANEL.0 + 4.0,
-        style: PlotStyle {
-            ink: INK,
-            muted: MUTED,
-            grid: Rgb(0xec, 0xed, 0xee),
-            frame: RULE,
-            fill: Some(Rgb(0xff, 0xff, 0xff)),
-            tick_size: 10.5,
-            title_size: 11.5,
-        },
+        style: super::PAGE_PLOT,
     };
     plot.axes(scene);
     let ru = input.wafer.usable_radius();

@@ -268,11 +268,28 @@ pub(super) fn markers(
             halo: Rgb(0xff, 0xff, 0xff),
         });
         if show_values {
+            // With numbers shown, an excluded site's number is drawn once, above it.
             let text = match value {
-                Some(v) => fmt(v, decimals),
-                None => format!("#{}", row.site),
+                Some(v) => Some(fmt(v, decimals)),
+                None if opts.numbers => None,
+                None => Some(format!("#{}", row.site)),
             };
-            scene.text(x, y + 14.0, text, 9.5, Anchor::Middle, ink_on(bg), "value");
+            if let Some(text) = text {
+                scene.text(x, y + 14.0, text, 9.5, Anchor::Middle, ink_on(bg), "value");
+            }
+        }
+        if opts.numbers && show_values {
+            scene.items.push(Item::Text {
+                x,
+                y: y - 6.5,
+                text: row.site.to_string(),
+                size: 8.5,
+                anchor: Anchor::Middle,
+                bold: true,
+                colour: ink_on(bg),
+                vertical: false,
+                class: "site-number",
+            });
         }
     }
 }
