@@ -21,9 +21,16 @@ use std::sync::Arc;
 
 pub use isopach::run::measure::Which;
 
-/// Runs one measuring session of `plan` on the run in `folder`; returns the exit code. With
-/// `watch`, a live page is served at that (loopback) address and stays up after the session
-/// until a stop signal.
+/// Where a session's results go besides its run folder.
+pub struct Outlets<'a> {
+    /// The runs history the session writes to.
+    pub history: &'a HistoryLocation,
+    /// Serve a live page at this (loopback) address; it stays up after the session until a
+    /// stop signal.
+    pub watch: Option<std::net::SocketAddr>,
+}
+
+/// Runs one measuring session of `plan` on the run in `folder`; returns the exit code.
 pub fn session(
     plan: &Plan,
     folder: RunFolder,
@@ -31,9 +38,9 @@ pub fn session(
     which: Which,
     assume_yes: bool,
     command: &str,
-    history: &HistoryLocation,
-    watch: Option<std::net::SocketAddr>,
+    outlets: Outlets,
 ) -> anyhow::Result<u8> {
+    let Outlets { history, watch } = outlets;
     log_to(&folder);
     let runtime = tokio::runtime::Builder::new_multi_thread()
         .enable_all()

@@ -62,7 +62,9 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         which,
         args.yes,
         "remeasure",
-        &history,
-        None,
+        measure::Outlets {
+            history: &history,
+            watch: None,
+        },
     )
 }

@@ -72,8 +72,10 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         Which::Missing,
         args.yes,
         "resume",
-        &history,
-        None,
+        measure::Outlets {
+            history: &history,
+            watch: None,
+        },
     )
 }
 

@@ -105,8 +105,10 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         Which::Missing,
         args.yes,
         "run",
-        &history,
-        args.watch.then_some(args.listen),
+        measure::Outlets {
+            history: &history,
+            watch: args.watch.then_some(args.listen),
+        },
     )
 }
 
