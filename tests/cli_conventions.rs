@@ -290,12 +290,12 @@ fn a_run_with_its_stdout_closed_still_measures_every_site() {
         runs.as_os_str(),
     ]);
     assert_exit(&o, 0, "run with stdout closed");
+    // The run folder: the one entry that is not hidden (the history lives beside it).
     let run = std::fs::read_dir(&runs)
         .unwrap()
-        .next()
-        .unwrap()
-        .unwrap()
-        .path();
+        .map(|e| e.unwrap().path())
+        .find(|p| p.is_dir() && !p.file_name().unwrap().to_string_lossy().starts_with('.'))
+        .unwrap();
     let summary: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(run.join("summary.json")).unwrap()).unwrap();
     assert_eq!(summary["sites_total"], 9);
