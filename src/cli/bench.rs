@@ -2,7 +2,7 @@
 //! pseudo-terminal, whose path is printed, until Ctrl-C. Point a terminal or a machine file's
 //! `stage.port` at it.
 //!
-//! `isopach bench centre --recipe R [--machine M] [--write-machine] [--json]`: find where the
+//! `isopach bench centre [--recipe R] [--machine M] [--write-machine] [--json]`: find where the
 //! wafer really sits (centre and flat/notch rotation) from edge scans; print it, or write it
 //! into the machine file's `[chuck]`.
 
@@ -52,9 +52,10 @@ enum Action {
 /// Arguments of `isopach bench centre`.
 #[derive(clap::Args, Debug)]
 struct CentreArgs {
-    /// The recipe whose [wafer] (diameter, flat or notch and its angle) is on the chuck.
+    /// The recipe whose [wafer] (diameter, flat or notch and its angle) is on the chuck
+    /// (default: the 150 mm wafer of the shipped oxide recipe, recipes/oxide-150-49.toml).
     #[arg(long)]
-    recipe: PathBuf,
+    recipe: Option<PathBuf>,
     /// The machine file of the bench (default: the built-in simulated bench).
     #[arg(long)]
     machine: Option<PathBuf>,
@@ -113,8 +114,24 @@ fn serve(machine: Option<PathBuf>, time_scale: Option<f64>) -> anyhow::Result<u8
     })
 }
 
+/// The wafer assumed when `bench centre` is given no recipe.
+const DEFAULT_WAFER_RECIPE: &str = include_str!("../../recipes/oxide-150-49.toml");
+
 fn centre(a: CentreArgs) -> anyhow::Result<u8> {
-    let recipe = isopach::recipe::load(&a.recipe)?;
+    let recipe = match &a.recipe {
+        Some(path) => isopach::recipe::load(path)?,
+        None => {
+            eprintln!(
+                "no --recipe: centring a 150 mm wafer as in recipes/oxide-150-49.toml (give --recipe for another diameter, flat or notch)"
+            );
+            let path = PathBuf::from("recipes/oxide-150-49.toml");
+            LoadedRecipe {
+                recipe: isopach::recipe::parse(DEFAULT_WAFER_RECIPE, &path)?,
+                path,
+                text: DEFAULT_WAFER_RECIPE.to_string(),
+            }
+        }
+    };
     let m = match &a.machine {
         Some(p) => match machine_arg::load_or_report(p, Some(&recipe.recipe))? {
             Ok(m) => m,
