@@ -52,6 +52,8 @@ fn record(bench: usize, i: usize) -> RunRecord {
             max_nm: 1009.0,
             nu_1sigma_pct: 0.42,
             nu_range_pct: 0.85,
+            spec_lo_nm: 950.0,
+            spec_hi_nm: 1050.0,
         }],
         sites: (1..=SITES)
             .map(|s| SiteRecord {

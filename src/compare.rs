@@ -152,6 +152,68 @@ pub fn delta(
     (rows, DeltaBasis::Interpolated)
 }
 
+/// What makes two wafers not like for like, each as one plain sentence naming the runs: another
+/// recipe, another layer stack, another diameter, another site plan. Every run is set against
+/// the first.
+pub fn differences(runs: &[WaferRun]) -> Vec<String> {
+    let Some(first) = runs.first() else {
+        return Vec::new();
+    };
+    let name = |w: &WaferRun| format!("{} ({})", w.meta.run.wafer, w.meta.run.id);
+    let stack = |w: &WaferRun| {
+        let f = &w.meta.recipe.film;
+        let layers: Vec<&str> = f.layers.iter().map(|l| l.material.as_str()).collect();
+        format!("{} / {} / {}", f.ambient, layers.join(" / "), f.substrate)
+    };
+    let sorted = |w: &WaferRun| {
+        let mut rows = w.rows.clone();
+        rows.sort_by_key(|r| r.site);
+        rows
+    };
+    let first_rows = sorted(first);
+    let mut out = Vec::new();
+    for w in &runs[1..] {
+        let (a, b) = (&first.meta.recipe, &w.meta.recipe);
+        if a.name != b.name {
+            out.push(format!(
+                "{} was measured with recipe {}, {} with recipe {}",
+                name(w),
+                b.name,
+                name(first),
+                a.name
+            ));
+        }
+        if stack(first) != stack(w) {
+            out.push(format!(
+                "{} has the stack {}, {} the stack {}",
+                name(w),
+                stack(w),
+                name(first),
+                stack(first)
+            ));
+        }
+        if a.wafer.diameter_mm != b.wafer.diameter_mm {
+            out.push(format!(
+                "{} is a {} mm wafer, {} a {} mm wafer",
+                name(w),
+                b.wafer.diameter_mm,
+                name(first),
+                a.wafer.diameter_mm
+            ));
+        }
+        if !same_plan(&first_rows, &sorted(w)) {
+            out.push(format!(
+                "{} was measured on another site plan than {} ({} against {} sites): site-by-site figures do not pair",
+                name(w),
+                name(first),
+                w.rows.len(),
+                first.rows.len()
+            ));
+        }
+    }
+    out
+}
+
 /// Figures of a delta's rows (named after the quantity).
 pub fn delta_summary(rows: &[SiteRow], wafer: &Wafer, name: &str) -> Summary {
     Summary::from_rows(rows, &[name.to_string()], wafer.usable_radius())

@@ -403,3 +403,162 @@ fn compare_table_counts_sites_in_the_recipes_spec_window() {
         49 - inside
     );
 }
+
+#[test]
+fn compare_warns_when_wafers_are_not_like_for_like() {
+    let dir = tempfile::tempdir().unwrap();
+    let flat: Field = |_, _| 1000.0;
+    let a = make_run(
+        dir.path(),
+        "OX1",
+        "oxide-150-49.toml",
+        "2026-12-01T08:00:00+00:00",
+        flat,
+    );
+    let b = make_run(
+        dir.path(),
+        "OX2",
+        "oxide-150-49.toml",
+        "2026-12-01T09:00:00+00:00",
+        flat,
+    );
+    // Another recipe, stack, diameter and site plan: the 100 mm resist grid.
+    let c = make_run(
+        dir.path(),
+        "RS1",
+        "resist-100-grid.toml",
+        "2026-12-01T10:00:00+00:00",
+        flat,
+    );
+    let (a, b, c) = (
+        a.to_str().unwrap(),
+        b.to_str().unwrap(),
+        c.to_str().unwrap(),
+    );
+    let same = isopach(&["compare", a, b]);
+    assert!(same.status.success());
+    assert!(!String::from_utf8_lossy(&same.stderr).contains("warning"));
+    let mixed = isopach(&["compare", a, b, c]);
+    assert!(mixed.status.success(), "still compared");
+    let err = String::from_utf8_lossy(&mixed.stderr);
+    for said in [
+        "RS1 (RS1) was measured with recipe resist-100-grid, OX1 (OX1) with recipe oxide-150-49",
+        "RS1 (RS1) is a 100 mm wafer, OX1 (OX1) a 150 mm wafer",
+        "has the stack",
+        "another site plan",
+    ] {
+        assert!(err.contains(said), "missing {said:?} in:\n{err}");
+    }
+    let j = json(&isopach(&["compare", a, b, c, "--json"]));
+    assert_eq!(
+        j["warnings"].as_array().unwrap().len(),
+        4,
+        "{}",
+        j["warnings"]
+    );
+}
+
+#[test]
+fn compare_and_trend_export_csv_for_a_spreadsheet() {
+    let dir = tempfile::tempdir().unwrap();
+    let runs_dir = dir.path().join("runs");
+    let runs = oxide_runs(
+        &runs_dir,
+        &[("W01", |x, _| 1000.0 + 0.1 * x), ("W02", |_, _| 1010.0)],
+    );
+    let o = isopach(&[
+        "compare",
+        runs[0].to_str().unwrap(),
+        runs[1].to_str().unwrap(),
+        "--csv",
+    ]);
+    assert!(o.status.success());
+    let text = String::from_utf8(o.stdout).unwrap();
+    let lines: Vec<&str> = text.lines().collect();
+    assert_eq!(lines.len(), 3, "{text}");
+    let header: Vec<&str> = lines[0].split(',').collect();
+    let w2: Vec<&str> = lines[2].split(',').collect();
+    let at = |name: &str| header.iter().position(|h| *h == name).unwrap();
+    assert_eq!(w2[at("wafer")], "W02");
+    assert_eq!(w2[at("mean_nm")].parse::<f64>().unwrap(), 1010.0);
+    // One flat wafer has σ 0 and its figures exist; none is NaN anywhere.
+    assert_eq!(w2[at("std_nm")].parse::<f64>().unwrap(), 0.0);
+    assert_eq!(w2[at("sites_valid")], "49");
+    assert!(!text.contains("NaN"));
+    let t = isopach(&[
+        "trend",
+        "--runs",
+        runs_dir.to_str().unwrap(),
+        "--rebuild",
+        "--csv",
+    ]);
+    assert!(t.status.success(), "{}", String::from_utf8_lossy(&t.stderr));
+    let text = String::from_utf8(t.stdout).unwrap();
+    let lines: Vec<&str> = text.lines().collect();
+    assert_eq!(lines.len(), 3, "{text}");
+    assert!(
+        lines[0].starts_with("started,bench,recipe,wafer,"),
+        "{}",
+        lines[0]
+    );
+    // The oxide recipe's spec window travels with each run.
+    assert!(
+        lines[1].contains(",oxide-150-49,W01,") && lines[1].contains(",950,1050,"),
+        "{}",
+        lines[1]
+    );
+}
+
+#[test]
+fn trend_charts_one_recipe_unless_told_and_shows_the_spec_window_and_dates() {
+    let dir = tempfile::tempdir().unwrap();
+    let runs = dir.path().join("runs");
+    for (i, (recipe, level)) in [
+        ("oxide-150-49.toml", 1000.0),
+        ("resist-100-grid.toml", 1500.0),
+        ("oxide-150-49.toml", 1001.0),
+        ("resist-100-grid.toml", 1502.0),
+        ("oxide-150-49.toml", 999.0),
+    ]
+    .into_iter()
+    .enumerate()
+    {
+        make_run(
+            &runs,
+            &format!("M{i}"),
+            recipe,
+            &format!("2026-12-0{}T08:00:00+00:00", i + 1),
+            move |_, _| level,
+        );
+    }
+    let r = runs.to_str().unwrap();
+    let o = isopach(&["trend", "--runs", r, "--rebuild", "--json"]);
+    let err = String::from_utf8_lossy(&o.stderr).to_string();
+    let out = json(&o);
+    // The newest run is oxide: only the three oxide runs, and stderr says why.
+    let rows = out["runs"].as_array().unwrap();
+    assert_eq!(rows.len(), 3, "{out}");
+    assert!(rows.iter().all(|r| r["recipe"] == "oxide-150-49"));
+    assert!(err.contains("charting oxide-150-49"), "{err}");
+    assert_eq!(rows[0]["spec_nm"], serde_json::json!([950.0, 1050.0]));
+    // Limits over the oxide means only: the centre is their mean, nowhere near 1500.
+    let centre = out["mean_limits"]["center"].as_f64().unwrap();
+    assert!((centre - 1000.0).abs() < 1e-6, "centre {centre}");
+    let all = json(&isopach(&["trend", "--runs", r, "--all-recipes", "--json"]));
+    assert_eq!(all["runs"].as_array().unwrap().len(), 5);
+    // The chart draws the spec window and labels runs with their dates.
+    let chart = dir.path().join("trend.svg");
+    assert!(
+        isopach(&["trend", "--runs", r, "--out", chart.to_str().unwrap()])
+            .status
+            .success()
+    );
+    let svg = std::fs::read_to_string(&chart).unwrap();
+    assert!(
+        svg.contains("spec USL 1050") && svg.contains("spec LSL 950"),
+        "no spec window"
+    );
+    assert!(svg.contains("M4 12-05"), "no run date label");
+    let table = String::from_utf8(isopach(&["trend", "--runs", r]).stdout).unwrap();
+    assert!(table.contains("spec window: 950 to 1050 nm"), "{table}");
+}

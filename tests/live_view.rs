@@ -106,6 +106,13 @@ fn a_watched_run_shows_every_site_and_the_figures_of_its_summary() {
             "--timeout=8000",
         ],
     );
+    let state: serde_json::Value = serde_json::from_str(
+        http_get(&format!("{url}state"))
+            .split("\r\n\r\n")
+            .nth(1)
+            .expect("an HTTP body"),
+    )
+    .unwrap();
     // The page is gone once the process ends: stop it (the run is over) before asserting.
     unsafe { libc::kill(child.id() as i32, libc::SIGTERM) };
     let status = child.wait().unwrap();
@@ -135,6 +142,7 @@ fn a_watched_run_shows_every_site_and_the_figures_of_its_summary() {
         format!("{} of 9", summary["sites_valid"])
     );
     assert_eq!(by_id(&dom, "progress"), "9 of 9 results");
+    assert_last_spectrum(&state, &only_run(&runs), &dom);
     println!("live view screenshot: {}", shot.display());
     assert!(
         s.status.success() && shot.is_file(),
@@ -161,4 +169,70 @@ fn a_live_view_on_another_interface_is_refused_before_anything_starts() {
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("loopback"));
     assert!(!runs.exists() || std::fs::read_dir(&runs).unwrap().next().is_none());
+}
+
+/// One HTTP/1.0 GET on the loopback interface; the whole response.
+fn http_get(url: &str) -> String {
+    use std::io::{Read, Write};
+    let rest = url.trim_start_matches("http://");
+    let (host, path) = rest.split_at(rest.find('/').unwrap());
+    let mut s = std::net::TcpStream::connect(host).unwrap();
+    write!(s, "GET {path} HTTP/1.0\r\nHost: {host}\r\n\r\n").unwrap();
+    let mut text = String::new();
+    s.read_to_string(&mut text).unwrap();
+    text
+}
+
+/// The page's last spectrum is the newest fitted attempt of the journal, inside the recipe's
+/// window, and its model is the fit of that spectrum: the residual is far below the
+/// fringes' swing (a valid fit on the simulated bench), and the page draws both.
+fn assert_last_spectrum(state: &serde_json::Value, run: &Path, dom: &str) {
+    use isopach::run::events::Event;
+    let newest = events(run)
+        .into_iter()
+        .rev()
+        .find_map(|e| match e {
+            Event::SiteFitted { site, fit, .. } => Some((site, fit)),
+            _ => None,
+        })
+        .expect("a fitted site");
+    let sp = &state["last_spectrum"];
+    assert_eq!(sp["site"].as_u64(), Some(newest.0 as u64), "{sp}");
+    let column = |k: &str| -> Vec<f64> {
+        sp[k]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|v| v.as_f64().unwrap())
+            .collect()
+    };
+    let (wl, measured, model) = (column("wavelength_nm"), column("measured"), column("model"));
+    assert!(wl.len() > 100 && wl.len() <= 400, "{} points", wl.len());
+    assert_eq!((measured.len(), model.len()), (wl.len(), wl.len()));
+    assert!(
+        wl.iter().all(|l| (420.0..=980.0).contains(l)),
+        "outside the window"
+    );
+    let swing = measured.iter().copied().fold(f64::MIN, f64::max)
+        - measured.iter().copied().fold(f64::MAX, f64::min);
+    let rms = (measured
+        .iter()
+        .zip(&model)
+        .map(|(a, b)| (a - b).powi(2))
+        .sum::<f64>()
+        / wl.len() as f64)
+        .sqrt();
+    assert!(swing > 0.1, "no fringes: swing {swing}");
+    assert!(
+        rms < 0.05 * swing,
+        "model does not follow the spectrum: rms {rms}, swing {swing}"
+    );
+    let t = sp["thickness_nm"].as_f64().unwrap();
+    assert!((t - newest.1.layers[0].thickness_nm).abs() < 1e-9);
+    assert!(
+        dom.contains(&format!("data-spectrum-site=\"{}\"", newest.0)),
+        "no spectrum plot"
+    );
+    assert!(dom.contains("id=\"spectrum-model\""));
+    assert!(by_id(dom, "spectrum-caption").starts_with(&format!("site {}:", newest.0)));
 }

@@ -1,6 +1,7 @@
 //! `isopach compare RUN RUN... [--delta] [--per-min T] [--json] [--out FILE] [--sheet FILE]
-//! [--history URL]`; a RUN that is not a folder is looked up as a run id in the history.
+//! [--csv] [--history URL]`; a RUN that is not a folder is looked up as a run id in the history.
 
+use super::csv_table::{Cell, CsvTable};
 use super::figures::num;
 use super::output::outln;
 use anyhow::bail;
@@ -19,6 +20,7 @@ use std::path::{Path, PathBuf};
   isopach compare runs/*-W07-pre runs/*-W07-post --delta --out delta.svg
   isopach compare before/ after/ --delta --per-min 12.5 --json      # etch rate in nm/min
   isopach compare runs/*-L2612-* --sheet lot.svg                   # maps on one colour scale
+  isopach compare runs/*-L2612-* --csv > lot.csv                   # for a spreadsheet
   isopach compare 20261202-0905-W01 20261202-0931-W02 --history postgres://isopach@db.lab/isopach")]
 pub struct Args {
     /// Run folders to compare (at least two, or one with --sheet); a run id that is not a
@@ -35,8 +37,11 @@ pub struct Args {
     #[arg(long, default_value_t = 1)]
     layer: usize,
     /// Print JSON instead of a table.
-    #[arg(long)]
+    #[arg(long, conflicts_with = "csv")]
     json: bool,
+    /// Print the per-wafer table as CSV (for a spreadsheet) instead of a table.
+    #[arg(long)]
+    csv: bool,
     /// With --delta: draw the delta (or rate) map to this .svg or .png file.
     #[arg(long, requires = "delta")]
     out: Option<PathBuf>,
@@ -55,6 +60,11 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         .iter()
         .map(|p| WaferRun::load(p))
         .collect::<Result<_, _>>()?;
+    // Wafers that are not like for like are still compared, with the reason said.
+    let warnings = compare::differences(&runs);
+    for w in &warnings {
+        eprintln!("warning: {w}");
+    }
     let figures = |w: &WaferRun| w.summary.all_layers().get(layer).cloned();
     let mut wafers = Vec::new();
     for w in &runs {
@@ -81,6 +91,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     let mut out = json!({
         "wafers": wafers.iter().map(|(_, _, v)| v.clone()).collect::<Vec<_>>(),
         "wafer_to_wafer": { "mean_nm": w2w.mean_nm, "std_nm": w2w.std_nm, "nu_pct": w2w.nu_pct, "wafers": w2w.wafers },
+        "warnings": warnings,
     });
     let mut delta_text = None;
     if args.delta {
@@ -134,6 +145,50 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     }
     if args.json {
         outln!("{}", serde_json::to_string_pretty(&out)?);
+        return Ok(super::exit::OK);
+    }
+    if args.csv {
+        let mut t = CsvTable::new(&[
+            "wafer",
+            "lot",
+            "run",
+            "recipe",
+            "started",
+            "mean_nm",
+            "std_nm",
+            "nu_1sigma_pct",
+            "range_nm",
+            "nu_range_pct",
+            "min_nm",
+            "max_nm",
+            "sites_valid",
+            "sites_total",
+            "sites_in_spec",
+            "folder",
+        ]);
+        for (w, f, _) in &wafers {
+            let in_spec = f.spec.as_ref().map(|c| c.sites_in);
+            let folder = w.folder.display().to_string();
+            t.row([
+                Cell::Text(&w.meta.run.wafer),
+                Cell::Text(&w.meta.run.lot),
+                Cell::Text(&w.meta.run.id),
+                Cell::Text(&w.meta.recipe.name),
+                Cell::Text(&w.meta.run.started),
+                Cell::Number(f.mean_nm),
+                Cell::Number(f.std_nm),
+                Cell::Number(f.nu_1sigma_pct),
+                Cell::Number(f.range_nm),
+                Cell::Number(f.nu_range_pct),
+                Cell::Number(f.min_nm),
+                Cell::Number(f.max_nm),
+                Cell::Count(f.sites_valid),
+                Cell::Count(f.sites_total),
+                in_spec.map_or(Cell::Text(""), Cell::Count),
+                Cell::Text(&folder),
+            ]);
+        }
+        outln!("{}", t.text().trim_end());
         return Ok(super::exit::OK);
     }
     let with_spec = wafers.iter().any(|(_, f, _)| f.spec.is_some());

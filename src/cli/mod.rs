@@ -7,6 +7,7 @@ use std::process::ExitCode;
 mod bench;
 mod check;
 mod compare;
+mod csv_table;
 mod figures;
 mod fit;
 mod history_arg;

@@ -1,10 +1,15 @@
 //! `isopach trend [--recipe NAME] [--lot L] [--bench NAME] [--site N] [--runs DIR] [--history URL]
-//! [--rebuild] [--out FILE] [--json]`.
+//! [--all-recipes] [--rebuild] [--out FILE] [--json|--csv]`.
+//!
+//! One recipe at a time: control limits over runs of different recipes mean nothing, so
+//! without `--recipe` the newest run's recipe is charted (said on stderr) unless
+//! `--all-recipes` asks for them mixed.
 
+use super::csv_table::{Cell, CsvTable};
 use super::figures::num;
 use super::output::outln;
 use isopach::error::InputError;
-use isopach::history::db::{History, TrendQuery};
+use isopach::history::db::{History, TrendPoint, TrendQuery};
 use isopach::history::{chart, control};
 use isopach::run::history_entry;
 use serde_json::json;
@@ -17,11 +22,15 @@ use std::path::PathBuf;
   isopach trend --recipe oxide-150-49 --lot L2612 --out trend.svg
   isopach trend --rebuild                 # re-index every run folder under runs/
   isopach trend --history postgres://isopach@db.lab/isopach --bench bench-b
-  isopach trend --recipe oxide-150-49 --site 1      # the centre site's value, run to run")]
+  isopach trend --recipe oxide-150-49 --site 1      # the centre site's value, run to run
+  isopach trend --recipe oxide-150-49 --csv > oxide-runs.csv        # for a spreadsheet")]
 pub struct Args {
-    /// Only runs of this recipe (its `name`).
-    #[arg(long)]
+    /// Only runs of this recipe (its `name`); default: the newest run's recipe.
+    #[arg(long, conflicts_with = "all_recipes")]
     recipe: Option<String>,
+    /// Chart runs of every recipe together (their control limits then mix recipes).
+    #[arg(long)]
+    all_recipes: bool,
     /// Only runs of this lot.
     #[arg(long)]
     lot: Option<String>,
@@ -46,8 +55,11 @@ pub struct Args {
     #[arg(long)]
     out: Option<PathBuf>,
     /// Print JSON instead of a table.
-    #[arg(long)]
+    #[arg(long, conflicts_with = "csv")]
     json: bool,
+    /// Print the runs as CSV (for a spreadsheet) instead of a table.
+    #[arg(long)]
+    csv: bool,
 }
 
 /// Runs the command.
@@ -85,6 +97,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         }
         anyhow::Ok(History::open(&location).await?.trend(&query).await?)
     })??;
+    let (points, recipe) = one_recipe(points, &args);
     let means: Vec<f64> = points.iter().map(|p| p.mean_nm).collect();
     let nus: Vec<f64> = points.iter().map(|p| p.nu_1sigma_pct).collect();
     let (lm, sm) = control_of(&means);
@@ -92,7 +105,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     if let Some(out) = &args.out {
         let title = format!(
             "run chart{}{}{}{}",
-            args.recipe
+            recipe
                 .as_deref()
                 .map(|r| format!(" — {r}"))
                 .unwrap_or_default(),
@@ -114,7 +127,8 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             .iter()
             .enumerate()
             .map(|(i, p)| {
-                json!({"run": p.run_id, "bench": p.bench, "wafer": p.wafer, "lot": p.lot, "started": p.started,
+                json!({"run": p.run_id, "bench": p.bench, "recipe": p.recipe, "wafer": p.wafer, "lot": p.lot, "started": p.started,
+                       "spec_nm": spec_of(p),
                        "mean_nm": p.mean_nm, "nu_1sigma_pct": p.nu_1sigma_pct, "sites_valid": p.sites_valid,
                        "mean_signals": sm.get(i), "nu_signals": sn.get(i)})
             })
@@ -127,6 +141,45 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         );
         return Ok(super::exit::OK);
     }
+    if args.csv {
+        let mut t = CsvTable::new(&[
+            "started",
+            "bench",
+            "recipe",
+            "wafer",
+            "lot",
+            "run",
+            if args.site.is_some() {
+                "site_nm"
+            } else {
+                "mean_nm"
+            },
+            "nu_1sigma_pct",
+            "sites_valid",
+            "spec_lo_nm",
+            "spec_hi_nm",
+            "signals",
+        ]);
+        for (i, p) in points.iter().enumerate() {
+            let signals = signals_text(sm.get(i), sn.get(i));
+            t.row([
+                Cell::Text(&p.started),
+                Cell::Text(&p.bench),
+                Cell::Text(&p.recipe),
+                Cell::Text(&p.wafer),
+                Cell::Text(&p.lot),
+                Cell::Text(&p.run_id),
+                Cell::Number(p.mean_nm),
+                Cell::Number(p.nu_1sigma_pct),
+                Cell::Count(p.sites_valid),
+                Cell::Number(p.spec_lo_nm),
+                Cell::Number(p.spec_hi_nm),
+                Cell::Text(&signals),
+            ]);
+        }
+        outln!("{}", t.text().trim_end());
+        return Ok(super::exit::OK);
+    }
     if points.is_empty() {
         outln!(
             "no runs in the history{}",
@@ -136,6 +189,15 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     }
     // The bench column appears when the runs come from more than one bench.
     let benches = points.iter().any(|p| p.bench != points[0].bench);
+    // So does the recipe column, when --all-recipes mixes them.
+    let recipes = points.iter().any(|p| p.recipe != points[0].recipe);
+    let recipe_cell = |r: &str| {
+        if recipes {
+            format!("{r:<16} ")
+        } else {
+            String::new()
+        }
+    };
     let bench_cell = |b: &str| {
         if benches {
             format!("{b:<16} ")
@@ -144,9 +206,10 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         }
     };
     outln!(
-        "{:<22} {}{:<16} {:<10} {:>10} {:>8}  signals",
+        "{:<22} {}{}{:<16} {:<10} {:>10} {:>8}  signals",
         "started",
         bench_cell("bench"),
+        recipe_cell("recipe"),
         "wafer",
         "lot",
         if args.site.is_some() {
@@ -157,32 +220,28 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         "NU_%"
     );
     for (i, p) in points.iter().enumerate() {
-        let mut s: Vec<String> = Vec::new();
-        s.extend(
-            sm.get(i)
-                .into_iter()
-                .flatten()
-                .map(|x| format!("mean {}", signal(*x))),
-        );
-        s.extend(
-            sn.get(i)
-                .into_iter()
-                .flatten()
-                .map(|x| format!("NU {}", signal(*x))),
-        );
+        let mut s = signals_text(sm.get(i), sn.get(i));
         if p.sites_valid == 0 {
-            s.push("no valid site".into());
+            s = [s.as_str(), "no valid site"]
+                .into_iter()
+                .filter(|t| !t.is_empty())
+                .collect::<Vec<_>>()
+                .join(", ");
         }
         outln!(
-            "{:<22} {}{:<16} {:<10} {:>10} {:>8}  {}",
+            "{:<22} {}{}{:<16} {:<10} {:>10} {:>8}  {}",
             p.started.get(..19).unwrap_or(&p.started),
             bench_cell(&p.bench),
+            recipe_cell(&p.recipe),
             p.wafer,
             p.lot,
             num(p.mean_nm),
             num(p.nu_1sigma_pct),
-            s.join(", ")
+            s
         );
+    }
+    if let Some((lo, hi)) = chart::spec_window(&points) {
+        outln!("spec window: {lo} to {hi} nm (the newest run's recipe)");
     }
     for (name, l) in [("mean", lm), ("NU", ln)] {
         if let Some(l) = l {
@@ -221,4 +280,57 @@ fn signal(s: control::Signal) -> &'static str {
         control::Signal::BelowLcl => "below LCL",
         control::Signal::Jump => "jump",
     }
+}
+
+/// The points of one recipe: the one asked for, or the newest run's when the history holds
+/// several and `--all-recipes` is not given (said on stderr); and the recipe charted.
+fn one_recipe(points: Vec<TrendPoint>, args: &Args) -> (Vec<TrendPoint>, Option<String>) {
+    if args.recipe.is_some() {
+        return (points, args.recipe.clone());
+    }
+    let mut recipes: Vec<&str> = points.iter().map(|p| p.recipe.as_str()).collect();
+    recipes.sort_unstable();
+    recipes.dedup();
+    if recipes.len() < 2 {
+        let only = recipes.first().map(|r| r.to_string());
+        return (points, only);
+    }
+    if args.all_recipes {
+        eprintln!(
+            "warning: charting runs of {} recipes together ({}): their control limits mix recipes",
+            recipes.len(),
+            recipes.join(", ")
+        );
+        return (points, None);
+    }
+    let newest = points.last().map(|p| p.recipe.clone()).unwrap_or_default();
+    eprintln!(
+        "the history holds runs of {} recipes ({}); charting {newest}, the newest run's \
+         (give --recipe NAME for another, or --all-recipes to mix them)",
+        recipes.len(),
+        recipes.join(", ")
+    );
+    let kept = points.into_iter().filter(|p| p.recipe == newest).collect();
+    (kept, Some(newest))
+}
+
+/// A run's spec window as `[lo, hi]` nm, or null.
+fn spec_of(p: &TrendPoint) -> Option<[f64; 2]> {
+    (p.spec_lo_nm.is_finite() && p.spec_hi_nm.is_finite()).then_some([p.spec_lo_nm, p.spec_hi_nm])
+}
+
+/// A run's control-chart signals as one short text (`mean beyond UCL, NU …`), empty if none.
+fn signals_text(mean: Option<&Vec<control::Signal>>, nu: Option<&Vec<control::Signal>>) -> String {
+    let mut s: Vec<String> = Vec::new();
+    s.extend(
+        mean.into_iter()
+            .flatten()
+            .map(|x| format!("mean {}", signal(*x))),
+    );
+    s.extend(
+        nu.into_iter()
+            .flatten()
+            .map(|x| format!("NU {}", signal(*x))),
+    );
+    s.join(", ")
 }

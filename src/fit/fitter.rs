@@ -256,9 +256,19 @@ impl Fitter {
         raw: &RawSpectrum,
         reference_material: &str,
     ) -> Result<FitResult, FitError> {
-        let r_ref = self.cached_reference(reference_material, &raw.reference.wavelength_nm)?;
-        let (spectrum, quality) = normalise_raw(raw, &r_ref)?;
+        let (spectrum, quality) = self.reflectance_of_raw(raw, reference_material)?;
         Ok(self.fit_with_quality(&spectrum, &quality))
+    }
+
+    /// Counts as the fit sees them: reflectance from sample, dark and reference (taken on
+    /// `reference_material`), with the flags the counts earned.
+    pub fn reflectance_of_raw(
+        &self,
+        raw: &RawSpectrum,
+        reference_material: &str,
+    ) -> Result<(Spectrum, SignalQuality), FitError> {
+        let r_ref = self.cached_reference(reference_material, &raw.reference.wavelength_nm)?;
+        Ok(normalise_raw(raw, &r_ref)?)
     }
 
     /// Fits one spectrum, or says why it cannot be fitted.

@@ -1,6 +1,8 @@
 //! The run chart of a trend: mean thickness and % non-uniformity per run, each with its centre
 //! line and ±3σ individuals limits; points beyond the limits are ringed. Each point takes the
-//! colour of the bench that measured the run, named in a legend.
+//! colour of the bench that measured the run, named in a legend. The mean panel shows the
+//! spec window of the newest run (when its recipe sets one); each run is labelled with its
+//! wafer and the date it started.
 //!
 //! Built as a [`Scene`] so the map writers give both SVG (text as text) and PNG.
 
@@ -19,6 +21,7 @@ const GRID: Rgb = Rgb(0xd8, 0xdc, 0xe0);
 const POINT: Rgb = Rgb(0x1f, 0x5f, 0x8b);
 const LIMIT: Rgb = Rgb(0xa0, 0x52, 0x2d);
 const ALERT: Rgb = Rgb(0xc0, 0x1c, 0x28);
+const SPEC: Rgb = Rgb(0x3b, 0x6e, 0x3b);
 /// Bench colours, told apart on screen and in grey print (none is the alert red).
 const BENCH_COLOURS: [Rgb; 6] = [
     POINT,
@@ -65,7 +68,7 @@ pub fn chart(points: &[TrendPoint], title: &str) -> Scene {
     panel(
         &mut scene,
         60.0,
-        &means,
+        (&means, spec_window(points)),
         "mean thickness (nm)",
         points,
         &colours,
@@ -73,7 +76,7 @@ pub fn chart(points: &[TrendPoint], title: &str) -> Scene {
     panel(
         &mut scene,
         60.0 + PANEL_H + 40.0,
-        &nus,
+        (&nus, None),
         "1σ non-uniformity (%)",
         points,
         &colours,
@@ -128,10 +131,28 @@ fn bench_legend(scene: &mut Scene, benches: &[(String, Rgb)]) {
     }
 }
 
+/// The spec window of the newest run that has one, nm.
+pub fn spec_window(points: &[TrendPoint]) -> Option<(f64, f64)> {
+    points
+        .iter()
+        .rev()
+        .find(|p| p.spec_lo_nm.is_finite() && p.spec_hi_nm.is_finite())
+        .map(|p| (p.spec_lo_nm, p.spec_hi_nm))
+}
+
+/// A run's label under the chart: its wafer and the day it started (`W07 12-02`).
+fn run_label(p: &TrendPoint) -> String {
+    match p.started.get(5..10) {
+        Some(day) => format!("{} {day}", p.wafer),
+        None => p.wafer.clone(),
+    }
+}
+
+/// One panel: `values` with their control limits and, when given, the spec window.
 fn panel(
     scene: &mut Scene,
     top: f64,
-    values: &[f64],
+    (values, spec): (&[f64], Option<(f64, f64)>),
     label: &str,
     points: &[TrendPoint],
     colours: &[Rgb],
@@ -141,7 +162,8 @@ fn panel(
     let with_limits = values
         .iter()
         .copied()
-        .chain(lim.iter().flat_map(|l| [l.lcl, l.ucl]));
+        .chain(lim.iter().flat_map(|l| [l.lcl, l.ucl]))
+        .chain(spec.iter().flat_map(|&(lo, hi)| [lo, hi]));
     let Some((lo, hi)) = padded_range(with_limits, 0.08, 1.0) else {
         scene.text(
             LEFT,
@@ -160,7 +182,7 @@ fn panel(
         .iter()
         .enumerate()
         .step_by(every)
-        .map(|(i, p)| (i as f64, p.wafer.clone()))
+        .map(|(i, p)| (i as f64, run_label(p)))
         .collect();
     let plot = XyPlot {
         left: LEFT,
@@ -212,6 +234,20 @@ fn panel(
                 Anchor::End,
                 LIMIT,
                 "limit-label",
+            );
+        }
+    }
+    if let Some((lo, hi)) = spec {
+        for (v, name) in [(hi, "USL"), (lo, "LSL")] {
+            plot.hline(scene, v, Stroke::solid(SPEC, 1.6), "spec");
+            scene.text(
+                plot.left + 4.0,
+                plot.py(v) - 4.0,
+                format!("spec {name} {v}"),
+                10.0,
+                Anchor::Start,
+                SPEC,
+                "spec-label",
             );
         }
     }

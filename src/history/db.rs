@@ -38,6 +38,9 @@ pub struct LayerRecord {
     pub max_nm: f64,
     pub nu_1sigma_pct: f64,
     pub nu_range_pct: f64,
+    /// The layer's spec window, nm (NaN: none).
+    pub spec_lo_nm: f64,
+    pub spec_hi_nm: f64,
 }
 
 /// One site value of one layer.
@@ -106,6 +109,10 @@ pub struct TrendPoint {
     /// NaN for a site's trend.
     pub nu_1sigma_pct: f64,
     pub sites_valid: usize,
+    pub recipe: String,
+    /// The layer's spec window, nm (NaN: none or not known).
+    pub spec_lo_nm: f64,
+    pub spec_hi_nm: f64,
 }
 
 /// Which runs a trend follows.
@@ -225,6 +232,9 @@ impl History {
                     mean_nm,
                     nu_1sigma_pct,
                     sites_valid,
+                    recipe: c.text(8),
+                    spec_lo_nm: c.real(9),
+                    spec_hi_nm: c.real(10),
                 }
             })
             .collect();
@@ -300,6 +310,8 @@ impl History {
                 max_nm: c.real(9),
                 nu_1sigma_pct: c.real(10),
                 nu_range_pct: c.real(11),
+                spec_lo_nm: c.real(12),
+                spec_hi_nm: c.real(13),
             })
         });
         attach(&mut runs, &index, &sites, |run, c| {
@@ -408,6 +420,8 @@ fn write_run(run: &RunRecord) -> Vec<Statement> {
                 Value::real(l.max_nm),
                 Value::real(l.nu_1sigma_pct),
                 Value::real(l.nu_range_pct),
+                Value::real(l.spec_lo_nm),
+                Value::real(l.spec_hi_nm),
             ],
         )
     }));
@@ -499,6 +513,8 @@ mod tests {
                 max_nm: mean + 1.0,
                 nu_1sigma_pct: 100.0 / mean,
                 nu_range_pct: 100.0 / mean,
+                spec_lo_nm: 990.0,
+                spec_hi_nm: 1010.0,
             }],
             sites: vec![
                 SiteRecord {

@@ -32,6 +32,8 @@ pub fn record_of(
             max_nm: l.max_nm,
             nu_1sigma_pct: l.nu_1sigma_pct,
             nu_range_pct: l.nu_range_pct,
+            spec_lo_nm: l.spec.as_ref().map_or(f64::NAN, |s| s.lo_nm),
+            spec_hi_nm: l.spec.as_ref().map_or(f64::NAN, |s| s.hi_nm),
         })
         .collect();
     let sites = rows

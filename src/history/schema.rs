@@ -90,6 +90,15 @@ DROP TABLE layer_stats_v1;
 DROP TABLE runs_v1;
 ",
     },
+    Migration {
+        version: 3,
+        // The spec window of a layer (NULL: none, or a run indexed before version 3 until
+        // `trend --rebuild`), so a trend can draw it.
+        sql: "
+ALTER TABLE layer_stats ADD COLUMN spec_lo_nm DOUBLE PRECISION;
+ALTER TABLE layer_stats ADD COLUMN spec_hi_nm DOUBLE PRECISION;
+",
+    },
 ];
 
 /// The schema version this build writes.
@@ -130,8 +139,8 @@ pub const INSERT_SESSION: &str =
 
 pub const INSERT_LAYER: &str =
     "INSERT INTO layer_stats (bench, run_id, layer, material, sites_total, sites_valid,
-  mean_nm, std_nm, min_nm, max_nm, nu_1sigma_pct, nu_range_pct)
-  VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12)";
+  mean_nm, std_nm, min_nm, max_nm, nu_1sigma_pct, nu_range_pct, spec_lo_nm, spec_hi_nm)
+  VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14)";
 
 pub const INSERT_SITE: &str =
     "INSERT INTO site_values (bench, run_id, site, layer, x_mm, y_mm, thickness_nm, valid)
@@ -139,7 +148,8 @@ pub const INSERT_SITE: &str =
 
 /// The trend of one layer: `$1` layer, `$2` recipe, `$3` lot, `$4` bench (NULL: any).
 pub const TREND: &str =
-    "SELECT r.bench, r.run_id, r.wafer, r.lot, r.started, s.mean_nm, s.nu_1sigma_pct, s.sites_valid
+    "SELECT r.bench, r.run_id, r.wafer, r.lot, r.started, s.mean_nm, s.nu_1sigma_pct, s.sites_valid,
+  r.recipe, s.spec_lo_nm, s.spec_hi_nm
   FROM runs r JOIN layer_stats s ON s.bench = r.bench AND s.run_id = r.run_id
   WHERE s.layer = $1 AND (CAST($2 AS TEXT) IS NULL OR r.recipe = $2)
     AND (CAST($3 AS TEXT) IS NULL OR r.lot = $3) AND (CAST($4 AS TEXT) IS NULL OR r.bench = $4)
@@ -147,8 +157,10 @@ pub const TREND: &str =
 
 /// The trend of one site's value: `$1` layer, `$2` recipe, `$3` lot, `$4` bench, `$5` site.
 pub const SITE_TREND: &str =
-    "SELECT r.bench, r.run_id, r.wafer, r.lot, r.started, v.thickness_nm, v.valid
+    "SELECT r.bench, r.run_id, r.wafer, r.lot, r.started, v.thickness_nm, v.valid, 0,
+  r.recipe, s.spec_lo_nm, s.spec_hi_nm
   FROM runs r JOIN site_values v ON v.bench = r.bench AND v.run_id = r.run_id
+  LEFT JOIN layer_stats s ON s.bench = r.bench AND s.run_id = r.run_id AND s.layer = v.layer
   WHERE v.layer = $1 AND (CAST($2 AS TEXT) IS NULL OR r.recipe = $2)
     AND (CAST($3 AS TEXT) IS NULL OR r.lot = $3) AND (CAST($4 AS TEXT) IS NULL OR r.bench = $4)
     AND v.site = $5
@@ -162,7 +174,8 @@ pub const ALL_SESSIONS: &str =
   ORDER BY bench, run_id, session";
 pub const ALL_LAYERS: &str =
     "SELECT bench, run_id, layer, material, sites_total, sites_valid, mean_nm, std_nm,
-  min_nm, max_nm, nu_1sigma_pct, nu_range_pct FROM layer_stats ORDER BY bench, run_id, layer";
+  min_nm, max_nm, nu_1sigma_pct, nu_range_pct, spec_lo_nm, spec_hi_nm FROM layer_stats
+  ORDER BY bench, run_id, layer";
 pub const ALL_SITES: &str =
     "SELECT bench, run_id, site, layer, x_mm, y_mm, thickness_nm, valid FROM site_values
   ORDER BY bench, run_id, site, layer";

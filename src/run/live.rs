@@ -3,16 +3,26 @@
 //! ones `summary.json` will hold. Fed by [`LiveFeed`] (a subscriber of a session's events) or
 //! by following `journal.jsonl` ([`LiveState::follow`], for a run of another process).
 //!
+//! The page also shows the newest fitted spectrum against its model: the stored spectrum is
+//! read back and normalised exactly as a refit would (`refit::stored_reflectance`), and the
+//! model drawn from the fit's own result, over the recipe's window, thinned to a few hundred
+//! points.
+//!
 //! Every change is broadcast as one whole snapshot (JSON text) on a bounded channel: a page
 //! that falls behind misses snapshots, never the latest, and the run never waits for it. A
 //! page opened mid-run asks for the current snapshot first.
 
 use super::derive::{planned_sites, read_states, rows};
+use super::drift::ReferenceTimeline;
 use super::events::{site_states, Event};
 use super::folder::{RunFolder, RunToml};
+use super::measure::{machine_of, reference_material};
+use super::new_run::loaded_recipe;
 use super::outputs::{fitted_layer_names, run_summary};
 use super::plan::frozen::FrozenPlan;
+use super::refit::stored_reflectance;
 use super::stream::{RunEvent, Subscriber};
+use crate::fit::{FitResult, Fitter};
 use crate::map::colour;
 use crate::recipe::Site;
 use serde_json::json;
@@ -22,6 +32,17 @@ use tokio::sync::broadcast;
 /// Snapshots kept for a slow page before it starts missing them.
 const BACKLOG: usize = 16;
 
+/// Points of the spectrum plot at most (a page needs no more than it has pixels).
+const SPECTRUM_POINTS: usize = 400;
+
+/// What the page needs to draw a fitted spectrum against its model.
+struct SpectrumSource {
+    folder: RunFolder,
+    fitter: Fitter,
+    reference_material: String,
+    window_nm: [f64; 2],
+}
+
 /// A run as the live page shows it.
 pub struct LiveState {
     meta: RunToml,
@@ -30,6 +51,10 @@ pub struct LiveState {
     events: Vec<Event>,
     /// Measurements planned by the passes of this session (0: not known, use the plan).
     passes: usize,
+    /// `None` when the run's frozen recipe cannot be fitted by this build.
+    source: Option<SpectrumSource>,
+    /// The newest fitted spectrum as the page draws it, and which attempt it is.
+    last_spectrum: Option<((usize, u32), serde_json::Value)>,
 }
 
 impl LiveState {
@@ -38,13 +63,94 @@ impl LiveState {
         let meta = folder.read_run_toml()?;
         let (events, _) = read_states(folder, &meta)?;
         let sites = planned_sites(folder, &meta)?;
-        Ok(LiveState {
+        let source = Fitter::from_recipe(&loaded_recipe(folder, &meta))
+            .ok()
+            .map(|fitter| SpectrumSource {
+                folder: folder.clone(),
+                fitter,
+                reference_material: reference_material(&machine_of(&meta).ok().flatten()),
+                window_nm: meta.recipe.film.wavelength_nm,
+            });
+        let mut state = LiveState {
             meta,
             sites,
             per_site_s: per_site_s(folder),
             events,
             passes: 0,
-        })
+            source,
+            last_spectrum: None,
+        };
+        state.refresh_spectrum();
+        Ok(state)
+    }
+
+    /// Draws the newest fitted spectrum anew when a newer fit has come in.
+    fn refresh_spectrum(&mut self) {
+        let newest = self.events.iter().rev().find_map(|e| match e {
+            Event::SiteFitted {
+                site, attempt, fit, ..
+            } => Some((*site, *attempt, fit)),
+            _ => None,
+        });
+        let Some((site, attempt, fit)) = newest else {
+            return;
+        };
+        if self.last_spectrum.as_ref().map(|(k, _)| *k) == Some((site, attempt)) {
+            return;
+        }
+        if let Some(view) = self.spectrum_view(site, attempt, fit) {
+            self.last_spectrum = Some(((site, attempt), view));
+        }
+    }
+
+    /// One attempt's spectrum and its model over the recipe's window, as the page draws them.
+    fn spectrum_view(
+        &self,
+        site: usize,
+        attempt: u32,
+        fit: &FitResult,
+    ) -> Option<serde_json::Value> {
+        let source = self.source.as_ref()?;
+        let rel = self.events.iter().rev().find_map(|e| match e {
+            Event::SiteMeasured {
+                site: s,
+                attempt: a,
+                spectrum,
+                ..
+            } if (*s, *a) == (site, attempt) => Some(spectrum.as_str()),
+            _ => None,
+        })?;
+        let timeline = ReferenceTimeline::from_events(&self.events);
+        let (spectrum, _) = stored_reflectance(
+            &source.folder,
+            (site, attempt, rel),
+            &timeline,
+            &source.fitter,
+            &source.reference_material,
+        )
+        .ok()?;
+        let [lo, hi] = source.window_nm;
+        let inside: Vec<usize> = (0..spectrum.wavelength_nm.len())
+            .filter(|&i| (lo..=hi).contains(&spectrum.wavelength_nm[i]))
+            .collect();
+        let step = inside.len().div_ceil(SPECTRUM_POINTS).max(1);
+        let picked: Vec<usize> = inside.into_iter().step_by(step).collect();
+        let wavelength_nm: Vec<f64> = picked.iter().map(|&i| spectrum.wavelength_nm[i]).collect();
+        let measured: Vec<f64> = picked.iter().map(|&i| spectrum.reflectance[i]).collect();
+        let model = source.fitter.model_reflectance(fit, &wavelength_nm);
+        let finite = |v: Vec<f64>| -> Vec<Option<f64>> {
+            v.into_iter().map(|x| x.is_finite().then_some(x)).collect()
+        };
+        Some(json!({
+            "site": site,
+            "attempt": attempt,
+            "wavelength_nm": wavelength_nm,
+            "measured": finite(measured),
+            "model": finite(model),
+            "thickness_nm": fit.layers.first().map(|l| l.thickness_nm).filter(|t| t.is_finite()),
+            "gof": Some(fit.gof).filter(|g| g.is_finite()),
+            "flags": fit.flags,
+        }))
     }
 
     /// Takes the journal's events anew (a follower's step); whether anything changed.
@@ -52,6 +158,9 @@ impl LiveState {
         let (events, _) = read_states(folder, &self.meta)?;
         let changed = events != self.events;
         self.events = events;
+        if changed {
+            self.refresh_spectrum();
+        }
         Ok(changed)
     }
 
@@ -60,6 +169,9 @@ impl LiveState {
         match event {
             RunEvent::Journal(e) => {
                 self.events.push(e.clone());
+                if matches!(e, Event::SiteFitted { .. }) {
+                    self.refresh_spectrum();
+                }
                 true
             }
             RunEvent::Pass { sites, .. } => {
@@ -149,6 +261,7 @@ impl LiveState {
             "stopped": stopped,
             "stats": f,
             "verdict": summary.verdict,
+            "last_spectrum": self.last_spectrum.as_ref().map(|(_, v)| v),
             "palette": (0..=10).map(|k| colour::scale(k as f64 / 10.0).hex()).collect::<Vec<_>>(),
         })
     }

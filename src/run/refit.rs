@@ -12,7 +12,7 @@ use super::folder::{read_run_toml, RunFolder};
 use super::journal;
 use crate::fit::Fitter;
 use crate::recipe::schema::{AcceptSpec, Recipe};
-use crate::spectrum::{read_csv, SpectrumFile};
+use crate::spectrum::{read_csv, SignalQuality, Spectrum, SpectrumFile};
 use anyhow::Context;
 
 /// Fits the stored spectrum of one attempt, normalised by the reference interpolated in time
@@ -28,19 +28,40 @@ pub fn fit_stored(
     reference_material: &str,
     accept: &AcceptSpec,
 ) -> Event {
-    let result =
-        match read_csv(&folder.root.join(rel)) {
-            Ok(SpectrumFile::Counts(raw)) => timeline
+    let result = stored_reflectance(
+        folder,
+        (site, attempt, rel),
+        timeline,
+        fitter,
+        reference_material,
+    )
+    .map(|(spectrum, quality)| fitter.fit_with_quality(&spectrum, &quality));
+    fit_event(site, attempt, result, accept)
+}
+
+/// The stored spectrum of one attempt (`(site, attempt, file)`) as the fit sees it:
+/// reflectance, normalised by the reference interpolated in time, with the flags its counts
+/// earned.
+pub fn stored_reflectance(
+    folder: &RunFolder,
+    (site, attempt, rel): (usize, u32, &str),
+    timeline: &ReferenceTimeline,
+    fitter: &Fitter,
+    reference_material: &str,
+) -> Result<(Spectrum, SignalQuality), String> {
+    match read_csv(&folder.root.join(rel)) {
+        Ok(SpectrumFile::Counts(raw)) => {
+            timeline
                 .corrected(folder, site, attempt, raw)
                 .and_then(|raw| {
                     fitter
-                        .fit_raw(&raw, reference_material)
+                        .reflectance_of_raw(&raw, reference_material)
                         .map_err(|e| e.to_string())
-                }),
-            Ok(SpectrumFile::Reflectance(spectrum)) => Ok(fitter.fit(&spectrum)),
-            Err(e) => Err(e.to_string()),
-        };
-    fit_event(site, attempt, result, accept)
+                })
+        }
+        Ok(SpectrumFile::Reflectance(spectrum)) => Ok((spectrum, SignalQuality::default())),
+        Err(e) => Err(e.to_string()),
+    }
 }
 
 /// Every stored attempt of every site, as (site, attempt, spectrum file).
