@@ -342,3 +342,60 @@ fn a_printer_board_with_m400_runs_the_whole_map() {
     let rows = sites_once(&run, 9);
     assert!(rows.iter().all(|(_, f)| f == "ok"), "{rows:?}");
 }
+
+#[test]
+fn faults_while_connecting_and_homing_stop_with_a_stop_event_and_resume() {
+    // Lines 1–4 of a session are the unlock, the two init lines and the homing cycle. Every
+    // kind of fault there ends the run within seconds (a stalled homing cycle within its
+    // shortened timeout), journals the stop last, and the run resumes once the fault is gone.
+    for kind in [
+        "alarm",
+        "error",
+        "drop-ok",
+        "garbage",
+        "stall",
+        "disconnect",
+    ] {
+        for line in 1..=4 {
+            let (dir, recipe, machine) = bench_dir(&format!(
+                "[[simulation.faults]]\nkind = \"{kind}\"\nat_line = {line}\n"
+            ));
+            let text = std::fs::read_to_string(&machine).unwrap();
+            std::fs::write(
+                &machine,
+                text.replacen("home = [\"$H\"]", "home = [\"$H\"]\nhome_timeout_s = 4", 1),
+            )
+            .unwrap();
+            let runs = dir.path().join("runs");
+            let started = Instant::now();
+            let o = run_map(&recipe, &machine, "H", &runs);
+            let err = String::from_utf8_lossy(&o.stderr).to_string();
+            let what = format!("{kind} at line {line}");
+            assert!(
+                started.elapsed() < Duration::from_secs(40),
+                "{what}: took {:?}",
+                started.elapsed()
+            );
+            let run = only_run(&runs);
+            if o.status.code() == Some(0) {
+                // A fault the protocol absorbs (a garbage line answered again): the run is whole.
+                sites_once(&run, 9);
+                continue;
+            }
+            assert_eq!(o.status.code(), Some(1), "{what}: {err}");
+            assert!(err.contains("isopach resume"), "{what}: {err}");
+            assert!(
+                matches!(events(&run).last(), Some(Event::RunStopped { .. })),
+                "{what}: the stop is not journalled last"
+            );
+            strip_faults(&run);
+            let o = isopach(&["resume", run.to_str().unwrap()]);
+            assert!(
+                o.status.success(),
+                "{what}: resume: {}",
+                String::from_utf8_lossy(&o.stderr)
+            );
+            assert!(sites_once(&run, 9).iter().all(|(_, f)| f == "ok"), "{what}");
+        }
+    }
+}
