@@ -119,10 +119,10 @@ mod tests {
 
     #[test]
     fn isoline_step_is_never_finer_than_the_noise() {
-        // 20 nm of range asks for a 2 nm step with 8 lines; with 3 nm noise the step is the
+        // 20 nm of range asks for a 2.5 nm step with 8 lines; with 3 nm noise the step is the
         // next round step above it, 5 nm.
         let free = nice_levels(990.0, 1010.0, 8);
-        assert_eq!(free.step, 2.0);
+        assert_eq!(free.step, 2.5);
         let floored = nice_levels_at_least(990.0, 1010.0, 8, 3.0);
         assert_eq!(floored.step, 5.0);
         assert_eq!(floored.values, vec![995.0, 1000.0, 1005.0]);

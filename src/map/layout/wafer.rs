@@ -368,27 +368,20 @@ pub(super) fn line_markers(
     for (row, &(x, y)) in input.rows.iter().zip(&px) {
         let value = row.valid_value(input.layer);
         let fill = value.map(|v| band_colour_of(v, facts)).unwrap_or(WAFER_RIM);
-        if value.is_some() {
-            for (c, r) in [(INK, 6.5), (fill, 5.5)] {
-                scene.items.push(Item::Path {
-                    points: circle_points(x, y, r, 20),
-                    closed: true,
-                    fill: Some(c),
-                    stroke: None,
-                    class: "site-dot",
-                });
-            }
-        } else {
-            scene.items.push(Item::Marker {
-                x,
-                y,
-                r: 3.2,
-                site: row.site,
-                excluded: true,
-                colour: EXCLUDED,
-                halo: Rgb(0xff, 0xff, 0xff),
-            });
-        }
+        // A valid site is a dot in its band's colour with a dark edge; an excluded one a cross.
+        scene.items.push(Item::Marker {
+            x,
+            y,
+            r: if value.is_some() { 5.5 } else { 3.2 },
+            site: row.site,
+            excluded: value.is_none(),
+            colour: if value.is_some() { fill } else { EXCLUDED },
+            halo: if value.is_some() {
+                INK
+            } else {
+                Rgb(0xff, 0xff, 0xff)
+            },
+        });
         // Values sit beside the line, not on it: to the right of a steep line, below a flat one.
         let (lx, ly) = if line.dir.1.abs() > 0.7 {
             (x + 30.0, y + 3.5)
