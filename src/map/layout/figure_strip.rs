@@ -48,7 +48,7 @@ pub(super) fn figure_strip(
             "1σ",
             format!("{} {u}", fmt(s.std_nm, d)),
             format!(
-                "{} % of mean · 3σ {}",
+                "{} % · 3σ {}",
                 fmt(s.nu_1sigma_pct, 2),
                 fmt(s.three_sigma_nm, d)
             ),
@@ -56,7 +56,7 @@ pub(super) fn figure_strip(
         tile(
             "range",
             format!("{} {u}", fmt(s.range_nm, d)),
-            format!("{} % range/2·mean", fmt(s.nu_range_pct, 2)),
+            format!("{} % of 2·mean", fmt(s.nu_range_pct, 2)),
         ),
         tile("min", format!("{} {u}", fmt(s.min_nm, d)), site(s.min_site)),
         tile("max", format!("{} {u}", fmt(s.max_nm, d)), site(s.max_site)),
