@@ -378,6 +378,11 @@ fn a_range_within_noise_says_flat_and_draws_no_structure() {
     let svg = render_svg(&run_map_input(&rows, &meta, 0), &RenderOptions::default());
     assert!(svg.contains("Flat within noise"), "says why");
     assert_eq!(count_class(&svg, "isoline"), 0);
+    assert_eq!(
+        count_class(&svg, "radial-fit"),
+        0,
+        "no fitted curve drawn from noise"
+    );
     assert!(!svg.contains(r#"class="colour-bar-unit""#));
     // With the same range but σ of 0.001 nm the spread is real: isolines are drawn.
     for r in &mut rows {

@@ -23,7 +23,7 @@ use super::evidence::{flat_within_noise, median_sigma, site_line, SiteLine};
 use super::interpolate::{Field, Grid};
 use super::levels::{nice_levels_at_least, Levels};
 use super::render::{MapInput, RenderOptions};
-use super::scene::{Anchor, Item, Scene, Stroke};
+use super::scene::{self, Anchor, Item, Scene, Stroke};
 use super::stats::{LayerSummary, SpecCheck, Summary};
 use super::xy_plot::PlotStyle;
 use colour_bar::colour_bar;
@@ -203,17 +203,22 @@ pub fn page(input: &MapInput, opts: &RenderOptions) -> Scene {
             "no-valid-site",
         );
     } else if facts.flat {
-        let noise = facts.noise_nm.unwrap_or(f64::NAN);
+        // A short notice on the wafer; the column's notes give the figures.
+        let text = "Flat within noise: no isolines";
+        let w = scene::text_width(text, 13.0) + 16.0;
+        scene.items.push(Item::Rect {
+            x: origin.0 - w / 2.0,
+            y: origin.1 - 36.0,
+            w,
+            h: 22.0,
+            fill: Some(Rgb(0xff, 0xff, 0xff)),
+            stroke: Some(Stroke::solid(INK, 0.8)),
+        });
         scene.text(
             origin.0,
-            origin.1 + 4.0,
-            format!(
-                "Flat within noise: range {} {u} against a site σ of {} {u} (median); no isolines drawn",
-                fmt(stats.range_nm, value_decimals(noise)),
-                fmt(noise, value_decimals(noise)),
-                u = input.unit
-            ),
-            12.5,
+            origin.1 - 20.5,
+            text,
+            13.0,
             Anchor::Middle,
             INK,
             "flat-within-noise",
@@ -439,48 +444,44 @@ pub fn wrap_words(text: &str, max_chars: usize, max_lines: usize) -> Vec<String>
 }
 
 /// Space-separated `pieces` after `lead` in lines of at most `max_chars`, at most `max_lines`
-/// lines, the rest counted as "and N more".
+/// lines, the rest counted as "and N more" (whole pieces are dropped to make room for it).
 fn wrap_pieces(lead: &str, pieces: &[String], max_chars: usize, max_lines: usize) -> Vec<String> {
-    let mut lines: Vec<String> = vec![lead.to_string()];
     let max_lines = max_lines.max(1);
-    for (k, piece) in pieces.iter().enumerate() {
-        let last = lines.last_mut().expect("one line");
-        let fits = last.chars().count() + 1 + piece.chars().count() <= max_chars;
-        if fits || last.is_empty() {
-            if !last.is_empty() {
-                last.push(' ');
-            }
-            last.push_str(&clip_chars(piece, max_chars));
-            continue;
+    let width = |line: &[String]| {
+        line.iter().map(|p| p.chars().count()).sum::<usize>() + line.len().saturating_sub(1)
+    };
+    let mut lines: Vec<Vec<String>> = vec![if lead.is_empty() {
+        vec![]
+    } else {
+        vec![lead.to_string()]
+    }];
+    let mut placed = 0;
+    for piece in pieces {
+        let piece = clip_chars(piece, max_chars);
+        let last = lines.last_mut().expect("a line");
+        if last.is_empty() || width(last) + 1 + piece.chars().count() <= max_chars {
+            last.push(piece);
+        } else if lines.len() < max_lines {
+            lines.push(vec![piece]);
+        } else {
+            break;
         }
-        if lines.len() == max_lines {
-            return finish_with_more(lines, pieces.len() - k, max_chars);
-        }
-        lines.push(clip_chars(piece, max_chars));
+        placed += 1;
     }
-    lines
-}
-
-/// Ends the last line with "and N more", dropping its last items until it fits.
-fn finish_with_more(mut lines: Vec<String>, mut more: usize, max_chars: usize) -> Vec<String> {
-    let last = lines.last_mut().expect("one line");
-    loop {
-        let tail = format!(" and {more} more");
-        if last.chars().count() + tail.chars().count() <= max_chars {
-            last.push_str(&tail);
-            return lines;
+    let mut more = pieces.len() - placed;
+    if more > 0 {
+        let lead_pieces = usize::from(!lead.is_empty() && lines.len() == 1);
+        let last = lines.last_mut().expect("a line");
+        while width(last) + format!(" and {more} more").chars().count() > max_chars
+            && last.len() > lead_pieces
+        {
+            last.pop();
+            more += 1;
         }
-        match last.rfind(' ') {
-            Some(cut) => {
-                last.truncate(cut);
-                more += 1;
-            }
-            None => {
-                *last = format!("and {more} more");
-                return lines;
-            }
-        }
+        // The last named item keeps its comma: "…, 12 (low-signal), and 23 more".
+        last.push(format!("and {more} more"));
     }
+    lines.into_iter().map(|l| l.join(" ")).collect()
 }
 
 /// `text` cut to `n` characters with an ellipsis.
@@ -491,4 +492,44 @@ pub fn clip_chars(text: &str, n: usize) -> String {
     let mut s: String = text.chars().take(n.saturating_sub(1)).collect();
     s.push('…');
     s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn wrapped_lists_keep_items_whole_and_count_the_rest() {
+        let items: Vec<String> = (1..=40)
+            .map(|k| format!("{k} (residual-structure;at-bound)"))
+            .collect();
+        let lines = wrap_list("Excluded 40:", &items, 48, 4);
+        assert_eq!(lines.len(), 4);
+        assert!(lines.iter().all(|l| l.chars().count() <= 48), "{lines:?}");
+        let all = lines.join(" ");
+        let named = all.matches(" (residual-structure;at-bound)").count();
+        let more: usize = all
+            .rsplit(" and ")
+            .next()
+            .and_then(|t| t.split_whitespace().next())
+            .and_then(|n| n.parse().ok())
+            .expect("a count of the rest");
+        assert_eq!(named + more, 40, "{all}");
+        // No item is split: every site number is followed by its flag; the only other
+        // number is the count.
+        let numbers = all
+            .split_whitespace()
+            .filter(|w| w.parse::<usize>().is_ok())
+            .count();
+        assert_eq!(numbers, named + 1, "{all}");
+        // A short list is all named, with no count.
+        assert_eq!(
+            wrap_list("Out of spec 2: site", &["4".into(), "9".into()], 48, 3),
+            vec!["Out of spec 2: site 4, 9".to_string()]
+        );
+        assert_eq!(
+            wrap_words("one two three four", 9, 2),
+            vec!["one two", "three…"]
+        );
+    }
 }

@@ -61,10 +61,33 @@ pub(super) fn profile_column(
         }
         None => {
             scene.heading(COLUMN.0, PLOT.0 - 14.0, "Radial profile", INK);
-            radial_plot(scene, input, s, sites, frame);
+            radial_plot(scene, input, s, sites, frame, !facts.flat);
         }
     }
     let chars = ((COLUMN.1 - COLUMN.0) / (0.68 * NOTE_SIZE)) as usize;
+    if facts.flat {
+        let noise = facts.noise_nm.unwrap_or(f64::NAN);
+        let d = value_decimals(noise);
+        let text = format!(
+            "Flat within noise: the range of {} {u} is what a site σ of {} {u} (median) gives by itself, so no isolines, colour key or fitted curve are drawn.",
+            fmt(s.range_nm, d),
+            fmt(noise, d),
+            u = input.unit
+        );
+        for l in wrap_words(&text, chars, 3) {
+            scene.text(
+                COLUMN.0,
+                y,
+                l,
+                NOTE_SIZE,
+                Anchor::Start,
+                INK,
+                "flat-within-noise",
+            );
+            y += NOTE_LEADING;
+        }
+        y += 6.0;
+    }
     if let Some(line) = &facts.line {
         let text = format!(
             "The sites lie along one line ({}), so they are drawn as a profile along it: no map is made between or beside them.",

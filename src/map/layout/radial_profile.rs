@@ -10,13 +10,15 @@ use crate::map::stats::LayerSummary;
 use crate::map::xy_plot::{padded_range, Axis, Ticks};
 
 /// Draws the profile of `sites` (x mm, y mm, value) with the fit of `s` in `frame`
-/// (left, top, right, bottom px).
+/// (left, top, right, bottom px); the fitted curve only when `with_fit` (not for a flat map,
+/// where it would be structure invented from noise).
 pub(super) fn radial_plot(
     scene: &mut crate::map::scene::Scene,
     input: &MapInput,
     s: &LayerSummary,
     sites: &[(f64, f64, f64)],
     frame: (f64, f64, f64, f64),
+    with_fit: bool,
 ) {
     let (lo, hi) = padded_range(sites.iter().map(|p| p.2), 0.08, 0.5).unwrap_or((0.0, 1.0));
     let plot = profile_frame(
@@ -46,7 +48,7 @@ pub(super) fn radial_plot(
         },
         "edge-exclusion",
     );
-    if let Some(fit) = &s.radial {
+    if let Some(fit) = s.radial.as_ref().filter(|_| with_fit) {
         let curve: Vec<(f64, f64)> = (0..=80)
             .map(|k| {
                 let r = ru * k as f64 / 80.0;
