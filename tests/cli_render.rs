@@ -30,6 +30,33 @@ fn render_writes_map_svg_and_png_into_the_run_folder() {
 }
 
 #[test]
+fn render_site_numbers_puts_every_site_number_on_the_map() {
+    let dir = tempfile::tempdir().unwrap();
+    let loaded = recipe("oxide-150-49");
+    let rows = analytic_rows(&loaded);
+    let folder = make_run_folder(&dir.path().join("n"), &run_toml(&loaded, "W07"), &rows);
+    let target = dir.path().join("numbers.svg");
+    let out = isopach(&[
+        "render".as_ref(),
+        folder.root.as_os_str(),
+        "--out".as_ref(),
+        target.as_os_str(),
+        "--site-numbers".as_ref(),
+        "--no-values".as_ref(),
+    ]);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let svg = std::fs::read_to_string(&target).unwrap();
+    // Numbers shown even with values off, one per site, site 35 among them.
+    assert_eq!(svg.matches(r#"class="site-number""#).count(), 49);
+    assert!(svg.contains(r#"class="site-number" "#) && svg.contains(">35</text>"));
+    assert!(!svg.contains(r#"class="value""#));
+}
+
+#[test]
 fn render_out_levels_and_no_values() {
     let dir = tempfile::tempdir().unwrap();
     let loaded = recipe("resist-100-grid");

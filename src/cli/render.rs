@@ -1,4 +1,4 @@
-//! `isopach render RUN [--out FILE.svg|.png] [--levels N] [--no-values] [--layer K]`: draw a
+//! `isopach render RUN [--out FILE.svg|.png] [--levels N] [--no-values] [--site-numbers] [--layer K]`: draw a
 //! run's map again from its `run.toml` and `sites.csv`.
 
 use super::figures::figures_line;
@@ -27,6 +27,9 @@ pub struct Args {
     /// Do not print site values beside the markers.
     #[arg(long)]
     no_values: bool,
+    /// Print each site's number above its marker, so a site named in a list can be found.
+    #[arg(long)]
+    site_numbers: bool,
     /// Which fitted layer to map with --out (1 = top); without --out every layer is drawn.
     #[arg(long, default_value_t = 1, value_parser = clap::value_parser!(u16).range(1..))]
     layer: u16,
@@ -43,6 +46,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     let opts = RenderOptions {
         levels: args.levels as usize,
         values: !args.no_values,
+        numbers: args.site_numbers,
         ..RenderOptions::default()
     };
     let summary = run_summary(&rows, &meta);

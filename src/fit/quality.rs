@@ -22,6 +22,20 @@ pub const BELOW_RESOLUTION: &str = "below-resolution";
 /// No thickness could be extracted at all (too few fringes, no usable pixels).
 pub const NO_FIT: &str = "no-fit";
 
+/// Every flag a fit can raise: the one source of their spelling, used as written in
+/// `sites.csv` (joined by `;`), `summary.json` and on the map and report pages.
+pub const ALL_FLAGS: [&str; 9] = [
+    POOR_FIT,
+    AT_BOUND,
+    AMBIGUOUS,
+    OUTSIDE_RANGE,
+    RESIDUAL_STRUCTURE,
+    LOW_SIGNAL,
+    SATURATED,
+    BELOW_RESOLUTION,
+    NO_FIT,
+];
+
 /// Flags that make a site invalid whatever its goodness of fit.
 /// (`poor-fit` also stands when the gof passes but the residual is far above the noise.)
 pub const INVALIDATING: [&str; 5] = [NO_FIT, SATURATED, LOW_SIGNAL, OUTSIDE_RANGE, POOR_FIT];

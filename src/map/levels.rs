@@ -50,6 +50,36 @@ pub fn nice_levels(lo: f64, hi: f64, target: usize) -> Levels {
     }
 }
 
+/// Levels as [`nice_levels`], but never closer than `min_step` (the measurement noise): a
+/// finer step would draw the noise as structure. When the asked count needs a finer step,
+/// the step is the smallest round step (1, 2, 2.5 or 5 × 10ᵏ) not below `min_step`, which may
+/// leave no level inside the range. A non-finite or non-positive `min_step` sets no floor.
+pub fn nice_levels_at_least(lo: f64, hi: f64, target: usize, min_step: f64) -> Levels {
+    let levels = nice_levels(lo, hi, target);
+    if !(min_step.is_finite() && min_step > 0.0) || levels.step >= min_step {
+        return levels;
+    }
+    if levels.values.is_empty() && !levels.step.is_finite() {
+        return levels;
+    }
+    let step = round_step_at_least(min_step);
+    Levels {
+        values: inside(lo, hi, step),
+        step,
+        decimals: decimals_for(step),
+    }
+}
+
+/// The smallest round step (1, 2, 2.5 or 5 × 10ᵏ) at or above `x` (> 0).
+fn round_step_at_least(x: f64) -> f64 {
+    let e = x.log10().floor();
+    [e, e + 1.0]
+        .iter()
+        .flat_map(|&k| MANTISSAS.map(|m| m * 10f64.powf(k)))
+        .find(|&s| s >= x * (1.0 - 1e-12))
+        .unwrap_or(10f64.powf(e + 1.0))
+}
+
 /// Multiples of `step` strictly between lo and hi.
 fn inside(lo: f64, hi: f64, step: f64) -> Vec<f64> {
     let first = (lo / step).floor() as i64 + 1;
@@ -85,6 +115,25 @@ mod tests {
         assert!((l.step - 0.01).abs() < 1e-15, "{}", l.step);
         assert_eq!(l.decimals, 2);
         assert_eq!(decimals_for(2.5), 1);
+    }
+
+    #[test]
+    fn isoline_step_is_never_finer_than_the_noise() {
+        // 20 nm of range asks for a 2.5 nm step with 8 lines; with 3 nm noise the step is the
+        // next round step above it, 5 nm.
+        let free = nice_levels(990.0, 1010.0, 8);
+        assert_eq!(free.step, 2.5);
+        let floored = nice_levels_at_least(990.0, 1010.0, 8, 3.0);
+        assert_eq!(floored.step, 5.0);
+        assert_eq!(floored.values, vec![995.0, 1000.0, 1005.0]);
+        // A 0.06 nm range with 0.2 nm noise: no level fits.
+        let flat = nice_levels_at_least(1000.00, 1000.06, 10, 0.2);
+        assert!(flat.values.is_empty() && flat.step >= 0.2, "{flat:?}");
+        // Noise below the asked step changes nothing.
+        assert_eq!(nice_levels_at_least(990.0, 1010.0, 8, 0.5), free);
+        assert_eq!(round_step_at_least(0.2), 0.2);
+        assert_eq!(round_step_at_least(0.21), 0.25);
+        assert_eq!(round_step_at_least(6.0), 10.0);
     }
 
     #[test]

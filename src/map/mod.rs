@@ -8,6 +8,7 @@
 pub mod colour;
 pub mod contour;
 pub mod error;
+pub mod evidence;
 pub mod interpolate;
 pub mod layout;
 pub mod levels;

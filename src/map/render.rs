@@ -21,6 +21,9 @@ pub struct MapInput {
     pub recipe: String,
     pub wafer_id: String,
     pub time: String,
+    /// Lot and operator, shown in the header when set.
+    pub lot: String,
+    pub operator: String,
     /// Specification window of the mapped values: out-of-spec sites are ringed.
     pub spec_nm: Option<[f64; 2]>,
 }
@@ -38,6 +41,8 @@ impl MapInput {
             recipe: String::new(),
             wafer_id: String::new(),
             time: String::new(),
+            lot: String::new(),
+            operator: String::new(),
             spec_nm: None,
         }
     }

@@ -5,6 +5,23 @@ use super::colour::Rgb;
 use super::contour::Polyline;
 use super::interpolate::Grid;
 
+/// Estimated width of `text` set at `size` px in DejaVu Sans, the page font: digits advance
+/// 0.636 em (1303/2048 font units), spaces and stops 0.318 em, other lower-case letters about
+/// 0.6 em and capitals about 0.72 em (font metrics, from memory). Used to keep labels apart.
+pub fn text_width(text: &str, size: f64) -> f64 {
+    let em: f64 = text
+        .chars()
+        .map(|c| match c {
+            '0'..='9' => 0.636,
+            ' ' | '.' | ',' | ':' | ';' | '(' | ')' | '|' => 0.33,
+            '-' => 0.361,
+            c if c.is_uppercase() => 0.72,
+            _ => 0.62,
+        })
+        .sum();
+    em * size
+}
+
 /// Horizontal text anchor.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Anchor {

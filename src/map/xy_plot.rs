@@ -5,7 +5,7 @@
 
 use super::colour::Rgb;
 use super::levels::{decimals_for, nice_levels};
-use super::scene::{Anchor, Item, Scene, Stroke};
+use super::scene::{text_width, Anchor, Item, Scene, Stroke};
 
 /// Colours and sizes of a plot.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -111,6 +111,20 @@ impl XyPlot {
         self.bottom - (y - self.y.lo) / (self.y.hi - self.y.lo) * (self.bottom - self.top)
     }
 
+    /// Width of the widest y tick label, px.
+    pub fn y_label_width(&self) -> f64 {
+        marks(&self.y)
+            .iter()
+            .map(|m| text_width(&m.1, self.style.tick_size))
+            .fold(0.0, f64::max)
+    }
+
+    /// The rightmost x of the vertical y-axis title's baseline that keeps its glyphs (which
+    /// reach 0.24 em right of the baseline, the font's descent) clear of the tick labels.
+    pub fn y_title_limit(&self) -> f64 {
+        self.left - 6.0 - self.y_label_width() - 3.0 - 0.24 * self.style.title_size
+    }
+
     /// Draws the frame, grid lines, tick labels and axis titles.
     pub fn axes(&self, scene: &mut Scene) {
         let st = self.style;
@@ -162,7 +176,7 @@ impl XyPlot {
         }
         if !self.y.title.is_empty() {
             scene.items.push(Item::Text {
-                x: self.y_title_x,
+                x: self.y_title_x.min(self.y_title_limit()),
                 y: 0.5 * (self.top + self.bottom),
                 text: self.y.title.clone(),
                 size: st.title_size,

@@ -11,7 +11,7 @@
 //! ever mixes two optical models.
 
 use crate::bench::centring::Centring;
-use crate::fit::FitResult;
+use crate::fit::{quality, FitResult};
 use crate::recipe::schema::AcceptSpec;
 use crate::recipe::Site;
 use serde::{Deserialize, Serialize};
@@ -134,11 +134,11 @@ pub fn judge(fit: &FitResult, accept: &AcceptSpec) -> (bool, String) {
         return (true, "ok".to_string());
     }
     let mut flags = fit.flags.clone();
-    if fit.gof < accept.min_gof && !flags.iter().any(|f| f == "poor-fit") {
-        flags.push("poor-fit".to_string());
+    if fit.gof < accept.min_gof && !flags.iter().any(|f| f == quality::POOR_FIT) {
+        flags.push(quality::POOR_FIT.to_string());
     }
     if flags.is_empty() {
-        flags.push("no-fit".to_string());
+        flags.push(quality::NO_FIT.to_string());
     }
     (false, flags.join(";"))
 }

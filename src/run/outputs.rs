@@ -38,6 +38,8 @@ pub fn run_map_input(rows: &[SiteRow], meta: &RunToml, layer: usize) -> MapInput
     input.recipe = meta.recipe.name.clone();
     input.wafer_id = meta.run.wafer.clone();
     input.time = meta.run.started.clone();
+    input.lot = meta.run.lot.clone();
+    input.operator = meta.run.operator.clone();
     if layer == 0 {
         input.spec_nm = meta.recipe.accept.spec_nm;
     }

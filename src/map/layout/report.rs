@@ -6,7 +6,7 @@
 //! right, a histogram of the site values with the mean and the spec window; then the site
 //! table (flags spelled as in `sites.csv`, attempts per site) and the cautions at the foot.
 
-use super::{fmt, page, value_decimals, EXCLUDED, INK, MUTED, OUT_OF_SPEC, RULE};
+use super::{clip_chars, fmt, page, value_decimals, EXCLUDED, INK, MUTED, OUT_OF_SPEC, RULE};
 use crate::map::colour::Rgb;
 use crate::map::levels::nice_levels;
 use crate::map::render::{MapInput, RenderOptions};
@@ -141,7 +141,7 @@ fn facts(scene: &mut Scene, facts: &[(String, String)], x: f64, top: f64) {
         scene.text(
             x + 100.0,
             y,
-            clip(value, 48),
+            clip_chars(value, 48),
             11.5,
             Anchor::Start,
             INK,
@@ -149,16 +149,6 @@ fn facts(scene: &mut Scene, facts: &[(String, String)], x: f64, top: f64) {
         );
         y += 15.5;
     }
-}
-
-/// `text` cut to `n` characters with an ellipsis.
-fn clip(text: &str, n: usize) -> String {
-    if text.chars().count() <= n {
-        return text.to_string();
-    }
-    let mut s: String = text.chars().take(n - 1).collect();
-    s.push('…');
-    s
 }
 
 /// Bins of round width over `values`: (left edge, width, count).
@@ -302,10 +292,13 @@ const COLUMNS: [(&str, f64, Anchor); 8] = [
     ("att.", 292.0, Anchor::End),
     ("flag", 300.0, Anchor::Start),
 ];
-const BLOCK_WIDTH: f64 = 384.0;
-const BLOCKS: usize = 3;
+const BLOCK_WIDTH: f64 = 576.0;
+const BLOCKS: usize = 2;
+/// Room for the flag column: every combination of the fit's flags fits whole, so a flag on
+/// the page is spelled exactly as in `sites.csv` and `summary.json`.
+const FLAG_CHARS: usize = 44;
 
-/// The site table in three blocks side by side; returns the y below it. Sites that do not
+/// The site table in two blocks side by side; returns the y below it. Sites that do not
 /// fit are named in one line (all of them are in `sites.csv`).
 fn site_table(scene: &mut Scene, input: &ReportInput, top: f64, bottom: f64) -> f64 {
     scene.heading(24.0, top, "Sites", INK);
@@ -360,7 +353,7 @@ fn site_table(scene: &mut Scene, input: &ReportInput, top: f64, bottom: f64) -> 
                 ),
                 fmt(r.gof, 3),
                 attempts(r.site).to_string(),
-                clip(&r.flag, 14),
+                clip_chars(&r.flag, FLAG_CHARS),
             ];
             for ((_, dx, anchor), text) in COLUMNS.iter().zip(cells) {
                 scene.text(x0 + dx, y, text, 10.0, *anchor, ink, "site-row");
@@ -405,7 +398,7 @@ fn cautions(scene: &mut Scene, cautions: &[String], top: f64) {
         let line = if k + 1 == room && text.len() > room {
             format!("… and {} more (see log.txt)", text.len() - k)
         } else {
-            clip(c, 170)
+            clip_chars(c, 170)
         };
         scene.text(
             24.0,
@@ -445,7 +438,7 @@ mod tests {
 
     #[test]
     fn clip_keeps_short_text_and_cuts_long_text() {
-        assert_eq!(clip("poor-fit", 14), "poor-fit");
-        assert_eq!(clip("abcdefghij", 5), "abcd…");
+        assert_eq!(clip_chars("poor-fit", 14), "poor-fit");
+        assert_eq!(clip_chars("abcdefghij", 5), "abcd…");
     }
 }

@@ -1,13 +1,16 @@
 //! The wafer half of the map page: outline, banded colour field, isolines and their labels,
 //! the flat/notch mark, site markers with values, and rings around out-of-spec sites.
 
-use super::{fmt, value_decimals, EXCLUDED, INK, MUTED, OUT_OF_SPEC, WAFER_RIM};
+use super::{
+    band_colour_of, fmt, value_decimals, PageFacts, EXCLUDED, INK, MUTED, OUT_OF_SPEC, WAFER_RIM,
+};
 use crate::map::colour::{self, ink_on, Rgb};
 use crate::map::contour::{closed_isolines, simplify, Polyline};
+use crate::map::evidence::SiteLine;
 use crate::map::interpolate::Grid;
 use crate::map::levels::Levels;
 use crate::map::render::{MapInput, RenderOptions};
-use crate::map::scene::{Anchor, FieldFill, Item, Scene, Stroke};
+use crate::map::scene::{text_width, Anchor, FieldFill, Item, Scene, Stroke};
 use crate::map::stats::SpecCheck;
 use crate::map::xy_plot::circle_points;
 use crate::recipe::geometry::Orientation;
@@ -250,13 +253,18 @@ pub(super) fn markers(
     hi: f64,
 ) {
     let px: Vec<(f64, f64)> = input.rows.iter().map(|r| to_px(r.x_mm, r.y_mm)).collect();
-    let show_values = opts.values && min_spacing(&px) >= LABEL_SPACING_PX;
+    let room = min_spacing(&px) >= LABEL_SPACING_PX;
     let decimals = value_decimals((hi - lo) / 4.0);
     let r = if input.rows.len() > 400 { 1.6 } else { 3.2 };
     for (row, &(x, y)) in input.rows.iter().zip(&px) {
         let value = row.valid_value(input.layer);
         let bg = value
-            .map(|v| colours[levels.values.partition_point(|&b| b <= v)])
+            .map(|v| {
+                colours[levels
+                    .values
+                    .partition_point(|&b| b <= v)
+                    .min(colours.len() - 1)]
+            })
             .unwrap_or(WAFER_RIM);
         scene.items.push(Item::Marker {
             x,
@@ -267,30 +275,162 @@ pub(super) fn markers(
             colour: if value.is_some() { INK } else { EXCLUDED },
             halo: Rgb(0xff, 0xff, 0xff),
         });
-        if show_values {
-            // With numbers shown, an excluded site's number is drawn once, above it.
-            let text = match value {
-                Some(v) => Some(fmt(v, decimals)),
-                None if opts.numbers => None,
-                None => Some(format!("#{}", row.site)),
-            };
-            if let Some(text) = text {
-                scene.text(x, y + 14.0, text, 9.5, Anchor::Middle, ink_on(bg), "value");
-            }
+        site_labels(
+            scene,
+            opts,
+            room,
+            row.site,
+            value.map(|v| fmt(v, decimals)),
+            (x, y),
+            bg,
+        );
+    }
+}
+
+/// A site's value below its marker and its number above it, each on a patch of `bg` (the
+/// colour of the site's band) so they stay legible over isolines, the edge-exclusion ring
+/// and the rim. An excluded site shows `#N` in place of its value unless numbers are shown.
+fn site_labels(
+    scene: &mut Scene,
+    opts: &RenderOptions,
+    room: bool,
+    site: usize,
+    value: Option<String>,
+    (x, y): (f64, f64),
+    bg: Rgb,
+) {
+    if !room {
+        return;
+    }
+    let ink = ink_on(bg);
+    let mut label = |text: String, y: f64, size: f64, bold: bool, class: &'static str| {
+        let w = text_width(&text, size) + 4.0;
+        scene.items.push(Item::Rect {
+            x: x - w / 2.0,
+            y: y - 0.82 * size,
+            w,
+            h: 1.08 * size,
+            fill: Some(bg),
+            stroke: None,
+        });
+        scene.items.push(Item::Text {
+            x,
+            y,
+            text,
+            size,
+            anchor: Anchor::Middle,
+            bold,
+            colour: ink,
+            vertical: false,
+            class,
+        });
+    };
+    if opts.values {
+        let text = match value {
+            Some(v) => Some(v),
+            None if opts.numbers => None,
+            None => Some(format!("#{site}")),
+        };
+        if let Some(text) = text {
+            label(text, y + 14.0, 9.5, false, "value");
         }
-        if opts.numbers && show_values {
-            scene.items.push(Item::Text {
-                x,
-                y: y - 6.5,
-                text: row.site.to_string(),
-                size: 8.5,
-                anchor: Anchor::Middle,
-                bold: true,
-                colour: ink_on(bg),
-                vertical: false,
-                class: "site-number",
-            });
-        }
+    }
+    if opts.numbers {
+        label(site.to_string(), y - 6.5, 8.5, true, "site-number");
+    }
+}
+
+/// Site markers for sites along one line: the line drawn across the disc and each valid
+/// site a dot in the colour of its band (nothing is filled between them).
+#[allow(clippy::too_many_arguments)]
+pub(super) fn line_markers(
+    scene: &mut Scene,
+    input: &MapInput,
+    opts: &RenderOptions,
+    line: &SiteLine,
+    facts: &PageFacts,
+    to_px: &dyn Fn(f64, f64) -> (f64, f64),
+) {
+    if let Some((a, b)) = line.crossings(input.wafer.usable_radius()) {
+        let normal = (-line.dir.1, line.dir.0);
+        let off = line.centre.0 * normal.0 + line.centre.1 * normal.1;
+        let at = |t: f64| {
+            to_px(
+                off * normal.0 + t * line.dir.0,
+                off * normal.1 + t * line.dir.1,
+            )
+        };
+        scene.line(vec![at(a), at(b)], Stroke::solid(MUTED, 1.0), "site-line");
+    }
+    let px: Vec<(f64, f64)> = input.rows.iter().map(|r| to_px(r.x_mm, r.y_mm)).collect();
+    let room = min_spacing(&px) >= LABEL_SPACING_PX * 0.5;
+    let decimals = value_decimals((facts.range.1 - facts.range.0) / 4.0);
+    for (row, &(x, y)) in input.rows.iter().zip(&px) {
+        let value = row.valid_value(input.layer);
+        let fill = value.map(|v| band_colour_of(v, facts)).unwrap_or(WAFER_RIM);
+        // A valid site is a dot in its band's colour with a dark edge; an excluded one a cross.
+        scene.items.push(Item::Marker {
+            x,
+            y,
+            r: if value.is_some() { 5.5 } else { 3.2 },
+            site: row.site,
+            excluded: value.is_none(),
+            colour: if value.is_some() { fill } else { EXCLUDED },
+            halo: if value.is_some() {
+                INK
+            } else {
+                Rgb(0xff, 0xff, 0xff)
+            },
+        });
+        // Values sit beside the line, not on it: to the right of a steep line, below a flat one.
+        let (lx, ly) = if line.dir.1.abs() > 0.7 {
+            (x + 30.0, y + 3.5)
+        } else {
+            (x, y + 20.0)
+        };
+        site_labels_at(
+            scene,
+            opts,
+            room,
+            row.site,
+            value.map(|v| fmt(v, decimals)),
+            (x, y),
+            (lx, ly),
+        );
+    }
+}
+
+/// Labels of a site on a line pattern: value at `at`, number beside the marker, on the page.
+#[allow(clippy::too_many_arguments)]
+fn site_labels_at(
+    scene: &mut Scene,
+    opts: &RenderOptions,
+    room: bool,
+    site: usize,
+    value: Option<String>,
+    (x, y): (f64, f64),
+    (lx, ly): (f64, f64),
+) {
+    if !room {
+        return;
+    }
+    if opts.values {
+        let text = value.unwrap_or_else(|| format!("#{site}"));
+        scene.text(lx, ly, text, 9.5, Anchor::Middle, INK, "value");
+    }
+    if opts.numbers {
+        let nx = x - (lx - x);
+        scene.items.push(Item::Text {
+            x: nx,
+            y: if lx == x { y - 10.0 } else { ly },
+            text: site.to_string(),
+            size: 8.5,
+            anchor: Anchor::Middle,
+            bold: true,
+            colour: MUTED,
+            vertical: false,
+            class: "site-number",
+        });
     }
 }
 
