@@ -74,7 +74,7 @@ fn attr<'a>(tag: &'a (String, Vec<(String, String)>), key: &str) -> Option<&'a s
 fn svg_has_outline_one_marker_per_site_and_statistics() {
     let loaded = recipe("oxide-150-49");
     let mut rows = analytic_rows(&loaded);
-    rows[5].flag = "low_signal".into();
+    rows[5].flag = "low-signal".into();
     let meta = run_toml(&loaded, "W07");
     let input = run_map_input(&rows, &meta, 0);
     let svg = render_svg(&input, &RenderOptions::default());
@@ -193,7 +193,7 @@ fn png_decodes_at_the_expected_size_with_the_map_drawn() {
 fn write_docs_example() {
     let loaded = recipe("oxide-150-49");
     let mut rows = analytic_rows(&loaded);
-    rows[30].flag = "low_signal".into();
+    rows[30].flag = "low-signal".into();
     let meta = run_toml(&loaded, "W07");
     let input = run_map_input(&rows, &meta, 0);
     let png = render_png(&input, &RenderOptions::default()).unwrap();

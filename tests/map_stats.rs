@@ -84,7 +84,7 @@ fn excluded_sites_are_not_counted_but_listed_with_their_flags() {
     let rows = vec![
         row(1, 0.0, 0.0, &[100.0], ""),
         row(2, 10.0, 0.0, &[102.0], "ok"),
-        row(3, 0.0, 10.0, &[5000.0], "low_signal"),
+        row(3, 0.0, 10.0, &[5000.0], "low-signal"),
         row(4, -10.0, 0.0, &[f64::NAN], ""),
         row(5, 0.0, -10.0, &[104.0], "OK"),
     ];
@@ -100,7 +100,7 @@ fn excluded_sites_are_not_counted_but_listed_with_their_flags() {
         .iter()
         .map(|e| (e.site, e.flag.as_str()))
         .collect();
-    assert_eq!(ex, vec![(3, "low_signal"), (4, "no value")]);
+    assert_eq!(ex, vec![(3, "low-signal"), (4, "no value")]);
 }
 
 #[test]
@@ -162,7 +162,7 @@ proptest! {
             .iter()
             .enumerate()
             .map(|(i, &v)| {
-                let flag = if i % 7 == 3 { "poor_fit" } else { "" };
+                let flag = if i % 7 == 3 { "poor-fit" } else { "" };
                 row(i + 1, (i as f64 * 1.3) % 60.0, (i as f64 * 2.9) % 50.0 - 25.0, &[v], flag)
             })
             .collect();

@@ -20,7 +20,7 @@ fn two_layer_run_gets_all_files_and_a_layers_array() {
             let t = analytic(s.x_mm, s.y_mm, r_u);
             let mut row = site_row(s, vec![150.0 + 0.1 * (t - 1000.0), t / 2.0]);
             if s.number == 3 {
-                row.flag = "poor_fit".into();
+                row.flag = "poor-fit".into();
             }
             row
         })

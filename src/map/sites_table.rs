@@ -4,7 +4,7 @@
 //! sits in `thickness_nm,sigma_nm`; a stack with several fitted layers adds
 //! `thickness2_nm,sigma2_nm`, `thickness3_nm,sigma3_nm`, … after `flag`, layer k being the
 //! k-th fitted layer of the recipe counted from the top. A missing value is an empty cell.
-//! `flag` empty or `ok` marks a valid site; anything else (e.g. `low_signal`) excludes the
+//! `flag` empty or `ok` marks a valid site; anything else (e.g. `low-signal`) excludes the
 //! site from the statistics and the map. Columns are found by name, so a reader copes with
 //! any order and ignores columns it does not know; `#` lines are comments.
 
@@ -275,7 +275,7 @@ mod tests {
     fn round_trip_keeps_layers_flags_and_missing_values() {
         let mut rows = vec![
             row(1, &[150.25, 501.5], "ok"),
-            row(2, &[f64::NAN, 499.0], "low_signal"),
+            row(2, &[f64::NAN, 499.0], "low-signal"),
             row(3, &[149.75, 500.0], "poor fit, retried"),
         ];
         rows[1].gof = f64::NAN;
