@@ -9,6 +9,7 @@ mod check;
 mod compare;
 mod figures;
 mod fit;
+mod gauge;
 mod history_arg;
 mod live_server;
 mod machine_arg;
@@ -62,6 +63,8 @@ enum Command {
     Run(run::Args),
     /// Finish an interrupted run; measured sites are kept.
     Resume(resume::Args),
+    /// Gauge study: repeat sites (static, dynamic, reload) for the bench's own precision.
+    Gauge(gauge::Args),
     /// Measure chosen sites of a run again and update its map.
     Remeasure(remeasure::Args),
     /// Fit a run's stored spectra again (new model or window), no stage motion.
@@ -94,6 +97,7 @@ pub fn main() -> ExitCode {
     let result = match cli.command {
         Command::Run(a) => run::run(a),
         Command::Resume(a) => resume::run(a),
+        Command::Gauge(a) => gauge::run(a),
         Command::Remeasure(a) => remeasure::run(a),
         Command::Refit(a) => refit::run(a),
         Command::Render(a) => render::run(a),

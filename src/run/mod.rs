@@ -6,6 +6,7 @@ pub mod drift;
 pub mod events;
 pub mod files;
 pub mod fit_workers;
+pub mod gauge;
 pub mod folder;
 pub mod history_entry;
 pub mod id;
