@@ -45,6 +45,28 @@ pub fn bound_nm(noise_variance: f64, slope: &[f64]) -> Option<f64> {
         .then(|| (noise_variance / information).sqrt())
 }
 
+/// The bound with pixel i's own noise variance σ_i²: var(d̂) ≥ 1/Σ_i (∂R_i/∂d)²/σ_i²
+/// (Kay 1993, ch. 3: the Fisher information of a Gaussian with known covariance
+/// C = diag(σ_i²) is (∂μ/∂d)ᵀC⁻¹(∂μ/∂d)). With a detector that sees much less light at one end
+/// this is well below [`bound_nm`]; only a fit weighting each pixel by 1/σ_i² reaches it.
+pub fn bound_per_pixel_nm(variance: &[f64], slope: &[f64]) -> Option<f64> {
+    let information: f64 = slope
+        .iter()
+        .zip(variance)
+        .filter(|(_, v)| **v > 0.0)
+        .map(|(g, v)| g * g / v)
+        .sum();
+    (information > 0.0).then(|| (1.0 / information).sqrt())
+}
+
+/// The σ of an unweighted least-squares estimate of d with pixel noise σ_i² (linearised:
+/// d̂ − d = Σ g_i e_i / Σ g_i², so var = Σ g_i² σ_i² / (Σ g_i²)²).
+pub fn unweighted_sigma_nm(variance: &[f64], slope: &[f64]) -> Option<f64> {
+    let s2: f64 = slope.iter().map(|g| g * g).sum();
+    let num: f64 = slope.iter().zip(variance).map(|(g, v)| g * g * v).sum();
+    (s2 > 0.0).then(|| (num / (s2 * s2)).sqrt())
+}
+
 /// Measured noise variance: per-pixel variance over the spectra of each group (spectra taken
 /// in a row on one pixel axis), pooled over groups by degrees of freedom and averaged over
 /// the pixels. `None` without a group of two spectra.
@@ -68,6 +90,22 @@ pub fn noise_variance(groups: &[Vec<Vec<f64>>]) -> Option<f64> {
         dof += g.len() - 1;
     }
     (dof > 0).then(|| sum / (dof * pixels) as f64)
+}
+
+/// Per-pixel variance of the normalised spectra, pooled over the groups of two or more
+/// spectra on one pixel axis (the first such group's).
+pub fn pixel_variance(groups: &[Vec<Vec<f64>>]) -> Option<Vec<f64>> {
+    let n = groups.iter().find(|g| g.len() >= 2)?[0].len();
+    let mut sum = vec![0.0; n];
+    let mut dof = 0;
+    for g in groups.iter().filter(|g| g.len() >= 2 && g.iter().all(|s| s.len() == n)) {
+        for i in 0..n {
+            let m = g.iter().map(|s| s[i]).sum::<f64>() / g.len() as f64;
+            sum[i] += g.iter().map(|s| (s[i] - m).powi(2)).sum::<f64>();
+        }
+        dof += g.len() - 1;
+    }
+    Some(sum.into_iter().map(|v| v / dof as f64).collect())
 }
 
 #[cfg(test)]
@@ -96,5 +134,23 @@ mod tests {
         ];
         assert!((noise_variance(&g).unwrap() - 8.0 / 3.0).abs() < 1e-12);
         assert_eq!(noise_variance(&g[2..]), None);
+        assert_eq!(pixel_variance(&g[..2]).unwrap(), vec![8.0 / 3.0; 2]);
+    }
+
+    #[test]
+    fn flat_noise_makes_the_three_forms_agree_and_uneven_noise_parts_them() {
+        let slope = [1.0, 2.0, 3.0];
+        let flat = [0.5; 3];
+        let b = bound_nm(0.5, &slope).unwrap();
+        assert!((bound_per_pixel_nm(&flat, &slope).unwrap() - b).abs() < 1e-15);
+        assert!((unweighted_sigma_nm(&flat, &slope).unwrap() - b).abs() < 1e-15);
+        // Uneven: the weighted bound is lowest; Cauchy–Schwarz puts the unweighted σ above it.
+        let uneven = [0.01, 1.0, 4.0];
+        let w = bound_per_pixel_nm(&uneven, &slope).unwrap();
+        let u = unweighted_sigma_nm(&uneven, &slope).unwrap();
+        // 1/√(1/0.01 + 4/1 + 9/4) = 1/√106.25; √((0.01 + 4 + 36)/14²).
+        assert!((w - 1.0 / 106.25f64.sqrt()).abs() < 1e-12);
+        assert!((u - (40.01f64 / 196.0).sqrt()).abs() < 1e-12);
+        assert!(w < u);
     }
 }

@@ -47,6 +47,10 @@ pub struct SiteGauge {
     pub invalid: usize,
     /// Measured noise level of the normalised reflectance, 1σ (see [`crb`]).
     pub noise_level: Option<f64>,
+    /// The bound with each pixel's own measured noise, 1/√Σ(∂R_i/∂d)²/σ_i² (see [`crb`]).
+    pub crb_per_pixel_nm: Option<f64>,
+    /// The σ an unweighted least-squares fit attains with that noise (see [`crb`]).
+    pub unweighted_nm: Option<f64>,
     #[serde(flatten)]
     pub scatter: Scatter,
 }
@@ -176,7 +180,13 @@ fn site_gauge(
     let bound = noise.zip(mean).zip(fits.first()).and_then(|((var, d), fit)| {
         let mut at = (*fit).clone();
         at.layers[0].thickness_nm = d;
-        crb::bound_nm(var, &crb::slope(&plan.fitter, &at, &wavelengths))
+        let g = crb::slope(&plan.fitter, &at, &wavelengths);
+        let per_pixel = crb::pixel_variance(&groups).filter(|v| v.len() == g.len());
+        Some((
+            crb::bound_nm(var, &g)?,
+            per_pixel.as_ref().and_then(|v| crb::bound_per_pixel_nm(v, &g)),
+            per_pixel.as_ref().and_then(|v| crb::unweighted_sigma_nm(v, &g)),
+        ))
     });
     SiteGauge {
         site: state.site.number,
@@ -185,7 +195,9 @@ fn site_gauge(
         readings,
         invalid,
         noise_level: noise.map(f64::sqrt),
-        scatter: Scatter::of_site(&as_readings, bound),
+        crb_per_pixel_nm: bound.and_then(|b| b.1),
+        unweighted_nm: bound.and_then(|b| b.2),
+        scatter: Scatter::of_site(&as_readings, bound.map(|b| b.0)),
     }
 }
 
