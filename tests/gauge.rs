@@ -79,7 +79,16 @@ fn static_scatter_meets_the_cramer_rao_bound_and_the_fit_sigma() {
         &recipe,
         &machine,
         &runs,
-        &["--sites", "1,2,3", "--repeats", "12", "--passes", "2", "--seed", "7"],
+        &[
+            "--sites",
+            "1,2,3",
+            "--repeats",
+            "12",
+            "--passes",
+            "2",
+            "--seed",
+            "7",
+        ],
     );
     ok(&o);
     let r = report(&runs);
@@ -95,13 +104,20 @@ fn static_scatter_meets_the_cramer_rao_bound_and_the_fit_sigma() {
     for s in &r.sites {
         eprintln!(
             "  site {}: σ {:?}, bound {:?}, per-pixel bound {:?}, unweighted LS {:?}",
-            s.site, s.scatter.repeatability_nm, s.scatter.crb_nm, s.crb_per_pixel_nm, s.unweighted_nm
+            s.site,
+            s.scatter.repeatability_nm,
+            s.scatter.crb_nm,
+            s.crb_per_pixel_nm,
+            s.unweighted_nm
         );
     }
     // A least-squares fit at this signal-to-noise is efficient: its scatter meets the bound
     // (Kay 1993, ch. 3; the model fit is the maximum-likelihood estimate for Gaussian noise)
     // — within 20 % as the issue asks; 66 degrees of freedom give σ to ±9 % (1σ).
-    assert!((sigma / bound - 1.0).abs() <= 0.2, "σ {sigma} vs bound {bound}");
+    assert!(
+        (sigma / bound - 1.0).abs() <= 0.2,
+        "σ {sigma} vs bound {bound}"
+    );
     // The fit's own σ comes from its residual, which also holds the reference's and the
     // dark's noise (common to the repeats of a pass): it may exceed the static scatter, not
     // by more than √2 (reference as noisy as the sample) plus the 20 % of the estimate.
@@ -133,10 +149,21 @@ fn dynamic_scatter_grows_by_positioning_error_times_the_gradient() {
     // The built-in file already has [simulation.controller]: the keys go into it.
     let text = std::fs::read_to_string(&machine).unwrap().replace(
         "[simulation.controller]",
-        &format!("[simulation.controller]\nrepeatability_mm = {repeatability_mm}\nbacklash_mm = 0.05"),
+        &format!(
+            "[simulation.controller]\nrepeatability_mm = {repeatability_mm}\nbacklash_mm = 0.05"
+        ),
     );
     std::fs::write(&machine, text).unwrap();
-    let args = ["--sites", "1,2,3", "--repeats", "15", "--passes", "2", "--seed", "5"];
+    let args = [
+        "--sites",
+        "1,2,3",
+        "--repeats",
+        "15",
+        "--passes",
+        "2",
+        "--seed",
+        "5",
+    ];
     let static_runs = dir.path().join("static");
     ok(&gauge(&recipe, &machine, &static_runs, &args));
     let dynamic_runs = dir.path().join("dynamic");
@@ -154,7 +181,11 @@ fn dynamic_scatter_grows_by_positioning_error_times_the_gradient() {
     let m = isopach::run::measure::machine_of(&meta).unwrap();
     let rt = tokio::runtime::Runtime::new().unwrap();
     let bench = rt
-        .block_on(isopach::bench::Bench::open(m.as_ref(), &loaded, meta.run.seed))
+        .block_on(isopach::bench::Bench::open(
+            m.as_ref(),
+            &loaded,
+            meta.run.seed,
+        ))
         .unwrap();
     let wafer = bench.virtual_wafer().unwrap();
     let h = 0.5;
@@ -179,7 +210,10 @@ fn dynamic_scatter_grows_by_positioning_error_times_the_gradient() {
     let expected = (s * s + repeatability_mm * repeatability_mm * g2).sqrt();
     eprintln!("static σ {s:.5} nm, dynamic σ {d:.5} nm, expected {expected:.5} nm");
     // 84 degrees of freedom: σ to ±8 % (1σ); 25 % is three of those.
-    assert!((d / expected - 1.0).abs() <= 0.25, "dynamic σ {d} vs {expected}");
+    assert!(
+        (d / expected - 1.0).abs() <= 0.25,
+        "dynamic σ {d} vs {expected}"
+    );
     assert!(d > 2.0 * s, "the positioning error dominates: {d} vs {s}");
 }
 
@@ -197,9 +231,23 @@ fn p_to_t_and_verdict_match_an_independent_computation_from_gauge_json() {
             &recipe,
             &machine,
             &runs,
-            &["--sites", "1,4", "--repeats", "6", "--passes", "3", "--seed", "9"],
+            &[
+                "--sites",
+                "1,4",
+                "--repeats",
+                "6",
+                "--passes",
+                "3",
+                "--seed",
+                "9",
+            ],
         );
-        assert_eq!(o.status.code(), Some(exit), "{}", String::from_utf8_lossy(&o.stderr));
+        assert_eq!(
+            o.status.code(),
+            Some(exit),
+            "{}",
+            String::from_utf8_lossy(&o.stderr)
+        );
         let r = report(&runs);
         // One-way random-effects ANOVA per site (passes as groups), written out again here.
         let mut ss = 0.0;
@@ -259,7 +307,18 @@ fn p_to_t_and_verdict_match_an_independent_computation_from_gauge_json() {
 #[test]
 fn a_study_killed_with_sigkill_resumes_to_every_reading_once() {
     let (dir, recipe, machine) = bench_dir("");
-    let args = ["--sites", "1,2", "--repeats", "8", "--passes", "3", "--mode", "reload", "--seed", "4"];
+    let args = [
+        "--sites",
+        "1,2",
+        "--repeats",
+        "8",
+        "--passes",
+        "3",
+        "--mode",
+        "reload",
+        "--seed",
+        "4",
+    ];
     let full = dir.path().join("full");
     let t0 = Instant::now();
     ok(&gauge(&recipe, &machine, &full, &args));
@@ -308,5 +367,8 @@ fn a_study_killed_with_sigkill_resumes_to_every_reading_once() {
         assert_eq!(r.sites.iter().map(|s| s.readings.len()).sum::<usize>(), 48);
         assert!(r.pooled.reproducibility_nm.is_some());
     }
-    assert!(resumed >= 2, "the kills landed after the run folder existed");
+    assert!(
+        resumed >= 2,
+        "the kills landed after the run folder existed"
+    );
 }

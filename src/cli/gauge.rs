@@ -165,9 +165,9 @@ pub fn print_report(r: &GaugeReport) {
         nm(p.crb_nm)
     );
     let c = &r.capability;
-    let spec = c
-        .spec_nm
-        .map_or(String::new(), |[lo, hi]| format!(" against [{lo}, {hi}] nm"));
+    let spec = c.spec_nm.map_or(String::new(), |[lo, hi]| {
+        format!(" against [{lo}, {hi}] nm")
+    });
     outln!(
         "  verdict: {} (P/T {}{spec}; ndc {})",
         c.verdict,

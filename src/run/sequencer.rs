@@ -239,8 +239,15 @@ impl Sequencer {
                             .await?
                     }
                     Step::Gauge(g) => {
-                        self.site(bench, plan, &g.site, Some(g.motion), g.attempt, &mut invalid)
-                            .await?
+                        self.site(
+                            bench,
+                            plan,
+                            &g.site,
+                            Some(g.motion),
+                            g.attempt,
+                            &mut invalid,
+                        )
+                        .await?
                     }
                     Step::Reload { reload, ask } => self.reload(bench, *reload, *ask).await?,
                 }

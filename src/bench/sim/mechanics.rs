@@ -146,7 +146,10 @@ mod tests {
         });
         assert!(mean.abs() < 0.001, "{mean}");
         let expected = (0.01f64.powi(2) + 0.02f64.powi(2)).sqrt();
-        assert!((sd - expected).abs() < 0.04 * expected, "{sd} vs {expected}");
+        assert!(
+            (sd - expected).abs() < 0.04 * expected,
+            "{sd} vs {expected}"
+        );
     }
 
     #[test]

@@ -98,7 +98,10 @@ pub fn pixel_variance(groups: &[Vec<Vec<f64>>]) -> Option<Vec<f64>> {
     let n = groups.iter().find(|g| g.len() >= 2)?[0].len();
     let mut sum = vec![0.0; n];
     let mut dof = 0;
-    for g in groups.iter().filter(|g| g.len() >= 2 && g.iter().all(|s| s.len() == n)) {
+    for g in groups
+        .iter()
+        .filter(|g| g.len() >= 2 && g.iter().all(|s| s.len() == n))
+    {
         for i in 0..n {
             let m = g.iter().map(|s| s[i]).sum::<f64>() / g.len() as f64;
             sum[i] += g.iter().map(|s| (s[i] - m).powi(2)).sum::<f64>();

@@ -108,9 +108,9 @@ impl Scatter {
 
     /// The sites pooled: see the module doc.
     pub fn pooled(sites: &[Scatter]) -> Scatter {
-        let within = sites.iter().fold((0.0, 0), |(ss, dof), s| {
-            (ss + s.within.0, dof + s.within.1)
-        });
+        let within = sites
+            .iter()
+            .fold((0.0, 0), |(ss, dof), s| (ss + s.within.0, dof + s.within.1));
         let repeatability = (within.1 > 0).then(|| (within.0 / within.1 as f64).sqrt());
         let reproducibility = rms(sites.iter().map(|s| s.reproducibility_nm));
         let means: Vec<f64> = sites.iter().filter_map(|s| s.mean_nm).collect();
@@ -120,7 +120,12 @@ impl Scatter {
             repeatability_nm: repeatability,
             reproducibility_nm: reproducibility,
             combined_nm: combined(repeatability, reproducibility),
-            fit_sigma_nm: mean(&sites.iter().filter_map(|s| s.fit_sigma_nm).collect::<Vec<_>>()),
+            fit_sigma_nm: mean(
+                &sites
+                    .iter()
+                    .filter_map(|s| s.fit_sigma_nm)
+                    .collect::<Vec<_>>(),
+            ),
             crb_nm: rms(sites.iter().map(|s| s.crb_nm)),
             within,
         }
@@ -173,9 +178,9 @@ impl Capability {
     ) -> Capability {
         let tolerance = spec_nm.map(|[lo, hi]| hi - lo).filter(|t| *t > 0.0);
         let p_to_t = gauge_nm.zip(tolerance).map(|(g, t)| 6.0 * g / t);
-        let part_sigma_nm = sample_variance(site_means).zip(gauge_nm).map(|(v, g)| {
-            (v - g * g / per_site.max(1.0)).max(0.0).sqrt()
-        });
+        let part_sigma_nm = sample_variance(site_means)
+            .zip(gauge_nm)
+            .map(|(v, g)| (v - g * g / per_site.max(1.0)).max(0.0).sqrt());
         let ndc = part_sigma_nm
             .zip(gauge_nm.filter(|g| *g > 0.0))
             .map(|(p, g)| (1.41 * p / g).floor() as u64);
@@ -230,7 +235,12 @@ mod tests {
     fn p_to_t_ndc_and_verdict() {
         // 6·0.05/(105 − 95) = 0.03: good. Site means 100, 102, 104: s² = 4; σ_part² =
         // 4 − 0.05²/10; ndc = ⌊1.41·1.99994/0.05⌋ = 56.
-        let c = Capability::of(Some(0.05), Some([95.0, 105.0]), &[100.0, 102.0, 104.0], 10.0);
+        let c = Capability::of(
+            Some(0.05),
+            Some([95.0, 105.0]),
+            &[100.0, 102.0, 104.0],
+            10.0,
+        );
         assert!((c.p_to_t.unwrap() - 0.03).abs() < 1e-12);
         assert_eq!(c.verdict, "good");
         assert_eq!(c.ndc, Some(56));

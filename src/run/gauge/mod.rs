@@ -157,7 +157,11 @@ fn site_gauge(
             fit_sigma_nm: layer.sigma_nm,
         });
         fits.push(fit);
-        if let Some((wl, r)) = a.spectrum.as_ref().and_then(|rel| reflectance(folder, plan, rel)) {
+        if let Some((wl, r)) = a
+            .spectrum
+            .as_ref()
+            .and_then(|rel| reflectance(folder, plan, rel))
+        {
             match groups.iter_mut().find(|(p, _)| *p == pass) {
                 Some((_, g)) => g.push(r),
                 None => groups.push((pass, vec![r])),
@@ -177,17 +181,24 @@ fn site_gauge(
         .collect();
     // The bound at the site's mean thickness, the stack's other layers as fitted.
     let mean = figures::Scatter::of_site(&as_readings, None).mean_nm;
-    let bound = noise.zip(mean).zip(fits.first()).and_then(|((var, d), fit)| {
-        let mut at = (*fit).clone();
-        at.layers[0].thickness_nm = d;
-        let g = crb::slope(&plan.fitter, &at, &wavelengths);
-        let per_pixel = crb::pixel_variance(&groups).filter(|v| v.len() == g.len());
-        Some((
-            crb::bound_nm(var, &g)?,
-            per_pixel.as_ref().and_then(|v| crb::bound_per_pixel_nm(v, &g)),
-            per_pixel.as_ref().and_then(|v| crb::unweighted_sigma_nm(v, &g)),
-        ))
-    });
+    let bound = noise
+        .zip(mean)
+        .zip(fits.first())
+        .and_then(|((var, d), fit)| {
+            let mut at = (*fit).clone();
+            at.layers[0].thickness_nm = d;
+            let g = crb::slope(&plan.fitter, &at, &wavelengths);
+            let per_pixel = crb::pixel_variance(&groups).filter(|v| v.len() == g.len());
+            Some((
+                crb::bound_nm(var, &g)?,
+                per_pixel
+                    .as_ref()
+                    .and_then(|v| crb::bound_per_pixel_nm(v, &g)),
+                per_pixel
+                    .as_ref()
+                    .and_then(|v| crb::unweighted_sigma_nm(v, &g)),
+            ))
+        });
     SiteGauge {
         site: state.site.number,
         x_mm: state.site.x_mm,

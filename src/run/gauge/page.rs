@@ -79,9 +79,11 @@ pub fn html(r: &GaugeReport) -> String {
     for s in &r.sites {
         out.push_str(&row(&format!("site {}", s.site), &s.scatter));
     }
-    out.push_str("</table>\n<p>All figures in nm. Repeatability: pooled within-pass σ; \
+    out.push_str(
+        "</table>\n<p>All figures in nm. Repeatability: pooled within-pass σ; \
          reproducibility: the pass-to-pass part (one-way random-effects ANOVA); fit σ: the mean \
          of the fits' own σ; Cramér–Rao bound: σ_n/√Σ(∂R/∂d)² from the measured noise level σ_n \
-         (Kay 1993, ch. 3). See docs/gauge.md.</p>\n</body></html>\n");
+         (Kay 1993, ch. 3). See docs/gauge.md.</p>\n</body></html>\n",
+    );
     out
 }

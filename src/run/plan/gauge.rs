@@ -315,7 +315,9 @@ mod tests {
         assert_eq!(shape(&p), "RTSSTSSRTSSTSS");
         let attempts: Vec<u32> = p.gauge_steps().map(|g| g.attempt).collect();
         assert_eq!(attempts, [1, 2, 3, 1, 2, 3, 4, 5, 6, 4, 5, 6]);
-        assert!(p.gauge_steps().all(|g| g.motion != GaugeMotion::Stay || g.site.legs.is_empty()));
+        assert!(p
+            .gauge_steps()
+            .all(|g| g.motion != GaugeMotion::Stay || g.site.legs.is_empty()));
         let p = Plan::gauge(&r, None, &sites(), settings(GaugeMode::Reload)).unwrap();
         assert_eq!(shape(&p), "RTSSTSSLRTSSTSS");
         let p = Plan::gauge(&r, None, &sites(), settings(GaugeMode::Dynamic)).unwrap();
@@ -343,16 +345,36 @@ mod tests {
         done.extend((1..=3).map(|a| (second, a)));
         done.insert((first, 4));
         let q = p.gauge_remaining(&done);
-        assert_eq!(shape(&q), "LRTSTSS", "the reload is placed again, not asked");
-        assert!(matches!(q.steps[0], Step::Reload { reload: 1, ask: false }));
-        let attempts: Vec<(usize, u32)> =
-            q.gauge_steps().map(|g| (g.site.site.number, g.attempt)).collect();
+        assert_eq!(
+            shape(&q),
+            "LRTSTSS",
+            "the reload is placed again, not asked"
+        );
+        assert!(matches!(
+            q.steps[0],
+            Step::Reload {
+                reload: 1,
+                ask: false
+            }
+        ));
+        let attempts: Vec<(usize, u32)> = q
+            .gauge_steps()
+            .map(|g| (g.site.site.number, g.attempt))
+            .collect();
         assert_eq!(
             attempts,
-            [(first, 5), (first, 6), (second, 4), (second, 5), (second, 6)]
+            [
+                (first, 5),
+                (first, 6),
+                (second, 4),
+                (second, 5),
+                (second, 6)
+            ]
         );
-        let all: BTreeSet<(usize, u32)> =
-            p.gauge_steps().map(|g| (g.site.site.number, g.attempt)).collect();
+        let all: BTreeSet<(usize, u32)> = p
+            .gauge_steps()
+            .map(|g| (g.site.site.number, g.attempt))
+            .collect();
         assert_eq!(p.gauge_remaining(&all).gauge_steps().count(), 0);
     }
 

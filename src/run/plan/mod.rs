@@ -299,7 +299,11 @@ impl Plan {
             }
             Step::Site(s) => (s.legs.clone(), a.settle_ms / 1000.0 + frames_s, s.stage_mm),
             Step::Gauge(g) => {
-                let settle = if g.site.legs.is_empty() { 0.0 } else { a.settle_ms / 1000.0 };
+                let settle = if g.site.legs.is_empty() {
+                    0.0
+                } else {
+                    a.settle_ms / 1000.0
+                };
                 (g.site.legs.clone(), settle + frames_s, g.site.stage_mm)
             }
             // Dark and reference: two acquisitions.
