@@ -350,12 +350,13 @@ mod tests {
             "LRTSTSS",
             "the reload is placed again, not asked"
         );
+        let after_home = q.steps.iter().find(|s| !matches!(s, Step::Home));
         assert!(matches!(
-            q.steps[0],
-            Step::Reload {
+            after_home,
+            Some(Step::Reload {
                 reload: 1,
                 ask: false
-            }
+            })
         ));
         let attempts: Vec<(usize, u32)> = q
             .gauge_steps()
