@@ -17,7 +17,7 @@ use super::stage::{GcodeStage, Stage, StageError};
 use super::transport::open_serial;
 use crate::optics::{MaterialLibrary, OpticsError};
 use crate::recipe::{LoadedRecipe, Site};
-use std::sync::Arc;
+use std::sync::{Arc, Mutex};
 
 /// Why a bench could not be opened or used.
 #[derive(Debug, thiserror::Error)]
@@ -42,8 +42,17 @@ fn list(v: &[SiteOutside]) -> String {
 /// Connects to the stage of a machine file: the virtual controller (in-process, in the
 /// clock's virtual time) when its port is `"simulated"`, else the serial port.
 pub async fn open_stage(m: &MachineFile, clock: SimClock) -> Result<Box<dyn Stage>, StageError> {
+    open_stage_with(m, clock, VirtualConfig::from_machine(m)).await
+}
+
+/// [`open_stage`], the virtual controller (when the port is `"simulated"`) built as `cfg` says.
+async fn open_stage_with(
+    m: &MachineFile,
+    clock: SimClock,
+    cfg: VirtualConfig,
+) -> Result<Box<dyn Stage>, StageError> {
     Ok(if m.stage_is_simulated() {
-        let stream = spawn_duplex(VirtualConfig::from_machine(m), clock);
+        let stream = spawn_duplex(cfg, clock);
         Box::new(GcodeStage::connect(stream, &m.stage, "simulated").await?)
     } else {
         let port = open_serial(&m.stage.port, m.stage.baud)?;
@@ -65,6 +74,10 @@ pub struct Bench {
     wafer: Option<Arc<VirtualWafer>>,
     /// Where the virtual wafer really sits (its seeded placement error applied).
     true_transform: Option<ChuckTransform>,
+    /// The virtual spectrometer's view of where the wafer lies (a reload moves it).
+    placement: Option<Arc<Mutex<ChuckTransform>>>,
+    /// The simulation seed (the run's plus the machine file's).
+    seed: u64,
 }
 
 impl Bench {
@@ -93,19 +106,29 @@ impl Bench {
         let m = machine.cloned().unwrap_or_else(builtin_simulated);
         let clock = SimClock::new(m.simulation.time_scale);
         let simulated_stage = m.stage_is_simulated();
-        let stage = open_stage(&m, clock).await?;
-        let transform = ChuckTransform::from_spec(&m.chuck);
         let seed = seed.wrapping_add(m.simulation.seed);
+        // The carriage's own scatter is drawn afresh per session, like the spectrometer's noise.
+        let session_seed = seed
+            .wrapping_add(1)
+            .wrapping_add(session.wrapping_mul(0x9e37_79b9_7f4a_7c15));
+        let (cfg, mechanics) = VirtualConfig::with_mechanics(&m, session_seed);
+        let stage = open_stage_with(&m, clock, cfg).await?;
+        let transform = ChuckTransform::from_spec(&m.chuck);
         // The virtual wafer lies where a hand put it: off the file's centre and rotation by its
         // seeded placement error; the spectrometer sees it there, the plan does not know.
         let true_transform = Placement::draw(&m.simulation.wafer, seed).apply(&transform);
-        let (spectrometer, wafer): (Box<dyn Spectrometer>, _) = match m.spectrometer.kind {
+        let (spectrometer, wafer, placement): (Box<dyn Spectrometer>, _, _) = match m
+            .spectrometer
+            .kind
+        {
             SpectrometerKind::Command => (
                 Box::new(CommandSpectrometer::from_spec(&m.spectrometer)),
+                None,
                 None,
             ),
             SpectrometerKind::Helper => (
                 Box::new(HelperSpectrometer::from_spec(&m.spectrometer)),
+                None,
                 None,
             ),
             SpectrometerKind::Simulated => {
@@ -123,11 +146,22 @@ impl Bench {
                     true_transform,
                     // Sessions step the seed by an odd 64-bit constant (2⁶⁴/φ), so no two
                     // sessions of nearby runs share a noise stream.
-                    seed.wrapping_add(1)
-                        .wrapping_add(session.wrapping_mul(0x9e37_79b9_7f4a_7c15)),
+                    session_seed,
                     clock,
                 );
-                (Box::new(spec) as Box<dyn Spectrometer>, Some(wafer))
+                // A real stage with a virtual spectrometer: the reported position is the truth
+                // the spectrometer has.
+                let spec = if simulated_stage {
+                    spec.with_mechanics(mechanics)
+                } else {
+                    spec
+                };
+                let placement = spec.placement_handle();
+                (
+                    Box::new(spec) as Box<dyn Spectrometer>,
+                    Some(wafer),
+                    Some(placement),
+                )
             }
         };
         Ok(Bench {
@@ -141,7 +175,22 @@ impl Bench {
             clock,
             true_transform: wafer.is_some().then_some(true_transform),
             wafer,
+            placement,
+            seed,
         })
+    }
+
+    /// The simulated wafer is unloaded and loaded again for the `reload`-th time (1, 2, …):
+    /// it now lies off by a fresh seeded placement error (`[simulation.wafer]`
+    /// `reload_offset_mm`, `reload_rotation_deg`). `None` when the spectrometer is real: a
+    /// person does it.
+    pub fn reload_simulated(&mut self, reload: u64) -> Option<Placement> {
+        let handle = self.placement.as_ref()?;
+        let placed = Placement::reloaded(&self.machine.simulation.wafer, self.seed, reload);
+        let truth = placed.apply(&self.transform);
+        *handle.lock().unwrap_or_else(|e| e.into_inner()) = truth;
+        self.true_transform = Some(truth);
+        Some(placed)
     }
 
     /// Whether the stage is the virtual controller (no real motion: no confirmation needed).

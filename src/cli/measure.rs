@@ -310,12 +310,19 @@ fn print(folder: &RunFolder, meta: &RunToml, command: &str, report: SessionRepor
     if let Some(line) = verdict_line(report.summary.verdict.as_ref()).filter(|_| finished) {
         outln!("  {line}");
     }
+    // A gauge study: its own figures, and a gauge not fit for the spec fails acceptance.
+    let gauge = report.gauge.as_ref();
+    if let Some(g) = gauge {
+        super::gauge::print_report(g);
+    }
+    let gauge_unfit = gauge.is_some_and(|g| g.capability.verdict == "not fit");
     match report.outcome {
         Outcome::Finished => match no_valid_site(f, &folder.root) {
             Some(why) => {
                 eprintln!("{command} failed: {why}");
                 super::exit::FAILED
             }
+            None if gauge_unfit => super::exit::ACCEPT_FAILED,
             None => verdict_code(report.summary.verdict.as_ref()),
         },
         Outcome::Interrupted => {

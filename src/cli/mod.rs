@@ -10,6 +10,7 @@ mod compare;
 mod csv_table;
 mod figures;
 mod fit;
+mod gauge;
 mod history_arg;
 mod live_server;
 mod machine_arg;
@@ -63,6 +64,8 @@ enum Command {
     Run(run::Args),
     /// Finish an interrupted run; measured sites are kept.
     Resume(resume::Args),
+    /// Gauge study: repeat sites (static, dynamic, reload) for the bench's own precision.
+    Gauge(gauge::Args),
     /// Measure chosen sites of a run again and update its map.
     Remeasure(remeasure::Args),
     /// Fit a run's stored spectra again (new model or window), no stage motion.
@@ -95,6 +98,7 @@ pub fn main() -> ExitCode {
     let result = match cli.command {
         Command::Run(a) => run::run(a),
         Command::Resume(a) => resume::run(a),
+        Command::Gauge(a) => gauge::run(a),
         Command::Remeasure(a) => remeasure::run(a),
         Command::Refit(a) => refit::run(a),
         Command::Render(a) => render::run(a),

@@ -154,6 +154,8 @@ fn dry_run(plan: &Plan) -> anyhow::Result<u8> {
             Step::Reference(_) => outln!("{:>5} reference taken again (lamp drift)", ""),
             // Before the sites, said below the table.
             Step::Home | Step::Centre(_) => {}
+            // A map plan has no gauge steps.
+            Step::Gauge(_) | Step::Reload { .. } => {}
         }
     }
     let a = plan.acquire();

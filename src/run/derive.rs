@@ -8,6 +8,7 @@ use super::folder::{RunFolder, RunToml};
 use super::journal;
 use super::outputs::{fitted_layer_names, write_run_outputs};
 use super::plan::frozen::FrozenPlan;
+use super::plan::GaugeSettings;
 use crate::bench::centring::CentringSettings;
 use crate::map::sites_table::SiteRow;
 use crate::map::stats::Summary;
@@ -30,6 +31,11 @@ pub fn planned_order(folder: &RunFolder, meta: &RunToml) -> anyhow::Result<Vec<S
 /// The centring a run asked for (`run --centre`), as frozen in its `plan.json`.
 pub fn frozen_centring(folder: &RunFolder) -> anyhow::Result<Option<CentringSettings>> {
     Ok(read_frozen(folder)?.and_then(|f| f.centring))
+}
+
+/// The gauge study a run is (`isopach gauge`), as frozen in its `plan.json`; `None`: a map.
+pub fn frozen_gauge(folder: &RunFolder) -> anyhow::Result<Option<GaugeSettings>> {
+    Ok(read_frozen(folder)?.and_then(|f| f.gauge))
 }
 
 fn read_frozen(folder: &RunFolder) -> anyhow::Result<Option<FrozenPlan>> {
@@ -100,5 +106,8 @@ pub fn rebuild(folder: &RunFolder) -> anyhow::Result<Summary> {
     let (_, states) = read_states(folder, &meta)?;
     let layers = fitted_layer_names(&meta.recipe).len().max(1);
     let rows = rows(&states, layers);
-    Ok(write_run_outputs(folder, &rows, &meta)?)
+    let summary = write_run_outputs(folder, &rows, &meta)?;
+    // A gauge study's own figures are derived files too.
+    super::gauge::write_gauge_outputs(folder)?;
+    Ok(summary)
 }

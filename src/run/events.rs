@@ -82,6 +82,8 @@ pub enum Event {
         new: String,
         keys: Vec<String>,
     },
+    /// A gauge study's wafer was unloaded and loaded again (its `reload`-th time).
+    WaferReloaded { time: String, reload: u64 },
     /// The session stopped early (Ctrl-C, fault); the run can be resumed.
     RunStopped { time: String, reason: String },
     /// Every planned site has a result.
@@ -116,6 +118,7 @@ impl Event {
             | Event::RefitFinished { time }
             | Event::MachineChanged { time, .. }
             | Event::WaferCentred { time, .. }
+            | Event::WaferReloaded { time, .. }
             | Event::RunStopped { time, .. }
             | Event::RunFinished { time } => time,
         }

@@ -57,6 +57,8 @@ pub struct SessionReport {
     pub measured: Vec<usize>,
     /// Why the run is not (yet) in the history, when its write failed; the run is safe.
     pub history_note: Option<String>,
+    /// The figures of a gauge study (`None`: a map).
+    pub gauge: Option<super::gauge::GaugeReport>,
 }
 
 /// The machine file frozen in a run (`None`: the built-in simulated bench).
@@ -92,7 +94,10 @@ pub fn plan_on_machine(
 ) -> anyhow::Result<Plan> {
     let loaded = loaded_recipe(folder, meta);
     let order = derive::planned_order(folder, meta)?;
-    let plan = Plan::for_sites(&loaded, machine, &order)?;
+    let plan = match derive::frozen_gauge(folder)? {
+        Some(settings) => Plan::gauge(&loaded, machine, &order, settings)?,
+        None => Plan::for_sites(&loaded, machine, &order)?,
+    };
     // A run centred earlier keeps its measured centre; one stopped before its centring
     // finished centres first.
     let (events, _) = derive::read_states(folder, meta)?;
@@ -134,10 +139,24 @@ pub async fn session(
         .iter()
         .map(|s| (s.site.number, s.next_attempt()))
         .collect();
-    let todo = plan.only(|s| match which {
-        Which::Missing => !valid.get(&s.number).copied().unwrap_or(false),
-        Which::Sites(n) => n.contains(&s.number),
-    });
+    let todo = match (which, plan.gauge.is_some()) {
+        // A gauge study goes on with the acquisitions not yet journalled.
+        (Which::Missing, true) => plan.gauge_remaining(
+            &states
+                .iter()
+                .flat_map(|s| {
+                    s.attempts
+                        .iter()
+                        .filter(|a| a.spectrum.is_some())
+                        .map(|a| (s.site.number, a.attempt))
+                })
+                .collect(),
+        ),
+        _ => plan.only(|s| match which {
+            Which::Missing => !valid.get(&s.number).copied().unwrap_or(false),
+            Which::Sites(n) => n.contains(&s.number),
+        }),
+    };
     let workers = FitWorkers::new(plan.fitter.clone(), plan.reference_material.clone());
     let mut stream = EventStream::new();
     stream.subscribe(Journal::open(&folder.journal())?);
@@ -235,6 +254,11 @@ pub async fn session(
         seq.log(Event::RunFinished { time: now() })?;
     }
     let summary = derive::rebuild(folder)?;
+    // Written by the rebuild with the other derived files.
+    let gauge = match plan.gauge {
+        Some(_) => Some(super::gauge::read_gauge(folder)?),
+        None => None,
+    };
     let history_note = super::history_entry::record(history, folder).await;
     Ok(SessionReport {
         outcome,
@@ -242,5 +266,6 @@ pub async fn session(
         states,
         measured: todo.sites().map(|s| s.site.number).collect(),
         history_note,
+        gauge,
     })
 }

@@ -7,6 +7,7 @@ pub mod events;
 pub mod files;
 pub mod fit_workers;
 pub mod folder;
+pub mod gauge;
 pub mod history_entry;
 pub mod id;
 pub mod journal;

@@ -20,7 +20,7 @@ use super::drift::{normalised_between, seconds, TakenReference};
 use super::events::{fit_event, now, Event};
 use super::fit_workers::{FitWorkers, Pending};
 use super::folder::RunFolder;
-use super::plan::{Plan, PlanError, ReferencePlacement, SiteStep, Step};
+use super::plan::{GaugeMotion, Plan, PlanError, ReferencePlacement, SiteStep, Step};
 use super::stream::{EventStream, RunEvent};
 use crate::bench::centring::probe::ProbeSettings;
 use crate::bench::centring::{locate, BenchProbe, CentringSettings};
@@ -218,7 +218,7 @@ impl Sequencer {
             let first_site = todo
                 .steps
                 .iter()
-                .position(|s| matches!(s, Step::Site(_)))
+                .position(|s| matches!(s, Step::Site(_) | Step::Gauge(_)))
                 .unwrap_or(0);
             let from = if pass == 0 { start } else { first_site };
             for (i, step) in todo.steps.iter().enumerate().skip(from) {
@@ -234,12 +234,30 @@ impl Sequencer {
                         }
                     }
                     Step::Site(step) => {
-                        self.site(bench, plan, step, next_attempt, &mut invalid)
+                        let attempt = next_attempt(step.site.number);
+                        self.site(bench, plan, step, None, attempt, &mut invalid)
                             .await?
                     }
+                    Step::Gauge(g) => {
+                        self.site(
+                            bench,
+                            plan,
+                            &g.site,
+                            Some(g.motion),
+                            g.attempt,
+                            &mut invalid,
+                        )
+                        .await?
+                    }
+                    Step::Reload { reload, ask } => self.reload(bench, *reload, *ask).await?,
                 }
             }
             self.finish(self.workers.take_all(), &mut invalid).await?;
+            // A gauge study keeps every reading as it came: an invalid one is a finding of
+            // the study, not a site to measure again.
+            if plan.gauge.is_some() {
+                break;
+            }
             todo = plan.only(|s| invalid.contains(&s.number));
             let left: Vec<usize> = todo.sites().map(|s| s.site.number).collect();
             if !left.is_empty() && pass < plan.acquire().retries {
@@ -418,6 +436,40 @@ impl Sequencer {
         }
     }
 
+    /// The wafer is unloaded and loaded again: the simulated bench places it with a fresh
+    /// error; on a real bench the operator is asked (when `ask`). Journalled.
+    async fn reload(&mut self, bench: &mut Bench, reload: u64, ask: bool) -> Result<(), Stop> {
+        if let Some(placed) = bench.reload_simulated(reload) {
+            self.note(format!(
+                "reload {reload} (simulated): the wafer lies {:.3} mm, {:.3} mm off its first \
+                 placement's nominal centre, turned {:.3}°",
+                placed.offset_mm[0], placed.offset_mm[1], placed.rotation_deg
+            ))?;
+        } else if ask {
+            let prompt = self.prompt.clone().ok_or_else(|| {
+                Stop::Fault(anyhow::anyhow!(
+                    "a reload study needs the operator to unload and reload the wafer and there \
+                     is nobody to ask: run it interactively"
+                ))
+            })?;
+            let message = format!(
+                "Reload {reload}: unload the wafer, load it again as for a new run, then press Enter"
+            );
+            self.scope
+                .guard(async move {
+                    tokio::task::spawn_blocking(move || prompt(&message))
+                        .await
+                        .context("the operator prompt failed")?
+                })
+                .await?;
+        }
+        self.log(Event::WaferReloaded {
+            time: now(),
+            reload,
+        })
+        .map_err(Stop::Fault)
+    }
+
     /// Writes a raw spectrum file (relative path in the run folder) atomically.
     fn store(&self, rel: &str, raw: &RawSpectrum) -> anyhow::Result<()> {
         let mut bytes = Vec::new();
@@ -434,7 +486,8 @@ impl Sequencer {
         bench: &mut Bench,
         plan: &Plan,
         step: &SiteStep,
-        next_attempt: &mut impl FnMut(usize) -> u32,
+        motion: Option<GaugeMotion>,
+        attempt: u32,
         invalid: &mut Vec<usize>,
     ) -> Result<(), Stop> {
         let n = step.site.number;
@@ -444,8 +497,20 @@ impl Sequencer {
         let acquired = self
             .scope
             .guard(async {
-                bench.move_to_site(&step.site).await?;
-                bench.settle(a.settle_ms).await;
+                match motion {
+                    None | Some(GaugeMotion::ToSite) => {
+                        bench.move_to_site(&step.site).await?;
+                        bench.settle(a.settle_ms).await;
+                    }
+                    // A static repeat: no line is sent.
+                    Some(GaugeMotion::Stay) => {}
+                    Some(GaugeMotion::AwayAndBack(away)) => {
+                        bench.stage.move_to(away[0], away[1]).await?;
+                        bench.stage.wait_idle().await?;
+                        bench.move_to_site(&step.site).await?;
+                        bench.settle(a.settle_ms).await;
+                    }
+                }
                 let spectrometer = bench.spectrometer.as_mut();
                 let (ms, avg) = (a.integration_ms, a.averages);
                 Ok(acquire_retrying(spectrometer, AcquireKind::Sample, ms, avg, pixels).await)
@@ -453,7 +518,6 @@ impl Sequencer {
             .await?;
         // Timed when the light was collected (see the reference step).
         let time = now();
-        let attempt = next_attempt(n);
         let counts = match acquired {
             Ok(counts) => counts,
             Err(e) => return self.acquisition_failed(n, attempt, e, invalid),

@@ -344,6 +344,22 @@ pub struct SimControllerSpec {
     /// afterwards it answers every line as locked until reset, ms.
     #[serde(default = "d_post_alarm_delay")]
     pub post_alarm_delay_ms: f64,
+    /// 1σ per axis of where the carriage stops around the commanded point, mm.
+    #[serde(default = "d_repeatability")]
+    pub repeatability_mm: f64,
+    /// Lost motion of the mechanism on reversal, mm (the carriage lags the nut by half of it).
+    #[serde(default = "d_sim_backlash")]
+    pub backlash_mm: f64,
+}
+
+/// 3 µm: a lead-screw bench stage (from memory: catalogue repeatabilities of a few µm).
+fn d_repeatability() -> f64 {
+    0.003
+}
+
+/// 20 µm: lost motion of a lead screw without preloaded nut (from memory).
+fn d_sim_backlash() -> f64 {
+    0.02
 }
 
 /// Reply conventions of the virtual controller.
@@ -370,6 +386,8 @@ impl Default for SimControllerSpec {
             planner_moves: d_planner(),
             dialect: Dialect::Grbl,
             post_alarm_delay_ms: d_post_alarm_delay(),
+            repeatability_mm: d_repeatability(),
+            backlash_mm: d_sim_backlash(),
         }
     }
 }
@@ -446,6 +464,23 @@ pub struct SimWaferSpec {
     /// uniform in ±this).
     #[serde(default)]
     pub placement_rotation_deg: f64,
+    /// Largest distance the wafer lands from where it lay before when it is unloaded and
+    /// loaded again (a gauge study's reload), mm (uniform over the disc).
+    #[serde(default = "d_reload_offset")]
+    pub reload_offset_mm: f64,
+    /// Largest turn of the wafer on a reload, degrees (uniform in ±this).
+    #[serde(default = "d_reload_rotation")]
+    pub reload_rotation_deg: f64,
+}
+
+/// 0.2 mm: a wafer set back against the chuck's pins (from memory).
+fn d_reload_offset() -> f64 {
+    0.2
+}
+
+/// 0.1°: the flat or notch set back against its pin (from memory).
+fn d_reload_rotation() -> f64 {
+    0.1
 }
 
 impl Default for SimWaferSpec {
@@ -463,6 +498,8 @@ impl Default for SimWaferSpec {
             chuck_nk: d_chuck_nk(),
             placement_offset_mm: 0.0,
             placement_rotation_deg: 0.0,
+            reload_offset_mm: d_reload_offset(),
+            reload_rotation_deg: d_reload_rotation(),
         }
     }
 }

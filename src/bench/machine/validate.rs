@@ -353,6 +353,34 @@ fn check_simulation(s: &SimulationSpec, r: &mut Problems) {
         180.0,
         "°",
     );
+    r.range(
+        "simulation.wafer.reload_offset_mm",
+        w.reload_offset_mm,
+        0.0,
+        50.0,
+        "mm",
+    );
+    r.range(
+        "simulation.wafer.reload_rotation_deg",
+        w.reload_rotation_deg,
+        0.0,
+        180.0,
+        "°",
+    );
+    r.range(
+        "simulation.controller.repeatability_mm",
+        s.controller.repeatability_mm,
+        0.0,
+        1.0,
+        "mm",
+    );
+    r.range(
+        "simulation.controller.backlash_mm",
+        s.controller.backlash_mm,
+        0.0,
+        1.0,
+        "mm",
+    );
     if !w.tilt_nm_per_mm.iter().all(|v| v.is_finite()) {
         r.at("simulation.wafer.tilt_nm_per_mm", "tilt is not a number");
     }

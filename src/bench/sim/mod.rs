@@ -4,6 +4,7 @@
 
 pub mod clock;
 pub mod controller;
+pub mod mechanics;
 pub mod placement;
 pub mod pty;
 pub mod server;

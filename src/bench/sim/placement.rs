@@ -34,6 +34,34 @@ impl Placement {
         }
     }
 
+    /// Where the wafer of `seed` lies after its `reload`-th unload and reload (1, 2, …; 0 is
+    /// the first placement): the first placement error plus a fresh error of its own, offset
+    /// uniform over the disc of radius `reload_offset_mm`, turn uniform in
+    /// ±`reload_rotation_deg`.
+    pub fn reloaded(spec: &SimWaferSpec, seed: u64, reload: u64) -> Placement {
+        let first = Placement::draw(spec, seed);
+        if reload == 0 {
+            return first;
+        }
+        let bounds = SimWaferSpec {
+            placement_offset_mm: spec.reload_offset_mm,
+            placement_rotation_deg: spec.reload_rotation_deg,
+            ..spec.clone()
+        };
+        // An odd 64-bit constant (2⁶⁴/φ) steps the seed per reload.
+        let again = Placement::draw(
+            &bounds,
+            seed.wrapping_add(reload.wrapping_mul(0x9e37_79b9_7f4a_7c15)),
+        );
+        Placement {
+            offset_mm: [
+                first.offset_mm[0] + again.offset_mm[0],
+                first.offset_mm[1] + again.offset_mm[1],
+            ],
+            rotation_deg: first.rotation_deg + again.rotation_deg,
+        }
+    }
+
     /// The true transform of a wafer placed with this error where `nominal` says it is.
     pub fn apply(&self, nominal: &ChuckTransform) -> ChuckTransform {
         ChuckTransform {
@@ -72,5 +100,26 @@ mod tests {
             },
             "no error by default"
         );
+    }
+
+    #[test]
+    fn a_reload_moves_the_wafer_within_its_own_bounds() {
+        let spec = SimWaferSpec {
+            placement_offset_mm: 3.0,
+            reload_offset_mm: 0.2,
+            reload_rotation_deg: 0.1,
+            ..SimWaferSpec::default()
+        };
+        let first = Placement::reloaded(&spec, 9, 0);
+        assert_eq!(first, Placement::draw(&spec, 9));
+        let moves: Vec<f64> = (1..200)
+            .map(|k| {
+                let p = Placement::reloaded(&spec, 9, k);
+                assert!((p.rotation_deg - first.rotation_deg).abs() <= 0.1);
+                (p.offset_mm[0] - first.offset_mm[0]).hypot(p.offset_mm[1] - first.offset_mm[1])
+            })
+            .collect();
+        assert!(moves.iter().all(|d| *d <= 0.2 + 1e-12));
+        assert!(moves.iter().any(|d| *d > 0.15), "reloads fill their disc");
     }
 }

@@ -13,6 +13,7 @@
 //! other, so references taken at different times differ as on a real bench.
 
 use super::clock::SimClock;
+use super::mechanics::MechanicsHandle;
 use super::wafer::SampleModel;
 use crate::bench::chuck::ChuckTransform;
 use crate::bench::machine::SimSpectrometerSpec;
@@ -25,7 +26,7 @@ use futures::future::BoxFuture;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, Normal};
-use std::sync::Arc;
+use std::sync::{Arc, Mutex};
 
 /// Second radiation constant c₂ = hc/k, nm·K (CODATA 2018: 1.438777 × 10⁻² m·K).
 pub const C2_NM_K: f64 = 1.438_777e7;
@@ -61,7 +62,10 @@ pub struct VirtualSpectrometer {
     sample: Arc<dyn SampleModel>,
     reference: Vec<f64>,
     position: PositionHandle,
-    transform: ChuckTransform,
+    /// Where the wafer really lies (a reload moves it).
+    transform: Arc<Mutex<ChuckTransform>>,
+    /// Where the carriage really stops against the reported position (virtual stage only).
+    mechanics: Option<MechanicsHandle>,
     rng: ChaCha8Rng,
     clock: SimClock,
     /// The slit function, when the spec gives a resolution.
@@ -108,11 +112,23 @@ impl VirtualSpectrometer {
             sample,
             reference,
             position,
-            transform,
+            transform: Arc::new(Mutex::new(transform)),
+            mechanics: None,
             rng: ChaCha8Rng::seed_from_u64(seed),
             clock,
             slit,
         }
+    }
+
+    /// The same spectrometer looking where the virtual stage's carriage really stops.
+    pub fn with_mechanics(mut self, mechanics: MechanicsHandle) -> VirtualSpectrometer {
+        self.mechanics = Some(mechanics);
+        self
+    }
+
+    /// The handle on where the wafer really lies: a reload sets it.
+    pub fn placement_handle(&self) -> Arc<Mutex<ChuckTransform>> {
+        self.transform.clone()
     }
 
     /// The detector's wavelength axis, nm.
@@ -178,7 +194,9 @@ impl VirtualSpectrometer {
                 let p = self.position.get().ok_or_else(|| {
                     SpectrometerError::Settings("the stage position is unknown (moving or not yet homed): wait for motion to end before acquiring".into())
                 })?;
-                let w = self.transform.to_wafer(p[0], p[1]);
+                let e = self.mechanics.as_ref().map_or([0.0; 2], |m| m.offset());
+                let transform = *self.transform.lock().unwrap_or_else(|e| e.into_inner());
+                let w = transform.to_wafer(p[0] + e[0], p[1] + e[1]);
                 self.imperfect(|l| self.sample.reflectance(w[0], w[1], l))
             }
         };

@@ -2,7 +2,7 @@
 //! wafer and stage coordinates, and the duration bound. Derived files and later sessions read
 //! it, so a run keeps the sites it was planned with even if the pattern code changes.
 
-use super::Plan;
+use super::{GaugeSettings, Plan};
 use crate::bench::centring::CentringSettings;
 use crate::recipe::Site;
 use serde::{Deserialize, Serialize};
@@ -27,14 +27,20 @@ pub struct FrozenPlan {
     /// The wafer is centred before the sites (`run --centre`), with these settings.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub centring: Option<CentringSettings>,
+    /// The run is a gauge study repeating its sites so (`isopach gauge`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub gauge: Option<GaugeSettings>,
 }
 
 impl FrozenPlan {
     /// What a plan freezes.
     pub fn of(plan: &Plan) -> FrozenPlan {
+        let mut seen = std::collections::BTreeSet::new();
         FrozenPlan {
             sites: plan
                 .sites()
+                // A gauge study measures a site many times; it is planned once.
+                .filter(|s| seen.insert(s.site.number))
                 .map(|s| FrozenSite {
                     site: s.site.number,
                     x_mm: s.site.x_mm,
@@ -45,6 +51,7 @@ impl FrozenPlan {
                 .collect(),
             duration_s: plan.duration_s,
             centring: plan.centring,
+            gauge: plan.gauge,
         }
     }
 

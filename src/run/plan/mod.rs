@@ -11,10 +11,12 @@
 
 pub mod estimate;
 pub mod frozen;
+pub mod gauge;
 pub mod order;
 mod soft_limits;
 
 pub use estimate::duration_lower_bound_s;
+pub use gauge::{GaugeMode, GaugeMotion, GaugeSettings, GaugeStep};
 pub use order::{nearest_neighbour, order, path_length, two_opt};
 
 use crate::bench::centring::{Centring, CentringSettings};
@@ -72,6 +74,12 @@ pub enum Step {
     Reference(ReferencePlacement),
     /// Measure a site.
     Site(SiteStep),
+    /// One acquisition of a gauge study (see [`gauge`]).
+    Gauge(GaugeStep),
+    /// The wafer is unloaded and loaded again for the `reload`-th time (a gauge study's next
+    /// pass): the operator is asked when `ask` (a resumed pass already begun only places the
+    /// simulated wafer again); the simulated bench places its wafer with a fresh error.
+    Reload { reload: u64, ask: bool },
 }
 
 /// A session's plan; see the module doc.
@@ -89,6 +97,8 @@ pub struct Plan {
     pub duration_s: f64,
     /// Centre the wafer before the reference and the sites (`run --centre`).
     pub centring: Option<CentringSettings>,
+    /// A gauge study: what it repeats (`None`: a map).
+    pub gauge: Option<GaugeSettings>,
 }
 
 impl Plan {
@@ -131,6 +141,7 @@ impl Plan {
             reference_material,
             duration_s: 0.0,
             centring: None,
+            gauge: None,
         };
         plan.steps = plan.prelude();
         plan.steps.extend(plan.measuring_steps(sites));
@@ -140,6 +151,18 @@ impl Plan {
 
     /// The same plan, keeping only the sites `keep` accepts (legs recomputed).
     pub fn only(&self, keep: impl Fn(&Site) -> bool) -> Plan {
+        if self.gauge.is_some() {
+            let mut plan = self.clone();
+            let steps = self
+                .steps
+                .iter()
+                .filter(|s| !matches!(s, Step::Gauge(g) if !keep(&g.site.site)))
+                .cloned()
+                .collect();
+            plan.steps = plan.with_legs(steps);
+            plan.duration_s = plan.estimate_s();
+            return plan;
+        }
         let sites: Vec<Site> = self.sites().map(|s| s.site).filter(|s| keep(s)).collect();
         let mut plan = self.clone();
         plan.steps = self.prelude();
@@ -179,10 +202,11 @@ impl Plan {
         soft_limits::verdict(self)
     }
 
-    /// The site steps in measuring order.
+    /// The site steps in measuring order (a gauge study's acquisitions each count).
     pub fn sites(&self) -> impl Iterator<Item = &SiteStep> {
         self.steps.iter().filter_map(|s| match s {
             Step::Site(s) => Some(s),
+            Step::Gauge(g) => Some(&g.site),
             _ => None,
         })
     }
@@ -267,13 +291,21 @@ impl Plan {
         let a = self.acquire();
         let frames_s = a.integration_ms * a.averages as f64 / 1000.0;
         let (legs, per_step, end) = match step {
-            Step::Home => return (0.0, here),
+            Step::Home | Step::Reload { .. } => return (0.0, here),
             // Every ray takes at least one reading; how many more depends on what it finds.
             Step::Centre(c) => {
                 let per_reading = a.settle_ms / 1000.0 + frames_s;
                 return (c.rays as f64 * per_reading, here);
             }
             Step::Site(s) => (s.legs.clone(), a.settle_ms / 1000.0 + frames_s, s.stage_mm),
+            Step::Gauge(g) => {
+                let settle = if g.site.legs.is_empty() {
+                    0.0
+                } else {
+                    a.settle_ms / 1000.0
+                };
+                (g.site.legs.clone(), settle + frames_s, g.site.stage_mm)
+            }
             // Dark and reference: two acquisitions.
             Step::Reference(ReferencePlacement::Position(p)) => (vec![*p], 2.0 * frames_s, *p),
             Step::Reference(_) => (Vec::new(), 2.0 * frames_s, here),

@@ -1,6 +1,7 @@
 //! How the virtual controller is built, from a machine file's `[stage]` and `[simulation]`.
 
 use crate::bench::machine::{Dialect, FaultSpec, MachineFile};
+use crate::bench::sim::mechanics::{MechanicsHandle, MechanicsSpec};
 
 /// How the virtual controller is built.
 #[derive(Debug, Clone, PartialEq)]
@@ -21,6 +22,8 @@ pub struct VirtualConfig {
     pub dialect: Dialect,
     /// After an alarm the board takes nothing, not even a reset, for this long, s.
     pub post_alarm_delay_s: f64,
+    /// Where the carriage really stops (repeatability, backlash); `None`: where commanded.
+    pub mechanics: Option<MechanicsHandle>,
 }
 
 impl VirtualConfig {
@@ -41,6 +44,23 @@ impl VirtualConfig {
             faults: m.simulation.faults.clone(),
             dialect: c.dialect,
             post_alarm_delay_s: c.post_alarm_delay_ms / 1000.0,
+            mechanics: None,
         }
+    }
+
+    /// [`VirtualConfig::from_machine`] with the machine file's stage mechanics, their draws
+    /// from `seed`; the handle lets the virtual spectrometer see where the carriage stops.
+    pub fn with_mechanics(m: &MachineFile, seed: u64) -> (VirtualConfig, MechanicsHandle) {
+        let c = &m.simulation.controller;
+        let spec = MechanicsSpec {
+            repeatability_mm: c.repeatability_mm,
+            backlash_mm: c.backlash_mm,
+        };
+        let handle = MechanicsHandle::new(spec, seed);
+        let cfg = VirtualConfig {
+            mechanics: Some(handle.clone()),
+            ..VirtualConfig::from_machine(m)
+        };
+        (cfg, handle)
     }
 }

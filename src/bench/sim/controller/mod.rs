@@ -304,6 +304,9 @@ impl VirtualController {
                 break;
             }
             self.pos = s.to;
+            if let Some(m) = &self.cfg.mechanics {
+                m.arrive(s.from, s.to);
+            }
             self.planner.pop_front();
             self.active_start = end;
             self.start_segment();
@@ -777,6 +780,7 @@ pub(super) mod test_support {
             faults: vec![],
             dialect: Dialect::Grbl,
             post_alarm_delay_s: 0.15,
+            mechanics: None,
         }
     }
 
