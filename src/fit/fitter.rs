@@ -283,6 +283,11 @@ impl Fitter {
         d
     }
 
+    /// FWHM of the slit function modelled, nm (0: ideal).
+    pub fn resolution_nm(&self) -> f64 {
+        self.resolution_nm
+    }
+
     /// Warnings found while resolving the recipe (a window outside a material's range).
     pub fn warnings(&self) -> &[String] {
         &self.warnings
@@ -320,6 +325,7 @@ impl Fitter {
                 layers: self.failed_layers(),
                 gof: 0.0,
                 flags: vec![quality::NO_FIT.to_string()],
+                terms: Vec::new(),
             };
             r.flags.extend(quality_flags(quality));
             r
@@ -413,6 +419,7 @@ impl Fitter {
                 .collect(),
             gof: g,
             flags,
+            terms: terms.clone(),
         };
         Ok((result, terms))
     }
