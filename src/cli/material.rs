@@ -15,7 +15,7 @@ use std::path::PathBuf;
 
 /// |correlation| of a coefficient with the thickness above which the two cannot be told
 /// apart: the fit is refused.
-const MAX_CORRELATION: f64 = 0.98;
+const MAX_CORRELATION: f64 = 0.999;
 
 /// Arguments of `isopach material`.
 #[derive(clap::Args, Debug)]
