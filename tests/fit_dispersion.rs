@@ -21,7 +21,10 @@ fn fixture(name: &str) -> (Spectrum, BTreeMap<String, f64>) {
         .join("fixtures/spectra/dispersion")
         .join(name);
     let text = std::fs::read_to_string(&path).unwrap_or_else(|e| panic!("{}: {e}", path.display()));
-    assert!(text.contains("with tmm "), "fixture header names the reference package");
+    assert!(
+        text.contains("with tmm "),
+        "fixture header names the reference package"
+    );
     let truth = text
         .lines()
         .filter_map(|l| l.strip_prefix("# truth: "))
@@ -82,7 +85,10 @@ fn check_site(name: &str, start: &str, nominal: f64, window: [u32; 2]) {
         assert!(t.sigma.is_finite() && t.correlation_with_thickness.abs() <= 1.0 + 1e-9);
     }
     // Issue 12: thickness within 0.2 %, n(633 nm) within 0.002 (tmm reference fixtures).
-    assert!((d - want_d).abs() <= 0.002 * want_d, "{name}: d {d} vs {want_d}");
+    assert!(
+        (d - want_d).abs() <= 0.002 * want_d,
+        "{name}: d {d} vs {want_d}"
+    );
     assert!((n - want_n).abs() <= 0.002, "{name}: n {n} vs {want_n}");
     assert!(r.is_valid(0.95), "{name}: {r:?}");
 }
@@ -90,14 +96,24 @@ fn check_site(name: &str, start: &str, nominal: f64, window: [u32; 2]) {
 #[test]
 fn resist_like_films_per_site() {
     for d in ["000800", "001500", "003000"] {
-        check_site(&format!("resist_{d}nm.csv"), RESIST_START, d.parse().unwrap(), [420, 980]);
+        check_site(
+            &format!("resist_{d}nm.csv"),
+            RESIST_START,
+            d.parse().unwrap(),
+            [420, 980],
+        );
     }
 }
 
 #[test]
 fn resist_like_films_per_site_with_noise() {
     for d in ["001500", "003000"] {
-        check_site(&format!("resist_{d}nm_noisy.csv"), RESIST_START, d.parse().unwrap(), [420, 980]);
+        check_site(
+            &format!("resist_{d}nm_noisy.csv"),
+            RESIST_START,
+            d.parse().unwrap(),
+            [420, 980],
+        );
     }
 }
 
@@ -105,7 +121,12 @@ fn resist_like_films_per_site_with_noise() {
 fn pecvd_like_oxide_per_site() {
     let start = "model = \"cauchy\"\na = 1.46\nb = 0.003\nfit = [\"a\", \"b\"]\nbounds.a = [1.40, 1.55]\nbounds.b = [0.0, 0.02]";
     for d in ["000700", "001400"] {
-        check_site(&format!("pecvd_{d}nm.csv"), start, d.parse().unwrap(), [420, 980]);
+        check_site(
+            &format!("pecvd_{d}nm.csv"),
+            start,
+            d.parse().unwrap(),
+            [420, 980],
+        );
     }
 }
 
@@ -120,8 +141,7 @@ fn weakly_absorbing_resist_with_an_urbach_tail() {
 fn thermal_oxide_cauchy_matches_malitson_at_632_8_nm() {
     let (s, truth) = fixture("thermal_oxide_001000nm.csv");
     let start = "model = \"cauchy\"\na = 1.45\nb = 0.004\nc = 0.0\nfit = [\"a\", \"b\", \"c\"]";
-    let fitter =
-        Fitter::from_recipe(&recipe(&film_recipe(1000.0, [450, 950], start, ""))).unwrap();
+    let fitter = Fitter::from_recipe(&recipe(&film_recipe(1000.0, [450, 950], start, ""))).unwrap();
     let (r, terms) = fitter.try_fit_with_terms(&s, &Default::default()).unwrap();
     let n = cauchy_n(&terms, 632.8);
     eprintln!(
@@ -152,7 +172,8 @@ fn std_dev(v: &[f64]) -> f64 {
 fn shared_dispersion_over_a_49_site_wafer_beats_per_site_index_fitting() {
     let wafer = wafer();
     let truth_n = fixture("wafer49_site01.csv").1["n633"];
-    let per_site = Fitter::from_recipe(&recipe(&film_recipe(1500.0, [420, 980], RESIST_START, ""))).unwrap();
+    let per_site =
+        Fitter::from_recipe(&recipe(&film_recipe(1500.0, [420, 980], RESIST_START, ""))).unwrap();
     let shared_fitter = Fitter::from_recipe(&recipe(&film_recipe(
         1500.0,
         [420, 980],
@@ -188,7 +209,12 @@ fn shared_dispersion_over_a_49_site_wafer_beats_per_site_index_fitting() {
     let m = from_spec("film", &joint.spec, Path::new(".")).unwrap();
     let n = m.index(633.0).re;
     let (s_site, s_shared) = (std_dev(&site_err), std_dev(&shared_err));
-    let worst = |e: &[f64]| e.iter().zip(&wafer).map(|(e, w)| (e / w.1).abs()).fold(0.0, f64::max);
+    let worst = |e: &[f64]| {
+        e.iter()
+            .zip(&wafer)
+            .map(|(e, w)| (e / w.1).abs())
+            .fold(0.0, f64::max)
+    };
     eprintln!(
         "49-site wafer: per-site index fitting: error σ {s_site:.3} nm, worst {:.3} %; shared dispersion: error σ {s_shared:.3} nm, worst {:.3} %, n(633) {n:.5} (true {truth_n}), {:?}",
         100.0 * worst(&site_err),
@@ -213,9 +239,13 @@ fn shared_dispersion_over_a_49_site_wafer_beats_per_site_index_fitting() {
 fn a_known_thickness_fixes_the_index_from_one_spectrum() {
     // Thickness from another instrument: only the coefficients are fitted.
     let (s, truth) = fixture("resist_001500nm_noisy.csv");
-    let fitter = Fitter::from_recipe(&recipe(&film_recipe(1500.0, [420, 980], RESIST_START, ""))).unwrap();
+    let fitter =
+        Fitter::from_recipe(&recipe(&film_recipe(1500.0, [420, 980], RESIST_START, ""))).unwrap();
     let joint = shared::fit_spectra(&fitter, &[s], &[vec![1500.0]], Some(truth["film"])).unwrap();
-    let n = from_spec("film", &joint.spec, Path::new(".")).unwrap().index(633.0).re;
+    let n = from_spec("film", &joint.spec, Path::new("."))
+        .unwrap()
+        .index(633.0)
+        .re;
     eprintln!("known thickness: n(633) {n:.5} (true {})", truth["n633"]);
     assert!((n - truth["n633"]).abs() <= 0.002);
     assert_eq!(joint.thickness_nm, vec![truth["film"]]);

@@ -62,28 +62,6 @@ pub fn no_valid_site(f: &LayerSummary, run: &Path) -> Option<String> {
     })
 }
 
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn no_valid_site_prints_no_nan_and_fails() {
-        let none = LayerSummary::from_values(&[f64::NAN, f64::NAN]);
-        let line = figures_line(&none);
-        assert_eq!(line, "0 of 2 sites valid: no valid site, no figures");
-        let why = no_valid_site(&none, Path::new("runs/R")).unwrap();
-        assert!(why.contains("isopach remeasure runs/R --failed"), "{why}");
-        assert!(!why.to_lowercase().contains("nan"));
-    }
-
-    #[test]
-    fn one_valid_site_has_a_mean_but_no_spread() {
-        let one = LayerSummary::from_values(&[1000.0, f64::NAN]);
-        assert_eq!(figures_line(&one), "1 of 2 sites valid; mean 1000.00 nm");
-        assert!(no_valid_site(&one, Path::new("R")).is_none());
-    }
-}
-
 /// The shared dispersion among journal events, as one line: each fitted coefficient with σ
 /// and its correlation with the mean thickness.
 pub fn dispersion_line(events: &[isopach::run::events::Event]) -> Option<String> {
@@ -107,4 +85,26 @@ pub fn dispersion_line(events: &[isopach::run::events::Event]) -> Option<String>
         )),
         _ => None,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn no_valid_site_prints_no_nan_and_fails() {
+        let none = LayerSummary::from_values(&[f64::NAN, f64::NAN]);
+        let line = figures_line(&none);
+        assert_eq!(line, "0 of 2 sites valid: no valid site, no figures");
+        let why = no_valid_site(&none, Path::new("runs/R")).unwrap();
+        assert!(why.contains("isopach remeasure runs/R --failed"), "{why}");
+        assert!(!why.to_lowercase().contains("nan"));
+    }
+
+    #[test]
+    fn one_valid_site_has_a_mean_but_no_spread() {
+        let one = LayerSummary::from_values(&[1000.0, f64::NAN]);
+        assert_eq!(figures_line(&one), "1 of 2 sites valid; mean 1000.00 nm");
+        assert!(no_valid_site(&one, Path::new("R")).is_none());
+    }
 }

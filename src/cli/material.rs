@@ -93,8 +93,10 @@ fn fit(args: FitArgs) -> anyhow::Result<u8> {
         let s = match spectrum::read_csv(path)? {
             SpectrumFile::Reflectance(s) => s,
             SpectrumFile::Counts(raw) => {
-                let r_ref = fitter
-                    .reference_reflectance(&args.reference_material, &raw.reference.wavelength_nm)?;
+                let r_ref = fitter.reference_reflectance(
+                    &args.reference_material,
+                    &raw.reference.wavelength_nm,
+                )?;
                 spectrum::normalise_raw(&raw, &r_ref)
                     .with_context(|| path.display().to_string())?
                     .0
@@ -111,16 +113,20 @@ fn fit(args: FitArgs) -> anyhow::Result<u8> {
         let r = fitter
             .try_fit(s, &Default::default())
             .with_context(|| path.display().to_string())?;
-        seeds.push(r.layers.iter().map(|l| l.thickness_nm).collect::<Vec<f64>>());
+        seeds.push(
+            r.layers
+                .iter()
+                .map(|l| l.thickness_nm)
+                .collect::<Vec<f64>>(),
+        );
     }
     let joint = shared::fit_spectra(&fitter, &spectra, &seeds, args.thickness_nm)?;
     let name = args.name.clone().unwrap_or_else(|| c.material.clone());
     if args.thickness_nm.is_none() {
-        if let Some(t) = joint
-            .coefficients
-            .iter()
-            .find(|t| !(t.correlation_with_thickness.abs() < MAX_CORRELATION))
-        {
+        if let Some(t) = joint.coefficients.iter().find(|t| {
+            let r = t.correlation_with_thickness;
+            r.is_nan() || r.abs() >= MAX_CORRELATION
+        }) {
             eprintln!(
                 "refused: {} is {} correlated with the thickness ({:+.3}); thickness and index cannot be told apart from {}.\n\
                  Give more fringes (a thicker film or a wider window), spectra of several thicknesses of the film, \
@@ -137,7 +143,10 @@ fn fit(args: FitArgs) -> anyhow::Result<u8> {
         "materials",
         BTreeMap::from([(name.as_str(), &joint.spec)]),
     )]))?;
-    outln!("# fitted by isopach material fit from {} spectra", joint.spectra);
+    outln!(
+        "# fitted by isopach material fit from {} spectra",
+        joint.spectra
+    );
     for t in &joint.coefficients {
         outln!(
             "# {} = {:.6} ± {:.2e} (correlation with thickness {})",
@@ -161,7 +170,12 @@ fn fit(args: FitArgs) -> anyhow::Result<u8> {
         let n = material.index(l);
         outln!("  {l:>7.1}   {:.5}   {:.2e}", n.re, n.im);
     }
-    for ((path, d), s) in args.spectra.iter().zip(&joint.thickness_nm).zip(&joint.thickness_sigma_nm) {
+    for ((path, d), s) in args
+        .spectra
+        .iter()
+        .zip(&joint.thickness_nm)
+        .zip(&joint.thickness_sigma_nm)
+    {
         outln!("  {}: thickness {d:.2} ± {s:.2} nm", path.display());
     }
     Ok(super::exit::OK)

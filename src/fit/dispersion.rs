@@ -241,8 +241,8 @@ impl SiteModel<'_> {
             res[j] = f * c.r[j] - measured[j];
             chi2 += res[j] * res[j];
             let row = &mut jl[j * nl..(j + 1) * nl];
-            for a in 0..nf {
-                row[a] = f * c.by_thickness[a][j];
+            for (cell, by) in row.iter_mut().zip(&c.by_thickness) {
+                *cell = f * by[j];
             }
             let mut a = nf;
             if self.scale {

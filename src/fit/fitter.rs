@@ -646,7 +646,12 @@ impl Fitter {
     /// may fit as well), by Levenberg–Marquardt; the best becomes the fit, the others that
     /// come within noise of it its rivals. The covariance covers thicknesses, systematic
     /// terms and coefficients, in that order.
-    fn with_dispersion(&self, w: &Spectrum, seed: &model::ModelFit, c: &Coefficients) -> model::ModelFit {
+    fn with_dispersion(
+        &self,
+        w: &Spectrum,
+        seed: &model::ModelFit,
+        c: &Coefficients,
+    ) -> model::ModelFit {
         let site = self.site_model(c, &w.wavelength_nm, seed.thickness.clone());
         let (lo, hi) = dispersion::local_limits(&site, &self.search_limits(w));
         let p0 = c.start();
@@ -656,7 +661,15 @@ impl Fitter {
                 .map(|r| self.stack_thickness(&r.thickness)),
         );
         let mut fits: Vec<dispersion::SiteFit> = starts
-            .map(|d| dispersion::fit_site(&site, &w.reflectance, &site.local_start(&d), &p0, (&lo, &hi)))
+            .map(|d| {
+                dispersion::fit_site(
+                    &site,
+                    &w.reflectance,
+                    &site.local_start(&d),
+                    &p0,
+                    (&lo, &hi),
+                )
+            })
             .collect();
         fits.sort_by(|a, b| a.chi2.total_cmp(&b.chi2));
         let best = fits.remove(0);
@@ -667,7 +680,9 @@ impl Fitter {
         let mut rivals: Vec<model::Minimum> = Vec::new();
         for f in &fits {
             let distinct = (0..nf).any(|a| (f.local[a] - best.local[a]).abs() >= 0.5)
-                && rivals.iter().all(|r| (0..nf).any(|a| (f.local[a] - r.thickness[a]).abs() >= 0.5));
+                && rivals
+                    .iter()
+                    .all(|r| (0..nf).any(|a| (f.local[a] - r.thickness[a]).abs() >= 0.5));
             if distinct && f.chi2 - best.chi2 < model::AMBIGUITY_DCHI2 * var {
                 rivals.push(model::Minimum {
                     thickness: f.local[..nf].to_vec(),
@@ -677,7 +692,12 @@ impl Fitter {
         }
         let (scale, tilt) = {
             let mut a = nf;
-            let s = if self.fit_scale { a += 1; best.local[a - 1] } else { 1.0 };
+            let s = if self.fit_scale {
+                a += 1;
+                best.local[a - 1]
+            } else {
+                1.0
+            };
             let t = if self.fit_tilt { best.local[a] } else { 0.0 };
             (s, t)
         };
@@ -719,7 +739,11 @@ impl Fitter {
                 a += 1;
             }
         }
-        if let Some(c) = self.coefficients.as_ref().filter(|_| !fit.dispersion.is_empty()) {
+        if let Some(c) = self
+            .coefficients
+            .as_ref()
+            .filter(|_| !fit.dispersion.is_empty())
+        {
             for (name, value) in c.names.iter().zip(&fit.dispersion) {
                 out.push(Term {
                     name: format!("{}.{name}", c.material),

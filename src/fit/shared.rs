@@ -147,8 +147,13 @@ pub fn fit(
     }
     let mut p = p0.to_vec();
     clamp(&mut p, p_lower, p_upper);
-    let eval_all =
-        |x: &[Vec<f64>], p: &[f64]| -> Vec<Blocks> { sites.iter().zip(x).map(|(s, xs)| blocks(s, xs, p)).collect() };
+    let eval_all = |x: &[Vec<f64>], p: &[f64]| -> Vec<Blocks> {
+        sites
+            .iter()
+            .zip(x)
+            .map(|(s, xs)| blocks(s, xs, p))
+            .collect()
+    };
     let total = |bl: &[Blocks]| bl.iter().map(|b| b.chi2).sum::<f64>();
     let mut bl = eval_all(&x, &p);
     let mut chi2 = total(&bl);
@@ -171,8 +176,15 @@ pub fn fit(
             }
             let mut pt: Vec<f64> = p.iter().zip(dp.iter()).map(|(a, b)| a + b).collect();
             clamp(&mut pt, p_lower, p_upper);
-            let moved = xt.iter().flatten().zip(x.iter().flatten()).any(|(a, b)| (a - b).abs() > 1e-9)
-                || pt.iter().zip(&p).any(|(a, b)| (a - b).abs() > 1e-12 * a.abs().max(1e-3));
+            let moved = xt
+                .iter()
+                .flatten()
+                .zip(x.iter().flatten())
+                .any(|(a, b)| (a - b).abs() > 1e-9)
+                || pt
+                    .iter()
+                    .zip(&p)
+                    .any(|(a, b)| (a - b).abs() > 1e-12 * a.abs().max(1e-3));
             if !moved {
                 break;
             }
@@ -301,11 +313,13 @@ pub fn fit_spectra(
     seeds: &[Vec<f64>],
     known_nm: Option<f64>,
 ) -> Result<SharedDispersion, FitError> {
-    let c = fitter.fitted_coefficients().ok_or_else(|| FitError::Method {
-        method: "dispersion",
-        message: "no material has fitted coefficients (mark some with fit = [\"a\", \"b\"])"
-            .into(),
-    })?;
+    let c = fitter
+        .fitted_coefficients()
+        .ok_or_else(|| FitError::Method {
+            method: "dispersion",
+            message: "no material has fitted coefficients (mark some with fit = [\"a\", \"b\"])"
+                .into(),
+        })?;
     if spectra.is_empty() {
         return Err(FitError::Method {
             method: "dispersion",
@@ -341,7 +355,13 @@ pub fn fit_spectra(
     let thickness_sigma_nm = f
         .local_sigma
         .iter()
-        .map(|v| if known_nm.is_some() { 0.0 } else { v.first().copied().unwrap_or(f64::NAN) })
+        .map(|v| {
+            if known_nm.is_some() {
+                0.0
+            } else {
+                v.first().copied().unwrap_or(f64::NAN)
+            }
+        })
         .collect();
     Ok(SharedDispersion {
         material: c.material.clone(),

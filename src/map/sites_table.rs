@@ -126,7 +126,15 @@ pub fn write_with_columns(rows: &[SiteRow], columns: &[(String, Vec<f64>)]) -> S
         }
         for (_, values) in columns {
             let v = values.get(i).copied().unwrap_or(f64::NAN);
-            let _ = write!(s, ",{}", if v.is_finite() { format!("{v:.7e}") } else { String::new() });
+            let _ = write!(
+                s,
+                ",{}",
+                if v.is_finite() {
+                    format!("{v:.7e}")
+                } else {
+                    String::new()
+                }
+            );
         }
         s.push('\n');
     }

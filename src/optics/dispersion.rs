@@ -6,7 +6,7 @@
 use serde::{Deserialize, Serialize};
 
 /// hc in eV·nm (CODATA 2018: h = 4.135667696e−15 eV·s, c = 299 792 458 m/s).
-pub const HC_EV_NM: f64 = 1239.841_984;
+pub const HC_EV_NM: f64 = 1_239.841_984;
 
 /// A weak-absorption tail of Urbach's exponential form (F. Urbach, Phys. Rev. 92, 1324
 /// (1953), there for the absorption coefficient below the band edge), written for the

@@ -171,13 +171,19 @@ fn check_urbach(name: &str, u: &Urbach, window: Option<[f64; 2]>, r: &mut Proble
     if !(u.k0 >= 0.0 && u.k0 <= MAX_K) {
         r.at(
             "urbach.k0",
-            format!("material {name}: urbach.k0 = {} must be in [0, {MAX_K}]", u.k0),
+            format!(
+                "material {name}: urbach.k0 = {} must be in [0, {MAX_K}]",
+                u.k0
+            ),
         );
     }
     if !(u.e0_ev > 0.0 && u.e0_ev.is_finite()) {
         r.at(
             "urbach.e0_ev",
-            format!("material {name}: urbach.e0_ev = {} must be a positive photon energy in eV", u.e0_ev),
+            format!(
+                "material {name}: urbach.e0_ev = {} must be a positive photon energy in eV",
+                u.e0_ev
+            ),
         );
     }
     if !u.beta_per_ev.is_finite() {

@@ -118,7 +118,10 @@ fn coefficient_columns(
     if let Some(d) = shared {
         let measured: Vec<bool> = states.iter().map(|s| s.best().is_some()).collect();
         let each = |v: f64| -> Vec<f64> {
-            measured.iter().map(|m| if *m { v } else { f64::NAN }).collect()
+            measured
+                .iter()
+                .map(|m| if *m { v } else { f64::NAN })
+                .collect()
         };
         return d
             .coefficients
@@ -148,11 +151,15 @@ fn coefficient_columns(
         };
         out.push((
             name.to_string(),
-            fits.iter().map(|f| term(f).map_or(f64::NAN, |t| t.value)).collect(),
+            fits.iter()
+                .map(|f| term(f).map_or(f64::NAN, |t| t.value))
+                .collect(),
         ));
         out.push((
             format!("{name}_sigma"),
-            fits.iter().map(|f| term(f).map_or(f64::NAN, |t| t.sigma)).collect(),
+            fits.iter()
+                .map(|f| term(f).map_or(f64::NAN, |t| t.sigma))
+                .collect(),
         ));
     }
     out

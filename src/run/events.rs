@@ -79,7 +79,7 @@ pub enum Event {
     /// spectra (`film.dispersion = "shared"`); the fits after it in the same refit use it.
     DispersionFitted {
         time: String,
-        dispersion: SharedDispersion,
+        dispersion: Box<SharedDispersion>,
     },
     /// `resume --machine` replaced the run's machine file (names of the old and new file, the
     /// dotted keys that changed); later sessions use the new one, frozen in `run.toml`.
@@ -258,8 +258,8 @@ pub fn current_dispersion(events: &[Event]) -> Option<&SharedDispersion> {
         match e {
             Event::RefitStarted { .. } => pending = Some(None),
             Event::DispersionFitted { dispersion, .. } => match &mut pending {
-                Some(p) => *p = Some(dispersion),
-                None => current = Some(dispersion),
+                Some(p) => *p = Some(dispersion.as_ref()),
+                None => current = Some(dispersion.as_ref()),
             },
             Event::RefitFinished { .. } => {
                 if let Some(p) = pending.take() {

@@ -94,8 +94,10 @@ pub fn write_run_outputs_with(
     let json = match &fitted.dispersion {
         None => summary.to_json(),
         Some(d) => {
-            let mut v: serde_json::Value = serde_json::from_str(&summary.to_json())
-                .map_err(|e| MapError::io("write", &folder.summary_json(), std::io::Error::other(e)))?;
+            let mut v: serde_json::Value =
+                serde_json::from_str(&summary.to_json()).map_err(|e| {
+                    MapError::io("write", folder.summary_json(), std::io::Error::other(e))
+                })?;
             if let Some(o) = v.as_object_mut() {
                 o.insert("dispersion".into(), d.clone());
             }

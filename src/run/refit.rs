@@ -71,7 +71,10 @@ fn stored_reflectance(
 
 /// The recipe with the fitted material replaced by `dispersion`'s formula (nothing left
 /// to fit), for fitting every site's thickness with the shared dispersion.
-pub fn recipe_with_dispersion(loaded: &LoadedRecipe, dispersion: &SharedDispersion) -> LoadedRecipe {
+pub fn recipe_with_dispersion(
+    loaded: &LoadedRecipe,
+    dispersion: &SharedDispersion,
+) -> LoadedRecipe {
     let mut r = loaded.clone();
     r.recipe
         .materials
@@ -94,11 +97,22 @@ pub fn shared_dispersion_fits(
     accept: &AcceptSpec,
     on_done: &(dyn Fn() + Sync),
 ) -> anyhow::Result<Vec<Event>> {
-    let nominal = fit_all(folder, attempts, timeline, fitter, reference_material, accept, &|| {});
+    let nominal = fit_all(
+        folder,
+        attempts,
+        timeline,
+        fitter,
+        reference_material,
+        accept,
+        &|| {},
+    );
     // The newest valid attempt of each site seeds the joint fit.
     let mut chosen: std::collections::BTreeMap<usize, (u32, &str, Vec<f64>)> = Default::default();
     for ((site, attempt, rel), e) in attempts.iter().zip(&nominal) {
-        if let Event::SiteFitted { fit, valid: true, .. } = e {
+        if let Event::SiteFitted {
+            fit, valid: true, ..
+        } = e
+        {
             let seed = fit.layers.iter().map(|l| l.thickness_nm).collect();
             if chosen.get(site).is_none_or(|c| c.0 < *attempt) {
                 chosen.insert(*site, (*attempt, rel.as_str(), seed));
@@ -108,9 +122,15 @@ pub fn shared_dispersion_fits(
     let mut spectra = Vec::new();
     let mut seeds = Vec::new();
     for (site, (attempt, rel, seed)) in chosen {
-        if let Ok(s) =
-            stored_reflectance(folder, site, attempt, rel, timeline, fitter, reference_material)
-        {
+        if let Ok(s) = stored_reflectance(
+            folder,
+            site,
+            attempt,
+            rel,
+            timeline,
+            fitter,
+            reference_material,
+        ) {
             spectra.push(s);
             seeds.push(seed);
         }
@@ -123,9 +143,17 @@ pub fn shared_dispersion_fits(
         .with_resolution_nm(fitter.resolution_nm());
     let mut events = vec![Event::DispersionFitted {
         time: super::events::now(),
-        dispersion,
+        dispersion: Box::new(dispersion),
     }];
-    events.extend(fit_all(folder, attempts, timeline, &with, reference_material, accept, on_done));
+    events.extend(fit_all(
+        folder,
+        attempts,
+        timeline,
+        &with,
+        reference_material,
+        accept,
+        on_done,
+    ));
     Ok(events)
 }
 
