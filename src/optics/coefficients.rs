@@ -27,7 +27,7 @@ fn sellmeier_term(name: &str) -> Option<(char, usize)> {
     let mut chars = name.chars();
     let which = chars.next().filter(|c| *c == 'b' || *c == 'c')?;
     let i: usize = chars.as_str().parse().ok()?;
-    (i >= 1).then_some((which, i - 1))
+    (i >= 1).then(|| (which, i - 1))
 }
 
 /// The value of a coefficient, if the formula has it.
