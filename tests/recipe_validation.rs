@@ -508,3 +508,80 @@ fn unknown_reference_material_is_a_pair_problem_in_the_machine_file() {
     assert!(check_pair(&recipe, None).is_ok());
     assert!(messages(BASE).is_empty());
 }
+
+/// A recipe fitting the coefficients of its film material (`materials` is the table body).
+fn fitted_material(film_extra: &str, materials: &str) -> String {
+    BASE.replace("material = \"sio2\"", "material = \"film\"")
+        .replace(
+            "wavelength_nm = [420, 980]",
+            &format!("wavelength_nm = [420, 980]\n{film_extra}"),
+        )
+        + "[materials.film]\nmodel = \"cauchy\"\na = 1.6\nb = 0.01\n"
+        + materials
+}
+
+#[test]
+fn fitted_coefficients_are_checked_with_their_key_paths() {
+    let ok = fitted_material("dispersion = \"shared\"", "fit = [\"a\", \"b\"]\nbounds.a = [1.5, 1.7]\nurbach = { k0 = 0.001, beta_per_ev = 3, e0_ev = 3 }\n");
+    assert!(problems(&ok).is_empty(), "{:?}", problems(&ok));
+    let text = fitted_material(
+        "",
+        "fit = [\"a\", \"q\", \"a\"]\nbounds.b = [0, 1]\nbounds.a = [1.7, 1.8]\n",
+    );
+    let p = problems(&text);
+    let msgs: Vec<&str> = p.iter().map(|p| p.message.as_str()).collect();
+    assert_eq!(p.len(), 4, "{msgs:#?}");
+    assert!(msgs.iter().any(|m| m
+        .contains("\"q\" is not a coefficient of this formula (fitted ones can be: a, b, c, k)")));
+    assert!(msgs.iter().any(|m| m.contains("\"a\" is listed twice")));
+    assert!(msgs
+        .iter()
+        .any(|m| m.contains("bounds for \"b\", which is not in fit")));
+    assert!(msgs
+        .iter()
+        .any(|m| m.contains("starting value a = 1.6 lies outside its bounds [1.7, 1.8]")));
+    // Reported on the lines of the keys.
+    let line = |k: &str| text.lines().position(|l| l.starts_with(k)).unwrap() + 1;
+    assert!(p
+        .iter()
+        .filter(|p| p.message.contains("listed twice"))
+        .all(|p| p.line == line("fit =")));
+    assert!(p
+        .iter()
+        .filter(|p| p.message.contains("[1.7, 1.8]"))
+        .all(|p| p.line == line("bounds.a")));
+}
+
+#[test]
+fn shared_dispersion_needs_a_fitted_material_of_a_fitted_layer() {
+    let p = one(
+        "wavelength_nm",
+        "wavelength_nm = [420, 980]\ndispersion = \"shared\"",
+    );
+    assert!(
+        p.message.contains("no material has fitted coefficients"),
+        "{}",
+        p.message
+    );
+    let text = fitted_material("", "fit = [\"a\"]\n").replace(
+        "nominal_nm = 1000, min_nm = 100, max_nm = 3000",
+        "nominal_nm = 1000, fit = false",
+    );
+    let p = problems(&text);
+    assert!(
+        p.iter()
+            .any(|p| p.message.contains("no fitted layer is made of it")),
+        "{p:?}"
+    );
+    let text = fitted_material("method = \"fourier\"", "fit = [\"a\"]\n");
+    assert!(problems(&text).iter().any(|p| p
+        .message
+        .contains("cannot fit the coefficients of material film")));
+    let text = fitted_material("", "fit = [\"k0\"]\n");
+    assert!(
+        problems(&text)
+            .iter()
+            .any(|p| p.message.contains("\"k0\" is not a coefficient")),
+        "k0 needs an Urbach tail"
+    );
+}

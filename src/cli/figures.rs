@@ -62,6 +62,31 @@ pub fn no_valid_site(f: &LayerSummary, run: &Path) -> Option<String> {
     })
 }
 
+/// The shared dispersion among journal events, as one line: each fitted coefficient with σ
+/// and its correlation with the mean thickness.
+pub fn dispersion_line(events: &[isopach::run::events::Event]) -> Option<String> {
+    events.iter().find_map(|e| match e {
+        isopach::run::events::Event::DispersionFitted { dispersion, .. } => Some(format!(
+            "shared dispersion of {} over {} sites: {}",
+            dispersion.material,
+            dispersion.spectra,
+            dispersion
+                .coefficients
+                .iter()
+                .map(|t| format!(
+                    "{} = {:.6} ± {:.1e} (correlation with thickness {})",
+                    t.name,
+                    t.value,
+                    t.sigma,
+                    num(t.correlation_with_thickness)
+                ))
+                .collect::<Vec<_>>()
+                .join(", ")
+        )),
+        _ => None,
+    })
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

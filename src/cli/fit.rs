@@ -83,14 +83,8 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     let [lo, hi] = fitter.window_nm();
     let w = measured.window(lo, hi);
     if args.json {
-        let json = serde_json::to_string(&result)?;
-        if terms.is_empty() {
-            outln!("{json}");
-        } else {
-            // The contract object, extended with the systematic terms that were fitted.
-            let terms = serde_json::to_string(&terms)?;
-            outln!("{},\"terms\":{terms}}}", json.trim_end_matches('}'));
-        }
+        // The contract object, with the fitted terms (scale, tilt, coefficients) when any.
+        outln!("{}", serde_json::to_string(&result)?);
     } else {
         for l in &result.layers {
             outln!(

@@ -14,6 +14,7 @@ mod gauge;
 mod history_arg;
 mod live_server;
 mod machine_arg;
+mod material;
 mod measure;
 mod output;
 mod refit;
@@ -82,6 +83,8 @@ enum Command {
     Trend(trend::Args),
     /// Fit one spectrum file.
     Fit(fit::Args),
+    /// Materials from known samples: fit a film's dispersion (material fit).
+    Material(material::Args),
     /// List and draw the site plan of a recipe.
     Sites(sites::Args),
     /// Validate a recipe (and machine file), listing every error with its line.
@@ -107,6 +110,7 @@ pub fn main() -> ExitCode {
         Command::Compare(a) => compare::run(a),
         Command::Trend(a) => trend::run(a),
         Command::Fit(a) => fit::run(a),
+        Command::Material(a) => material::run(a),
         Command::Sites(a) => sites::run(a),
         Command::Check(a) => check::run(a),
         Command::Stage(a) => stage::run(a),

@@ -92,16 +92,33 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         );
     }
     let bar = ProgressBar::new(attempts.len() as u64);
-    let events = refit::fit_all(
-        &folder,
-        &attempts,
-        &timeline,
-        &fitter,
-        &material,
-        &meta.recipe.accept,
-        &|| bar.inc(1),
-    );
+    let events = if fitter.shared_dispersion() {
+        // One dispersion for every site (film.dispersion = "shared"), then the fits with it.
+        refit::shared_dispersion_fits(
+            &folder,
+            &attempts,
+            &timeline,
+            &fitter,
+            &loaded,
+            &material,
+            &meta.recipe.accept,
+            &|| bar.inc(1),
+        )?
+    } else {
+        refit::fit_all(
+            &folder,
+            &attempts,
+            &timeline,
+            &fitter,
+            &material,
+            &meta.recipe.accept,
+            &|| bar.inc(1),
+        )
+    };
     bar.finish_and_clear();
+    if let Some(line) = super::figures::dispersion_line(&events) {
+        outln!("{line}");
+    }
     // One write and one sync for all the fits: they count only once refit-finished is
     // journalled, so a kill in between loses nothing that counted.
     journal.append_all(&events)?;

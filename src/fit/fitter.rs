@@ -1,6 +1,7 @@
 //! [`Fitter`]: everything a recipe fixes about fitting (materials, stack, window, angles,
 //! bounds) resolved once, then any number of spectra fitted with it, from any thread.
 
+use super::dispersion::{self, Coefficients, SiteModel};
 use super::instrument::Slit;
 use super::kernel::{channels, Channel, Prepared, MAX_LAYERS};
 use super::model::{self, Setup};
@@ -9,7 +10,7 @@ use super::result::{FitResult, LayerResult, Term};
 use super::{extrema, fourier, FitError};
 use crate::optics::tmm::{cone_nodes, cone_samples, cos_theta};
 use crate::optics::{reflectance, Material, MaterialLibrary, Stack};
-use crate::recipe::schema::FitMethod;
+use crate::recipe::schema::{DispersionMode, FitMethod};
 use crate::recipe::LoadedRecipe;
 use crate::spectrum::{normalise_raw, RawSpectrum, SignalQuality, Spectrum};
 use std::sync::{Arc, RwLock};
@@ -43,6 +44,9 @@ pub struct Fitter {
     fit_tilt: bool,
     /// FWHM of the spectrometer's slit function, nm (0: ideal).
     resolution_nm: f64,
+    /// The material whose coefficients are fitted, if any, and where.
+    coefficients: Option<Coefficients>,
+    dispersion_mode: DispersionMode,
     /// The stack prepared on the slit's fine grid, for the last pixel grid seen.
     smeared: RwLock<Option<Arc<Smeared>>>,
     warnings: Vec<String>,
@@ -172,6 +176,11 @@ impl Fitter {
             fit_scale: film.fit_scale,
             fit_tilt: film.fit_tilt,
             resolution_nm: 0.0,
+            coefficients: recipe
+                .materials
+                .iter()
+                .find_map(|(name, spec)| Coefficients::of(name, spec)),
+            dispersion_mode: film.dispersion,
             smeared: RwLock::new(None),
             warnings,
             cache: RwLock::new(None),
@@ -205,6 +214,78 @@ impl Fitter {
             0.0
         };
         self
+    }
+
+    /// The material whose coefficients the recipe fits, if any.
+    pub fn fitted_coefficients(&self) -> Option<&Coefficients> {
+        self.coefficients.as_ref()
+    }
+
+    /// Whether the recipe fits one dispersion shared by every site (`film.dispersion =
+    /// "shared"`): each spectrum is then fitted at the nominal coefficients, and the shared
+    /// fit ([`Fitter::fit_shared`]) runs over all of them.
+    pub fn shared_dispersion(&self) -> bool {
+        self.coefficients.is_some() && self.dispersion_mode == DispersionMode::Shared
+    }
+
+    /// The model of one spectrum (its window's pixels) with the fitted material's
+    /// coefficients free, the layers at thicknesses `base`.
+    pub fn site_model<'a>(
+        &'a self,
+        c: &'a Coefficients,
+        wavelengths_nm: &[f64],
+        base: Vec<f64>,
+    ) -> SiteModel<'a> {
+        SiteModel {
+            ambient: &self.ambient,
+            layers: self.layers.iter().map(|l| l.material.clone()).collect(),
+            substrate: &self.substrate,
+            channels: &self.channels,
+            coefficients: c,
+            base,
+            fitted: self.fitted.clone(),
+            scale: self.fit_scale,
+            tilt: self.fit_tilt,
+            pixels_nm: wavelengths_nm.to_vec(),
+            slit: (self.resolution_nm > 0.0)
+                .then(|| Slit::gaussian(wavelengths_nm, self.resolution_nm)),
+        }
+    }
+
+    /// The part of a spectrum inside the fitting window, checked to be fit for fitting.
+    pub fn windowed(&self, spectrum: &Spectrum) -> Result<Spectrum, FitError> {
+        let w = spectrum.window(self.window[0], self.window[1]);
+        w.validate(MIN_PIXELS).map_err(|e| match e {
+            crate::spectrum::SpectrumError::Invalid(m) => crate::spectrum::SpectrumError::Invalid(
+                format!("window {}–{} nm: {m}", self.window[0], self.window[1]),
+            ),
+            e => e,
+        })?;
+        Ok(w)
+    }
+
+    /// The search range of each fitted layer, widened as the thickness search widens it.
+    pub fn search_limits(&self, w: &Spectrum) -> Vec<(f64, f64)> {
+        self.widened(w, &self.bounds())
+    }
+
+    /// Indices of the fitted layers, top first.
+    pub fn fitted_layers(&self) -> &[usize] {
+        &self.fitted
+    }
+
+    /// Thicknesses of every layer with the fitted ones at `fitted` (top first).
+    pub fn stack_thickness(&self, fitted: &[f64]) -> Vec<f64> {
+        let mut d = self.nominal();
+        for (&i, v) in self.fitted.iter().zip(fitted) {
+            d[i] = *v;
+        }
+        d
+    }
+
+    /// FWHM of the slit function modelled, nm (0: ideal).
+    pub fn resolution_nm(&self) -> f64 {
+        self.resolution_nm
     }
 
     /// Warnings found while resolving the recipe (a window outside a material's range).
@@ -244,6 +325,7 @@ impl Fitter {
                 layers: self.failed_layers(),
                 gof: 0.0,
                 flags: vec![quality::NO_FIT.to_string()],
+                terms: Vec::new(),
             };
             r.flags.extend(quality_flags(quality));
             r
@@ -286,13 +368,7 @@ impl Fitter {
         spectrum: &Spectrum,
         quality: &SignalQuality,
     ) -> Result<(FitResult, Vec<Term>), FitError> {
-        let w = spectrum.window(self.window[0], self.window[1]);
-        w.validate(MIN_PIXELS).map_err(|e| match e {
-            crate::spectrum::SpectrumError::Invalid(m) => crate::spectrum::SpectrumError::Invalid(
-                format!("window {}–{} nm: {m}", self.window[0], self.window[1]),
-            ),
-            e => e,
-        })?;
+        let w = self.windowed(spectrum)?;
         let prep = self.prepared(&w.wavelength_nm);
         let recipe_bounds = self.bounds();
         let (mut method, bounds) = match self.method {
@@ -353,6 +429,7 @@ impl Fitter {
                 .collect(),
             gof: g,
             flags,
+            terms: terms.clone(),
         };
         Ok((result, terms))
     }
@@ -557,6 +634,10 @@ impl Fitter {
                     method: "model",
                     message: "the model gives no finite reflectance over the window: check the materials' formulas".into(),
                 })?;
+                let fit = match (&self.coefficients, self.dispersion_mode) {
+                    (Some(c), DispersionMode::Site) => self.with_dispersion(w, &fit, c),
+                    _ => fit,
+                };
                 let flags = self.model_flags(&fit);
                 let mut thickness = fit.thickness.clone();
                 // An answer outside the range is reported at the bound it passed (flagged
@@ -570,8 +651,84 @@ impl Fitter {
         }
     }
 
-    /// The fitted scale and tilt with σ and correlation with the first thickness, from the
-    /// full covariance.
+    /// The thickness search's answer refined with the material's coefficients free: from
+    /// the best minimum and from every rival order (with a wrong index a neighbouring order
+    /// may fit as well), by Levenberg–Marquardt; the best becomes the fit, the others that
+    /// come within noise of it its rivals. The covariance covers thicknesses, systematic
+    /// terms and coefficients, in that order.
+    fn with_dispersion(
+        &self,
+        w: &Spectrum,
+        seed: &model::ModelFit,
+        c: &Coefficients,
+    ) -> model::ModelFit {
+        let site = self.site_model(c, &w.wavelength_nm, seed.thickness.clone());
+        let (lo, hi) = dispersion::local_limits(&site, &self.search_limits(w));
+        let p0 = c.start();
+        let starts = std::iter::once(seed.thickness.clone()).chain(
+            seed.rivals
+                .iter()
+                .map(|r| self.stack_thickness(&r.thickness)),
+        );
+        let mut fits: Vec<dispersion::SiteFit> = starts
+            .map(|d| {
+                dispersion::fit_site(
+                    &site,
+                    &w.reflectance,
+                    &site.local_start(&d),
+                    &p0,
+                    (&lo, &hi),
+                )
+            })
+            .collect();
+        fits.sort_by(|a, b| a.chi2.total_cmp(&b.chi2));
+        let best = fits.remove(0);
+        let np = best.params();
+        let noise = quality::noise_sigma(&w.reflectance, &best.residuals);
+        let var = (best.chi2 / (w.len() as f64 - np as f64).max(1.0)).max(noise * noise);
+        let nf = self.fitted.len();
+        let mut rivals: Vec<model::Minimum> = Vec::new();
+        for f in &fits {
+            let distinct = (0..nf).any(|a| (f.local[a] - best.local[a]).abs() >= 0.5)
+                && rivals
+                    .iter()
+                    .all(|r| (0..nf).any(|a| (f.local[a] - r.thickness[a]).abs() >= 0.5));
+            if distinct && f.chi2 - best.chi2 < model::AMBIGUITY_DCHI2 * var {
+                rivals.push(model::Minimum {
+                    thickness: f.local[..nf].to_vec(),
+                    chi2: f.chi2,
+                });
+            }
+        }
+        let (scale, tilt) = {
+            let mut a = nf;
+            let s = if self.fit_scale {
+                a += 1;
+                best.local[a - 1]
+            } else {
+                1.0
+            };
+            let t = if self.fit_tilt { best.local[a] } else { 0.0 };
+            (s, t)
+        };
+        model::ModelFit {
+            thickness: site.thickness(&best.local),
+            sigma: (0..nf).map(|a| best.sigma(a)).collect(),
+            scale,
+            tilt,
+            chi2: best.chi2,
+            params: np,
+            noise_sigma: noise,
+            rivals,
+            dispersion: best.coefficients.clone(),
+            covariance: best.covariance,
+            residuals: best.residuals,
+        }
+    }
+
+    /// The fitted scale and tilt, and the fitted coefficients of a per-site dispersion fit
+    /// (named `MATERIAL.COEFFICIENT`), with σ and correlation with the first thickness, from
+    /// the full covariance.
     fn terms(&self, fit: &model::ModelFit) -> Vec<Term> {
         let nf = self.fitted.len();
         let np = fit.params;
@@ -586,6 +743,21 @@ impl Fitter {
                 out.push(Term {
                     name: name.to_string(),
                     value,
+                    sigma: cov(a, a).max(0.0).sqrt(),
+                    correlation_with_thickness: cov(a, 0) / (cov(a, a) * cov(0, 0)).sqrt(),
+                });
+                a += 1;
+            }
+        }
+        if let Some(c) = self
+            .coefficients
+            .as_ref()
+            .filter(|_| !fit.dispersion.is_empty())
+        {
+            for (name, value) in c.names.iter().zip(&fit.dispersion) {
+                out.push(Term {
+                    name: format!("{}.{name}", c.material),
+                    value: *value,
                     sigma: cov(a, a).max(0.0).sqrt(),
                     correlation_with_thickness: cov(a, 0) / (cov(a, a) * cov(0, 0)).sqrt(),
                 });

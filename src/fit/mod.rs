@@ -2,6 +2,7 @@
 //! Levenberg–Marquardt), the `fourier` and `extrema` methods, `auto`, and the quality flags.
 //! One [`Fitter`] is built per recipe and fits every spectrum of a map.
 
+pub mod dispersion;
 pub mod extrema;
 mod fitter;
 pub mod fourier;
@@ -12,6 +13,7 @@ pub mod model;
 pub mod plot;
 pub mod quality;
 mod result;
+pub mod shared;
 
 pub use fitter::Fitter;
 pub use result::{FitResult, LayerResult, Term};

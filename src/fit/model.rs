@@ -53,6 +53,9 @@ pub struct ModelFit {
     pub residuals: Vec<f64>,
     /// Other local minima that fit within the noise of the best (Δχ² < 9 noise variances).
     pub rivals: Vec<Minimum>,
+    /// The fitted dispersion coefficients when they were fitted too (see
+    /// [`super::dispersion`]; they follow the systematic terms in the covariance).
+    pub dispersion: Vec<f64>,
 }
 
 /// A local minimum of χ²: the fitted layers' thicknesses and its χ² on every pixel.
@@ -325,14 +328,14 @@ fn grid_search(setup: &Setup, pixels: &[usize]) -> Grid {
 }
 
 /// Range of the fitted intensity scale: a reference 5× off is no longer a scale error.
-const SCALE_LIMITS: [f64; 2] = [0.2, 5.0];
+pub const SCALE_LIMITS: [f64; 2] = [0.2, 5.0];
 /// Largest fitted tilt: ±50 % across the window.
-const TILT_LIMIT: f64 = 0.5;
+pub const TILT_LIMIT: f64 = 0.5;
 /// Candidates refined on the search pixels before the final polish.
 const CANDIDATES: usize = 12;
 /// Δχ² (in units of the noise variance) below which a second minimum is "within noise":
 /// a 3σ likelihood-ratio distinction for one parameter (common practice).
-const AMBIGUITY_DCHI2: f64 = 9.0;
+pub const AMBIGUITY_DCHI2: f64 = 9.0;
 
 /// Fits the model: grid search on `search_pixels`, LM refinement there, then LM on every
 /// pixel from the best, and from every other minimum that may come within noise of it.
@@ -470,6 +473,7 @@ pub fn fit(setup: &Setup, search_pixels: &[usize]) -> Option<ModelFit> {
         noise_sigma: noise,
         residuals: best.residuals,
         rivals,
+        dispersion: Vec::new(),
     })
 }
 

@@ -24,6 +24,10 @@ pub struct FitResult {
     /// Goodness of fit, 0..1.
     pub gof: f64,
     pub flags: Vec<String>,
+    /// Fitted parameters other than thicknesses (scale, tilt, dispersion coefficients
+    /// `MATERIAL.NAME`), absent from the JSON when none was fitted.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub terms: Vec<Term>,
 }
 
 impl FitResult {
@@ -89,6 +93,7 @@ mod tests {
             }],
             gof: 0.998,
             flags: vec![],
+            terms: vec![],
         };
         let j = serde_json::to_string(&r).unwrap();
         assert_eq!(

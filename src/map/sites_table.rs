@@ -91,13 +91,23 @@ fn flag_field(flag: &str) -> String {
 /// Writes the rows as `sites.csv` text. Positions to 1 µm, thickness to 1 pm, sigma to
 /// 0.1 pm, gof to 6 decimals: finer than any reflectometer resolves.
 pub fn write(rows: &[SiteRow]) -> String {
+    write_with_columns(rows, &[])
+}
+
+/// [`write`] with further numeric columns after the layers' (name, one value per row; NaN
+/// an empty cell, 7 significant digits), such as fitted dispersion coefficients. Readers
+/// find columns by name and pass over these.
+pub fn write_with_columns(rows: &[SiteRow], columns: &[(String, Vec<f64>)]) -> String {
     let layers = layer_count(rows);
     let mut s = HEADER.join(",");
     for k in 2..=layers {
         let _ = write!(s, ",thickness{k}_nm,sigma{k}_nm");
     }
+    for (name, _) in columns {
+        let _ = write!(s, ",{name}");
+    }
     s.push('\n');
-    for r in rows {
+    for (i, r) in rows.iter().enumerate() {
         let t = |k: usize| r.thickness_nm.get(k).copied().unwrap_or(f64::NAN);
         let sd = |k: usize| r.sigma_nm.get(k).copied().unwrap_or(f64::NAN);
         let _ = write!(
@@ -113,6 +123,18 @@ pub fn write(rows: &[SiteRow]) -> String {
         );
         for k in 1..layers {
             let _ = write!(s, ",{},{}", cell(t(k), 3), cell(sd(k), 4));
+        }
+        for (_, values) in columns {
+            let v = values.get(i).copied().unwrap_or(f64::NAN);
+            let _ = write!(
+                s,
+                ",{}",
+                if v.is_finite() {
+                    format!("{v:.7e}")
+                } else {
+                    String::new()
+                }
+            );
         }
         s.push('\n');
     }

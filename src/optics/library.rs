@@ -75,13 +75,18 @@ pub fn from_spec(
     recipe_dir: &Path,
 ) -> Result<Material, OpticsError> {
     let dispersion = match spec {
-        MaterialSpec::Cauchy { a, b, c, k } => Dispersion::Cauchy {
-            a: *a,
-            b: *b,
-            c: *c,
-            k: *k,
-        },
-        MaterialSpec::Sellmeier { b, c } => {
+        MaterialSpec::Cauchy {
+            a, b, c, k, urbach, ..
+        } => {
+            let d = Dispersion::Cauchy {
+                a: *a,
+                b: *b,
+                c: *c,
+                k: *k,
+            };
+            return Ok(Material::new(name, d).with_tail(*urbach));
+        }
+        MaterialSpec::Sellmeier { b, c, .. } => {
             if b.len() != c.len() || b.is_empty() {
                 return Err(OpticsError::BadModel {
                     name: name.to_string(),

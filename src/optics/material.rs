@@ -1,7 +1,7 @@
 //! A material: a named dispersion model that gives the complex index N = n + ik at a vacuum
 //! wavelength (k > 0 absorbs), with the wavelength range its source covers.
 
-use super::dispersion::{cauchy_n, sellmeier_n2};
+use super::dispersion::{cauchy_n, sellmeier_n2, Urbach};
 use super::table::NkTable;
 use num_complex::Complex64;
 use std::sync::Arc;
@@ -26,6 +26,8 @@ pub struct Material {
     dispersion: Dispersion,
     range_nm: Option<(f64, f64)>,
     source: String,
+    /// A weak-absorption tail added to k.
+    tail: Option<Urbach>,
 }
 
 impl Material {
@@ -40,6 +42,7 @@ impl Material {
             dispersion,
             range_nm,
             source: String::new(),
+            tail: None,
         }
     }
 
@@ -60,6 +63,12 @@ impl Material {
         self
     }
 
+    /// Adds an Urbach absorption tail to k (see [`Urbach`]).
+    pub fn with_tail(mut self, tail: Option<Urbach>) -> Material {
+        self.tail = tail;
+        self
+    }
+
     /// The material's name.
     pub fn name(&self) -> &str {
         &self.name
@@ -77,6 +86,14 @@ impl Material {
 
     /// Complex index N = n + ik at the vacuum wavelength (nm).
     pub fn index(&self, wavelength_nm: f64) -> Complex64 {
+        let n = self.model_index(wavelength_nm);
+        match &self.tail {
+            Some(t) => Complex64::new(n.re, n.im + t.k(wavelength_nm)),
+            None => n,
+        }
+    }
+
+    fn model_index(&self, wavelength_nm: f64) -> Complex64 {
         let l_um = wavelength_nm / 1000.0;
         match &self.dispersion {
             Dispersion::Constant { n, k } => Complex64::new(*n, *k),

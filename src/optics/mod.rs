@@ -2,6 +2,7 @@
 //! transfer-matrix reflectance. Pure code, no I/O beyond reading a user's n,k table.
 
 pub mod builtin;
+pub mod coefficients;
 pub mod dispersion;
 pub mod library;
 pub mod material;

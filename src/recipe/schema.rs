@@ -115,6 +115,27 @@ pub struct FilmSpec {
     /// Also fit a linear tilt of the intensity across the window (a slow baseline drift).
     #[serde(default, skip_serializing_if = "is_false")]
     pub fit_tilt: bool,
+    /// How a material's fitted coefficients are fitted: per site, or one dispersion shared
+    /// by every site of a run.
+    #[serde(default, skip_serializing_if = "DispersionMode::is_site")]
+    pub dispersion: DispersionMode,
+}
+
+/// Where fitted dispersion coefficients are fitted.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum DispersionMode {
+    /// With the thickness of each site, on its own spectrum.
+    #[default]
+    Site,
+    /// Jointly over every site of a run: one n(λ), a thickness per site.
+    Shared,
+}
+
+impl DispersionMode {
+    fn is_site(&self) -> bool {
+        *self == DispersionMode::Site
+    }
 }
 
 fn is_false(b: &bool) -> bool {

@@ -6,7 +6,7 @@
 
 use super::geometry::Wafer;
 use super::pattern::{self, STANDARD_COUNTS};
-use super::schema::{AcceptSpec, FilmSpec, FitMethod, PatternSpec, Recipe};
+use super::schema::{AcceptSpec, DispersionMode, FilmSpec, FitMethod, PatternSpec, Recipe};
 use crate::optics::{spec, BUILTIN_NAMES};
 use crate::tomlcheck::{nearest, num, KeyPath, Problem, Problems, Seg};
 
@@ -363,6 +363,7 @@ fn check_film(recipe: &Recipe, r: &mut Problems) {
             });
         }
     }
+    check_fitted_dispersion(recipe, r);
     if let Some([lo, hi]) = recipe.accept.spec_nm {
         if !(lo.is_finite() && hi.is_finite()) {
             // Reported where it was read.
@@ -379,6 +380,47 @@ fn check_film(recipe: &Recipe, r: &mut Problems) {
             "accept.min_gof",
             format!("min_gof {} must be in [0, 1]", recipe.accept.min_gof),
         );
+    }
+}
+
+/// A material with fitted coefficients: one at most, the material of a fitted layer (never
+/// the ambient or substrate), fitted by the model method; `dispersion = "shared"` needs one.
+fn check_fitted_dispersion(recipe: &Recipe, r: &mut Problems) {
+    let film = &recipe.film;
+    let fitted: Vec<&String> = recipe
+        .materials
+        .iter()
+        .filter(|(_, m)| m.has_fitted_coefficients())
+        .map(|(n, _)| n)
+        .collect();
+    if fitted.len() > 1 {
+        r.at(
+            &format!("materials.{}.fit", fitted[1]),
+            format!(
+                "materials {} all have fitted coefficients: fit the dispersion of one material at a time",
+                fitted.iter().map(|n| n.as_str()).collect::<Vec<_>>().join(", ")
+            ),
+        );
+    }
+    for name in &fitted {
+        let at = format!("materials.{name}.fit");
+        if film.ambient == **name || film.substrate == **name {
+            r.at(&at, format!("material {name} is the ambient or substrate: only a fitted layer's coefficients can be fitted"));
+        } else if !film.layers.iter().any(|l| l.fit && l.material == **name) {
+            r.at(&at, format!("material {name} has fitted coefficients but no fitted layer is made of it: set fit = true on its layer, or remove fit = [...]"));
+        }
+        if matches!(film.method, FitMethod::Fourier | FitMethod::Extrema) {
+            r.at(
+                "film.method",
+                format!(
+                    "method {} cannot fit the coefficients of material {name}: use method = \"model\" (or \"auto\")",
+                    film.method.as_str()
+                ),
+            );
+        }
+    }
+    if film.dispersion == DispersionMode::Shared && fitted.is_empty() {
+        r.at("film.dispersion", "dispersion = \"shared\" but no material has fitted coefficients: mark some with fit = [\"a\", \"b\"] in its [materials.NAME] table");
     }
 }
 

@@ -3,10 +3,10 @@
 //! Deterministic: the same journal gives the same files, so a rebuild after a crash matches a
 //! clean run.
 
-use super::events::{site_states, Event, SiteState};
+use super::events::{current_dispersion, site_states, Event, SiteState};
 use super::folder::{RunFolder, RunToml};
 use super::journal;
-use super::outputs::{fitted_layer_names, write_run_outputs};
+use super::outputs::{fitted_layer_names, write_run_outputs_with, Fitted};
 use super::plan::frozen::FrozenPlan;
 use super::plan::GaugeSettings;
 use crate::bench::centring::CentringSettings;
@@ -103,11 +103,73 @@ pub fn rows(states: &[SiteState], layers: usize) -> Vec<SiteRow> {
 /// Rewrites every derived file of the run from its journal; returns the summary.
 pub fn rebuild(folder: &RunFolder) -> anyhow::Result<Summary> {
     let meta = folder.read_run_toml()?;
-    let (_, states) = read_states(folder, &meta)?;
+    let (events, states) = read_states(folder, &meta)?;
     let layers = fitted_layer_names(&meta.recipe).len().max(1);
     let rows = rows(&states, layers);
-    let summary = write_run_outputs(folder, &rows, &meta)?;
+    let shared = current_dispersion(&events);
+    let fitted = Fitted {
+        columns: coefficient_columns(&states, shared),
+        dispersion: shared.and_then(|d| serde_json::to_value(d).ok()),
+    };
+    let summary = write_run_outputs_with(folder, &rows, &meta, &fitted)?;
     // A gauge study's own figures are derived files too.
     super::gauge::write_gauge_outputs(folder)?;
     Ok(summary)
+}
+
+/// `MATERIAL.NAME` and `MATERIAL.NAME_sigma` of every fitted coefficient, one value per
+/// site from its best attempt's fit: per site when fitted per site, the shared value when
+/// the fits were made with a shared dispersion (see [`current_dispersion`]).
+fn coefficient_columns(
+    states: &[SiteState],
+    shared: Option<&crate::fit::shared::SharedDispersion>,
+) -> Vec<(String, Vec<f64>)> {
+    if let Some(d) = shared {
+        let measured: Vec<bool> = states.iter().map(|s| s.best().is_some()).collect();
+        let each = |v: f64| -> Vec<f64> {
+            measured
+                .iter()
+                .map(|m| if *m { v } else { f64::NAN })
+                .collect()
+        };
+        return d
+            .coefficients
+            .iter()
+            .flat_map(|t| {
+                [
+                    (t.name.clone(), each(t.value)),
+                    (format!("{}_sigma", t.name), each(t.sigma)),
+                ]
+            })
+            .collect();
+    }
+    let fits: Vec<Option<&crate::fit::FitResult>> = states
+        .iter()
+        .map(|s| s.best().and_then(|a| a.fit.as_ref()))
+        .collect();
+    let mut names: Vec<&str> = Vec::new();
+    for t in fits.iter().flatten().flat_map(|f| &f.terms) {
+        if t.name.contains('.') && !names.contains(&t.name.as_str()) {
+            names.push(&t.name);
+        }
+    }
+    let mut out = Vec::new();
+    for name in names {
+        let term = |f: &Option<&crate::fit::FitResult>| -> Option<crate::fit::Term> {
+            f.and_then(|f| f.terms.iter().find(|t| t.name == name).cloned())
+        };
+        out.push((
+            name.to_string(),
+            fits.iter()
+                .map(|f| term(f).map_or(f64::NAN, |t| t.value))
+                .collect(),
+        ));
+        out.push((
+            format!("{name}_sigma"),
+            fits.iter()
+                .map(|f| term(f).map_or(f64::NAN, |t| t.sigma))
+                .collect(),
+        ));
+    }
+    out
 }

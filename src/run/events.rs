@@ -11,6 +11,7 @@
 //! ever mixes two optical models.
 
 use crate::bench::centring::Centring;
+use crate::fit::shared::SharedDispersion;
 use crate::fit::{quality, FitResult};
 use crate::recipe::schema::AcceptSpec;
 use crate::recipe::Site;
@@ -74,6 +75,12 @@ pub enum Event {
     },
     /// Every fit of the refit begun last is journalled: they count from here on.
     RefitFinished { time: String },
+    /// One dispersion of the recipe's fitted material was fitted jointly to the sites'
+    /// spectra (`film.dispersion = "shared"`); the fits after it in the same refit use it.
+    DispersionFitted {
+        time: String,
+        dispersion: Box<SharedDispersion>,
+    },
     /// `resume --machine` replaced the run's machine file (names of the old and new file, the
     /// dotted keys that changed); later sessions use the new one, frozen in `run.toml`.
     MachineChanged {
@@ -116,6 +123,7 @@ impl Event {
             | Event::SiteFailed { time, .. }
             | Event::RefitStarted { time, .. }
             | Event::RefitFinished { time }
+            | Event::DispersionFitted { time, .. }
             | Event::MachineChanged { time, .. }
             | Event::WaferCentred { time, .. }
             | Event::WaferReloaded { time, .. }
@@ -244,6 +252,30 @@ pub fn settled(events: &[Event]) -> (Vec<&Event>, Option<&Event>) {
     (out, refit.map(|(started, _)| started))
 }
 
+/// The shared dispersion the counting fits were made with: journalled in the last finished
+/// refit (a finished refit without one clears it; an unfinished one does not count).
+pub fn current_dispersion(events: &[Event]) -> Option<&SharedDispersion> {
+    let mut current = None;
+    let mut pending: Option<Option<&SharedDispersion>> = None;
+    for e in events {
+        match e {
+            Event::RefitStarted { .. } => pending = Some(None),
+            Event::DispersionFitted { dispersion, .. } => match &mut pending {
+                Some(p) => *p = Some(dispersion.as_ref()),
+                None => current = Some(dispersion.as_ref()),
+            },
+            Event::RefitFinished { .. } => {
+                if let Some(p) = pending.take() {
+                    current = p;
+                }
+            }
+            Event::RunStarted { .. } => pending = None,
+            _ => {}
+        }
+    }
+    current
+}
+
 /// Folds the journal into per-site state, for the planned sites (in site-number order); the
 /// fits of an unfinished refit do not count (see [`settled`]).
 pub fn site_states(plan: &[Site], events: &[Event]) -> Vec<SiteState> {
@@ -320,6 +352,7 @@ mod tests {
             }],
             gof,
             flags: vec![],
+            terms: vec![],
         }
     }
 

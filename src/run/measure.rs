@@ -114,6 +114,50 @@ pub fn plan_on_machine(
 
 /// Runs one measuring session of `plan` on the run in `folder`, then records the run in the
 /// history at `history`.
+/// At the end of a finished session whose recipe shares one dispersion across the wafer:
+/// fits it jointly over every site and refits every site with it, journalled as a refit
+/// (all or nothing). A joint fit that cannot be made is a note; the per-site fits stand.
+fn shared_dispersion_refit(
+    seq: &mut Sequencer,
+    folder: &RunFolder,
+    meta: &RunToml,
+    plan: &Plan,
+    states: &[SiteState],
+) -> anyhow::Result<()> {
+    let (events, _) = derive::read_states(folder, meta)?;
+    let timeline = ReferenceTimeline::from_events(&events);
+    let attempts = super::refit::stored_attempts(states);
+    let loaded = loaded_recipe(folder, meta);
+    match super::refit::shared_dispersion_fits(
+        folder,
+        &attempts,
+        &timeline,
+        &plan.fitter,
+        &loaded,
+        &plan.reference_material,
+        plan.accept(),
+        &|| {},
+    ) {
+        Ok(fits) => {
+            seq.log(Event::RefitStarted {
+                time: now(),
+                recipe: meta.recipe.name.clone(),
+                previous: None,
+                spectra: attempts.len(),
+            })?;
+            for e in fits {
+                seq.log(e)?;
+            }
+            seq.log(Event::RefitFinished { time: now() })?;
+        }
+        Err(e) => seq.publish(RunEvent::Note(format!(
+            "warning: no shared dispersion: {}",
+            crate::error_text::chain_text(&e)
+        )))?,
+    }
+    Ok(())
+}
+
 pub async fn session(
     plan: &Plan,
     folder: &RunFolder,
@@ -251,6 +295,9 @@ pub async fn session(
     };
     let (_, states) = derive::read_states(folder, meta)?;
     if matches!(outcome, Outcome::Finished) && states.iter().all(|s| !s.attempts.is_empty()) {
+        if plan.fitter.shared_dispersion() {
+            shared_dispersion_refit(&mut seq, folder, meta, plan, &states)?;
+        }
         seq.log(Event::RunFinished { time: now() })?;
     }
     let summary = derive::rebuild(folder)?;

@@ -69,9 +69,44 @@ pub fn write_run_outputs(
     rows: &[SiteRow],
     meta: &RunToml,
 ) -> Result<Summary, MapError> {
-    put(&folder.sites_csv(), sites_table::write(rows).as_bytes())?;
+    write_run_outputs_with(folder, rows, meta, &Fitted::default())
+}
+
+/// Fitted values beyond thicknesses that a run's derived files carry: per-site columns of
+/// `sites.csv` (dispersion coefficients and their σ) and the shared dispersion of the run
+/// (the `dispersion` object of `summary.json`).
+#[derive(Debug, Clone, Default)]
+pub struct Fitted {
+    pub columns: Vec<(String, Vec<f64>)>,
+    pub dispersion: Option<serde_json::Value>,
+}
+
+/// [`write_run_outputs`] with fitted values beyond thicknesses.
+pub fn write_run_outputs_with(
+    folder: &RunFolder,
+    rows: &[SiteRow],
+    meta: &RunToml,
+    fitted: &Fitted,
+) -> Result<Summary, MapError> {
+    put(
+        &folder.sites_csv(),
+        sites_table::write_with_columns(rows, &fitted.columns).as_bytes(),
+    )?;
     let summary = run_summary(rows, meta);
-    put(&folder.summary_json(), summary.to_json().as_bytes())?;
+    let json = match &fitted.dispersion {
+        None => summary.to_json(),
+        Some(d) => {
+            let mut v: serde_json::Value =
+                serde_json::from_str(&summary.to_json()).map_err(|e| {
+                    MapError::io("write", folder.summary_json(), std::io::Error::other(e))
+                })?;
+            if let Some(o) = v.as_object_mut() {
+                o.insert("dispersion".into(), d.clone());
+            }
+            serde_json::to_string_pretty(&v).unwrap_or_default() + "\n"
+        }
+    };
+    put(&folder.summary_json(), json.as_bytes())?;
     write_run_maps(folder, rows, meta, &RenderOptions::default())?;
     Ok(summary)
 }

@@ -10,8 +10,10 @@ use super::drift::ReferenceTimeline;
 use super::events::{fit_event, Event, SiteState};
 use super::folder::{read_run_toml, RunFolder};
 use super::journal;
+use crate::fit::shared::SharedDispersion;
 use crate::fit::Fitter;
 use crate::recipe::schema::{AcceptSpec, Recipe};
+use crate::recipe::LoadedRecipe;
 use crate::spectrum::{read_csv, SignalQuality, Spectrum, SpectrumFile};
 use anyhow::Context;
 
@@ -62,6 +64,92 @@ pub fn stored_reflectance(
         Ok(SpectrumFile::Reflectance(spectrum)) => Ok((spectrum, SignalQuality::default())),
         Err(e) => Err(e.to_string()),
     }
+}
+
+/// The recipe with the fitted material replaced by `dispersion`'s formula (nothing left
+/// to fit), for fitting every site's thickness with the shared dispersion.
+pub fn recipe_with_dispersion(
+    loaded: &LoadedRecipe,
+    dispersion: &SharedDispersion,
+) -> LoadedRecipe {
+    let mut r = loaded.clone();
+    r.recipe
+        .materials
+        .insert(dispersion.material.clone(), dispersion.spec.clone());
+    r
+}
+
+/// A shared-dispersion refit (`film.dispersion = "shared"`): every stored attempt fitted at
+/// the nominal coefficients, one dispersion fitted jointly to the valid sites' newest valid
+/// attempts, then every attempt fitted again with it. Returns the `dispersion-fitted` event
+/// and the fits, to journal inside a refit; `Err` says why no joint fit could be made.
+#[allow(clippy::too_many_arguments)] // the same set-up as fit_all, plus the recipe
+pub fn shared_dispersion_fits(
+    folder: &RunFolder,
+    attempts: &[(usize, u32, String)],
+    timeline: &ReferenceTimeline,
+    fitter: &Fitter,
+    loaded: &LoadedRecipe,
+    reference_material: &str,
+    accept: &AcceptSpec,
+    on_done: &(dyn Fn() + Sync),
+) -> anyhow::Result<Vec<Event>> {
+    let nominal = fit_all(
+        folder,
+        attempts,
+        timeline,
+        fitter,
+        reference_material,
+        accept,
+        &|| {},
+    );
+    // The newest valid attempt of each site seeds the joint fit.
+    let mut chosen: std::collections::BTreeMap<usize, (u32, &str, Vec<f64>)> = Default::default();
+    for ((site, attempt, rel), e) in attempts.iter().zip(&nominal) {
+        if let Event::SiteFitted {
+            fit, valid: true, ..
+        } = e
+        {
+            let seed = fit.layers.iter().map(|l| l.thickness_nm).collect();
+            if chosen.get(site).is_none_or(|c| c.0 < *attempt) {
+                chosen.insert(*site, (*attempt, rel.as_str(), seed));
+            }
+        }
+    }
+    let mut spectra = Vec::new();
+    let mut seeds = Vec::new();
+    for (site, (attempt, rel, seed)) in chosen {
+        if let Ok((s, _)) = stored_reflectance(
+            folder,
+            (site, attempt, rel),
+            timeline,
+            fitter,
+            reference_material,
+        ) {
+            spectra.push(s);
+            seeds.push(seed);
+        }
+    }
+    if spectra.is_empty() {
+        anyhow::bail!("no site has a valid fit at the nominal coefficients to start the shared dispersion fit from");
+    }
+    let dispersion = crate::fit::shared::fit_spectra(fitter, &spectra, &seeds, None)?;
+    let with = Fitter::from_recipe(&recipe_with_dispersion(loaded, &dispersion))?
+        .with_resolution_nm(fitter.resolution_nm());
+    let mut events = vec![Event::DispersionFitted {
+        time: super::events::now(),
+        dispersion: Box::new(dispersion),
+    }];
+    events.extend(fit_all(
+        folder,
+        attempts,
+        timeline,
+        &with,
+        reference_material,
+        accept,
+        on_done,
+    ));
+    Ok(events)
 }
 
 /// Every stored attempt of every site, as (site, attempt, spectrum file).
