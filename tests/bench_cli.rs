@@ -117,3 +117,41 @@ fn builtin_like(port: &str) -> String {
         "name = \"pty\"\n[stage]\nport = \"{port}\"\nunlock = [\"$X\"]\nhome = [\"$H\"]\nmotion_complete = \"poll\"\npoll_interval_ms = 20\nreset = \"\\u0018\"\nstartup_wait_s = 0.3\ntravel_x_mm = [0, 480]\ntravel_y_mm = [0, 480]\n[chuck]\ncenter_mm = [240, 240]\n"
     )
 }
+
+/// `isopach stage` on the built-in simulated bench, its session's memory kept in `state`.
+fn stage_in(state: &Path, args: &[&str]) -> String {
+    let out = bin()
+        .arg("stage")
+        .args(args)
+        .env("ISOPACH_SIM_STATE_DIR", state)
+        .output()
+        .unwrap();
+    let text = String::from_utf8_lossy(&out.stdout).into_owned();
+    assert_eq!(
+        out.status.code(),
+        Some(0),
+        "{text}{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    text
+}
+
+#[test]
+fn the_virtual_stage_remembers_its_position_across_stage_commands() {
+    let state = tempfile::tempdir().unwrap();
+    // A fresh bench session powers up at the home corner.
+    assert!(stage_in(state.path(), &["where"]).contains("stage (0.000, 0.000) mm"));
+    stage_in(state.path(), &["move", "123.5", "77.25"]);
+    let text = stage_in(state.path(), &["where"]);
+    assert!(text.contains("stage (123.500, 77.250) mm"), "{text}");
+    stage_in(state.path(), &["move", "10", "-20", "--wafer"]);
+    let text = stage_in(state.path(), &["where"]);
+    assert!(text.contains("wafer (10.000, -20.000) mm"), "{text}");
+    stage_in(state.path(), &["home"]);
+    let text = stage_in(state.path(), &["where"]);
+    assert!(text.contains("stage (0.000, 0.000) mm"), "{text}");
+    // Another session (another runtime folder) knows nothing of this one.
+    stage_in(state.path(), &["move", "50", "60"]);
+    let other = tempfile::tempdir().unwrap();
+    assert!(stage_in(other.path(), &["where"]).contains("stage (0.000, 0.000) mm"));
+}

@@ -59,6 +59,7 @@ fn make_run(
             tool_version: "test".into(),
             recipe_path: recipe_file.into(),
             seed: 0,
+            run_seed: None,
         },
         recipe: loaded.recipe,
         machine: None,

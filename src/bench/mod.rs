@@ -29,7 +29,7 @@ pub mod transport;
 
 pub use chuck::ChuckTransform;
 pub use machine::{LoadedMachine, MachineError, MachineFile};
-pub use open::{open_stage, Bench, BenchError};
+pub use open::{open_stage, Bench, BenchError, SimSeeds};
 pub use spectrometer::{Spectrometer, SpectrometerError};
 pub use stage::{PositionHandle, Stage, StageError};
 

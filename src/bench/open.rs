@@ -46,7 +46,7 @@ pub async fn open_stage(m: &MachineFile, clock: SimClock) -> Result<Box<dyn Stag
 }
 
 /// [`open_stage`], the virtual controller (when the port is `"simulated"`) built as `cfg` says.
-async fn open_stage_with(
+pub async fn open_stage_with(
     m: &MachineFile,
     clock: SimClock,
     cfg: VirtualConfig,
@@ -76,39 +76,68 @@ pub struct Bench {
     true_transform: Option<ChuckTransform>,
     /// The virtual spectrometer's view of where the wafer lies (a reload moves it).
     placement: Option<Arc<Mutex<ChuckTransform>>>,
-    /// The simulation seed (the run's plus the machine file's).
-    seed: u64,
+    /// The simulation seeds (the run's plus the machine file's).
+    seeds: SimSeeds,
+}
+
+/// The seeds of the simulated bench. The virtual wafer (its thickness field and wafer-to-wafer
+/// offset) comes from `wafer`, so every run of one wafer measures the same film; everything a
+/// run draws for itself (spectrometer noise, carriage scatter, where the hand placed the
+/// wafer) comes from `run`, so two runs of one wafer read different noise, as on a real bench.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct SimSeeds {
+    pub wafer: u64,
+    pub run: u64,
+}
+
+impl SimSeeds {
+    /// One seed for both the wafer and the run's draws.
+    pub fn same(seed: u64) -> SimSeeds {
+        SimSeeds {
+            wafer: seed,
+            run: seed,
+        }
+    }
+
+    /// Both seeds moved by the machine file's `[simulation] seed`.
+    fn plus(self, offset: u64) -> SimSeeds {
+        SimSeeds {
+            wafer: self.wafer.wrapping_add(offset),
+            run: self.run.wrapping_add(offset),
+        }
+    }
 }
 
 impl Bench {
     /// Opens the bench of `machine` for `recipe`; `None` means the built-in simulated bench
     /// (virtual controller over an in-process duplex stream, driven by the real G-code stage
-    /// code; virtual wafer with the recipe's stack; virtual spectrometer). `seed` is added to
-    /// the machine file's simulation seed.
+    /// code; virtual wafer with the recipe's stack; virtual spectrometer). `seed` (wafer and
+    /// draws alike) is added to the machine file's simulation seed.
     pub async fn open(
         machine: Option<&MachineFile>,
         recipe: &LoadedRecipe,
         seed: u64,
     ) -> Result<Bench, BenchError> {
-        Bench::open_session(machine, recipe, seed, 0).await
+        Bench::open_session(machine, recipe, SimSeeds::same(seed), 0).await
     }
 
     /// [`Bench::open`] for the `session`-th session of a run (0 = the first): the virtual
-    /// wafer depends on `seed` alone, so every session of a run sees the same wafer, while
-    /// the virtual spectrometer's noise is drawn afresh per session, as a remeasurement on
-    /// a real bench would be.
+    /// wafer and its placement depend on the seeds alone, so every session of a run sees the
+    /// same wafer lying in the same place, while the virtual spectrometer's noise is drawn
+    /// afresh per session, as a remeasurement on a real bench would be.
     pub async fn open_session(
         machine: Option<&MachineFile>,
         recipe: &LoadedRecipe,
-        seed: u64,
+        seeds: SimSeeds,
         session: u64,
     ) -> Result<Bench, BenchError> {
         let m = machine.cloned().unwrap_or_else(builtin_simulated);
         let clock = SimClock::new(m.simulation.time_scale);
         let simulated_stage = m.stage_is_simulated();
-        let seed = seed.wrapping_add(m.simulation.seed);
+        let seeds = seeds.plus(m.simulation.seed);
         // The carriage's own scatter is drawn afresh per session, like the spectrometer's noise.
-        let session_seed = seed
+        let session_seed = seeds
+            .run
             .wrapping_add(1)
             .wrapping_add(session.wrapping_mul(0x9e37_79b9_7f4a_7c15));
         let (cfg, mechanics) = VirtualConfig::with_mechanics(&m, session_seed);
@@ -116,54 +145,57 @@ impl Bench {
         let transform = ChuckTransform::from_spec(&m.chuck);
         // The virtual wafer lies where a hand put it: off the file's centre and rotation by its
         // seeded placement error; the spectrometer sees it there, the plan does not know.
-        let true_transform = Placement::draw(&m.simulation.wafer, seed).apply(&transform);
-        let (spectrometer, wafer, placement): (Box<dyn Spectrometer>, _, _) = match m
-            .spectrometer
-            .kind
-        {
-            SpectrometerKind::Command => (
-                Box::new(CommandSpectrometer::from_spec(&m.spectrometer)),
-                None,
-                None,
-            ),
-            SpectrometerKind::Helper => (
-                Box::new(HelperSpectrometer::from_spec(&m.spectrometer)),
-                None,
-                None,
-            ),
-            SpectrometerKind::Simulated => {
-                let wafer = Arc::new(VirtualWafer::for_recipe(recipe, &m.simulation.wafer, seed)?);
-                let lib = MaterialLibrary::with_materials(&recipe.recipe.materials, recipe.dir())?;
-                let reference = BareSample::new(
-                    lib.require(&recipe.recipe.film.ambient)?.clone(),
-                    lib.require(&m.reference.material)?.clone(),
-                );
-                let spec = VirtualSpectrometer::new(
-                    &m.simulation.spectrometer,
-                    wafer.clone(),
-                    &reference,
-                    stage.position_handle(),
-                    true_transform,
-                    // Sessions step the seed by an odd 64-bit constant (2⁶⁴/φ), so no two
-                    // sessions of nearby runs share a noise stream.
-                    session_seed,
-                    clock,
-                );
-                // A real stage with a virtual spectrometer: the reported position is the truth
-                // the spectrometer has.
-                let spec = if simulated_stage {
-                    spec.with_mechanics(mechanics)
-                } else {
-                    spec
-                };
-                let placement = spec.placement_handle();
-                (
-                    Box::new(spec) as Box<dyn Spectrometer>,
-                    Some(wafer),
-                    Some(placement),
-                )
-            }
-        };
+        let true_transform = Placement::draw(&m.simulation.wafer, seeds.run).apply(&transform);
+        let (spectrometer, wafer, placement): (Box<dyn Spectrometer>, _, _) =
+            match m.spectrometer.kind {
+                SpectrometerKind::Command => (
+                    Box::new(CommandSpectrometer::from_spec(&m.spectrometer)),
+                    None,
+                    None,
+                ),
+                SpectrometerKind::Helper => (
+                    Box::new(HelperSpectrometer::from_spec(&m.spectrometer)),
+                    None,
+                    None,
+                ),
+                SpectrometerKind::Simulated => {
+                    let wafer = Arc::new(VirtualWafer::for_recipe(
+                        recipe,
+                        &m.simulation.wafer,
+                        seeds.wafer,
+                    )?);
+                    let lib =
+                        MaterialLibrary::with_materials(&recipe.recipe.materials, recipe.dir())?;
+                    let reference = BareSample::new(
+                        lib.require(&recipe.recipe.film.ambient)?.clone(),
+                        lib.require(&m.reference.material)?.clone(),
+                    );
+                    let spec = VirtualSpectrometer::new(
+                        &m.simulation.spectrometer,
+                        wafer.clone(),
+                        &reference,
+                        stage.position_handle(),
+                        true_transform,
+                        // Sessions step the seed by an odd 64-bit constant (2⁶⁴/φ), so no two
+                        // sessions of nearby runs share a noise stream.
+                        session_seed,
+                        clock,
+                    );
+                    // A real stage with a virtual spectrometer: the reported position is the truth
+                    // the spectrometer has.
+                    let spec = if simulated_stage {
+                        spec.with_mechanics(mechanics)
+                    } else {
+                        spec
+                    };
+                    let placement = spec.placement_handle();
+                    (
+                        Box::new(spec) as Box<dyn Spectrometer>,
+                        Some(wafer),
+                        Some(placement),
+                    )
+                }
+            };
         Ok(Bench {
             stage,
             spectrometer,
@@ -176,7 +208,7 @@ impl Bench {
             true_transform: wafer.is_some().then_some(true_transform),
             wafer,
             placement,
-            seed,
+            seeds,
         })
     }
 
@@ -186,7 +218,7 @@ impl Bench {
     /// person does it.
     pub fn reload_simulated(&mut self, reload: u64) -> Option<Placement> {
         let handle = self.placement.as_ref()?;
-        let placed = Placement::reloaded(&self.machine.simulation.wafer, self.seed, reload);
+        let placed = Placement::reloaded(&self.machine.simulation.wafer, self.seeds.run, reload);
         let truth = placed.apply(&self.transform);
         *handle.lock().unwrap_or_else(|e| e.into_inner()) = truth;
         self.true_transform = Some(truth);

@@ -58,7 +58,8 @@ pub struct Args {
     /// Do not ask before the first motion of a real stage.
     #[arg(long)]
     yes: bool,
-    /// Seed of the simulated bench (default: from the clock, so every study reads anew).
+    /// Seed of the simulated bench: its wafer and this study's noise (default: the wafer from
+    /// the wafer id, fresh noise every study).
     #[arg(long)]
     seed: Option<u64>,
     #[command(flatten)]
@@ -99,7 +100,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     };
     let plan = Plan::gauge(&loaded, machine.as_ref(), &sites, settings)?.checked()?;
     let history = args.history.location(&args.runs)?;
-    let seed = args.seed.unwrap_or_else(clock_seed);
+    let seeds = new_run::sim_seeds(&args.wafer, args.seed);
     let table = machine
         .as_ref()
         .map(toml::Table::try_from)
@@ -111,7 +112,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         operator: args.operator,
         runs_dir: args.runs,
         machine: table,
-        seed,
+        seeds,
     };
     let (folder, meta) = new_run::create(&plan, &new)?;
     eprintln!(
@@ -135,14 +136,6 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             watch: None,
         },
     )
-}
-
-/// A seed from the clock: each study on the simulated bench reads new noise.
-fn clock_seed() -> u64 {
-    std::time::SystemTime::now()
-        .duration_since(std::time::UNIX_EPOCH)
-        .map(|d| d.as_nanos() as u64)
-        .unwrap_or(0)
 }
 
 fn nm(v: Option<f64>) -> String {

@@ -44,7 +44,8 @@ pub struct Args {
     /// Print the plan, its path length and estimated duration; move nothing.
     #[arg(long)]
     dry_run: bool,
-    /// Seed of the simulated bench (default: from the wafer id, so each wafer differs).
+    /// Seed of the simulated bench: its wafer and this run's noise (default: the wafer from
+    /// the wafer id, so each wafer differs, and fresh noise every run).
     #[arg(long)]
     seed: Option<u64>,
     /// Centre the wafer from edge scans first and place the sites by the measured centre
@@ -82,7 +83,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         return dry_run(&plan);
     }
     let plan = plan.checked()?;
-    let seed = args.seed.unwrap_or_else(|| seed_of(&args.wafer));
+    let seeds = new_run::sim_seeds(&args.wafer, args.seed);
     let table = machine
         .as_ref()
         .map(toml::Table::try_from)
@@ -94,7 +95,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         operator: args.operator,
         runs_dir: args.runs,
         machine: table,
-        seed,
+        seeds,
     };
     let (folder, meta) = new_run::create(&plan, &new)?;
     eprintln!("run {} in {}", meta.run.id, folder.root.display());
@@ -110,13 +111,6 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             watch: args.watch.then_some(args.listen),
         },
     )
-}
-
-/// A stable seed from the wafer id (FNV-1a), so every simulated wafer is its own.
-fn seed_of(wafer: &str) -> u64 {
-    wafer.bytes().fold(0xcbf2_9ce4_8422_2325u64, |h, b| {
-        (h ^ b as u64).wrapping_mul(0x100_0000_01b3)
-    })
 }
 
 /// Prints the plan in measuring order, its path length and its estimated duration; exit 2

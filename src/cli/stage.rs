@@ -1,13 +1,17 @@
 //! `isopach stage home|where|move X Y [--machine M] [--yes]`: bench set-up.
 //!
 //! Without `--machine` the built-in simulated bench is used. Before the first motion on a real
-//! port the user is asked to confirm (`--yes` skips it); Ctrl-C stops motion.
+//! port the user is asked to confirm (`--yes` skips it); Ctrl-C stops motion. A virtual stage
+//! starts where the previous `stage` command of the bench session left it.
 
 use super::machine_arg;
 use super::output::outln;
 use isopach::bench::machine::builtin_simulated;
+use isopach::bench::open::open_stage_with;
 use isopach::bench::sim::clock::SimClock;
-use isopach::bench::{open_stage, ChuckTransform, Stage};
+use isopach::bench::sim::controller::VirtualConfig;
+use isopach::bench::sim::stage_memory::StageMemory;
+use isopach::bench::{ChuckTransform, Stage};
 use std::path::PathBuf;
 
 /// Arguments of `isopach stage`.
@@ -76,9 +80,27 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         }
         super::safety::confirm_motion(&m.stage.port, args.yes)?;
     }
+    // A virtual stage powers up where the last command of this bench session left it.
+    let memory = m
+        .stage_is_simulated()
+        .then(|| StageMemory::of(args.machine.as_deref()));
+    let mut cfg = VirtualConfig::from_machine(&m);
+    if let Some(mem) = &memory {
+        mem.recall(&mut cfg);
+    }
     let rt = tokio::runtime::Runtime::new()?;
     rt.block_on(async move {
-        let mut stage = open_stage(&m, SimClock::new(m.simulation.time_scale)).await?;
+        let mut stage = open_stage_with(&m, SimClock::new(m.simulation.time_scale), cfg).await?;
+        let keep = |pos: Option<[f64; 2]>| {
+            if let Some(mem) = &memory {
+                if let Err(e) = mem.keep(args.machine.as_deref(), pos) {
+                    eprintln!(
+                        "warning: cannot keep the virtual stage's position in {}: {e}",
+                        mem.file().display()
+                    );
+                }
+            }
+        };
         let work = async {
             match (&args.action, target) {
                 (Action::Home, _) => stage.home().await?,
@@ -94,10 +116,13 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
             r = work => r?,
             _ = tokio::signal::ctrl_c() => {
                 stage.stop().await?;
+                // Stopped mid-move: the virtual board keeps where the carriage stopped.
+                keep(stage.position().await.ok().flatten());
                 eprintln!("stopped by Ctrl-C");
                 return Ok(super::exit::INTERRUPTED);
             }
         };
+        keep(pos);
         print_position(&*stage, pos, &transform);
         Ok(super::exit::OK)
     })

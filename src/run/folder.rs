@@ -27,9 +27,25 @@ pub struct RunMeta {
     /// Where the recipe was read from (for messages; the frozen copy below is what counts).
     #[serde(default)]
     pub recipe_path: String,
-    /// Seed of the simulated bench (noise, virtual wafer), so a resumed run sees the same wafer.
+    /// Seed of the simulated bench's virtual wafer, so a resumed run sees the same wafer (by
+    /// default from the wafer id: every run of one wafer measures the same film).
     #[serde(default)]
     pub seed: u64,
+    /// Seed of this run's own draws on the simulated bench (noise, carriage scatter, where the
+    /// wafer was placed); fresh per run unless given. Runs made before it existed drew them
+    /// from `seed`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub run_seed: Option<u64>,
+}
+
+impl RunMeta {
+    /// The seeds a session of this run opens the simulated bench with.
+    pub fn sim_seeds(&self) -> crate::bench::SimSeeds {
+        crate::bench::SimSeeds {
+            wafer: self.seed,
+            run: self.run_seed.unwrap_or(self.seed),
+        }
+    }
 }
 
 /// The whole `run.toml`: metadata, the recipe as it was, the machine file as it was.

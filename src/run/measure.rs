@@ -250,7 +250,7 @@ pub async fn session(
                 Ok(Bench::open_session(
                     machine.as_ref(),
                     &plan.recipe,
-                    meta.run.seed,
+                    meta.run.sim_seeds(),
                     earlier_sessions,
                 )
                 .await?)

@@ -21,8 +21,23 @@ pub struct NewRun {
     pub runs_dir: PathBuf,
     /// The machine file as a table (`None`: the built-in simulated bench).
     pub machine: Option<toml::Table>,
-    /// Seed of the simulated parts.
-    pub seed: u64,
+    /// Seeds of the simulated bench (its wafer, this run's draws).
+    pub seeds: crate::bench::SimSeeds,
+}
+
+/// The simulated bench's seeds for a new run of `wafer`: `given` seeds both (reproducible, for
+/// tests and demos); otherwise the wafer's comes from its id (FNV-1a, so every run of one wafer
+/// measures the same virtual film) and the run's own draws are fresh.
+pub fn sim_seeds(wafer: &str, given: Option<u64>) -> crate::bench::SimSeeds {
+    match given {
+        Some(seed) => crate::bench::SimSeeds::same(seed),
+        None => crate::bench::SimSeeds {
+            wafer: wafer.bytes().fold(0xcbf2_9ce4_8422_2325u64, |h, b| {
+                (h ^ b as u64).wrapping_mul(0x100_0000_01b3)
+            }),
+            run: rand::random(),
+        },
+    }
 }
 
 /// Folder inside a run that holds the recipe's n,k tables.
@@ -76,7 +91,8 @@ fn stage_and_publish(
             started: now.to_rfc3339_opts(chrono::SecondsFormat::Secs, false),
             tool_version: env!("CARGO_PKG_VERSION").to_string(),
             recipe_path: loaded.path.display().to_string(),
-            seed: new.seed,
+            seed: new.seeds.wafer,
+            run_seed: Some(new.seeds.run),
         },
         recipe,
         machine: new.machine.clone(),

@@ -58,6 +58,7 @@ pub fn run_toml(loaded: &recipe::LoadedRecipe, wafer_id: &str) -> RunToml {
             tool_version: env!("CARGO_PKG_VERSION").into(),
             recipe_path: loaded.path.display().to_string(),
             seed: 7,
+            run_seed: None,
         },
         recipe: loaded.recipe.clone(),
         machine: None,

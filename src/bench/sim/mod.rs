@@ -9,4 +9,5 @@ pub mod placement;
 pub mod pty;
 pub mod server;
 pub mod spectrometer;
+pub mod stage_memory;
 pub mod wafer;

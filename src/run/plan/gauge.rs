@@ -112,7 +112,7 @@ impl Plan {
                     ask: true,
                 });
             }
-            steps.push(Step::Reference(plan.placement()));
+            let mut acquisitions = Vec::new();
             for site in sites {
                 for repeat in 1..=settings.repeats {
                     let motion = match (repeat, settings.mode) {
@@ -120,13 +120,25 @@ impl Plan {
                         (_, GaugeMode::Dynamic) => GaugeMotion::AwayAndBack([0.0; 2]),
                         _ => GaugeMotion::Stay,
                     };
-                    steps.push(plan.gauge_step(site, pass, repeat, motion));
+                    acquisitions.push(plan.gauge_step(site, pass, repeat, motion));
                 }
             }
+            steps.extend(plan.gauge_pass(acquisitions, pass == settings.passes));
         }
         plan.steps = plan.with_legs(steps);
         plan.duration_s = plan.estimate_s();
         Ok(plan)
+    }
+
+    /// One pass: its reference, then its acquisitions with the lamp-drift references the
+    /// machine file asks for between them (counted in acquisitions and minutes, as in a map),
+    /// and after the `last` pass's last acquisition a closing one.
+    fn gauge_pass(&self, acquisitions: Vec<Step>, last: bool) -> Vec<Step> {
+        let mut steps = vec![Step::Reference(self.placement())];
+        let legged = self.with_legs(acquisitions);
+        // Legs are made good once more by the caller; here they only time the steps.
+        steps.extend(self.with_drift_references(legged, last, |s, _| s.clone()));
+        steps
     }
 
     /// The study less the acquisitions already journalled (`done`: site and attempt): the
@@ -165,8 +177,8 @@ impl Plan {
                     ask: left.len() == acquisitions.len(),
                 });
             }
-            steps.push(Step::Reference(self.placement()));
-            steps.extend(left.into_iter().map(|g| Step::Gauge(g.clone())));
+            let left = left.into_iter().map(|g| Step::Gauge(g.clone())).collect();
+            steps.extend(self.gauge_pass(left, pass == settings.passes));
         }
         let mut plan = self.clone();
         plan.steps = plan.with_legs(steps);
@@ -212,10 +224,14 @@ impl Plan {
         let mut out = Vec::with_capacity(steps.len());
         for step in steps {
             let Step::Gauge(mut g) = step else {
+                // A reference taken where the stage stands (simulated, or the lamp-drift
+                // check of a spectrometer that needs no move) leaves a static repeat in place.
                 if let Step::Reference(super::ReferencePlacement::Position(p)) = step {
                     here = p;
+                    previous = None;
+                } else if !matches!(step, Step::Reference(_)) {
+                    previous = None;
                 }
-                previous = None;
                 out.push(step);
                 continue;
             };
@@ -377,6 +393,34 @@ mod tests {
             .map(|g| (g.site.site.number, g.attempt))
             .collect();
         assert_eq!(p.gauge_remaining(&all).gauge_steps().count(), 0);
+    }
+
+    #[test]
+    fn lamp_drift_references_come_between_repeats_as_in_a_map() {
+        let r = recipe();
+        let mut m = crate::bench::machine::builtin_simulated();
+        m.reference.every_sites = 4;
+        let p = Plan::gauge(&r, Some(&m), &sites(), settings(GaugeMode::Static)).unwrap();
+        // Each pass: a reference, then one after every fourth acquisition; a simulated one
+        // does not move the
+        // stage, so the repeat after it stays; one closing reference after the last pass.
+        assert_eq!(shape(&p), "RTSSTRSSRTSSTRSSR");
+        let resumed = p.gauge_remaining(&BTreeSet::new());
+        assert_eq!(
+            shape(&resumed),
+            shape(&p),
+            "a resumed study keeps the cadence"
+        );
+        // A reference piece at a stage position: the repeat after it returns to the site.
+        m.reference.position_mm = Some([20.0, 20.0]);
+        let p = Plan::gauge(&r, Some(&m), &sites(), settings(GaugeMode::Static)).unwrap();
+        assert_eq!(shape(&p), "RTSSTRTSRTSSTRTSR");
+        assert!(
+            p.duration_s
+                > Plan::gauge(&r, None, &sites(), settings(GaugeMode::Static))
+                    .unwrap()
+                    .duration_s
+        );
     }
 
     #[test]

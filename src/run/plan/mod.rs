@@ -314,53 +314,78 @@ impl Plan {
         (t, end)
     }
 
-    /// The site steps in the order given, with the lamp-drift references between them when
-    /// the machine file asks for them: before a site once `every_sites` sites were measured
-    /// since the last reference, or once the site would end more than `every_min` after it
-    /// (by this plan's own duration estimate), and one after the last site so that every
-    /// site lies between two references.
+    /// The site steps in the order given, each with its legs from the site before, and the
+    /// lamp-drift references the machine file asks for ([`Plan::with_drift_references`]).
     fn measuring_steps(&self, sites: &[Site]) -> Vec<Step> {
         let transform = self.transform();
         let limits = SoftLimits::from_spec(&self.machine.stage);
         let approach = Approach::from_spec(&self.machine.stage);
+        let site_from = |step: &Step, from: [f64; 2]| match step {
+            Step::Site(s) => Step::Site(SiteStep {
+                legs: approach.moves(Some(from), s.stage_mm),
+                ..s.clone()
+            }),
+            other => other.clone(),
+        };
+        let mut here = self.start_mm();
+        let steps = sites
+            .iter()
+            .map(|s| {
+                let stage_mm = transform.to_stage(s.x_mm, s.y_mm);
+                let step = Step::Site(SiteStep {
+                    site: *s,
+                    stage_mm,
+                    legs: Vec::new(),
+                    outside: check_site(s, &transform, &limits, &approach).err(),
+                });
+                let step = site_from(&step, here);
+                here = stage_mm;
+                step
+            })
+            .collect();
+        self.with_drift_references(steps, true, site_from)
+    }
+
+    /// `steps` (measuring steps in order, each with its legs from the step before) with the
+    /// lamp-drift references the machine file asks for: before a step once `every_sites`
+    /// acquisitions were taken since the last reference, or once the step would end more than
+    /// `every_min` after it (by this plan's own duration estimate), and with `close` one after
+    /// the last, so that every acquisition lies between two references. `from` gives a step
+    /// its legs again from where a reference left the stage.
+    fn with_drift_references(
+        &self,
+        steps: Vec<Step>,
+        close: bool,
+        from: impl Fn(&Step, [f64; 2]) -> Step,
+    ) -> Vec<Step> {
         let every_sites = self.machine.reference.every_sites as usize;
         let every_s = self.machine.reference.every_min * 60.0;
         let repeats = self.repeats_reference();
         let reference = Step::Reference(self.placement());
         let mut here = self.start_mm();
         let (mut since_sites, mut since_s) = (0usize, 0.0);
-        let mut steps = Vec::new();
-        for s in sites {
-            let stage_mm = transform.to_stage(s.x_mm, s.y_mm);
-            let site = |from: [f64; 2]| {
-                Step::Site(SiteStep {
-                    site: *s,
-                    stage_mm,
-                    legs: approach.moves(Some(from), stage_mm),
-                    outside: check_site(s, &transform, &limits, &approach).err(),
-                })
-            };
-            let mut step = site(here);
-            let (mut t, _) = self.step_s(here, &step);
+        let mut out = Vec::with_capacity(steps.len() + 2);
+        for mut step in steps {
+            let (mut t, mut end) = self.step_s(here, &step);
             let due = (every_sites > 0 && since_sites >= every_sites)
                 || (every_s > 0.0 && since_s + t > every_s);
             if repeats && since_sites > 0 && due {
                 let (t_ref, at) = self.step_s(here, &reference);
-                steps.push(reference.clone());
+                out.push(reference.clone());
                 here = at;
-                step = site(here);
-                t = self.step_s(here, &step).0;
+                step = from(&step, here);
+                (t, end) = self.step_s(here, &step);
                 (since_sites, since_s) = (0, t_ref);
             }
-            steps.push(step);
-            here = stage_mm;
+            out.push(step);
+            here = end;
             since_sites += 1;
             since_s += t;
         }
-        if repeats && since_sites > 0 {
-            steps.push(reference);
+        if repeats && close && since_sites > 0 {
+            out.push(reference);
         }
-        steps
+        out
     }
 
     /// From the home corner: every step in order (the moves to the reference piece and its

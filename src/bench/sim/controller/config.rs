@@ -18,6 +18,9 @@ pub struct VirtualConfig {
     pub accel_mm_s2: f64,
     /// Where homing ends and where the stage sits at power-up.
     pub home_mm: [f64; 2],
+    /// Where the stage sits at power-up instead of home: where an earlier command of the
+    /// bench session left it ([`crate::bench::sim::stage_memory`]).
+    pub start_mm: Option<[f64; 2]>,
     pub faults: Vec<FaultSpec>,
     pub dialect: Dialect,
     /// After an alarm the board takes nothing, not even a reset, for this long, s.
@@ -41,6 +44,7 @@ impl VirtualConfig {
             max_feed_mm_min: s.feed_mm_min.max(1.0) * 2.0,
             accel_mm_s2: s.accel_mm_s2,
             home_mm: [s.travel_x_mm[0], s.travel_y_mm[0]],
+            start_mm: None,
             faults: m.simulation.faults.clone(),
             dialect: c.dialect,
             post_alarm_delay_s: c.post_alarm_delay_ms / 1000.0,

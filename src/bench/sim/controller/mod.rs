@@ -120,7 +120,8 @@ pub struct VirtualController {
 }
 
 impl VirtualController {
-    /// A controller just powered up at virtual time `now`: banner out, stage at home.
+    /// A controller just powered up at virtual time `now`: banner out, stage at home (or where
+    /// the bench session left it).
     pub fn new(cfg: VirtualConfig, now: f64) -> VirtualController {
         let dialect = dialect::of(cfg.dialect);
         let mut v = VirtualController {
@@ -130,7 +131,7 @@ impl VirtualController {
             } else {
                 Mode::Normal
             },
-            pos: cfg.home_mm,
+            pos: cfg.start_mm.unwrap_or(cfg.home_mm),
             feed_mm_min: cfg.max_feed_mm_min / 2.0,
             absolute: true,
             inches: false,
@@ -777,6 +778,7 @@ pub(super) mod test_support {
             max_feed_mm_min: 6000.0,
             accel_mm_s2: 500.0,
             home_mm: [0.0, 0.0],
+            start_mm: None,
             faults: vec![],
             dialect: Dialect::Grbl,
             post_alarm_delay_s: 0.15,
