@@ -143,33 +143,67 @@ pub async fn wait_for_stop_signal() -> &'static str {
     "Ctrl-C"
 }
 
+/// One acquisition's outcome, once: a site fitted again (with the lamp-drift reference
+/// interpolated after the next one is taken) updates its message but is not counted twice.
+struct Acquisitions {
+    counted: std::collections::HashSet<(usize, u32)>,
+}
+
+impl Acquisitions {
+    fn new() -> Acquisitions {
+        Acquisitions {
+            counted: Default::default(),
+        }
+    }
+
+    /// The site, whether this is its acquisition's first outcome, and what to show of it.
+    fn outcome(&mut self, e: &RunEvent, digits: usize) -> Option<(usize, bool, String)> {
+        let (site, attempt, text) = match e {
+            RunEvent::Journal(Event::SiteFitted {
+                site,
+                attempt,
+                fit,
+                valid,
+                flag,
+                ..
+            }) => (
+                *site,
+                *attempt,
+                if *valid {
+                    format!("{:.digits$} nm", fit.thickness_nm())
+                } else {
+                    flag.clone()
+                },
+            ),
+            RunEvent::Journal(Event::SiteFailed {
+                site,
+                attempt,
+                reason,
+                ..
+            }) => (*site, *attempt, reason.clone()),
+            _ => return None,
+        };
+        Some((site, self.counted.insert((site, attempt)), text))
+    }
+}
+
 /// The progress bar as a subscriber of the run events.
 fn progress_display(bar: ProgressBar) -> Box<dyn Subscriber> {
+    let mut seen = Acquisitions::new();
     Box::new(Watcher(move |e: &RunEvent| match e {
         RunEvent::Pass { sites, .. } => bar.set_length(bar.length().unwrap_or(0) + *sites as u64),
-        RunEvent::Journal(Event::SiteFitted {
-            site,
-            fit,
-            valid,
-            flag,
-            ..
-        }) => {
-            bar.inc(1);
-            bar.set_message(if *valid {
-                format!("site {site}: {:.1} nm", fit.thickness_nm())
-            } else {
-                format!("site {site}: {flag}")
-            });
-        }
-        RunEvent::Journal(Event::SiteFailed { site, reason, .. }) => {
-            bar.inc(1);
-            bar.set_message(format!("site {site}: {reason}"));
-        }
         // A hidden bar (stderr not a terminal) drops its println: notes such as
         // "measuring again: site 12" must still reach the log.
         RunEvent::Note(n) if bar.is_hidden() => eprintln!("{n}"),
         RunEvent::Note(n) => bar.println(n),
-        _ => {}
+        _ => {
+            if let Some((site, first, text)) = seen.outcome(e, 1) {
+                if first {
+                    bar.inc(1);
+                }
+                bar.set_message(format!("site {site}: {text}"));
+            }
+        }
     }))
 }
 
@@ -178,45 +212,25 @@ fn seconds_per_site(plan: &Plan) -> f64 {
     plan.duration_s / plan.sites().count().max(1) as f64
 }
 
-/// One plain line per site for a log: `[5/49] site 17: 1001.23 nm · about 40 s left`, the
-/// time left from the plan's estimate for the measurements still to come.
+/// One plain line per acquisition for a log: `[5/49] site 17: 1001.23 nm · about 40 s left`,
+/// the time left from the plan's estimate for the measurements still to come; a site fitted
+/// again (lamp drift) is not counted twice.
 fn progress_lines(per_site_s: f64) -> Box<dyn Subscriber> {
     let (mut done, mut total) = (0usize, 0usize);
-    Box::new(Watcher(move |e: &RunEvent| {
-        let result = match e {
-            RunEvent::Pass { sites, .. } => {
-                total += sites;
-                return;
+    let mut seen = Acquisitions::new();
+    Box::new(Watcher(move |e: &RunEvent| match e {
+        RunEvent::Pass { sites, .. } => total += sites,
+        RunEvent::Note(n) => eprintln!("{n}"),
+        _ => {
+            if let Some((site, true, text)) = seen.outcome(e, 2) {
+                done += 1;
+                eprintln!(
+                    "[{done}/{}] site {site}: {text} · {}",
+                    total.max(done),
+                    time_left(total.saturating_sub(done), per_site_s)
+                );
             }
-            RunEvent::Journal(Event::SiteFitted {
-                site,
-                fit,
-                valid,
-                flag,
-                ..
-            }) => (
-                *site,
-                if *valid {
-                    format!("{:.2} nm", fit.thickness_nm())
-                } else {
-                    flag.clone()
-                },
-            ),
-            RunEvent::Journal(Event::SiteFailed { site, reason, .. }) => (*site, reason.clone()),
-            RunEvent::Note(n) => {
-                eprintln!("{n}");
-                return;
-            }
-            _ => return,
-        };
-        done += 1;
-        eprintln!(
-            "[{done}/{}] site {}: {} · {}",
-            total.max(done),
-            result.0,
-            result.1,
-            time_left(total.saturating_sub(done), per_site_s)
-        );
+        }
     }))
 }
 

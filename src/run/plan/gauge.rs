@@ -402,8 +402,8 @@ mod tests {
         m.reference.every_sites = 4;
         let p = Plan::gauge(&r, Some(&m), &sites(), settings(GaugeMode::Static)).unwrap();
         // Each pass: a reference, then one after every fourth acquisition; a simulated one
-        // does not move the
-        // stage, so the repeat after it stays; one closing reference after the last pass.
+        // does not move the stage, so the repeat after it stays; one closing reference after
+        // the last pass.
         assert_eq!(shape(&p), "RTSSTRSSRTSSTRSSR");
         let resumed = p.gauge_remaining(&BTreeSet::new());
         assert_eq!(
