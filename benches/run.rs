@@ -6,7 +6,8 @@
 //!    fitting and writing hide behind motion;
 //! 2. planned path length against a 2-opt tour, for grid and custom plans;
 //! 3. ordering time of large custom plans (up to the 10 000-site ceiling), and the path of the
-//!    neighbour-list 2-opt used above 500 sites against exhaustive 2-opt.
+//!    neighbour-list 2-opt used above 500 sites against exhaustive 2-opt;
+//! 4. the whole `isopach refit` command on a dense run (spectra per second, on disk).
 
 use isopach::bench::machine::{parse, BUILTIN_SIMULATED};
 use isopach::recipe::{self, pattern, schema::PatternSpec, Site};
@@ -23,6 +24,10 @@ fn main() {
     println!("| recipe | sites | wall, median [range] | CPU, median [range] | kinematic bound | fixed: start-up + outputs | wall / (bound + fixed) |");
     println!("|---|---|---|---|---|---|---|");
     whole_command_runs(&root.join("recipes").join("oxide-150-49.toml"), 3);
+    println!("\n## The whole `isopach refit` command on a dense run, on disk\n");
+    println!("| sites | refit wall, median [range] | CPU, median | spectra/s (whole command) | render alone | spectra/s (refit less render) |");
+    println!("|---|---|---|---|---|---|");
+    refit_runs(&root.join("recipes").join("oxide-150-49.toml"), 5);
     println!("\n## Planned path against a 2-opt tour\n");
     println!("| plan | sites | planned path | 2-opt tour | ratio |");
     println!("|---|---|---|---|---|");
@@ -91,6 +96,69 @@ fn main() {
             took * 1e3
         );
     }
+}
+
+/// The whole `isopach refit` command, `repeats` times, on a run of the oxide recipe made dense
+/// (a 4 mm grid: about 960 sites) on a fast simulated bench, in a folder on disk beside the
+/// build (not a RAM file system); against `render` of the same run, the outputs part of it.
+fn refit_runs(recipe_path: &Path, repeats: usize) {
+    let text = std::fs::read_to_string(recipe_path).unwrap().replace(
+        "kind = \"standard\"\nsites = 49",
+        "kind = \"grid\"\npitch_mm = 4",
+    );
+    let scratch = Path::new(env!("CARGO_TARGET_TMPDIR"));
+    let dir = tempfile::tempdir_in(scratch).unwrap();
+    let recipe = dir.path().join("dense.toml");
+    std::fs::write(&recipe, text).unwrap();
+    let machine = dir.path().join("fast.toml");
+    std::fs::write(
+        &machine,
+        BUILTIN_SIMULATED.replace("time_scale = 25", "time_scale = 2000"),
+    )
+    .unwrap();
+    let runs = dir.path().join("runs");
+    let (r, m, out) = (
+        recipe.to_str().unwrap(),
+        machine.to_str().unwrap(),
+        runs.to_str().unwrap(),
+    );
+    timed_command(&[
+        "run",
+        r,
+        "--machine",
+        m,
+        "--wafer",
+        "D1",
+        "--runs",
+        out,
+        "--seed",
+        "3",
+    ]);
+    let run = std::fs::read_dir(&runs)
+        .unwrap()
+        .next()
+        .unwrap()
+        .unwrap()
+        .path();
+    let run = run.to_str().unwrap();
+    let sites = std::fs::read_dir(Path::new(run).join("spectra"))
+        .unwrap()
+        .count();
+    let (mut walls, mut cpus, mut renders) = (vec![], vec![], vec![]);
+    for _ in 0..repeats {
+        let (w, c) = timed_command(&["refit", run]);
+        walls.push(w);
+        cpus.push(c);
+        renders.push(timed_command(&["render", run]).0);
+    }
+    let (wall, lo, hi) = spread(&walls);
+    let (cpu, _, _) = spread(&cpus);
+    let (render, _, _) = spread(&renders);
+    println!(
+        "| {sites} | {wall:.3} s [{lo:.3}–{hi:.3}] | {cpu:.3} s | {:.0} | {render:.3} s | {:.0} |",
+        sites as f64 / wall,
+        sites as f64 / (wall - render)
+    );
 }
 
 /// Planned path vs a 2-opt tour (nearest neighbour from the centre, then 2-opt).

@@ -26,6 +26,17 @@ pub fn temp_writer(name: &str) -> Option<u32> {
 /// under its name is removed, never followed), and the rename replaces a link at `path`
 /// rather than writing through it.
 pub fn write_atomic(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
+    write_through_temp(path, bytes, true)
+}
+
+/// [`write_atomic`] without the sync: readers see the whole file at once, and the caller
+/// syncs it later (a crash before that may leave an empty or missing file, never a torn one
+/// under the name of a complete one that was synced).
+pub fn write_atomic_unsynced(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
+    write_through_temp(path, bytes, false)
+}
+
+fn write_through_temp(path: &Path, bytes: &[u8], sync: bool) -> std::io::Result<()> {
     let dir = path
         .parent()
         .filter(|d| !d.as_os_str().is_empty())
@@ -36,7 +47,9 @@ pub fn write_atomic(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
     {
         let mut f = OpenOptions::new().write(true).create_new(true).open(&tmp)?;
         f.write_all(bytes)?;
-        f.sync_all()?;
+        if sync {
+            f.sync_all()?;
+        }
     }
     std::fs::rename(&tmp, path).inspect_err(|_| {
         let _ = std::fs::remove_file(&tmp);

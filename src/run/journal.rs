@@ -123,7 +123,17 @@ impl Journal {
                 .map_err(|e| io(std::io::Error::new(std::io::ErrorKind::InvalidData, e)))?;
             lines.push(b'\n');
         }
-        self.file.write_all(&lines).map_err(io)?;
+        self.append_lines(&lines)
+    }
+
+    /// Appends complete lines (each a serialised event ending in a newline) in one write and
+    /// syncs once.
+    pub fn append_lines(&mut self, lines: &[u8]) -> Result<(), JournalError> {
+        let io = |source| JournalError::Io {
+            path: self.path.clone(),
+            source,
+        };
+        self.file.write_all(lines).map_err(io)?;
         self.file.sync_data().map_err(io)
     }
 }

@@ -10,6 +10,7 @@ use super::events::{journalled_centring, now, Event, SiteState};
 use super::fit_workers::FitWorkers;
 use super::folder::{RunFolder, RunToml};
 use super::journal::Journal;
+use super::journal_writer::JournalWriter;
 use super::new_run::loaded_recipe;
 use super::plan::{Plan, PlanError};
 use super::refit::fit_stored;
@@ -203,7 +204,8 @@ pub async fn session(
     };
     let workers = FitWorkers::new(plan.fitter.clone(), plan.reference_material.clone());
     let mut stream = EventStream::new();
-    stream.subscribe(Journal::open(&folder.journal())?);
+    let writer = JournalWriter::start(Journal::open(&folder.journal())?)?;
+    stream.subscribe(writer.clone());
     stream.subscribe(workers.clone());
     stream.subscribe_all(hooks.subscribers);
     let scope = Scope::new(hooks.cancel);
@@ -214,7 +216,8 @@ pub async fn session(
         scope.clone(),
         plan.accept().clone(),
     )
-    .with_prompt(hooks.prompt);
+    .with_prompt(hooks.prompt)
+    .with_writer(writer);
     for w in plan.fitter.warnings() {
         seq.publish(RunEvent::Note(format!("warning: {w}")))?;
     }
@@ -293,6 +296,7 @@ pub async fn session(
             }
         }
     };
+    seq.flush()?;
     let (_, states) = derive::read_states(folder, meta)?;
     if matches!(outcome, Outcome::Finished) && states.iter().all(|s| !s.attempts.is_empty()) {
         if plan.fitter.shared_dispersion() {
@@ -300,6 +304,7 @@ pub async fn session(
         }
         seq.log(Event::RunFinished { time: now() })?;
     }
+    seq.flush()?;
     let summary = derive::rebuild(folder)?;
     // Written by the rebuild with the other derived files.
     let gauge = match plan.gauge {

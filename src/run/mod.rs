@@ -11,6 +11,7 @@ pub mod gauge;
 pub mod history_entry;
 pub mod id;
 pub mod journal;
+pub mod journal_writer;
 pub mod live;
 pub mod machine_change;
 pub mod measure;

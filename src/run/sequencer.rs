@@ -20,6 +20,7 @@ use super::drift::{normalised_between, seconds, TakenReference};
 use super::events::{fit_event, now, Event};
 use super::fit_workers::{FitWorkers, Pending};
 use super::folder::RunFolder;
+use super::journal_writer::JournalWriter;
 use super::plan::{GaugeMotion, Plan, PlanError, ReferencePlacement, SiteStep, Step};
 use super::stream::{EventStream, RunEvent};
 use crate::bench::centring::probe::ProbeSettings;
@@ -107,6 +108,9 @@ pub struct Sequencer {
     last_reference: Option<TakenReference>,
     /// Sites measured since it: site, attempt, time, spectrum.
     since_reference: Vec<(usize, u32, f64, Arc<RawSpectrum>)>,
+    /// Syncs spectrum files off the critical path, in order with the journal (when the
+    /// journal is written by one; otherwise each file is synced before the stage moves on).
+    writer: Option<JournalWriter>,
 }
 
 impl Sequencer {
@@ -132,7 +136,20 @@ impl Sequencer {
             failed_in_a_row: 0,
             last_reference: None,
             since_reference: Vec::new(),
+            writer: None,
         }
+    }
+
+    /// Spectrum files are synced by `writer`, the thread that writes the journal (subscribed
+    /// to the stream), in order with the events that name them.
+    pub fn with_writer(mut self, writer: JournalWriter) -> Sequencer {
+        self.writer = Some(writer);
+        self
+    }
+
+    /// Waits until every event published so far is on disk (before the journal is read back).
+    pub fn flush(&self) -> anyhow::Result<()> {
+        self.writer.as_ref().map_or(Ok(()), JournalWriter::flush)
     }
 
     /// How to ask the operator for a hand step (without one, such a step is a fault).
@@ -146,7 +163,8 @@ impl Sequencer {
         self.stream.publish(event)
     }
 
-    /// Publishes a journal event (persisted and synced before returning).
+    /// Publishes a journal event (persisted by the journal subscriber: synced before
+    /// returning, or queued in order on the journal writer; see [`Sequencer::flush`]).
     pub fn log(&mut self, event: Event) -> anyhow::Result<()> {
         self.publish(RunEvent::Journal(event))
     }
@@ -475,8 +493,13 @@ impl Sequencer {
         let mut bytes = Vec::new();
         write_counts_csv(&mut bytes, raw, &[])?;
         let path = self.folder.root.join(rel);
-        super::files::write_atomic(&path, &bytes)
-            .with_context(|| format!("cannot write {}", path.display()))
+        let Some(writer) = &self.writer else {
+            return super::files::write_atomic(&path, &bytes)
+                .with_context(|| format!("cannot write {}", path.display()));
+        };
+        super::files::write_atomic_unsynced(&path, &bytes)
+            .with_context(|| format!("cannot write {}", path.display()))?;
+        writer.sync_file(path)
     }
 
     /// Measures one site and hands its spectrum to the fitting workers; journals the fits
@@ -642,6 +665,15 @@ impl Sequencer {
         match stop {
             Stop::Interrupted => Outcome::Interrupted,
             Stop::Fault(e) => Outcome::Failed(e),
+        }
+    }
+}
+
+impl Drop for Sequencer {
+    /// A session that ends by an error still gets what it queued onto the disk.
+    fn drop(&mut self) {
+        if let Err(e) = self.flush() {
+            tracing::error!("the journal could not be completed: {e:#}");
         }
     }
 }
