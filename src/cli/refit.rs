@@ -92,6 +92,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         );
     }
     let bar = ProgressBar::new(attempts.len() as u64);
+    let started = std::time::Instant::now();
     let events = if fitter.shared_dispersion() {
         // One dispersion for every site (film.dispersion = "shared"), then the fits with it.
         refit::shared_dispersion_fits(
@@ -123,6 +124,12 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
     // journalled, so a kill in between loses nothing that counted.
     journal.append_all(&events)?;
     journal.append(&Event::RefitFinished { time: now() })?;
+    let took = started.elapsed().as_secs_f64();
+    eprintln!(
+        "fitted {} spectra in {took:.3} s ({:.0} spectra/s), journalled with one sync",
+        attempts.len(),
+        attempts.len() as f64 / took.max(1e-9)
+    );
     let summary = derive::rebuild(&folder)?;
     if let Some(note) = super::history_arg::block_on(history_entry::record(&history, &folder))? {
         eprintln!("warning: {note}");

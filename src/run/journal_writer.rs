@@ -123,7 +123,7 @@ fn work(mut journal: Journal, queue: mpsc::Receiver<Job>, failed: Arc<Mutex<Opti
                     lines.clear();
                     match other {
                         Job::Sync(path) if ok => {
-                            ok = sync_file(&path).map_err(|e| fail(e)).is_ok();
+                            ok = sync_file(&path).map_err(&fail).is_ok();
                         }
                         Job::Flush(done) => {
                             let _ = done.send(());

@@ -164,7 +164,9 @@ pub fn stored_attempts(states: &[SiteState]) -> Vec<(usize, u32, String)> {
         .collect()
 }
 
-/// Fits many stored attempts on all cores; events come back in the order given.
+/// Fits many stored attempts on all cores; events come back in the order given. Workers take
+/// the next attempt as they finish one (fits differ in cost), and a worker that panics
+/// takes the refit down with it rather than leaving its sites out.
 pub fn fit_all(
     folder: &RunFolder,
     attempts: &[(usize, u32, String)],
@@ -174,19 +176,25 @@ pub fn fit_all(
     accept: &AcceptSpec,
     on_done: &(dyn Fn() + Sync),
 ) -> Vec<Event> {
+    use std::sync::atomic::{AtomicUsize, Ordering};
     let workers = std::thread::available_parallelism()
         .map(|n| n.get())
         .unwrap_or(1)
-        .max(1);
-    let chunk = attempts.len().div_ceil(workers).max(1);
-    std::thread::scope(|scope| {
-        let handles: Vec<_> = attempts
-            .chunks(chunk)
-            .map(|part| {
-                scope.spawn(move || {
-                    part.iter()
-                        .map(|(site, attempt, rel)| {
-                            let e = fit_stored(
+        .clamp(1, attempts.len().max(1));
+    let next = AtomicUsize::new(0);
+    let mut fitted: Vec<(usize, Event)> = std::thread::scope(|scope| {
+        let handles: Vec<_> = (0..workers)
+            .map(|_| {
+                scope.spawn(|| {
+                    let mut mine = Vec::new();
+                    loop {
+                        let i = next.fetch_add(1, Ordering::Relaxed);
+                        let Some((site, attempt, rel)) = attempts.get(i) else {
+                            return mine;
+                        };
+                        mine.push((
+                            i,
+                            fit_stored(
                                 folder,
                                 *site,
                                 *attempt,
@@ -195,19 +203,20 @@ pub fn fit_all(
                                 fitter,
                                 reference_material,
                                 accept,
-                            );
-                            on_done();
-                            e
-                        })
-                        .collect::<Vec<_>>()
+                            ),
+                        ));
+                        on_done();
+                    }
                 })
             })
             .collect();
         handles
             .into_iter()
-            .flat_map(|h| h.join().unwrap_or_default())
+            .flat_map(|h| h.join().unwrap_or_else(|p| std::panic::resume_unwind(p)))
             .collect()
-    })
+    });
+    fitted.sort_unstable_by_key(|(i, _)| *i);
+    fitted.into_iter().map(|(_, e)| e).collect()
 }
 
 /// Why a recipe cannot refit a run.

@@ -6,7 +6,7 @@
 use super::saturation::clipped_pixels;
 use super::{Counts, RawSpectrum, Spectrum, SpectrumError};
 use crate::optics::table::csv_record;
-use std::io::{self, BufRead, BufReader, Read, Write};
+use std::io::{self, Read, Write};
 use std::path::Path;
 
 /// The two forms a spectrum file can take.
@@ -30,8 +30,8 @@ pub const MAX_PIXELS: usize = 100_000;
 /// take about 10 MB; the rest is room for comments.
 pub const MAX_FILE_BYTES: u64 = 32 << 20;
 
-/// Reads and parses a spectrum file, line by line: no more than [`MAX_FILE_BYTES`] is ever
-/// read and only the parsed columns are held.
+/// Reads and parses a spectrum file: no more than [`MAX_FILE_BYTES`] is ever read (one read
+/// for a regular file, which a refit of a thousand sites does a thousand times).
 pub fn read_csv(path: &Path) -> Result<SpectrumFile, SpectrumError> {
     let io_err = |source| SpectrumError::Io {
         path: path.to_path_buf(),
@@ -50,23 +50,14 @@ pub fn read_csv(path: &Path) -> Result<SpectrumFile, SpectrumError> {
         return Err(too_large(size.to_string()));
     }
     // The bound holds for files whose size the metadata does not tell (pipes, devices).
-    let mut reader = BufReader::new(file.take(MAX_FILE_BYTES + 1));
-    let mut parser = Parser::new(path);
-    let (mut buf, mut read, mut line) = (Vec::new(), 0u64, 0);
-    loop {
-        buf.clear();
-        let n = reader.read_until(b'\n', &mut buf).map_err(io_err)?;
-        if n == 0 {
-            break;
-        }
-        read += n as u64;
-        if read > MAX_FILE_BYTES {
-            return Err(too_large(format!("more than {MAX_FILE_BYTES}")));
-        }
-        line += 1;
-        parser.line(line, &String::from_utf8_lossy(&buf))?;
+    let mut bytes = Vec::with_capacity(size as usize + 1);
+    file.take(MAX_FILE_BYTES + 1)
+        .read_to_end(&mut bytes)
+        .map_err(io_err)?;
+    if bytes.len() as u64 > MAX_FILE_BYTES {
+        return Err(too_large(format!("more than {MAX_FILE_BYTES}")));
     }
-    parser.finish()
+    parse_csv(&String::from_utf8_lossy(&bytes), path)
 }
 
 /// Parses spectrum CSV text; `path` is used in messages.
