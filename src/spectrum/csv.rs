@@ -103,28 +103,17 @@ impl<'a> Parser<'a> {
 
     /// Takes line number `line` (1-based) of the file.
     fn line(&mut self, line: usize, raw: &str) -> Result<(), SpectrumError> {
-        let Some((t, cells)) = csv_record(raw) else {
-            return Ok(());
-        };
         let Some(ncol) = self.columns else {
-            let names: Vec<String> = cells.iter().map(|c| c.to_lowercase()).collect();
-            self.columns = Some(match names.iter().map(String::as_str).collect::<Vec<_>>()[..] {
-                ["wavelength_nm", "reflectance"] => 2,
-                ["wavelength_nm", "sample", "dark", "reference"] => 4,
-                _ => {
-                    return Err(self.at(
-                        line,
-                        format!("header \"{}\" is not a spectrum header: use wavelength_nm,reflectance or wavelength_nm,sample,dark,reference", short(t)),
-                    ))
-                }
-            });
-            return Ok(());
+            return self.header(line, raw);
         };
-        if cells.len() != ncol {
-            return Err(self.at(
-                line,
-                format!("{} fields, the header has {ncol}", cells.len()),
-            ));
+        let t = raw.trim().trim_start_matches('\u{feff}');
+        if t.is_empty() || t.starts_with('#') {
+            return Ok(());
+        }
+        // Cells are counted before any is parsed, so a row of the wrong width says so first.
+        let fields = t.bytes().filter(|&b| b == b',').count() + 1;
+        if fields != ncol {
+            return Err(self.at(line, format!("{fields} fields, the header has {ncol}")));
         }
         if self.lines.len() == MAX_PIXELS {
             return Err(self.at(
@@ -133,7 +122,7 @@ impl<'a> Parser<'a> {
             ));
         }
         let mut row = [0.0; 4];
-        for (j, c) in cells.iter().enumerate() {
+        for (j, c) in t.split(',').map(str::trim).enumerate() {
             let v: f64 = c.parse().map_err(|_| {
                 self.at(
                     line,
@@ -182,6 +171,25 @@ impl<'a> Parser<'a> {
             column.push(*v);
         }
         self.lines.push(line);
+        Ok(())
+    }
+
+    /// Takes the header line (blank and comment lines before it are skipped).
+    fn header(&mut self, line: usize, raw: &str) -> Result<(), SpectrumError> {
+        let Some((t, cells)) = csv_record(raw) else {
+            return Ok(());
+        };
+        let names: Vec<String> = cells.iter().map(|c| c.to_lowercase()).collect();
+        self.columns = Some(match names.iter().map(String::as_str).collect::<Vec<_>>()[..] {
+            ["wavelength_nm", "reflectance"] => 2,
+            ["wavelength_nm", "sample", "dark", "reference"] => 4,
+            _ => {
+                return Err(self.at(
+                    line,
+                    format!("header \"{}\" is not a spectrum header: use wavelength_nm,reflectance or wavelength_nm,sample,dark,reference", short(t)),
+                ))
+            }
+        });
         Ok(())
     }
 
