@@ -25,8 +25,8 @@ fn main() {
     println!("|---|---|---|---|---|---|---|");
     whole_command_runs(&root.join("recipes").join("oxide-150-49.toml"), 3);
     println!("\n## The whole `isopach refit` command on a dense run, on disk\n");
-    println!("| sites | refit wall, median [range] | CPU, median | spectra/s (whole command) | render alone | spectra/s (refit less render) |");
-    println!("|---|---|---|---|---|---|");
+    println!("| spectra | refit wall, median [range] | CPU, median | spectra/s, whole command | fit phase, median [range] | spectra/s, fit phase | render alone |");
+    println!("|---|---|---|---|---|---|---|");
     refit_runs(&root.join("recipes").join("oxide-150-49.toml"), 5);
     println!("\n## Planned path against a 2-opt tour\n");
     println!("| plan | sites | planned path | 2-opt tour | ratio |");
@@ -144,20 +144,34 @@ fn refit_runs(recipe_path: &Path, repeats: usize) {
     let sites = std::fs::read_dir(Path::new(run).join("spectra"))
         .unwrap()
         .count();
-    let (mut walls, mut cpus, mut renders) = (vec![], vec![], vec![]);
+    let (mut walls, mut cpus, mut phases, mut renders) = (vec![], vec![], vec![], vec![]);
     for _ in 0..repeats {
-        let (w, c) = timed_command(&["refit", run]);
+        let (w, c, err) = timed_command_err(&["refit", run]);
         walls.push(w);
         cpus.push(c);
+        // `fitted N spectra in X s (…)`: reading, normalising, fitting and journalling.
+        let (n, phase) = err
+            .lines()
+            .find_map(|l| {
+                let (n, rest) = l.strip_prefix("fitted ")?.split_once(" spectra in ")?;
+                Some((
+                    n.parse::<usize>().ok()?,
+                    rest.split(' ').next()?.parse::<f64>().ok()?,
+                ))
+            })
+            .expect("refit prints its fit phase");
+        spectra = n;
+        phases.push(phase);
         renders.push(timed_command(&["render", run]).0);
     }
     let (wall, lo, hi) = spread(&walls);
     let (cpu, _, _) = spread(&cpus);
+    let (phase, p_lo, p_hi) = spread(&phases);
     let (render, _, _) = spread(&renders);
     println!(
-        "| {sites} | {wall:.3} s [{lo:.3}–{hi:.3}] | {cpu:.3} s | {:.0} | {render:.3} s | {:.0} |",
-        sites as f64 / wall,
-        sites as f64 / (wall - render)
+        "| {spectra} | {wall:.3} s [{lo:.3}–{hi:.3}] | {cpu:.3} s | {:.0} | {phase:.3} s [{p_lo:.3}–{p_hi:.3}] | {:.0} | {render:.3} s |",
+        spectra as f64 / wall,
+        spectra as f64 / phase
     );
 }
 
@@ -178,6 +192,12 @@ fn path_row(name: &str, spec: &PatternSpec, sites: &[Site]) {
 /// Wall and CPU seconds of one whole command, from spawn to exit (CPU: the child's user +
 /// system time, from `getrusage(RUSAGE_CHILDREN)` around it).
 fn timed_command(args: &[&str]) -> (f64, f64) {
+    let (wall, cpu, _) = timed_command_err(args);
+    (wall, cpu)
+}
+
+/// [`timed_command`], with what the command wrote on stderr.
+fn timed_command_err(args: &[&str]) -> (f64, f64, String) {
     let cpu = || {
         // SAFETY: rusage is plain data the kernel fills.
         let mut u: libc::rusage = unsafe { std::mem::zeroed() };
@@ -196,7 +216,11 @@ fn timed_command(args: &[&str]) -> (f64, f64) {
         "isopach {args:?}: {}",
         String::from_utf8_lossy(&o.stderr)
     );
-    (wall, cpu() - c0)
+    (
+        wall,
+        cpu() - c0,
+        String::from_utf8_lossy(&o.stderr).into_owned(),
+    )
 }
 
 /// Median, min and max of `v`.
