@@ -141,9 +141,7 @@ fn refit_runs(recipe_path: &Path, repeats: usize) {
         .unwrap()
         .path();
     let run = run.to_str().unwrap();
-    let sites = std::fs::read_dir(Path::new(run).join("spectra"))
-        .unwrap()
-        .count();
+    let mut spectra = 0;
     let (mut walls, mut cpus, mut phases, mut renders) = (vec![], vec![], vec![], vec![]);
     for _ in 0..repeats {
         let (w, c, err) = timed_command_err(&["refit", run]);
