@@ -57,7 +57,11 @@ pub fn read_csv(path: &Path) -> Result<SpectrumFile, SpectrumError> {
     if bytes.len() as u64 > MAX_FILE_BYTES {
         return Err(too_large(format!("more than {MAX_FILE_BYTES}")));
     }
-    parse_csv(&String::from_utf8_lossy(&bytes), path)
+    // Valid UTF-8 (every file we write) is checked once and parsed in place.
+    match std::str::from_utf8(&bytes) {
+        Ok(text) => parse_csv(text, path),
+        Err(_) => parse_csv(&String::from_utf8_lossy(&bytes), path),
+    }
 }
 
 /// Parses spectrum CSV text; `path` is used in messages.
