@@ -302,7 +302,8 @@ impl Prepared {
         )
     }
 
-    #[allow(clippy::too_many_arguments)]
+    // Lane loops index several arrays by the lane number on purpose.
+    #[allow(clippy::too_many_arguments, clippy::needless_range_loop)]
     #[inline(always)]
     fn sweep_lanes<const M: usize>(
         &self,
@@ -539,6 +540,31 @@ mod tests {
                     w[j],
                     reference[j]
                 );
+            }
+        }
+    }
+
+    #[test]
+    fn many_pixels_in_lanes_match_one_pixel_at_a_time() {
+        // Three layers, one of them absorbing (Si), oblique and conical light (several
+        // channels), 60 pixels (a part-filled last block of lanes), and a pixel subset.
+        for (theta, na) in [(0.0, 0.0), (10.0, 0.0), (8.0, 0.2)] {
+            let (p, _, w) = setup(theta, na);
+            for d in [[150.0, 20.0, 900.0], [1.0, 0.0, 14_000.0], [80.0, 3.0, 0.5]] {
+                for pixels in [(0..w.len()).collect::<Vec<_>>(), vec![3, 17, 18, 40, 59]] {
+                    let mut r = vec![0.0; pixels.len()];
+                    let mut g = vec![0.0; pixels.len() * 3];
+                    p.reflectance_grad_many(&pixels, &d, &mut r, &mut g);
+                    for (i, &j) in pixels.iter().enumerate() {
+                        let mut want = [0.0; 3];
+                        let rj = p.reflectance_grad(j, &d, &mut want);
+                        assert!((r[i] - rj).abs() < 1e-13, "θ={theta} d={d:?} j={j}");
+                        for l in 0..3 {
+                            let tol = 1e-12 * want[l].abs().max(1e-3);
+                            assert!((g[i * 3 + l] - want[l]).abs() < tol, "{l}: {g:?} {want:?}");
+                        }
+                    }
+                }
             }
         }
     }
