@@ -211,9 +211,10 @@ def timed(f):
 
 
 def criterion_ns(bench, kind):
-    path = os.path.join(ROOT, "target", "criterion", f"{bench}_{kind}", "new", "estimates.json")
+    target = os.environ.get("CARGO_TARGET_DIR", os.path.join(ROOT, "target"))
+    path = os.path.join(target, "criterion", f"{bench}_{kind}", "new", "estimates.json")
     if not os.path.exists(path):  # criterion names the folder after the full id
-        path = os.path.join(ROOT, "target", "criterion", bench, kind, "new", "estimates.json")
+        path = os.path.join(target, "criterion", bench, kind, "new", "estimates.json")
     with open(path) as f:
         return json.load(f)["median"]["point_estimate"]
 

@@ -7,6 +7,7 @@
 //! Γ_L = ρ_L, w_l = Γ_l·z_l with z_l = exp(iβ_l d_l), β_l = 4π N_l cos θ_l / λ, and
 //! Γ_{l−1} = (ρ_{l−1} + w_l)/(1 + ρ_{l−1} w_l); r = Γ_0, R = |r|².
 
+use super::lanes::{self, Cv, Fv, W};
 use crate::optics::tmm::{admittance, cos_theta, AngleSample, Polarisation};
 use crate::optics::Material;
 use num_complex::Complex64;
@@ -184,10 +185,98 @@ impl Prepared {
         total
     }
 
+    /// R and dR/dd_l at each of `pixels` (`r[i]`, and `grad[i·L + l]` for L layers), four
+    /// pixels at a time in vector lanes, with the branch-free [`lanes::sin_cos`]: the same
+    /// recursion as [`Prepared::reflectance_grad`].
+    pub fn reflectance_grad_many(
+        &self,
+        pixels: &[usize],
+        d: &[f64],
+        r: &mut [f64],
+        grad: &mut [f64],
+    ) {
+        let l_n = self.layers;
+        lanes::with_avx2(
+            #[inline(always)]
+            || {
+                if l_n <= 4 {
+                    self.grad_lanes::<4>(pixels, d, r, grad)
+                } else {
+                    self.grad_lanes::<MAX_LAYERS>(pixels, d, r, grad)
+                }
+            },
+        )
+    }
+
+    #[inline(always)]
+    fn grad_lanes<const M: usize>(
+        &self,
+        pixels: &[usize],
+        d: &[f64],
+        r_out: &mut [f64],
+        grad_out: &mut [f64],
+    ) {
+        let l_n = self.layers;
+        for (block, chunk) in pixels.chunks(W).enumerate() {
+            // A short last block repeats its last pixel; only real lanes are written back.
+            let idx: [usize; W] = std::array::from_fn(|i| chunk[i.min(chunk.len() - 1)]);
+            let mut total = [0.0; W];
+            let mut grad = [[0.0; W]; M];
+            let mut rho = [Cv::ZERO; M];
+            let mut beta = [Cv::ZERO; M];
+            let mut w = [Cv::ZERO; M];
+            let mut z = [Cv::ZERO; M];
+            let mut inv_den = [Cv::ZERO; M];
+            for c in 0..self.channels.len() {
+                let mut g = Cv::ZERO;
+                for (i, &j) in idx.iter().enumerate() {
+                    let (rh, be) = self.block(j, c);
+                    g.set(i, rh[l_n]);
+                    for l in 0..l_n {
+                        rho[l].set(i, rh[l]);
+                        beta[l].set(i, be[l]);
+                    }
+                }
+                for l in (0..l_n).rev() {
+                    z[l] = phase_lanes(beta[l], d[l]);
+                    w[l] = g * z[l];
+                    inv_den[l] = (Cv::ONE + rho[l] * w[l]).inv();
+                    g = (rho[l] + w[l]) * inv_den[l];
+                }
+                let r = g;
+                let weight = [self.channels[c]; W];
+                let norm = r.norm_sqr();
+                for i in 0..W {
+                    total[i] += weight[i] * norm[i];
+                }
+                // Top-down chain rule: dr/dd_l = P·g'_l·w_l·iβ_l, P = Π_{m<l} g'_m z_m.
+                let mut p = Cv::ONE;
+                for l in 0..l_n {
+                    let inv = inv_den[l];
+                    let gprime = (Cv::ONE - rho[l] * rho[l]) * inv * inv;
+                    let dr = p * gprime * w[l] * beta[l].times_i();
+                    let re = r.re_conj_mul(dr);
+                    for i in 0..W {
+                        grad[l][i] += weight[i] * 2.0 * re[i];
+                    }
+                    p = p * (gprime * z[l]);
+                }
+            }
+            for i in 0..chunk.len() {
+                let at = block * W + i;
+                r_out[at] = total[i];
+                for l in 0..l_n {
+                    grad_out[at * l_n + l] = grad[l][i];
+                }
+            }
+        }
+    }
+
     /// χ² terms of a sweep: layer `k` takes `d0 + i·step` (i < n) while the others keep
     /// `d`; for each i, accumulates over `pixels` the sums Σ R² and Σ R·R_m (written to
     /// `srr`, `srm`) and Σ (R − R_m)² (`sse`). Phase factors advance by multiplication, so
-    /// the inner loop has no transcendental functions.
+    /// the inner loop has no transcendental functions, and W pixels share one set of vector
+    /// lanes.
     #[allow(clippy::too_many_arguments)]
     pub fn sweep(
         &self,
@@ -201,70 +290,190 @@ impl Prepared {
         srr: &mut [f64],
         srm: &mut [f64],
     ) {
+        lanes::with_avx2(
+            #[inline(always)]
+            || {
+                if self.layers <= 4 {
+                    self.sweep_lanes::<4>(pixels, measured, d, k, d0, step, sse, srr, srm)
+                } else {
+                    self.sweep_lanes::<MAX_LAYERS>(pixels, measured, d, k, d0, step, sse, srr, srm)
+                }
+            },
+        )
+    }
+
+    // Lane loops index several arrays by the lane number on purpose.
+    #[allow(clippy::too_many_arguments, clippy::needless_range_loop)]
+    #[inline(always)]
+    fn sweep_lanes<const M: usize>(
+        &self,
+        pixels: &[usize],
+        measured: &[f64],
+        d: &[f64],
+        k: usize,
+        d0: f64,
+        step: f64,
+        sse: &mut [f64],
+        srr: &mut [f64],
+        srm: &mut [f64],
+    ) {
         let n = sse.len();
         let l_n = self.layers;
-        let mut acc = vec![0.0; n];
-        for &j in pixels {
-            acc.iter_mut().for_each(|a| *a = 0.0);
-            for c in 0..self.channels.len() {
-                let (rho, beta) = self.block(j, c);
-                // Γ just below layer k (index k+1 in media numbering).
-                let mut g = rho[l_n];
-                for l in (k + 2..=l_n).rev() {
-                    let w = g * phase(beta[l - 1], d[l - 1]);
-                    g = (rho[l - 1] + w) / (1.0 + rho[l - 1] * w);
+        let channels = self.channels.len();
+        // Σ (R − R_m)², Σ R², Σ R·R_m of each candidate, lane by lane (summed at the end).
+        let mut sums = vec![[[0.0; W]; 3]; n];
+        // For W pixels at once and each channel: the Möbius map [[a, b], [c, e]] of the
+        // interface above layer k and every layer above it, acting on w_k (r = (a w + b)/
+        // (c w + e)), the current candidate's w_k and the rotation to the next candidate.
+        let mut coef = vec![[Cv::ZERO; 6]; channels];
+        for chunk in pixels.chunks(W) {
+            let idx: [usize; W] = std::array::from_fn(|i| chunk[i.min(chunk.len() - 1)]);
+            // Lanes past the end repeat the last pixel with R and R_m forced to 0, so they add
+            // nothing to any sum.
+            let m: Fv = std::array::from_fn(|i| {
+                if i < chunk.len() {
+                    measured[idx[i]]
+                } else {
+                    0.0
                 }
-                // Möbius map [[a, b], [c, e]] of the interface above layer k and every layer
-                // above it, acting on w_k: r = (a w + b)/(c w + e).
-                let (mut a, mut b, mut cc, mut e) = (
-                    Complex64::new(1.0, 0.0),
-                    rho[k],
-                    rho[k],
-                    Complex64::new(1.0, 0.0),
-                );
-                for l in (1..=k).rev() {
-                    // Compose T_{l−1}(z_l · ·) ∘ current.
-                    let zl = phase(beta[l - 1], d[l - 1]);
-                    let (ra, rb, rc, re) =
-                        (zl, rho[l - 1], rho[l - 1] * zl, Complex64::new(1.0, 0.0));
-                    let na = ra * a + rb * cc;
-                    let nb = ra * b + rb * e;
-                    let nc = rc * a + re * cc;
-                    let ne = rc * b + re * e;
-                    a = na;
-                    b = nb;
-                    cc = nc;
-                    e = ne;
-                }
-                let rot = (I * beta[k] * step).exp();
-                let weight = self.channels[c];
-                // Four interleaved phase chains, each advanced by rot⁴, so that successive
-                // candidates do not wait on one another's multiplication.
-                let w0 = g * (I * beta[k] * d0).exp();
-                let mut w4 = [w0, w0 * rot, w0 * rot * rot, w0 * rot * rot * rot];
-                let rot4 = (rot * rot) * (rot * rot);
-                // |r|² = |a w + b|²/|c w + e|²: one real division, no complex one.
-                let r2 = |w: Complex64| (a * w + b).norm_sqr() / (cc * w + e).norm_sqr();
-                let mut chunks = acc.chunks_exact_mut(4);
-                for chunk in &mut chunks {
-                    for (slot, w) in chunk.iter_mut().zip(w4.iter_mut()) {
-                        *slot += weight * r2(*w);
-                        *w *= rot4;
+            });
+            let mut lossless = true;
+            for (c, coef) in coef.iter_mut().enumerate() {
+                let mut rho = [Cv::ZERO; M];
+                let mut beta = [Cv::ZERO; M];
+                // Γ just below layer k, starting from the substrate's interface.
+                let mut g = Cv::ZERO;
+                for (i, &j) in idx.iter().enumerate() {
+                    let (rh, be) = self.block(j, c);
+                    g.set(i, rh[l_n]);
+                    for l in 0..l_n {
+                        rho[l].set(i, rh[l]);
+                        beta[l].set(i, be[l]);
                     }
                 }
-                for (slot, w) in chunks.into_remainder().iter_mut().zip(w4.iter()) {
-                    *slot += weight * r2(*w);
+                for l in (k + 1..l_n).rev() {
+                    let w = g * phase_lanes(beta[l], d[l]);
+                    g = (rho[l] + w) * (Cv::ONE + rho[l] * w).inv();
+                }
+                let (mut a, mut b, mut cc, mut e) = (Cv::ONE, rho[k], rho[k], Cv::ONE);
+                for l in (0..k).rev() {
+                    // Compose T_l(z_l · ·) ∘ current, T_l = [[1, ρ_l], [ρ_l, 1]].
+                    let zl = phase_lanes(beta[l], d[l]);
+                    let rc = rho[l] * zl;
+                    let na = zl * a + rho[l] * cc;
+                    let nb = zl * b + rho[l] * e;
+                    let nc = rc * a + cc;
+                    let ne = rc * b + e;
+                    (a, b, cc, e) = (na, nb, nc, ne);
+                }
+                for i in chunk.len()..W {
+                    a.set(i, Complex64::new(0.0, 0.0));
+                    b.set(i, Complex64::new(0.0, 0.0));
+                }
+                lossless &= beta[k].im.iter().all(|v| *v == 0.0);
+                *coef = [
+                    a,
+                    b,
+                    cc,
+                    e,
+                    g * phase_lanes(beta[k], d0),
+                    phase_lanes(beta[k], step),
+                ];
+            }
+            if lossless {
+                // |w| stays |w_0| as the candidates rotate it (u = rotⁱ on the unit circle):
+                // |a w + b|² = |a|²|w_0|² + |b|² + Re(2 a w_0 b̄ · u), and the same for the
+                // denominator, so each candidate costs two real dot products and a division.
+                for coef in coef.iter_mut() {
+                    let [a, b, cc, e, w0, rot] = *coef;
+                    let ww = w0.norm_sqr();
+                    let kn = map_add(map_mul(a.norm_sqr(), ww), b.norm_sqr());
+                    let kd = map_add(map_mul(cc.norm_sqr(), ww), e.norm_sqr());
+                    let p = (a * w0 * b.conj()).scale([2.0; W]);
+                    let q = (cc * w0 * e.conj()).scale([2.0; W]);
+                    *coef = [
+                        Cv {
+                            re: kn,
+                            im: [0.0; W],
+                        },
+                        Cv {
+                            re: kd,
+                            im: [0.0; W],
+                        },
+                        p,
+                        q,
+                        Cv::ONE,
+                        rot,
+                    ];
+                }
+                for sum in sums.iter_mut() {
+                    let mut r = [0.0; W];
+                    for (coef, weight) in coef.iter_mut().zip(&self.channels) {
+                        let [kn, kd, p, q, u, rot] = *coef;
+                        for i in 0..W {
+                            let num = kn.re[i] + (p.re[i] * u.re[i] - p.im[i] * u.im[i]);
+                            let den = kd.re[i] + (q.re[i] * u.re[i] - q.im[i] * u.im[i]);
+                            r[i] += weight * (num / den);
+                        }
+                        coef[4] = u * rot;
+                    }
+                    accumulate(sum, &r, &m);
+                }
+            } else {
+                for sum in sums.iter_mut() {
+                    let mut r = [0.0; W];
+                    for (coef, weight) in coef.iter_mut().zip(&self.channels) {
+                        let [a, b, cc, e, w, rot] = *coef;
+                        // |r|² = |a w + b|²/|c w + e|²: one real division, no complex one.
+                        let num = (a * w + b).norm_sqr();
+                        let den = (cc * w + e).norm_sqr();
+                        for i in 0..W {
+                            r[i] += weight * (num[i] / den[i]);
+                        }
+                        coef[4] = w * rot;
+                    }
+                    accumulate(sum, &r, &m);
                 }
             }
-            let m = measured[j];
-            for i in 0..n {
-                let r = acc[i];
-                let diff = r - m;
-                sse[i] += diff * diff;
-                srr[i] += r * r;
-                srm[i] += r * m;
-            }
         }
+        for (i, sum) in sums.iter().enumerate() {
+            sse[i] += sum[0].iter().sum::<f64>();
+            srr[i] += sum[1].iter().sum::<f64>();
+            srm[i] += sum[2].iter().sum::<f64>();
+        }
+    }
+}
+
+/// Adds one candidate's (R − R_m)², R², R·R_m, lane by lane.
+#[inline(always)]
+fn accumulate(sum: &mut [Fv; 3], r: &Fv, m: &Fv) {
+    for i in 0..W {
+        let diff = r[i] - m[i];
+        sum[0][i] += diff * diff;
+        sum[1][i] += r[i] * r[i];
+        sum[2][i] += r[i] * m[i];
+    }
+}
+
+#[inline(always)]
+fn map_mul(a: Fv, b: Fv) -> Fv {
+    std::array::from_fn(|i| a[i] * b[i])
+}
+
+#[inline(always)]
+fn map_add(a: Fv, b: Fv) -> Fv {
+    std::array::from_fn(|i| a[i] + b[i])
+}
+
+/// exp(iβd) in every lane, with the real exponential skipped for lossless lanes.
+#[inline(always)]
+fn phase_lanes(beta: Cv, d: f64) -> Cv {
+    let (sin, cos) = lanes::sin_cos(beta.re.map(|b| b * d));
+    if beta.im.iter().all(|b| *b == 0.0) {
+        Cv { re: cos, im: sin }
+    } else {
+        let a = beta.im.map(|b| (-b * d).exp());
+        Cv { re: cos, im: sin }.scale(a)
     }
 }
 
@@ -331,6 +540,31 @@ mod tests {
                     w[j],
                     reference[j]
                 );
+            }
+        }
+    }
+
+    #[test]
+    fn many_pixels_in_lanes_match_one_pixel_at_a_time() {
+        // Three layers, one of them absorbing (Si), oblique and conical light (several
+        // channels), 60 pixels (a part-filled last block of lanes), and a pixel subset.
+        for (theta, na) in [(0.0, 0.0), (10.0, 0.0), (8.0, 0.2)] {
+            let (p, _, w) = setup(theta, na);
+            for d in [[150.0, 20.0, 900.0], [1.0, 0.0, 14_000.0], [80.0, 3.0, 0.5]] {
+                for pixels in [(0..w.len()).collect::<Vec<_>>(), vec![3, 17, 18, 40, 59]] {
+                    let mut r = vec![0.0; pixels.len()];
+                    let mut g = vec![0.0; pixels.len() * 3];
+                    p.reflectance_grad_many(&pixels, &d, &mut r, &mut g);
+                    for (i, &j) in pixels.iter().enumerate() {
+                        let mut want = [0.0; 3];
+                        let rj = p.reflectance_grad(j, &d, &mut want);
+                        assert!((r[i] - rj).abs() < 1e-13, "θ={theta} d={d:?} j={j}");
+                        for l in 0..3 {
+                            let tol = 1e-12 * want[l].abs().max(1e-3);
+                            assert!((g[i * 3 + l] - want[l]).abs() < tol, "{l}: {g:?} {want:?}");
+                        }
+                    }
+                }
             }
         }
     }

@@ -8,6 +8,7 @@ mod fitter;
 pub mod fourier;
 pub mod instrument;
 pub mod kernel;
+pub mod lanes;
 pub mod lm;
 pub mod model;
 pub mod plot;

@@ -95,21 +95,46 @@ impl Problem for Lsq<'_> {
         let (s, t) = self.setup.systematic(x);
         let lam = &self.setup.prep.wavelength_nm;
         let (l0, l1) = (lam[0], lam[lam.len() - 1]);
-        let mut grad = vec![0.0; d.len()];
+        let nl = d.len();
+        let mut grad = vec![0.0; nl];
         let mut chi2 = 0.0;
         let smeared = self
             .setup
             .slit
             .map(|(fine, slit)| smeared_model(fine, slit, &d));
+        // Without a slit, R and dR/dd of every pixel at once (vector lanes).
+        let (mut r_all, mut g_all) = (Vec::new(), Vec::new());
+        if smeared.is_none() {
+            r_all = vec![0.0; self.pixels.len()];
+            g_all = vec![0.0; self.pixels.len() * nl];
+            self.setup
+                .prep
+                .reflectance_grad_many(self.pixels, &d, &mut r_all, &mut g_all);
+        }
+        if smeared.is_none() && !self.setup.scale && !self.setup.tilt {
+            // The model is R itself: residuals and Jacobian rows straight from the lanes.
+            for (i, &j) in self.pixels.iter().enumerate() {
+                let r = r_all[i] - self.setup.measured[j];
+                res[i] = r;
+                chi2 += r * r;
+                for (a, l) in self.setup.fitted.iter().enumerate() {
+                    jac[i * p + a] = g_all[i * nl + l];
+                }
+            }
+            return chi2;
+        }
         for (i, &j) in self.pixels.iter().enumerate() {
             let r = match (&smeared, self.setup.slit) {
                 (Some((fr, fg)), Some((_, slit))) => {
                     for (l, g) in grad.iter_mut().enumerate() {
-                        *g = slit.apply_strided(j, fg, d.len(), l);
+                        *g = slit.apply_strided(j, fg, nl, l);
                     }
                     slit.apply(j, fr)
                 }
-                _ => self.setup.prep.reflectance_grad(j, &d, &mut grad),
+                _ => {
+                    grad.copy_from_slice(&g_all[i * nl..(i + 1) * nl]);
+                    r_all[i]
+                }
             };
             let u = tilt_coordinate(lam[j], l0, l1);
             let f = s * (1.0 + t * u);
@@ -224,22 +249,25 @@ impl Grid {
         idx.iter().zip(&self.counts).fold(0, |f, (i, c)| f * c + i)
     }
 
+    /// Flat-index distance between neighbours along each axis.
+    fn strides(&self) -> Vec<usize> {
+        let mut strides = vec![1; self.counts.len()];
+        for a in (0..self.counts.len().saturating_sub(1)).rev() {
+            strides[a] = strides[a + 1] * self.counts[a + 1];
+        }
+        strides
+    }
+
     /// Grid points lower than every axis neighbour, best first.
     fn local_minima(&self) -> Vec<usize> {
+        let strides = self.strides();
         let mut out: Vec<usize> = (0..self.chi2.len())
             .filter(|&f| {
-                let idx = self.unflatten(f);
                 let v = self.chi2[f];
-                (0..idx.len()).all(|a| {
-                    let mut n = idx.clone();
-                    let lower_ok = idx[a] == 0 || {
-                        n[a] = idx[a] - 1;
-                        self.chi2[self.flatten(&n)] >= v
-                    };
-                    let upper_ok = idx[a] + 1 == self.counts[a] || {
-                        n[a] = idx[a] + 1;
-                        self.chi2[self.flatten(&n)] > v
-                    };
+                strides.iter().zip(&self.counts).all(|(&st, &count)| {
+                    let i = (f / st) % count;
+                    let lower_ok = i == 0 || self.chi2[f - st] >= v;
+                    let upper_ok = i + 1 == count || self.chi2[f + st] > v;
                     lower_ok && upper_ok
                 })
             })
@@ -297,10 +325,12 @@ fn grid_search(setup: &Setup, pixels: &[usize]) -> Grid {
             &mut srr,
             &mut srm,
         );
+        let strides = grid.strides();
+        let mut first = outer.clone();
+        first[sweep] = 0;
+        let base = grid.flatten(&first);
         for i in 0..n {
-            let mut idx = outer.clone();
-            idx[sweep] = i;
-            chi2[grid.flatten(&idx)] = if setup.scale || setup.tilt {
+            chi2[base + i * strides[sweep]] = if setup.scale || setup.tilt {
                 // χ² at the best scale s = Σ R R_m / Σ R² (a small tilt moves no basin).
                 (smm - srm[i] * srm[i] / srr[i].max(1e-300)).max(0.0)
             } else {
