@@ -93,7 +93,7 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         let mut stage = open_stage_with(&m, SimClock::new(m.simulation.time_scale), cfg).await?;
         let keep = |pos: Option<[f64; 2]>| {
             if let Some(mem) = &memory {
-                if let Err(e) = mem.keep(args.machine.as_deref(), pos) {
+                if let Err(e) = mem.keep(pos) {
                     eprintln!(
                         "warning: cannot keep the virtual stage's position in {}: {e}",
                         mem.file().display()

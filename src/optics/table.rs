@@ -146,8 +146,14 @@ pub fn csv_records(text: &str) -> impl Iterator<Item = (usize, &str, Vec<&str>)>
 /// One line of CSV text under the rules of [`csv_records`]: `None` for a blank or comment
 /// line, else the trimmed line and its trimmed cells (for readers that stream line by line).
 pub fn csv_record(raw: &str) -> Option<(&str, Vec<&str>)> {
+    csv_content(raw).map(|t| (t, t.split(',').map(str::trim).collect()))
+}
+
+/// The trimmed line under the rules of [`csv_records`], `None` for a blank or comment line
+/// (for readers that split the cells themselves).
+pub fn csv_content(raw: &str) -> Option<&str> {
     let t = raw.trim().trim_start_matches('\u{feff}');
-    (!t.is_empty() && !t.starts_with('#')).then(|| (t, t.split(',').map(str::trim).collect()))
+    (!t.is_empty() && !t.starts_with('#')).then_some(t)
 }
 
 /// Rows of a refractiveindex.info `tabulated nk` block (wavelength in µm) as nm rows, with

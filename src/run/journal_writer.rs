@@ -95,52 +95,42 @@ impl Subscriber for JournalWriter {
 }
 
 /// The thread: jobs in order; lines gathered while more are queued, then written and synced
-/// together; after the first failure nothing more is written.
+/// together (before a sync or flush, and when the queue runs dry); after the first failure
+/// nothing more is written.
 fn work(mut journal: Journal, queue: mpsc::Receiver<Job>, failed: Arc<Mutex<Option<String>>>) {
     let mut lines: Vec<u8> = Vec::new();
-    let mut ok = true;
-    let fail = |e: String| {
-        tracing::error!("{e}");
-        failed
-            .lock()
-            .unwrap_or_else(|p| p.into_inner())
-            .get_or_insert(e);
-        false
-    };
+    let mut first_error: Option<String> = None;
     while let Ok(first) = queue.recv() {
-        let mut next = Some(first);
-        while let Some(job) = next.take() {
-            match job {
-                Job::Lines(l) => lines.extend_from_slice(&l),
-                other => {
-                    // Lines queued before a sync or flush go to disk first.
-                    if ok && !lines.is_empty() {
-                        ok = journal
-                            .append_lines(&lines)
-                            .map_err(|e| fail(e.to_string()))
-                            .is_ok();
-                    }
-                    lines.clear();
-                    match other {
-                        Job::Sync(path) if ok => {
-                            ok = sync_file(&path).map_err(&fail).is_ok();
-                        }
-                        Job::Flush(done) => {
-                            let _ = done.send(());
-                        }
-                        _ => {}
-                    }
+        // Everything queued now, then `None`: the batch ends and its lines go to disk.
+        let batch = std::iter::once(Some(first))
+            .chain(std::iter::from_fn(|| queue.try_recv().ok().map(Some)))
+            .chain(std::iter::once(None));
+        for job in batch {
+            if let Some(Job::Lines(l)) = job {
+                lines.extend_from_slice(&l);
+                continue;
+            }
+            if !lines.is_empty() && first_error.is_none() {
+                first_error = journal.append_lines(&lines).err().map(|e| e.to_string());
+            }
+            lines.clear();
+            if let Some(Job::Sync(path)) = &job {
+                if first_error.is_none() {
+                    first_error = sync_file(path).err();
                 }
             }
-            next = queue.try_recv().ok();
+            // Kept before a flush is answered, so the flush sees it.
+            if let Some(e) = &first_error {
+                let mut kept = failed.lock().unwrap_or_else(|p| p.into_inner());
+                if kept.is_none() {
+                    tracing::error!("{e}");
+                    *kept = Some(e.clone());
+                }
+            }
+            if let Some(Job::Flush(done)) = job {
+                let _ = done.send(());
+            }
         }
-        if ok && !lines.is_empty() {
-            ok = journal
-                .append_lines(&lines)
-                .map_err(|e| fail(e.to_string()))
-                .is_ok();
-        }
-        lines.clear();
     }
 }
 

@@ -212,12 +212,12 @@ pub async fn session(
     let mut seq = Sequencer::new(
         folder.clone(),
         stream,
+        writer,
         workers,
         scope.clone(),
         plan.accept().clone(),
     )
-    .with_prompt(hooks.prompt)
-    .with_writer(writer);
+    .with_prompt(hooks.prompt);
     for w in plan.fitter.warnings() {
         seq.publish(RunEvent::Note(format!("warning: {w}")))?;
     }

@@ -32,9 +32,7 @@ pub fn sim_seeds(wafer: &str, given: Option<u64>) -> crate::bench::SimSeeds {
     match given {
         Some(seed) => crate::bench::SimSeeds::same(seed),
         None => crate::bench::SimSeeds {
-            wafer: wafer.bytes().fold(0xcbf2_9ce4_8422_2325u64, |h, b| {
-                (h ^ b as u64).wrapping_mul(0x100_0000_01b3)
-            }),
+            wafer: crate::bench::sim::name_hash(wafer),
             run: rand::random(),
         },
     }

@@ -108,18 +108,19 @@ pub struct Sequencer {
     last_reference: Option<TakenReference>,
     /// Sites measured since it: site, attempt, time, spectrum.
     since_reference: Vec<(usize, u32, f64, Arc<RawSpectrum>)>,
-    /// Syncs spectrum files off the critical path, in order with the journal (when the
-    /// journal is written by one; otherwise each file is synced before the stage moves on).
-    writer: Option<JournalWriter>,
+    /// Writes the journal (it is the stream's journal subscriber too) and syncs spectrum
+    /// files off the critical path, in order with the events that name them.
+    writer: JournalWriter,
 }
 
 impl Sequencer {
     /// A sequencer for the run in `folder`, publishing on `stream` (whose first subscriber
-    /// should be the run's journal), fitting with `workers` (subscribed to `stream` too) and
-    /// judging fits by `accept`.
+    /// should be `writer`, the run's journal), fitting with `workers` (subscribed to `stream`
+    /// too) and judging fits by `accept`.
     pub fn new(
         folder: RunFolder,
         stream: EventStream,
+        writer: JournalWriter,
         workers: FitWorkers,
         scope: Scope,
         accept: AcceptSpec,
@@ -136,20 +137,13 @@ impl Sequencer {
             failed_in_a_row: 0,
             last_reference: None,
             since_reference: Vec::new(),
-            writer: None,
+            writer,
         }
-    }
-
-    /// Spectrum files are synced by `writer`, the thread that writes the journal (subscribed
-    /// to the stream), in order with the events that name them.
-    pub fn with_writer(mut self, writer: JournalWriter) -> Sequencer {
-        self.writer = Some(writer);
-        self
     }
 
     /// Waits until every event published so far is on disk (before the journal is read back).
     pub fn flush(&self) -> anyhow::Result<()> {
-        self.writer.as_ref().map_or(Ok(()), JournalWriter::flush)
+        self.writer.flush()
     }
 
     /// How to ask the operator for a hand step (without one, such a step is a fault).
@@ -163,8 +157,8 @@ impl Sequencer {
         self.stream.publish(event)
     }
 
-    /// Publishes a journal event (persisted by the journal subscriber: synced before
-    /// returning, or queued in order on the journal writer; see [`Sequencer::flush`]).
+    /// Publishes a journal event (queued in order on the journal writer; see
+    /// [`Sequencer::flush`]).
     pub fn log(&mut self, event: Event) -> anyhow::Result<()> {
         self.publish(RunEvent::Journal(event))
     }
@@ -493,13 +487,9 @@ impl Sequencer {
         let mut bytes = Vec::new();
         write_counts_csv(&mut bytes, raw, &[])?;
         let path = self.folder.root.join(rel);
-        let Some(writer) = &self.writer else {
-            return super::files::write_atomic(&path, &bytes)
-                .with_context(|| format!("cannot write {}", path.display()));
-        };
         super::files::write_atomic_unsynced(&path, &bytes)
             .with_context(|| format!("cannot write {}", path.display()))?;
-        writer.sync_file(path)
+        self.writer.sync_file(path)
     }
 
     /// Measures one site and hands its spectrum to the fitting workers; journals the fits

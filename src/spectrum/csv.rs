@@ -5,7 +5,7 @@
 
 use super::saturation::clipped_pixels;
 use super::{Counts, RawSpectrum, Spectrum, SpectrumError};
-use crate::optics::table::csv_record;
+use crate::optics::table::{csv_content, csv_record};
 use std::io::{self, Read, Write};
 use std::path::Path;
 
@@ -110,10 +110,9 @@ impl<'a> Parser<'a> {
         let Some(ncol) = self.columns else {
             return self.header(line, raw);
         };
-        let t = raw.trim().trim_start_matches('\u{feff}');
-        if t.is_empty() || t.starts_with('#') {
+        let Some(t) = csv_content(raw) else {
             return Ok(());
-        }
+        };
         // Cells are counted before any is parsed, so a row of the wrong width says so first.
         let fields = t.bytes().filter(|&b| b == b',').count() + 1;
         if fields != ncol {

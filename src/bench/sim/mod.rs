@@ -11,3 +11,11 @@ pub mod server;
 pub mod spectrometer;
 pub mod stage_memory;
 pub mod wafer;
+
+/// A stable 64-bit hash of a name (FNV-1a): the same name gives the same seed or file key on
+/// every machine and version.
+pub fn name_hash(name: &str) -> u64 {
+    name.bytes().fold(0xcbf2_9ce4_8422_2325u64, |h, b| {
+        (h ^ b as u64).wrapping_mul(0x100_0000_01b3)
+    })
+}

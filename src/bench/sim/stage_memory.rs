@@ -14,6 +14,8 @@ use std::path::{Path, PathBuf};
 #[derive(Debug, Clone)]
 pub struct StageMemory {
     file: PathBuf,
+    /// Which bench: the machine file's canonical path, or `built-in`.
+    bench: String,
 }
 
 #[derive(Debug, Serialize, Deserialize)]
@@ -29,12 +31,11 @@ impl StageMemory {
     /// simulated bench when `None`.
     pub fn of(machine: Option<&Path>) -> StageMemory {
         let bench = bench_name(machine);
-        // FNV-1a of the bench's name keeps one file per bench without path characters.
-        let key = bench.bytes().fold(0xcbf2_9ce4_8422_2325u64, |h, b| {
-            (h ^ b as u64).wrapping_mul(0x100_0000_01b3)
-        });
+        // A hash of the bench's name keeps one file per bench without path characters.
+        let key = super::name_hash(&bench);
         StageMemory {
             file: state_dir().join(format!("stage-{key:016x}.json")),
+            bench,
         }
     }
 
@@ -44,10 +45,14 @@ impl StageMemory {
     }
 
     /// Starts `cfg`'s controller where this bench's stage was left, if anything was kept and
-    /// it lies within `cfg`'s travel (a changed machine file starts at home again).
+    /// it is this bench's and lies within `cfg`'s travel (a changed machine file starts at
+    /// home again).
     pub fn recall(&self, cfg: &mut VirtualConfig) -> Option<[f64; 2]> {
         let text = std::fs::read_to_string(&self.file).ok()?;
         let kept: Kept = serde_json::from_str(&text).ok()?;
+        if kept.bench != self.bench {
+            return None;
+        }
         let [x, y] = kept.position_mm;
         let within = |v: f64, r: [f64; 2]| v.is_finite() && v >= r[0] && v <= r[1];
         if !(within(x, cfg.travel_x_mm) && within(y, cfg.travel_y_mm)) {
@@ -59,11 +64,7 @@ impl StageMemory {
 
     /// Keeps `position_mm` for the next command; `None` (position lost) forgets it, so the
     /// next controller powers up at home.
-    pub fn keep(
-        &self,
-        machine: Option<&Path>,
-        position_mm: Option<[f64; 2]>,
-    ) -> std::io::Result<()> {
+    pub fn keep(&self, position_mm: Option<[f64; 2]>) -> std::io::Result<()> {
         let Some(position_mm) = position_mm else {
             return match std::fs::remove_file(&self.file) {
                 Err(e) if e.kind() != std::io::ErrorKind::NotFound => Err(e),
@@ -71,7 +72,7 @@ impl StageMemory {
             };
         };
         let kept = Kept {
-            bench: bench_name(machine),
+            bench: self.bench.clone(),
             position_mm,
         };
         let dir = self.file.parent().unwrap_or(Path::new("."));
@@ -117,6 +118,7 @@ mod tests {
     fn memory_in(dir: &Path, name: &str) -> StageMemory {
         StageMemory {
             file: dir.join(name),
+            bench: "built-in".into(),
         }
     }
 
@@ -127,7 +129,7 @@ mod tests {
         let mut cfg = VirtualConfig::from_machine(&builtin_simulated());
         assert_eq!(mem.recall(&mut cfg), None, "nothing kept yet");
         assert_eq!(cfg.start_mm, None);
-        mem.keep(None, Some([120.5, 80.25])).unwrap();
+        mem.keep(Some([120.5, 80.25])).unwrap();
         assert_eq!(mem.recall(&mut cfg), Some([120.5, 80.25]));
         assert_eq!(cfg.start_mm, Some([120.5, 80.25]));
     }
@@ -137,13 +139,22 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let mem = memory_in(dir.path(), "b.json");
         let mut cfg = VirtualConfig::from_machine(&builtin_simulated());
-        mem.keep(None, Some([cfg.travel_x_mm[1] + 1.0, 10.0]))
-            .unwrap();
+        mem.keep(Some([cfg.travel_x_mm[1] + 1.0, 10.0])).unwrap();
         assert_eq!(mem.recall(&mut cfg), None);
-        mem.keep(None, Some([10.0, 10.0])).unwrap();
-        mem.keep(None, None).unwrap();
+        mem.keep(Some([10.0, 10.0])).unwrap();
+        mem.keep(None).unwrap();
         assert!(!mem.file().exists());
         assert_eq!(mem.recall(&mut cfg), None);
+        let other = StageMemory {
+            bench: "/lab/other.toml".into(),
+            ..mem.clone()
+        };
+        other.keep(Some([10.0, 10.0])).unwrap();
+        assert_eq!(
+            mem.recall(&mut cfg),
+            None,
+            "another bench's position is not ours"
+        );
         std::fs::write(mem.file(), "{ not json").unwrap();
         assert_eq!(mem.recall(&mut cfg), None, "a damaged file is ignored");
     }
