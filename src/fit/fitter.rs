@@ -4,7 +4,7 @@
 use super::dispersion::{self, Coefficients, SiteModel};
 use super::instrument::Slit;
 use super::kernel::{channels, Channel, Prepared, MAX_LAYERS};
-use super::model::{self, Setup};
+use super::model::{self, SearchPixels, Setup};
 use super::quality::{self, gof};
 use super::result::{FitResult, LayerResult, Term};
 use super::{extrema, fourier, FitError};
@@ -52,6 +52,8 @@ pub struct Fitter {
     warnings: Vec<String>,
     /// The per-pixel model of the last wavelength grid seen (a map uses one grid).
     cache: RwLock<Option<Arc<Prepared>>>,
+    /// The last grid search's pixels: for that model and that thickest stack.
+    search_cache: RwLock<Option<SearchCache>>,
     /// FFT plans of the Fourier and extrema methods.
     fft: fourier::Plans,
     /// The last reference reflectance computed: (material, wavelengths, R_ref).
@@ -59,6 +61,10 @@ pub struct Fitter {
 }
 
 type ReferenceCache = (String, Vec<f64>, Arc<Vec<f64>>);
+
+/// A grid search's pixels, for the model they were chosen on (held, so that its address
+/// is not reused) and the thickest stack searched.
+type SearchCache = (Arc<Prepared>, Vec<f64>, Arc<SearchPixels>);
 
 /// A pixel grid (`Prepared::wavelength_nm` of the pixels), its slit and the stack prepared on
 /// the slit's fine grid.
@@ -80,8 +86,8 @@ const STEPS_PER_WAVE: f64 = 10.0;
 const FEW_FRINGES: f64 = 4.0;
 /// At most this much finer.
 const MAX_REFINEMENT: f64 = 20.0;
-/// Search pixels per fringe at the shortest wavelength and the thickest film.
-const SEARCH_PIXELS_PER_FRINGE: f64 = 5.0;
+/// Fewest pixels a grid search scores, however few fringes the window holds.
+const MIN_SEARCH_PIXELS: usize = 48;
 /// The search reaches this many fringe orders (at the longest wavelength) beyond each bound.
 const ORDER_MARGIN: f64 = 1.5;
 /// Fewer pixels per fringe than this and `auto` uses the Fourier method.
@@ -184,6 +190,7 @@ impl Fitter {
             smeared: RwLock::new(None),
             warnings,
             cache: RwLock::new(None),
+            search_cache: RwLock::new(None),
             reference_cache: RwLock::new(None),
             fft: fourier::Plans::default(),
         })
@@ -539,6 +546,24 @@ impl Fitter {
         p
     }
 
+    /// The grid search's pixels for the thickest stack searched (cached like
+    /// [`Fitter::prepared`]: a map fits every site on one grid and one range).
+    fn search_pixels(&self, prep: &Arc<Prepared>, thickest: &[f64]) -> Arc<SearchPixels> {
+        if let Ok(guard) = self.search_cache.read() {
+            if let Some((_, _, s)) = guard
+                .as_ref()
+                .filter(|(p, d, _)| Arc::ptr_eq(p, prep) && d.as_slice() == thickest)
+            {
+                return Arc::clone(s);
+            }
+        }
+        let s = Arc::new(SearchPixels::by_phase(prep, thickest, MIN_SEARCH_PIXELS));
+        if let Ok(mut guard) = self.search_cache.write() {
+            *guard = Some((Arc::clone(prep), thickest.to_vec(), Arc::clone(&s)));
+        }
+        s
+    }
+
     /// The slit and the fine-grid model for a pixel grid (cached like [`Fitter::prepared`]).
     fn smeared(&self, pixels_nm: &[f64]) -> Arc<Smeared> {
         if let Ok(guard) = self.smeared.read() {
@@ -617,7 +642,7 @@ impl Fitter {
     fn run_method(
         &self,
         method: FitMethod,
-        prep: &Prepared,
+        prep: &Arc<Prepared>,
         w: &Spectrum,
         bounds: &[(f64, f64)],
     ) -> Result<Outcome, FitError> {
@@ -820,7 +845,7 @@ impl Fitter {
 
     fn model_fit(
         &self,
-        prep: &Prepared,
+        prep: &Arc<Prepared>,
         w: &Spectrum,
         bounds: &[(f64, f64)],
     ) -> Option<model::ModelFit> {
@@ -828,10 +853,11 @@ impl Fitter {
         let smeared = (self.resolution_nm > 0.0).then(|| self.smeared(&w.wavelength_nm));
         let l_min = w.wavelength_nm[0];
         let l_max = w.wavelength_nm[w.len() - 1];
-        let stride = ((self.pixels_per_fringe(w, bounds) / SEARCH_PIXELS_PER_FRINGE).floor()
-            as usize)
-            .clamp(1, (w.len() / 48).max(1));
-        let search: Vec<usize> = (0..w.len()).step_by(stride).collect();
+        let mut thickest = self.nominal();
+        for (&i, b) in self.fitted.iter().zip(bounds) {
+            thickest[i] = b.1;
+        }
+        let search = self.search_pixels(prep, &thickest);
         let setup = Setup {
             prep,
             measured: &w.reflectance,

@@ -52,6 +52,9 @@ pub struct Prepared {
     channels: Vec<f64>,
     /// For pixel j, channel c: ρ_0..ρ_L then β_1..β_L, at `(j·C + c)·(2L + 1)`.
     coeff: Vec<Complex64>,
+    /// The same in vector lanes, W consecutive pixels at a time (the last block repeats the
+    /// last pixel): block b, channel c at `(b·C + c)·(2L + 1)`.
+    blocks: Vec<Cv>,
 }
 
 /// Most layers a fitted stack may have (fixed-size buffers keep the inner loops allocation-free).
@@ -97,11 +100,53 @@ impl Prepared {
                 }
             }
         }
+        let n = wavelength_nm.len();
+        let per_pixel = channels.len() * stride;
+        let mut blocks = Vec::with_capacity(n.div_ceil(W) * per_pixel);
+        for b in 0..n.div_ceil(W) {
+            for q in 0..per_pixel {
+                let mut v = Cv::ZERO;
+                for i in 0..W {
+                    v.set(i, coeff[(b * W + i).min(n - 1) * per_pixel + q]);
+                }
+                blocks.push(v);
+            }
+        }
         Prepared {
             wavelength_nm: wavelength_nm.to_vec(),
             layers: l,
             channels: channels.iter().map(|c| c.weight).collect(),
             coeff,
+            blocks,
+        }
+    }
+
+    /// ρ_0..ρ_L (into `rho[..L]` and `sub`, the substrate's interface) and β_1..β_L of
+    /// channel c for the pixels of `chunk` (at most W; lanes past its end repeat its last
+    /// pixel): straight from `blocks` when the chunk is one of them.
+    #[inline(always)]
+    fn load_lanes(&self, chunk: &[usize], c: usize, rho: &mut [Cv], sub: &mut Cv, beta: &mut [Cv]) {
+        let l_n = self.layers;
+        let stride = 2 * l_n + 1;
+        let first = chunk[0];
+        let whole = first % W == 0
+            && chunk[chunk.len() - 1] == first + chunk.len() - 1
+            && (chunk.len() == W || first + chunk.len() == self.len());
+        if whole {
+            let start = ((first / W) * self.channels.len() + c) * stride;
+            let b = &self.blocks[start..start + stride];
+            rho[..l_n].copy_from_slice(&b[..l_n]);
+            *sub = b[l_n];
+            beta[..l_n].copy_from_slice(&b[l_n + 1..]);
+            return;
+        }
+        for i in 0..W {
+            let (rh, be) = self.block(chunk[i.min(chunk.len() - 1)], c);
+            sub.set(i, rh[l_n]);
+            for l in 0..l_n {
+                rho[l].set(i, rh[l]);
+                beta[l].set(i, be[l]);
+            }
         }
     }
 
@@ -125,6 +170,13 @@ impl Prepared {
         let start = (pixel * self.channels.len() + channel) * stride;
         let b = &self.coeff[start..start + stride];
         b.split_at(self.layers + 1)
+    }
+
+    /// The round-trip phase Σ Re β_l d_l of the stack at one pixel (first channel): one
+    /// fringe of the spectrum is a change of 2π.
+    pub fn round_trip_phase(&self, pixel: usize, d: &[f64]) -> f64 {
+        let (_, beta) = self.block(pixel, 0);
+        beta.iter().zip(d).map(|(b, d)| b.re * d).sum()
     }
 
     /// R at one pixel for layer thicknesses `d` (nm, top first).
@@ -217,26 +269,17 @@ impl Prepared {
         grad_out: &mut [f64],
     ) {
         let l_n = self.layers;
+        let mut rho = [Cv::ZERO; M];
+        let mut beta = [Cv::ZERO; M];
+        let mut w = [Cv::ZERO; M];
+        let mut z = [Cv::ZERO; M];
+        let mut inv_den = [Cv::ZERO; M];
         for (block, chunk) in pixels.chunks(W).enumerate() {
-            // A short last block repeats its last pixel; only real lanes are written back.
-            let idx: [usize; W] = std::array::from_fn(|i| chunk[i.min(chunk.len() - 1)]);
             let mut total = [0.0; W];
             let mut grad = [[0.0; W]; M];
-            let mut rho = [Cv::ZERO; M];
-            let mut beta = [Cv::ZERO; M];
-            let mut w = [Cv::ZERO; M];
-            let mut z = [Cv::ZERO; M];
-            let mut inv_den = [Cv::ZERO; M];
             for c in 0..self.channels.len() {
                 let mut g = Cv::ZERO;
-                for (i, &j) in idx.iter().enumerate() {
-                    let (rh, be) = self.block(j, c);
-                    g.set(i, rh[l_n]);
-                    for l in 0..l_n {
-                        rho[l].set(i, rh[l]);
-                        beta[l].set(i, be[l]);
-                    }
-                }
+                self.load_lanes(chunk, c, &mut rho, &mut g, &mut beta);
                 for l in (0..l_n).rev() {
                     z[l] = phase_lanes(beta[l], d[l]);
                     w[l] = g * z[l];
@@ -272,186 +315,284 @@ impl Prepared {
         }
     }
 
-    /// χ² terms of a sweep: layer `k` takes `d0 + i·step` (i < n) while the others keep
-    /// `d`; for each i, accumulates over `pixels` the sums Σ R² and Σ R·R_m (written to
-    /// `srr`, `srm`) and Σ (R − R_m)² (`sse`). Phase factors advance by multiplication, so
-    /// the inner loop has no transcendental functions, and W pixels share one set of vector
-    /// lanes.
-    #[allow(clippy::too_many_arguments)]
-    pub fn sweep(
-        &self,
-        pixels: &[usize],
-        measured: &[f64],
-        d: &[f64],
-        k: usize,
-        d0: f64,
-        step: f64,
-        sse: &mut [f64],
-        srr: &mut [f64],
-        srm: &mut [f64],
-    ) {
+    /// Weighted χ² sums at every point of a thickness grid: the axes move their layers
+    /// while the others keep `d`. Pixels go through in blocks of W vector lanes; for each
+    /// block the phase factors step from one grid point to the next by multiplication
+    /// (along the outer axes) and by a three-term recurrence (along the longest, swept,
+    /// axis, when its layer is lossless), so the loops have no transcendental functions.
+    pub fn grid_sums(&self, axes: &GridAxes, scored: &Scored, d: &[f64], scaled: bool) -> GridSums {
         lanes::with_avx2(
             #[inline(always)]
-            || {
-                if self.layers <= 4 {
-                    self.sweep_lanes::<4>(pixels, measured, d, k, d0, step, sse, srr, srm)
-                } else {
-                    self.sweep_lanes::<MAX_LAYERS>(pixels, measured, d, k, d0, step, sse, srr, srm)
-                }
+            || match (self.layers <= 4, scaled) {
+                (true, false) => self.grid_lanes::<4, false>(axes, scored, d),
+                (true, true) => self.grid_lanes::<4, true>(axes, scored, d),
+                (false, false) => self.grid_lanes::<MAX_LAYERS, false>(axes, scored, d),
+                (false, true) => self.grid_lanes::<MAX_LAYERS, true>(axes, scored, d),
             },
         )
     }
 
     // Lane loops index several arrays by the lane number on purpose.
-    #[allow(clippy::too_many_arguments, clippy::needless_range_loop)]
+    #[allow(clippy::needless_range_loop)]
     #[inline(always)]
-    fn sweep_lanes<const M: usize>(
+    fn grid_lanes<const M: usize, const SCALED: bool>(
         &self,
-        pixels: &[usize],
-        measured: &[f64],
+        axes: &GridAxes,
+        scored: &Scored,
         d: &[f64],
-        k: usize,
-        d0: f64,
-        step: f64,
-        sse: &mut [f64],
-        srr: &mut [f64],
-        srm: &mut [f64],
-    ) {
-        let n = sse.len();
+    ) -> GridSums {
         let l_n = self.layers;
         let channels = self.channels.len();
-        // Σ (R − R_m)², Σ R², Σ R·R_m of each candidate, lane by lane (summed at the end).
-        let mut sums = vec![[[0.0; W]; 3]; n];
-        // For W pixels at once and each channel: the Möbius map [[a, b], [c, e]] of the
-        // interface above layer k and every layer above it, acting on w_k (r = (a w + b)/
-        // (c w + e)), the current candidate's w_k and the rotation to the next candidate.
+        let dims = axes.counts.len();
+        let sweep = (0..dims).max_by_key(|a| axes.counts[*a]).unwrap_or(0);
+        let (k, n) = (axes.layers[sweep], axes.counts[sweep]);
+        let total: usize = axes.counts.iter().product();
+        let mut strides = vec![1; dims];
+        for a in (0..dims.saturating_sub(1)).rev() {
+            strides[a] = strides[a + 1] * axes.counts[a + 1];
+        }
+        let sums_per_point = if SCALED { 3 } else { 1 };
+        // Lane by lane: Σ w(R − R_m)² of every grid point, then Σ w R² and Σ w R·R_m.
+        let mut lane_sums = vec![[0.0; W]; total * sums_per_point];
+        // Per channel: ρ_0..ρ_L, β_1..β_L, each layer's current phase factor z_l, and
+        // each axis' first phase factor and step.
+        let mut rho = vec![[Cv::ZERO; M]; channels];
+        let mut beta = vec![[Cv::ZERO; M]; channels];
+        let mut sub = vec![Cv::ZERO; channels];
+        let mut z = vec![[Cv::ZERO; M]; channels];
+        let mut z0 = vec![[Cv::ZERO; M]; channels];
+        let mut rot = vec![[Cv::ZERO; M]; channels];
         let mut coef = vec![[Cv::ZERO; 6]; channels];
-        for chunk in pixels.chunks(W) {
+        let mut circle = vec![Circle::default(); channels];
+        let mut scale = vec![[0.0; W]; channels];
+        let mut outer = vec![0usize; dims];
+        for (chunk, weights) in scored.pixels.chunks(W).zip(scored.weights.chunks(W)) {
             let idx: [usize; W] = std::array::from_fn(|i| chunk[i.min(chunk.len() - 1)]);
-            // Lanes past the end repeat the last pixel with R and R_m forced to 0, so they add
-            // nothing to any sum.
-            let m: Fv = std::array::from_fn(|i| {
-                if i < chunk.len() {
-                    measured[idx[i]]
-                } else {
-                    0.0
-                }
-            });
+            // √w scales both R and R_m, so every sum carries w. Lanes past the end repeat
+            // the last pixel with a weight of 0, so they add nothing to any sum.
+            let root: Fv = std::array::from_fn(|i| weights.get(i).map_or(0.0, |w| w.sqrt()));
+            let m: Fv = std::array::from_fn(|i| root[i] * scored.measured[idx[i]]);
             let mut lossless = true;
-            for (c, coef) in coef.iter_mut().enumerate() {
-                let mut rho = [Cv::ZERO; M];
-                let mut beta = [Cv::ZERO; M];
-                // Γ just below layer k, starting from the substrate's interface.
-                let mut g = Cv::ZERO;
-                for (i, &j) in idx.iter().enumerate() {
-                    let (rh, be) = self.block(j, c);
-                    g.set(i, rh[l_n]);
-                    for l in 0..l_n {
-                        rho[l].set(i, rh[l]);
-                        beta[l].set(i, be[l]);
-                    }
+            for c in 0..channels {
+                self.load_lanes(chunk, c, &mut rho[c], &mut sub[c], &mut beta[c]);
+                for l in 0..l_n {
+                    z[c][l] = phase_lanes(beta[c][l], d[l]);
                 }
-                for l in (k + 1..l_n).rev() {
-                    let w = g * phase_lanes(beta[l], d[l]);
-                    g = (rho[l] + w) * (Cv::ONE + rho[l] * w).inv();
+                for a in 0..dims {
+                    let l = axes.layers[a];
+                    z0[c][a] = phase_lanes(beta[c][l], axes.first[a]);
+                    rot[c][a] = phase_lanes(beta[c][l], axes.step[a]);
+                    z[c][l] = z0[c][a];
                 }
-                let (mut a, mut b, mut cc, mut e) = (Cv::ONE, rho[k], rho[k], Cv::ONE);
-                for l in (0..k).rev() {
-                    // Compose T_l(z_l · ·) ∘ current, T_l = [[1, ρ_l], [ρ_l, 1]].
-                    let zl = phase_lanes(beta[l], d[l]);
-                    let rc = rho[l] * zl;
-                    let na = zl * a + rho[l] * cc;
-                    let nb = zl * b + rho[l] * e;
-                    let nc = rc * a + cc;
-                    let ne = rc * b + e;
-                    (a, b, cc, e) = (na, nb, nc, ne);
-                }
-                for i in chunk.len()..W {
-                    a.set(i, Complex64::new(0.0, 0.0));
-                    b.set(i, Complex64::new(0.0, 0.0));
-                }
-                lossless &= beta[k].im.iter().all(|v| *v == 0.0);
-                *coef = [
-                    a,
-                    b,
-                    cc,
-                    e,
-                    g * phase_lanes(beta[k], d0),
-                    phase_lanes(beta[k], step),
-                ];
+                lossless &= beta[c][k].im.iter().all(|v| *v == 0.0);
+                scale[c] = root.map(|r| r * self.channels[c]);
             }
-            if lossless {
-                // |w| stays |w_0| as the candidates rotate it (u = rotⁱ on the unit circle):
-                // |a w + b|² = |a|²|w_0|² + |b|² + Re(2 a w_0 b̄ · u), and the same for the
-                // denominator, so each candidate costs two real dot products and a division.
-                for coef in coef.iter_mut() {
-                    let [a, b, cc, e, w0, rot] = *coef;
-                    let ww = w0.norm_sqr();
-                    let kn = map_add(map_mul(a.norm_sqr(), ww), b.norm_sqr());
-                    let kd = map_add(map_mul(cc.norm_sqr(), ww), e.norm_sqr());
-                    let p = (a * w0 * b.conj()).scale([2.0; W]);
-                    let q = (cc * w0 * e.conj()).scale([2.0; W]);
-                    *coef = [
-                        Cv {
-                            re: kn,
-                            im: [0.0; W],
-                        },
-                        Cv {
-                            re: kd,
-                            im: [0.0; W],
-                        },
-                        p,
-                        q,
-                        Cv::ONE,
-                        rot,
-                    ];
-                }
-                for sum in sums.iter_mut() {
-                    let mut r = [0.0; W];
-                    for (coef, weight) in coef.iter_mut().zip(&self.channels) {
-                        let [kn, kd, p, q, u, rot] = *coef;
-                        for i in 0..W {
-                            let num = kn.re[i] + (p.re[i] * u.re[i] - p.im[i] * u.im[i]);
-                            let den = kd.re[i] + (q.re[i] * u.re[i] - q.im[i] * u.im[i]);
-                            r[i] += weight * (num / den);
-                        }
-                        coef[4] = u * rot;
+            outer.iter_mut().for_each(|o| *o = 0);
+            loop {
+                for c in 0..channels {
+                    // Γ just below layer k, from the substrate's interface up.
+                    let mut g = sub[c];
+                    for l in (k + 1..l_n).rev() {
+                        let w = g * z[c][l];
+                        g = (rho[c][l] + w) * (Cv::ONE + rho[c][l] * w).inv();
                     }
-                    accumulate(sum, &r, &m);
-                }
-            } else {
-                for sum in sums.iter_mut() {
-                    let mut r = [0.0; W];
-                    for (coef, weight) in coef.iter_mut().zip(&self.channels) {
-                        let [a, b, cc, e, w, rot] = *coef;
-                        // |r|² = |a w + b|²/|c w + e|²: one real division, no complex one.
-                        let num = (a * w + b).norm_sqr();
-                        let den = (cc * w + e).norm_sqr();
-                        for i in 0..W {
-                            r[i] += weight * (num[i] / den[i]);
-                        }
-                        coef[4] = w * rot;
+                    // The Möbius map [[a, b], [c, e]] of the interface above layer k and
+                    // every layer above it, acting on w_k: r = (a w + b)/(c w + e).
+                    let (mut a, mut b, mut cc, mut e) = (Cv::ONE, rho[c][k], rho[c][k], Cv::ONE);
+                    for l in (0..k).rev() {
+                        // Compose T_l(z_l · ·) ∘ current, T_l = [[1, ρ_l], [ρ_l, 1]].
+                        let zl = z[c][l];
+                        let rc = rho[c][l] * zl;
+                        let na = zl * a + rho[c][l] * cc;
+                        let nb = zl * b + rho[c][l] * e;
+                        let nc = rc * a + cc;
+                        let ne = rc * b + e;
+                        (a, b, cc, e) = (na, nb, nc, ne);
                     }
-                    accumulate(sum, &r, &m);
+                    coef[c] = [a, b, cc, e, g * z0[c][sweep], rot[c][sweep]];
+                    if lossless {
+                        circle[c] = Circle::new(&coef[c]);
+                    }
+                }
+                let base: usize = (0..dims).map(|a| outer[a] * strides[a]).sum();
+                let at = |i: usize| base + i * strides[sweep];
+                if lossless {
+                    // |w| stays |w_0| as the candidates rotate it by e^{iθ}: each of
+                    // |a w + b|² and |c w + e|² is a constant plus a sinusoid in the
+                    // candidate number (see [`Circle`]).
+                    if let ([one], [scale]) = (&mut circle[..], &scale[..]) {
+                        // One channel (normal incidence, no cone): its state stays in
+                        // registers from one candidate to the next.
+                        let mut state = *one;
+                        for i in 0..n {
+                            let r = state.value(scale);
+                            state.advance();
+                            accumulate::<SCALED>(&mut lane_sums, total, at(i), &r, &m);
+                        }
+                    } else {
+                        for i in 0..n {
+                            let mut r = [0.0; W];
+                            for (circle, scale) in circle.iter_mut().zip(&scale) {
+                                let v = circle.value(scale);
+                                for l in 0..W {
+                                    r[l] += v[l];
+                                }
+                                circle.advance();
+                            }
+                            accumulate::<SCALED>(&mut lane_sums, total, at(i), &r, &m);
+                        }
+                    }
+                } else {
+                    for i in 0..n {
+                        let mut r = [0.0; W];
+                        for (coef, scale) in coef.iter_mut().zip(&scale) {
+                            let [a, b, cc, e, w, rot] = *coef;
+                            // |r|² = |a w + b|²/|c w + e|²: one real division, no complex one.
+                            let num = (a * w + b).norm_sqr();
+                            let den = (cc * w + e).norm_sqr();
+                            for l in 0..W {
+                                r[l] += scale[l] * (num[l] / den[l]);
+                            }
+                            coef[4] = w * rot;
+                        }
+                        accumulate::<SCALED>(&mut lane_sums, total, at(i), &r, &m);
+                    }
+                }
+                // The next grid line (mixed radix over the outer axes, the last fastest):
+                // its layer's phase factor steps on, or starts again.
+                let Some(a) = (0..dims)
+                    .rev()
+                    .find(|&a| a != sweep && outer[a] + 1 < axes.counts[a])
+                else {
+                    break;
+                };
+                for b in a + 1..dims {
+                    if b != sweep {
+                        outer[b] = 0;
+                        for c in 0..channels {
+                            z[c][axes.layers[b]] = z0[c][b];
+                        }
+                    }
+                }
+                outer[a] += 1;
+                for c in 0..channels {
+                    let l = axes.layers[a];
+                    z[c][l] = z[c][l] * rot[c][a];
                 }
             }
         }
-        for (i, sum) in sums.iter().enumerate() {
-            sse[i] += sum[0].iter().sum::<f64>();
-            srr[i] += sum[1].iter().sum::<f64>();
-            srm[i] += sum[2].iter().sum::<f64>();
+        let reduce = |part: usize| -> Vec<f64> {
+            lane_sums[part * total..(part + 1) * total]
+                .iter()
+                .map(|v| v.iter().sum())
+                .collect()
+        };
+        GridSums {
+            sse: reduce(0),
+            srr: if SCALED { reduce(1) } else { Vec::new() },
+            srm: if SCALED { reduce(2) } else { Vec::new() },
         }
     }
 }
 
-/// Adds one candidate's (R − R_m)², R², R·R_m, lane by lane.
+/// The axes of a thickness grid: for each, the layer it moves, its first value and step
+/// (nm) and its number of points. The last axis varies fastest in the flat order.
+#[derive(Debug, Clone, Copy)]
+pub struct GridAxes<'a> {
+    pub layers: &'a [usize],
+    pub first: &'a [f64],
+    pub step: &'a [f64],
+    pub counts: &'a [usize],
+}
+
+/// The pixels a grid scores, the weight of each, and the measured reflectance (indexed by
+/// pixel).
+#[derive(Debug, Clone, Copy)]
+pub struct Scored<'a> {
+    pub pixels: &'a [usize],
+    pub weights: &'a [f64],
+    pub measured: &'a [f64],
+}
+
+/// Weighted sums at every grid point, in flat order: Σ w(R − R_m)², and for a scaled
+/// search Σ w R² and Σ w R·R_m (empty otherwise).
+#[derive(Debug, Clone, Default)]
+pub struct GridSums {
+    pub sse: Vec<f64>,
+    pub srr: Vec<f64>,
+    pub srm: Vec<f64>,
+}
+
+/// A lossless swept layer's numerator and denominator for W pixels, each a constant plus a
+/// sinusoid in the candidate number: the constants, the sinusoids' current and previous
+/// values, and 2 cos θ.
+#[derive(Debug, Clone, Copy, Default)]
+struct Circle {
+    kn: Fv,
+    kd: Fv,
+    num: Fv,
+    den: Fv,
+    num_prev: Fv,
+    den_prev: Fv,
+    two_cos: Fv,
+}
+
+impl Circle {
+    /// From the Möbius coefficients [a, b, c, e, w_0, e^{iθ}] of a grid line.
+    #[inline(always)]
+    fn new(coef: &[Cv; 6]) -> Circle {
+        let [a, b, cc, e, w0, rot] = *coef;
+        let ww = w0.norm_sqr();
+        let p = (a * w0 * b.conj()).scale([2.0; W]);
+        let q = (cc * w0 * e.conj()).scale([2.0; W]);
+        // Re(p e^{−iθ}) and Re(q e^{−iθ}): the values one step before the first.
+        let back = rot.conj();
+        Circle {
+            kn: map_add(map_mul(a.norm_sqr(), ww), b.norm_sqr()),
+            kd: map_add(map_mul(cc.norm_sqr(), ww), e.norm_sqr()),
+            num: p.re,
+            den: q.re,
+            num_prev: (p * back).re,
+            den_prev: (q * back).re,
+            two_cos: rot.re.map(|c| 2.0 * c),
+        }
+    }
+
+    /// scale·R of the current candidate, R = (kn + num)/(kd + den).
+    #[inline(always)]
+    fn value(&self, scale: &Fv) -> Fv {
+        std::array::from_fn(|l| {
+            scale[l] * ((self.kn[l] + self.num[l]) / (self.kd[l] + self.den[l]))
+        })
+    }
+
+    /// Moves to the next candidate.
+    #[inline(always)]
+    fn advance(&mut self) {
+        for i in 0..W {
+            let num = self.two_cos[i] * self.num[i] - self.num_prev[i];
+            let den = self.two_cos[i] * self.den[i] - self.den_prev[i];
+            self.num_prev[i] = self.num[i];
+            self.den_prev[i] = self.den[i];
+            self.num[i] = num;
+            self.den[i] = den;
+        }
+    }
+}
+
+/// Adds one grid point's w(R − R_m)² and, when `SCALED`, w R² and w R·R_m, lane by lane
+/// (`r` and `m` carry √w).
 #[inline(always)]
-fn accumulate(sum: &mut [Fv; 3], r: &Fv, m: &Fv) {
+fn accumulate<const SCALED: bool>(sums: &mut [Fv], total: usize, at: usize, r: &Fv, m: &Fv) {
     for i in 0..W {
         let diff = r[i] - m[i];
-        sum[0][i] += diff * diff;
-        sum[1][i] += r[i] * r[i];
-        sum[2][i] += r[i] * m[i];
+        sums[at][i] += diff * diff;
+    }
+    if SCALED {
+        for i in 0..W {
+            sums[total + at][i] += r[i] * r[i];
+            sums[2 * total + at][i] += r[i] * m[i];
+        }
     }
 }
 
@@ -570,39 +711,75 @@ mod tests {
     }
 
     #[test]
-    fn sweep_matches_direct_evaluation() {
+    fn grid_sums_match_direct_evaluation() {
+        // Oblique light (two channels), an absorbing layer (Si, layer 1), uneven weights,
+        // a last block of lanes only part filled, one to three axes, and a long swept axis
+        // (the recurrence's rounding would show if it grew).
         let (p, _, w) = setup(10.0, 0.0);
         let d = [150.0, 20.0, 900.0];
         let measured: Vec<f64> = (0..w.len())
             .map(|j| p.reflectance(j, &[140.0, 20.0, 905.0]))
             .collect();
         let pixels: Vec<usize> = (0..w.len()).collect();
-        for k in 0..3 {
-            let n = 7;
-            let (mut sse, mut srr, mut srm) = (vec![0.0; n], vec![0.0; n], vec![0.0; n]);
-            p.sweep(
-                &pixels,
-                &measured,
-                &d,
-                k,
-                d[k] - 30.0,
-                10.0,
-                &mut sse,
-                &mut srr,
-                &mut srm,
+        let weights: Vec<f64> = pixels.iter().map(|j| 0.5 + (*j % 3) as f64).collect();
+        let scored = Scored {
+            pixels: &pixels,
+            weights: &weights,
+            measured: &measured,
+        };
+        let cases: [(&[usize], &[f64], &[f64], &[usize]); 5] = [
+            (&[2], &[600.0], &[10.0], &[300]),
+            (&[1], &[5.0], &[1.0], &[40]),
+            (&[0, 2], &[100.0, 850.0], &[25.0, 7.0], &[4, 30]),
+            (&[2, 1], &[880.0, 10.0], &[9.0, 2.0], &[5, 12]),
+            (
+                &[0, 1, 2],
+                &[120.0, 15.0, 870.0],
+                &[20.0, 3.0, 11.0],
+                &[3, 4, 6],
+            ),
+        ];
+        for (layers, first, step, counts) in cases {
+            let axes = GridAxes {
+                layers,
+                first,
+                step,
+                counts,
+            };
+            let sums = p.grid_sums(&axes, &scored, &d, true);
+            let plain = p.grid_sums(&axes, &scored, &d, false);
+            assert_eq!(
+                plain.sse, sums.sse,
+                "the sums of a scaled grid are extra ones"
             );
-            for (i, sse_i) in sse.iter().enumerate() {
+            assert!(plain.srr.is_empty() && plain.srm.is_empty());
+            let total: usize = counts.iter().product();
+            assert_eq!(sums.sse.len(), total);
+            for f in 0..total {
+                // The flat index's thicknesses, the last axis fastest.
                 let mut di = d;
-                di[k] = d[k] - 30.0 + 10.0 * i as f64;
-                let direct: f64 = pixels
-                    .iter()
-                    .map(|j| (p.reflectance(*j, &di) - measured[*j]).powi(2))
-                    .sum();
+                let mut rest = f;
+                for a in (0..counts.len()).rev() {
+                    di[layers[a]] = first[a] + (rest % counts[a]) as f64 * step[a];
+                    rest /= counts[a];
+                }
+                let terms = |g: &dyn Fn(f64, f64) -> f64| -> f64 {
+                    pixels
+                        .iter()
+                        .zip(&weights)
+                        .map(|(j, w)| w * g(p.reflectance(*j, &di), measured[*j]))
+                        .sum()
+                };
+                let direct = terms(&|r, m| (r - m).powi(2));
+                let (rr, rm) = (terms(&|r, _| r * r), terms(&|r, m| r * m));
+                let close = |a: f64, b: f64| (a - b).abs() < 1e-10 * b.abs().max(1e-6);
                 assert!(
-                    (sse_i - direct).abs() < 1e-10 * direct.max(1e-6),
-                    "k={k} i={i}: {} vs {direct}",
-                    sse[i]
+                    close(sums.sse[f], direct),
+                    "{layers:?} {di:?}: {} vs {direct}",
+                    sums.sse[f]
                 );
+                assert!(close(sums.srr[f], rr), "{layers:?} {di:?}");
+                assert!(close(sums.srm[f], rm), "{layers:?} {di:?}");
             }
         }
     }

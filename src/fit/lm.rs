@@ -4,6 +4,7 @@
 //! 1–4 parameters and evaluate residuals and Jacobian in one pass, which a general solver's
 //! separate callbacks would double.
 
+use super::lanes;
 use nalgebra::{DMatrix, DVector};
 
 /// The problem: fills residuals and the Jacobian (row-major, `residuals.len() × params`)
@@ -132,40 +133,17 @@ pub fn minimise(
 }
 
 fn normal(res: &[f64], jac: &[f64], p: usize) -> (DMatrix<f64>, DVector<f64>) {
-    // Plain sums over rows (the matrices are at most a few parameters wide); one and two
-    // parameters, the common cases, get loops the compiler unrolls.
-    let (mut jtj, mut jtr) = (vec![0.0; p * p], vec![0.0; p]);
-    match p {
-        1 => {
-            for (r, j) in res.iter().zip(jac) {
-                jtr[0] += j * r;
-                jtj[0] += j * j;
-            }
-        }
-        2 => {
-            for (r, row) in res.iter().zip(jac.chunks_exact(2)) {
-                jtr[0] += row[0] * r;
-                jtr[1] += row[1] * r;
-                jtj[0] += row[0] * row[0];
-                jtj[1] += row[0] * row[1];
-                jtj[3] += row[1] * row[1];
-            }
-            jtj[2] = jtj[1];
-        }
-        _ => {
-            for (r, row) in res.iter().zip(jac.chunks_exact(p)) {
-                for a in 0..p {
-                    jtr[a] += row[a] * r;
-                    for b in 0..=a {
-                        jtj[a * p + b] += row[a] * row[b];
-                    }
-                }
-            }
-            for a in 0..p {
-                for b in 0..a {
-                    jtj[b * p + a] = jtj[a * p + b];
-                }
-            }
+    // Plain sums over rows (the matrices are a few parameters wide), each in independent
+    // partial sums (lanes::sum).
+    let mut jtj = vec![0.0; p * p];
+    let jtr: Vec<f64> = (0..p)
+        .map(|a| lanes::sum(res.len(), |i| jac[i * p + a] * res[i]))
+        .collect();
+    for a in 0..p {
+        for b in 0..=a {
+            let v = lanes::sum(res.len(), |i| jac[i * p + a] * jac[i * p + b]);
+            jtj[a * p + b] = v;
+            jtj[b * p + a] = v;
         }
     }
     (DMatrix::from_vec(p, p, jtj), DVector::from_vec(jtr))

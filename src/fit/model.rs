@@ -4,9 +4,11 @@
 //! within noise of the best is reported as a rival.
 
 use super::instrument::Slit;
-use super::kernel::Prepared;
+use super::kernel::{GridAxes, Prepared, Scored};
+use super::lanes;
 use super::lm::{self, Problem, Settings};
 use super::quality;
+use std::cell::RefCell;
 
 /// What to fit: thicknesses of every layer (`base`, nm), which of them vary, their bounds
 /// and grid steps, and which systematic terms are fitted too: an intensity scale s and a
@@ -65,10 +67,100 @@ pub struct Minimum {
     pub chi2: f64,
 }
 
-/// Least-squares problem over a pixel subset.
+/// The pixels a grid search and the first refinements score, and the share of the whole
+/// spectrum each stands for (mean 1), so that their weighted χ² estimates the whole
+/// spectrum's: about [`SearchPixels::PER_FRINGE`] pixels per fringe of the thickest stack
+/// searched at every wavelength, instead of everywhere as many as the bluest fringes need.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SearchPixels {
+    pub index: Vec<usize>,
+    pub weight: Vec<f64>,
+    /// √weight, the factor on each residual.
+    root: Vec<f64>,
+}
+
+impl SearchPixels {
+    /// Pixels per fringe of the thickest stack searched.
+    pub const PER_FRINGE: f64 = 5.0;
+
+    /// Every pixel, each of weight 1.
+    pub fn all(n: usize) -> SearchPixels {
+        SearchPixels::from_index((0..n).collect(), n)
+    }
+
+    /// Pixels chosen along the window so that the round-trip phase of the stack at `d`
+    /// (nm, the thickest searched) changes by at most 2π/[`SearchPixels::PER_FRINGE`]
+    /// between neighbours, and no two are further apart than 1/`min_count` of the window;
+    /// each weighted by the pixels it stands for.
+    pub fn by_phase(prep: &Prepared, d: &[f64], min_count: usize) -> SearchPixels {
+        let n = prep.len();
+        if n < 2 {
+            return SearchPixels::all(n);
+        }
+        let phase: Vec<f64> = (0..n).map(|j| prep.round_trip_phase(j, d)).collect();
+        let lam = &prep.wavelength_nm;
+        let max_phase = std::f64::consts::TAU / SearchPixels::PER_FRINGE;
+        let max_gap = (lam[n - 1] - lam[0]).abs() / min_count.max(1) as f64;
+        let too_far = |a: usize, b: usize| {
+            (phase[a] - phase[b]).abs() > max_phase || (lam[a] - lam[b]).abs() > max_gap
+        };
+        let mut index = vec![0];
+        let mut last = 0;
+        for j in 1..n {
+            // Take the last pixel still close enough to the previous one.
+            if too_far(last, j) && j - 1 > last {
+                index.push(j - 1);
+                last = j - 1;
+            }
+            if too_far(last, j) {
+                index.push(j);
+                last = j;
+            }
+        }
+        SearchPixels::from_index(index, n)
+    }
+
+    /// Weights from the pixels between midpoints (the first and last reach the window's
+    /// ends), scaled to mean 1.
+    fn from_index(index: Vec<usize>, n: usize) -> SearchPixels {
+        let k = index.len();
+        let edge = |i: usize| -> f64 {
+            match i {
+                0 => -0.5,
+                i if i == k => n as f64 - 0.5,
+                i => 0.5 * (index[i - 1] + index[i]) as f64,
+            }
+        };
+        let weight: Vec<f64> = (0..k)
+            .map(|i| (edge(i + 1) - edge(i)) * k as f64 / n as f64)
+            .collect();
+        let root = weight.iter().map(|w| w.sqrt()).collect();
+        SearchPixels {
+            index,
+            weight,
+            root,
+        }
+    }
+
+    /// Number of pixels.
+    pub fn len(&self) -> usize {
+        self.index.len()
+    }
+
+    /// Whether there are none.
+    pub fn is_empty(&self) -> bool {
+        self.index.is_empty()
+    }
+}
+
+/// Least-squares problem over a pixel subset, each residual times √weight.
 struct Lsq<'a> {
     setup: &'a Setup<'a>,
     pixels: &'a [usize],
+    /// √weight of each pixel; `None` for weights of 1.
+    root: Option<&'a [f64]>,
+    /// R and dR/dd of every pixel, kept between evaluations.
+    scratch: RefCell<(Vec<f64>, Vec<f64>)>,
 }
 
 impl Lsq<'_> {
@@ -97,31 +189,44 @@ impl Problem for Lsq<'_> {
         let (l0, l1) = (lam[0], lam[lam.len() - 1]);
         let nl = d.len();
         let mut grad = vec![0.0; nl];
-        let mut chi2 = 0.0;
         let smeared = self
             .setup
             .slit
             .map(|(fine, slit)| smeared_model(fine, slit, &d));
-        // Without a slit, R and dR/dd of every pixel at once (vector lanes).
-        let (mut r_all, mut g_all) = (Vec::new(), Vec::new());
+        let chi2 = |res: &[f64]| lanes::sum(res.len(), |i| res[i] * res[i]);
+        // Without a slit, R and dR/dd of every pixel at once (vector lanes), into buffers
+        // kept from one evaluation to the next.
+        let mut scratch = self.scratch.borrow_mut();
+        let (r_all, g_all) = &mut *scratch;
         if smeared.is_none() {
-            r_all = vec![0.0; self.pixels.len()];
-            g_all = vec![0.0; self.pixels.len() * nl];
+            r_all.resize(self.pixels.len(), 0.0);
+            g_all.resize(self.pixels.len() * nl, 0.0);
             self.setup
                 .prep
-                .reflectance_grad_many(self.pixels, &d, &mut r_all, &mut g_all);
+                .reflectance_grad_many(self.pixels, &d, r_all, g_all);
         }
         if smeared.is_none() && !self.setup.scale && !self.setup.tilt {
             // The model is R itself: residuals and Jacobian rows straight from the lanes.
+            let m = self.setup.measured;
             for (i, &j) in self.pixels.iter().enumerate() {
-                let r = r_all[i] - self.setup.measured[j];
-                res[i] = r;
-                chi2 += r * r;
-                for (a, l) in self.setup.fitted.iter().enumerate() {
-                    jac[i * p + a] = g_all[i * nl + l];
+                res[i] = r_all[i] - m[j];
+            }
+            if self.setup.fitted.iter().copied().eq(0..nl) {
+                jac.copy_from_slice(g_all);
+            } else {
+                for (row, g) in jac.chunks_exact_mut(p).zip(g_all.chunks_exact(nl)) {
+                    for (a, l) in self.setup.fitted.iter().enumerate() {
+                        row[a] = g[*l];
+                    }
                 }
             }
-            return chi2;
+            if let Some(root) = self.root {
+                for (i, f) in root.iter().enumerate() {
+                    res[i] *= f;
+                    jac[i * p..(i + 1) * p].iter_mut().for_each(|v| *v *= f);
+                }
+            }
+            return chi2(res);
         }
         for (i, &j) in self.pixels.iter().enumerate() {
             let r = match (&smeared, self.setup.slit) {
@@ -138,22 +243,22 @@ impl Problem for Lsq<'_> {
             };
             let u = tilt_coordinate(lam[j], l0, l1);
             let f = s * (1.0 + t * u);
-            res[i] = f * r - self.setup.measured[j];
-            chi2 += res[i] * res[i];
+            let root = self.root.map_or(1.0, |w| w[i]);
+            res[i] = root * (f * r - self.setup.measured[j]);
             let row = &mut jac[i * p..(i + 1) * p];
             for (a, l) in self.setup.fitted.iter().enumerate() {
-                row[a] = f * grad[*l];
+                row[a] = root * f * grad[*l];
             }
             let mut a = nf;
             if self.setup.scale {
-                row[a] = (1.0 + t * u) * r;
+                row[a] = root * (1.0 + t * u) * r;
                 a += 1;
             }
             if self.setup.tilt {
-                row[a] = s * u * r;
+                row[a] = root * s * u * r;
             }
         }
-        chi2
+        chi2(res)
     }
 }
 
@@ -284,76 +389,48 @@ fn counts(setup: &Setup) -> Vec<usize> {
         .collect()
 }
 
-fn grid_search(setup: &Setup, pixels: &[usize]) -> Grid {
+fn grid_search(setup: &Setup, search: &SearchPixels) -> Grid {
     let mut setup_steps = setup.clone();
     let counts = counts(setup);
     for (a, c) in counts.iter().enumerate() {
         setup_steps.steps[a] = (setup.upper[a] - setup.lower[a]) / (c - 1) as f64;
     }
     let setup = &setup_steps;
-    // Sweep the longest axis with the multiplication trick; loop over the others.
-    let sweep = (0..counts.len()).max_by_key(|a| counts[*a]).unwrap_or(0);
-    let n = counts[sweep];
-    let total: usize = counts.iter().product();
-    let mut chi2 = vec![0.0; total];
-    let smm: f64 = pixels.iter().map(|j| setup.measured[*j].powi(2)).sum();
-    let mut outer = vec![0usize; counts.len()];
-    let (mut sse, mut srr, mut srm) = (vec![0.0; n], vec![0.0; n], vec![0.0; n]);
-    let mut grid = Grid {
-        counts: counts.clone(),
-        chi2: Vec::new(),
+    let scaled = setup.scale || setup.tilt;
+    let axes = GridAxes {
+        layers: &setup.fitted,
+        first: &setup.lower,
+        step: &setup.steps,
+        counts: &counts,
+    };
+    let scored = Scored {
+        pixels: &search.index,
+        weights: &search.weight,
+        measured: setup.measured,
+    };
+    let sums = setup.prep.grid_sums(&axes, &scored, &setup.base, scaled);
+    let chi2 = if scaled {
+        // χ² at the best scale s = Σ R R_m / Σ R² (a small tilt moves no basin).
+        let smm: f64 = search
+            .index
+            .iter()
+            .zip(&search.weight)
+            .map(|(j, w)| w * setup.measured[*j].powi(2))
+            .sum();
+        sums.srm
+            .iter()
+            .zip(&sums.srr)
+            .map(|(rm, rr)| (smm - rm * rm / rr.max(1e-300)).max(0.0))
+            .collect()
+    } else {
+        sums.sse
+    };
+    Grid {
+        counts,
+        chi2,
         lower: setup.lower.clone(),
         steps: setup.steps.clone(),
         upper: setup.upper.clone(),
-    };
-    loop {
-        let mut d = setup.base.clone();
-        for (a, l) in setup.fitted.iter().enumerate() {
-            d[*l] = setup.lower[a] + outer[a] as f64 * setup.steps[a];
-        }
-        for v in [&mut sse, &mut srr, &mut srm] {
-            v.iter_mut().for_each(|x| *x = 0.0);
-        }
-        setup.prep.sweep(
-            pixels,
-            setup.measured,
-            &d,
-            setup.fitted[sweep],
-            setup.lower[sweep],
-            setup.steps[sweep],
-            &mut sse,
-            &mut srr,
-            &mut srm,
-        );
-        let strides = grid.strides();
-        let mut first = outer.clone();
-        first[sweep] = 0;
-        let base = grid.flatten(&first);
-        for i in 0..n {
-            chi2[base + i * strides[sweep]] = if setup.scale || setup.tilt {
-                // χ² at the best scale s = Σ R R_m / Σ R² (a small tilt moves no basin).
-                (smm - srm[i] * srm[i] / srr[i].max(1e-300)).max(0.0)
-            } else {
-                sse[i]
-            };
-        }
-        // Next outer index (mixed radix, skipping the swept axis).
-        let mut a = counts.len();
-        loop {
-            if a == 0 {
-                grid.chi2 = chi2;
-                return grid;
-            }
-            a -= 1;
-            if a == sweep {
-                continue;
-            }
-            outer[a] += 1;
-            if outer[a] < counts[a] {
-                break;
-            }
-            outer[a] = 0;
-        }
     }
 }
 
@@ -371,9 +448,10 @@ pub const AMBIGUITY_DCHI2: f64 = 9.0;
 /// pixel from the best, and from every other minimum that may come within noise of it.
 /// `None` when the grid holds no finite χ² (a material whose index is not finite over the
 /// window).
-pub fn fit(setup: &Setup, search_pixels: &[usize]) -> Option<ModelFit> {
+pub fn fit(setup: &Setup, search: &SearchPixels) -> Option<ModelFit> {
     let all: Vec<usize> = (0..setup.prep.len()).collect();
-    let grid = grid_search(setup, search_pixels);
+    let search_pixels = &search.index[..];
+    let grid = grid_search(setup, search);
     let nf = setup.fitted.len();
     let np = setup.params();
     let x0 = |v: Vec<f64>| -> Vec<f64> {
@@ -403,10 +481,14 @@ pub fn fit(setup: &Setup, search_pixels: &[usize]) -> Option<ModelFit> {
     let sub = Lsq {
         setup,
         pixels: search_pixels,
+        root: Some(&search.root),
+        scratch: RefCell::default(),
     };
     let full = Lsq {
         setup,
         pixels: &all,
+        root: None,
+        scratch: RefCell::default(),
     };
     let same_pixels = search_pixels.len() == all.len();
     let dof = |n: usize| (n as f64 - np as f64).max(1.0);
@@ -463,6 +545,18 @@ pub fn fit(setup: &Setup, search_pixels: &[usize]) -> Option<ModelFit> {
     } else {
         polish(first)
     };
+    if std::env::var_os("ISOPACH_PROBE").is_some() {
+        eprintln!(
+            "PROBE grid {:?} sub {} minima {} refined {} coarse-evals {:?} best-evals {} its {}",
+            grid.counts,
+            search_pixels.len(),
+            minima.len(),
+            refined.len(),
+            refined.iter().map(|r| r.evaluations).collect::<Vec<_>>(),
+            best.evaluations,
+            best.iterations
+        );
+    }
     let s2 = best.chi2 / dof(all.len());
     let noise = quality::noise_sigma(setup.measured, &best.residuals);
     // Differences of χ² are judged against the larger of the noise and the residual
@@ -514,6 +608,8 @@ pub fn residuals_and_jacobian(setup: &Setup, x: &[f64]) -> (Vec<f64>, Vec<f64>) 
     let p = Lsq {
         setup,
         pixels: &all,
+        root: None,
+        scratch: RefCell::default(),
     };
     let mut r = vec![0.0; all.len()];
     let mut j = vec![0.0; all.len() * p.params()];

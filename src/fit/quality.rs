@@ -1,6 +1,8 @@
 //! Fit quality: goodness of fit, the noise a spectrum shows by itself, reduced χ², residual
 //! structure, and the flag names of a result.
 
+use super::lanes;
+
 /// Goodness of fit below the recipe's `min_gof`.
 pub const POOR_FIT: &str = "poor-fit";
 /// A fitted thickness ended on its search bound: the true value may lie outside.
@@ -90,11 +92,12 @@ pub fn reduced_chi2(chi2: f64, pixels: usize, params: usize, noise_sigma: f64) -
 
 /// Lag-1 autocorrelation of a residual: ≈ 0 for white noise, near 1 for a smooth misfit.
 pub fn lag1_autocorrelation(residuals: &[f64]) -> f64 {
-    let ss: f64 = residuals.iter().map(|r| r * r).sum();
+    let ss = lanes::sum(residuals.len(), |i| residuals[i] * residuals[i]);
     if !(ss > 0.0) {
         return 0.0;
     }
-    residuals.windows(2).map(|w| w[0] * w[1]).sum::<f64>() / ss
+    let n = residuals.len().saturating_sub(1);
+    lanes::sum(n, |i| residuals[i] * residuals[i + 1]) / ss
 }
 
 /// Goodness of fit in 0..1: the coefficient of determination 1 − χ²/Σ(R_m − mean)²,
@@ -104,8 +107,10 @@ pub fn gof(chi2: f64, measured: &[f64]) -> f64 {
     if n == 0.0 {
         return 0.0;
     }
-    let mean = measured.iter().sum::<f64>() / n;
-    let tss: f64 = measured.iter().map(|m| (m - mean) * (m - mean)).sum();
+    let mean = lanes::sum(measured.len(), |i| measured[i]) / n;
+    let tss = lanes::sum(measured.len(), |i| {
+        (measured[i] - mean) * (measured[i] - mean)
+    });
     if !(tss > 0.0) {
         return if chi2 <= 0.0 { 1.0 } else { 0.0 };
     }

@@ -112,6 +112,15 @@ impl Spectrum {
                 self.len()
             )));
         }
+        // One pass without branches for the usual, valid spectrum; the pixel to blame only
+        // when it is not.
+        let w = &self.wavelength_nm;
+        let fine = (0..self.len()).fold(true, |ok, i| {
+            ok & w[i].is_finite() & (w[i] > 0.0) & self.reflectance[i].is_finite()
+        }) & w.windows(2).fold(true, |ok, p| ok & (p[1] > p[0]));
+        if fine {
+            return Ok(());
+        }
         for (i, (w, r)) in self.wavelength_nm.iter().zip(&self.reflectance).enumerate() {
             if !(w.is_finite() && *w > 0.0 && r.is_finite()) {
                 return Err(SpectrumError::Invalid(format!(
