@@ -8,11 +8,13 @@ program, timed against isopach's criterion benchmark (benches/fit.rs) in one run
 The problems are the bench's: 2048 pixels with 0.3 % Gaussian noise,
   single  SiO2 on Si, 420-980 nm, true 1234 nm, search 100-3000 nm
   bilayer Si3N4 (80-250 nm, true 163) on SiO2 (300-800 nm, true 512) on Si, 400-1000 nm.
-The algorithm is isopach's (src/fit/model.rs): a grid over every fitted thickness with a step
-of lambda_min / (10 n) on a pixel subset (5 pixels per fringe at the shortest wavelength for
-the thickest stack), up to 12 local minima of chi^2 moved to their parabola vertex, refined by
-a short Levenberg-Marquardt on that subset unless their predicted chi^2 cannot compete, the
-best polished on all pixels. Reflectance is the closed-form Airy sum of the
+The algorithm is isopach's (src/fit/model.rs, src/fit/fitter.rs): each range widened by 1.5
+fringe orders on each side; a grid over every fitted thickness with a step of
+lambda_min / (10 n) (finer for few fringes) on a weighted pixel subset (5 pixels per fringe of
+the thickest stack searched, at every wavelength, each weighted by the pixels it stands for);
+the 12 lowest local minima of chi^2 (and any nearly as low) moved to their parabola vertex,
+refined by a short Levenberg-Marquardt on that subset unless their predicted chi^2 cannot
+compete; the best polished on all pixels. Reflectance is the closed-form Airy sum of the
 stack at normal incidence (the transfer-matrix result for one or two layers), evaluated for
 the whole grid at once as numpy arrays; the polish is scipy.optimize.least_squares
 (method "lm") with the analytic Jacobian. One thread: numpy's BLAS is not used by these
@@ -91,29 +93,86 @@ class Stack:
         return R, [2.0 * np.real(np.conj(r_low) * dr) for dr in reversed(dr_low)]
 
 
-def search_stride(lam, stack, upper):
-    """Pixels per fringe at the shortest wavelength for the thickest stack, / 5 (isopach's)."""
-    optical = sum(np.real(n[0]) * hi for n, hi in zip(stack.n[1:-1], upper))
-    per_fringe = lam[0] ** 2 / (2.0 * optical) / ((lam[-1] - lam[0]) / (len(lam) - 1))
-    return max(1, min(int(per_fringe / 5.0), len(lam) // 48))
+# isopach's search settings (src/fit/fitter.rs): the range widened by 1.5 fringe orders at
+# the longest wavelength on each side; a grid step of lambda_min / (10 n), finer in
+# proportion below 4 fringes across the window (at most 20x); search pixels 5 per fringe of
+# the thickest stack searched, at least 48.
+ORDER_MARGIN = 1.5
+STEPS_PER_WAVE = 10.0
+FEW_FRINGES = 4.0
+MAX_REFINEMENT = 20.0
+PER_FRINGE = 5.0
+MIN_SEARCH_PIXELS = 48
+
+
+def widened(stack, lower, upper):
+    """The search range: each layer's bounds moved out by ORDER_MARGIN orders (never below 0)."""
+    out = []
+    for n, lo, hi in zip(stack.n[1:-1], lower, upper):
+        order = stack.lam[-1] / (2.0 * max(np.real(n[-1]), 1.0))
+        out.append((max(lo - ORDER_MARGIN * order, 0.0), hi + ORDER_MARGIN * order))
+    return out
+
+
+def grid_axes(stack, bounds):
+    """Each fitted layer's grid points (isopach's steps, the count rounded up)."""
+    l0, l1 = stack.lam[0], stack.lam[-1]
+    axes, steps = [], []
+    for n, (lo, hi) in zip(stack.n[1:-1], bounds):
+        n0 = max(np.real(n[0]), 1.0)
+        fringes = 2.0 * n0 * hi * (1.0 / l0 - 1.0 / l1)
+        finer = np.clip(FEW_FRINGES / max(fringes, 1e-9), 1.0, MAX_REFINEMENT)
+        step = l0 / (STEPS_PER_WAVE * finer * n0)
+        count = max(int(np.ceil((hi - lo) / step)) + 1, 2)
+        axes.append(np.linspace(lo, hi, count))
+        steps.append(step)
+    return axes, steps
+
+
+def search_pixels(stack, thickest):
+    """isopach's SearchPixels::by_phase: walking along the window, the last pixel whose
+    round-trip phase (sum of Re(beta) d over the layers, beta = 4 pi n / lambda) differs from
+    the previous choice's by at most 2 pi / PER_FRINGE, and no further than 1/48 of the
+    window; each weighted by the pixels between midpoints, scaled to mean 1."""
+    lam = stack.lam
+    phase = sum(np.real(k / 1j) * d for k, d in zip(stack.k, thickest))
+    max_phase, max_gap = 2.0 * np.pi / PER_FRINGE, (lam[-1] - lam[0]) / MIN_SEARCH_PIXELS
+    index, last = [0], 0
+    for j in range(1, len(lam)):
+        def too_far(a, b):
+            return abs(phase[a] - phase[b]) > max_phase or abs(lam[a] - lam[b]) > max_gap
+        if too_far(last, j) and j - 1 > last:
+            index.append(j - 1)
+            last = j - 1
+        if too_far(last, j):
+            index.append(j)
+            last = j
+    index = np.array(index)
+    edges = np.concatenate([[-0.5], 0.5 * (index[1:] + index[:-1]), [len(lam) - 0.5]])
+    weight = np.diff(edges) * len(index) / len(lam)
+    return index, weight
 
 
 def local_minima(chi2):
-    """Indices of the grid points no higher than any neighbour (all axes), best first."""
-    pad = np.pad(chi2, 1, constant_values=np.inf)
+    """Indices of the grid points lower than their neighbours along every axis (no higher
+    than the one before, lower than the one after: isopach's rule), best first."""
     is_min = np.ones(chi2.shape, dtype=bool)
-    for shift in np.ndindex(*([3] * chi2.ndim)):
-        if all(s == 1 for s in shift):
-            continue
-        window = tuple(slice(s, s + n) for s, n in zip(shift, chi2.shape))
-        is_min &= chi2 <= pad[window]
+    for a in range(chi2.ndim):
+        lo = np.full(chi2.shape, np.inf)
+        hi = np.full(chi2.shape, np.inf)
+        body = [slice(None)] * chi2.ndim
+        prev = [slice(None)] * chi2.ndim
+        body[a], prev[a] = slice(1, None), slice(None, -1)
+        lo[tuple(body)] = chi2[tuple(prev)]
+        hi[tuple(prev)] = chi2[tuple(body)]
+        is_min &= (chi2 <= lo) & (chi2 < hi)
     idx = np.argwhere(is_min)
-    return idx[np.argsort(chi2[tuple(idx.T)])]
+    return idx[np.argsort(chi2[tuple(idx.T)], kind="stable")]
 
 
 def refined_start(chi2, axes, i):
     """A parabola through each axis' neighbours: the start moved to its vertex (at most one
-    step) and the chi^2 it predicts there (isopach's `Grid::refined`)."""
+    half step) and the chi^2 it predicts there (isopach's `Grid::refined`)."""
     start = np.array([ax[j] for ax, j in zip(axes, i)])
     predicted = chi2[tuple(i)]
     for a, ax in enumerate(axes):
@@ -125,7 +184,7 @@ def refined_start(chi2, axes, i):
             curv = (fp + fm - 2.0 * f0) / 2.0
             if curv > 0 and np.isfinite(fp + fm):
                 slope = (fp - fm) / 2.0
-                off = np.clip(-slope / (2.0 * curv), -1.0, 1.0)
+                off = np.clip(-slope / (2.0 * curv), -0.5, 0.5)
                 start[a] += off * (ax[1] - ax[0])
                 predicted -= slope * slope / (4.0 * curv)
     return start, predicted
@@ -139,10 +198,12 @@ CANDIDATES = 12
 AMBIGUITY_DCHI2 = 9.0
 
 
-def solve(s, y, x0, lower, upper, coarse):
-    """scipy least_squares (MINPACK lmder) with the analytic Jacobian; R and dR/dd computed
-    once per point (lmder asks for both at the same x)."""
+def solve(s, y, x0, lower, upper, coarse, root=None):
+    """scipy least_squares (MINPACK lmder) with the analytic Jacobian, residuals times
+    root = sqrt(weight) when given; R and dR/dd computed once per point (lmder asks for both
+    at the same x)."""
     memo = {}
+    root = np.ones_like(y) if root is None else root
 
     def at(x):
         key = x.tobytes()
@@ -153,9 +214,9 @@ def solve(s, y, x0, lower, upper, coarse):
 
     scale = max(1.0, float(np.max(np.abs(x0))))
     r = least_squares(
-        lambda x: at(x)[0] - y,
+        lambda x: root * (at(x)[0] - y),
         x0,
-        jac=lambda x: np.stack(at(x)[1], axis=-1),
+        jac=lambda x: root[:, None] * np.stack(at(x)[1], axis=-1),
         method="lm",
         xtol=(0.01 if coarse else 1e-4) / scale,
         ftol=1e-6 if coarse else 1e-10,
@@ -166,20 +227,24 @@ def solve(s, y, x0, lower, upper, coarse):
 
 
 def fit(stack, measured, lower, upper):
-    lam = stack.lam
-    steps = [lam[0] / (10.0 * np.real(n[0])) for n in stack.n[1:-1]]
-    axes = [np.linspace(lo, hi, int(np.ceil((hi - lo) / s)) + 1) for lo, hi, s in zip(lower, upper, steps)]
-    sub = np.arange(0, len(lam), search_stride(lam, stack, upper))
+    bounds = widened(stack, lower, upper)
+    lower, upper = [b[0] for b in bounds], [b[1] for b in bounds]
+    axes, steps = grid_axes(stack, bounds)
+    sub, weight = search_pixels(stack, upper)
+    root = np.sqrt(weight)
     small = stack.subset(sub)
     grid = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1)  # (..., layers)
     flat = grid.reshape(-1, len(axes))
     chi2 = np.empty(len(flat))
     for start in range(0, len(flat), 4096):  # bounded memory for large grids
         part = flat[start:start + 4096]
-        chi2[start:start + len(part)] = np.sum((small.reflectance(part) - measured[sub]) ** 2, axis=-1)
+        chi2[start:start + len(part)] = np.sum(weight * (small.reflectance(part) - measured[sub]) ** 2, axis=-1)
     chi2 = chi2.reshape(grid.shape[:-1])
-    starts = sorted((refined_start(chi2, axes, i) for i in local_minima(chi2)[:CANDIDATES]),
-                    key=lambda sp: sp[1])
+    minima = local_minima(chi2)
+    lowest = chi2[tuple(minima[0])]
+    # The best CANDIDATES minima and every further one nearly as low (isopach's rule).
+    chosen = [i for k, i in enumerate(minima) if k < CANDIDATES or chi2[tuple(i)] <= 4.0 * lowest]
+    starts = sorted((refined_start(chi2, axes, i) for i in chosen), key=lambda sp: sp[1])
     dof_sub = max(1, len(sub) - len(axes))
     refined = []
     for start, predicted in starts:
@@ -187,7 +252,7 @@ def fit(stack, measured, lower, upper):
             best = 2.0 * refined[0].cost
             if predicted > 4.0 * best + 4.0 * AMBIGUITY_DCHI2 * best / dof_sub:
                 continue
-        r = solve(small, measured[sub], start, lower, upper, coarse=True)
+        r = solve(small, measured[sub], start, lower, upper, coarse=True, root=root)
         if not any(np.all(np.abs(q.x - r.x) < np.maximum(0.2 * np.array(steps), 0.5)) for q in refined):
             refined.append(r)
             refined.sort(key=lambda q: q.cost)

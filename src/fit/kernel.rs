@@ -292,17 +292,25 @@ impl Prepared {
                 for i in 0..W {
                     total[i] += weight[i] * norm[i];
                 }
-                // Top-down chain rule: dr/dd_l = P·g'_l·w_l·iβ_l, P = Π_{m<l} g'_m z_m.
-                let mut p = Cv::ONE;
+                // Top-down chain rule: dr/dd_l = q_l·w_l·iβ_l with q_l = P_l·g'_l,
+                // g'_l = (1 − ρ_l²)/(1 + ρ_l w_l)², P_0 = 1 and P_{l+1} = q_l·z_l; then
+                // dR/dd_l = 2 Re(r̄ q_l w_l iβ_l) = −2 (Re(u) Im β_l + Im(u) Re β_l),
+                // u = r̄ q_l w_l.
+                let r_bar = r.conj();
+                let mut q = Cv::ZERO;
                 for l in 0..l_n {
                     let inv = inv_den[l];
-                    let gprime = (Cv::ONE - rho[l] * rho[l]) * inv * inv;
-                    let dr = p * gprime * w[l] * beta[l].times_i();
-                    let re = r.re_conj_mul(dr);
+                    let gprime = (Cv::ONE - rho[l] * rho[l]) * (inv * inv);
+                    q = if l == 0 { gprime } else { q * gprime };
+                    let u = r_bar * q * w[l];
                     for i in 0..W {
-                        grad[l][i] += weight[i] * 2.0 * re[i];
+                        grad[l][i] -= weight[i]
+                            * 2.0
+                            * (u.re[i] * beta[l].im[i] + u.im[i] * beta[l].re[i]);
                     }
-                    p = p * (gprime * z[l]);
+                    if l + 1 < l_n {
+                        q = q * z[l];
+                    }
                 }
             }
             for i in 0..chunk.len() {

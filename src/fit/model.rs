@@ -545,18 +545,6 @@ pub fn fit(setup: &Setup, search: &SearchPixels) -> Option<ModelFit> {
     } else {
         polish(first)
     };
-    if std::env::var_os("ISOPACH_PROBE").is_some() {
-        eprintln!(
-            "PROBE grid {:?} sub {} minima {} refined {} coarse-evals {:?} best-evals {} its {}",
-            grid.counts,
-            search_pixels.len(),
-            minima.len(),
-            refined.len(),
-            refined.iter().map(|r| r.evaluations).collect::<Vec<_>>(),
-            best.evaluations,
-            best.iterations
-        );
-    }
     let s2 = best.chi2 / dof(all.len());
     let noise = quality::noise_sigma(setup.measured, &best.residuals);
     // Differences of χ² are judged against the larger of the noise and the residual
