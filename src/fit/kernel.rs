@@ -313,11 +313,18 @@ impl Prepared {
                     }
                 }
             }
-            for i in 0..chunk.len() {
-                let at = block * W + i;
-                r_out[at] = total[i];
-                for l in 0..l_n {
-                    grad_out[at * l_n + l] = grad[l][i];
+            let at = block * W;
+            if chunk.len() == W {
+                r_out[at..at + W].copy_from_slice(&total);
+            } else {
+                r_out[at..at + chunk.len()].copy_from_slice(&total[..chunk.len()]);
+            }
+            for (i, out) in grad_out[at * l_n..(at + chunk.len()) * l_n]
+                .chunks_exact_mut(l_n)
+                .enumerate()
+            {
+                for (l, g) in out.iter_mut().enumerate() {
+                    *g = grad[l][i];
                 }
             }
         }
@@ -392,7 +399,7 @@ impl Prepared {
                     rot[c][a] = phase_lanes(beta[c][l], axes.step[a]);
                     z[c][l] = z0[c][a];
                 }
-                lossless &= beta[c][k].im.iter().all(|v| *v == 0.0);
+                lossless &= lanes::all(beta[c][k].im.map(|v| v == 0.0));
                 scale[c] = root.map(|r| r * self.channels[c]);
             }
             outer.iter_mut().for_each(|o| *o = 0);
@@ -618,7 +625,7 @@ fn map_add(a: Fv, b: Fv) -> Fv {
 #[inline(always)]
 fn phase_lanes(beta: Cv, d: f64) -> Cv {
     let (sin, cos) = lanes::sin_cos(beta.re.map(|b| b * d));
-    if beta.im.iter().all(|b| *b == 0.0) {
+    if lanes::all(beta.im.map(|b| b == 0.0)) {
         Cv { re: cos, im: sin }
     } else {
         let a = beta.im.map(|b| (-b * d).exp());

@@ -184,7 +184,7 @@ const COS_C: [f64; 6] = [
 /// quadrant k mod 4 applied by bit masks.
 #[inline(always)]
 pub fn sin_cos(x: Fv) -> (Fv, Fv) {
-    if !x.iter().all(|v| v.abs() <= SIN_COS_LIMIT) {
+    if !all(x.map(|v| v.abs() <= SIN_COS_LIMIT)) {
         // Beyond the exact reduction (or NaN): the library, lane by lane.
         let sc = x.map(f64::sin_cos);
         return (sc.map(|v| v.0), sc.map(|v| v.1));
@@ -197,16 +197,15 @@ pub fn sin_cos(x: Fv) -> (Fv, Fv) {
         let q = shifted.to_bits();
         let r = ((x[i] - k * PIO2_HI) - k * PIO2_MID) - k * PIO2_LO;
         let r2 = r * r;
-        let mut ps = SIN_C[5];
-        for coeff in SIN_C[..5].iter().rev() {
-            ps = ps * r2 + coeff;
-        }
-        let sin_r = r + r * r2 * ps;
-        let mut pc = COS_C[5];
-        for coeff in COS_C[..5].iter().rev() {
-            pc = pc * r2 + coeff;
-        }
-        let cos_r = 1.0 + r2 * (-0.5 + r2 * pc);
+        // Estrin's scheme: pairs first, then powers of r⁴, a shorter chain of dependent
+        // operations than Horner's.
+        let r4 = r2 * r2;
+        let poly = |c: &[f64; 6]| {
+            let (a, b, e) = (c[0] + c[1] * r2, c[2] + c[3] * r2, c[4] + c[5] * r2);
+            a + r4 * (b + r4 * e)
+        };
+        let sin_r = r + r * r2 * poly(&SIN_C);
+        let cos_r = 1.0 + r2 * (-0.5 + r2 * poly(&COS_C));
         // Quadrant q: sin x = (sin r, cos r, −sin r, −cos r), cos x = (cos r, −sin r, −cos r, sin r).
         let odd = (q & 1).wrapping_neg();
         let a = (cos_r.to_bits() & odd) | (sin_r.to_bits() & !odd);
@@ -215,6 +214,12 @@ pub fn sin_cos(x: Fv) -> (Fv, Fv) {
         c[i] = f64::from_bits(b ^ ((q.wrapping_add(1) & 2) << 62));
     }
     (s, c)
+}
+
+/// Whether every lane is true, without a branch per lane.
+#[inline(always)]
+pub fn all(v: [bool; W]) -> bool {
+    v.iter().fold(true, |a, b| a & b)
 }
 
 /// Σ f(i) over i < n in W independent partial sums: a single running sum makes every
