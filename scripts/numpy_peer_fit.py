@@ -68,15 +68,19 @@ class Stack:
         return s
 
     def reflectance(self, d, jac=False):
-        """R for thicknesses d[..., layers] (broadcast against the wavelengths on the last
-        axis of the result); with jac, also dR/dd_i for each layer."""
-        d = np.asarray(d, dtype=float)
+        """R for thicknesses d[..., layers], or a list with one array per layer that
+        broadcast against each other (a grid: each layer's phase factor is then computed
+        once per grid value, not once per grid point), broadcast against the wavelengths on
+        the last axis of the result; with jac, also dR/dd_i for each layer."""
+        if not isinstance(d, list):
+            d = np.asarray(d, dtype=float)
+            d = [d[..., i] for i in range(d.shape[-1])]
         layers = len(self.k)
         # Built from the substrate up: r_low is the reflection seen from inside layer i.
         r_low = self.r[-1]
         dr_low = []  # derivatives of r_low with respect to the layers below, bottom first
         for i in reversed(range(layers)):
-            e = np.exp(self.k[i] * d[..., i, None])
+            e = np.exp(self.k[i] * np.asarray(d[i], dtype=float)[..., None])
             ri = self.r[i]
             den = 1.0 + ri * r_low * e
             r_new = (ri + r_low * e) / den
@@ -129,7 +133,19 @@ def grid_axes(stack, bounds):
     return axes, steps
 
 
+_SEARCH = {}
+
+
 def search_pixels(stack, thickest):
+    """search_pixels_uncached, kept per stack and range as isopach's Fitter keeps them (a
+    map fits every site on one wavelength grid and one range)."""
+    key = (id(stack), tuple(thickest))
+    if key not in _SEARCH:
+        _SEARCH[key] = search_pixels_uncached(stack, thickest)
+    return _SEARCH[key]
+
+
+def search_pixels_uncached(stack, thickest):
     """isopach's SearchPixels::by_phase: walking along the window, the last pixel whose
     round-trip phase (sum of Re(beta) d over the layers, beta = 4 pi n / lambda) differs from
     the previous choice's by at most 2 pi / PER_FRINGE, and no further than 1/48 of the
@@ -233,13 +249,9 @@ def fit(stack, measured, lower, upper):
     sub, weight = search_pixels(stack, upper)
     root = np.sqrt(weight)
     small = stack.subset(sub)
-    grid = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1)  # (..., layers)
-    flat = grid.reshape(-1, len(axes))
-    chi2 = np.empty(len(flat))
-    for start in range(0, len(flat), 4096):  # bounded memory for large grids
-        part = flat[start:start + 4096]
-        chi2[start:start + len(part)] = np.sum(weight * (small.reflectance(part) - measured[sub]) ** 2, axis=-1)
-    chi2 = chi2.reshape(grid.shape[:-1])
+    # The whole grid at once, each axis along its own array dimension.
+    shaped = [ax.reshape([-1 if b == a else 1 for b in range(len(axes))]) for a, ax in enumerate(axes)]
+    chi2 = np.sum(weight * (small.reflectance(shaped) - measured[sub]) ** 2, axis=-1)
     minima = local_minima(chi2)
     lowest = chi2[tuple(minima[0])]
     # The best CANDIDATES minima and every further one nearly as low (isopach's rule).
@@ -256,7 +268,21 @@ def fit(stack, measured, lower, upper):
         if not any(np.all(np.abs(q.x - r.x) < np.maximum(0.2 * np.array(steps), 0.5)) for q in refined):
             refined.append(r)
             refined.sort(key=lambda q: q.cost)
-    return solve(stack, measured, refined[0].x, lower, upper, coarse=False).x
+    best = solve(stack, measured, refined[0].x, lower, upper, coarse=False)
+    # What isopach reports beside the thickness: its sigma from s^2 (J^T J)^-1, the noise
+    # the spectrum shows by itself (median absolute third difference of the spectrum and of
+    # the residual, src/fit/quality.rs) and the goodness of fit.
+    dof = max(1, len(measured) - len(axes))
+    s2 = 2.0 * best.cost / dof
+    sigma = np.sqrt(np.diag(s2 * np.linalg.inv(best.jac.T @ best.jac)))
+    noise = min(scatter_sigma(measured), scatter_sigma(best.fun))
+    gof = 1.0 - 2.0 * best.cost / np.sum((measured - measured.mean()) ** 2)
+    return best.x, sigma, noise, gof
+
+
+def scatter_sigma(v):
+    """isopach's noise estimate: median |third difference| / (0.6745 sqrt(20))."""
+    return np.median(np.abs(v[3:] - 3.0 * v[2:-1] + 3.0 * v[1:-2] - v[:-3])) / (0.6745 * np.sqrt(20.0))
 
 
 def problem(names, lam, truth):
@@ -304,11 +330,12 @@ def main():
           f"load average {load}; {os.cpu_count()} cores")
     for bench, names, lam, truth, lo, hi in cases:
         stack, measured = problem(names, lam, truth)
-        d, walls, cpus = timed(lambda: fit(stack, measured, lo, hi))
+        (d, sigma, noise, gof), walls, cpus = timed(lambda: fit(stack, measured, lo, hi))
         err = np.abs(np.array(d) - np.array(truth)).max()
         rust_wall = criterion_ns(bench, "wall") * 1e-9
         rust_cpu = criterion_ns(bench, "cpu") * 1e-9
-        print(f"{bench}: peer fitted {np.round(d, 3).tolist()} (true {truth}, |error| {err:.3f} nm)")
+        print(f"{bench}: peer fitted {np.round(d, 3).tolist()} +- {np.round(sigma, 3).tolist()} nm "
+              f"(true {truth}, |error| {err:.3f} nm), noise {noise:.5f}, gof {gof:.5f}")
         print(f"  numpy/scipy wall {ms(walls)}  cpu {ms(cpus)}")
         print(f"  isopach     wall {rust_wall * 1e3:8.3f} ms (criterion median)  cpu {rust_cpu * 1e3:8.3f} ms")
         print(f"  ratio peer/isopach: wall {np.median(walls) / rust_wall:.1f}x, "

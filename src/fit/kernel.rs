@@ -251,24 +251,28 @@ impl Prepared {
         lanes::with_avx2(
             #[inline(always)]
             || {
-                if l_n <= 4 {
-                    self.grad_lanes::<4>(pixels, d, r, grad)
-                } else {
-                    self.grad_lanes::<MAX_LAYERS>(pixels, d, r, grad)
+                // One and two layers, the usual stacks, with loops of known length that
+                // the compiler unrolls into registers.
+                match l_n {
+                    1 => self.grad_lanes::<1, true>(pixels, d, r, grad),
+                    2 => self.grad_lanes::<2, true>(pixels, d, r, grad),
+                    3 | 4 => self.grad_lanes::<4, false>(pixels, d, r, grad),
+                    _ => self.grad_lanes::<MAX_LAYERS, false>(pixels, d, r, grad),
                 }
             },
         )
     }
 
     #[inline(always)]
-    fn grad_lanes<const M: usize>(
+    fn grad_lanes<const M: usize, const EXACT: bool>(
         &self,
         pixels: &[usize],
         d: &[f64],
         r_out: &mut [f64],
         grad_out: &mut [f64],
     ) {
-        let l_n = self.layers;
+        // EXACT: the stack has exactly M layers.
+        let l_n = if EXACT { M } else { self.layers };
         let mut rho = [Cv::ZERO; M];
         let mut beta = [Cv::ZERO; M];
         let mut w = [Cv::ZERO; M];
@@ -304,9 +308,8 @@ impl Prepared {
                     q = if l == 0 { gprime } else { q * gprime };
                     let u = r_bar * q * w[l];
                     for i in 0..W {
-                        grad[l][i] -= weight[i]
-                            * 2.0
-                            * (u.re[i] * beta[l].im[i] + u.im[i] * beta[l].re[i]);
+                        grad[l][i] -=
+                            weight[i] * 2.0 * (u.re[i] * beta[l].im[i] + u.im[i] * beta[l].re[i]);
                     }
                     if l + 1 < l_n {
                         q = q * z[l];

@@ -63,12 +63,17 @@ pub fn scatter_sigma(values: &[f64]) -> f64 {
     }
     // |x| as its bit pattern: for non-negative doubles the integer order is the numeric
     // order (NaN last, as total_cmp has it), and integers compare faster.
-    let mut d3: Vec<u64> = values
-        .windows(4)
-        .map(|w| (w[3] - 3.0 * w[2] + 3.0 * w[1] - w[0]).abs().to_bits())
+    let n = values.len() - 3;
+    let (a, b, c, e) = (
+        &values[..n],
+        &values[1..n + 1],
+        &values[2..n + 2],
+        &values[3..],
+    );
+    let mut d3: Vec<u64> = (0..n)
+        .map(|i| (e[i] - 3.0 * c[i] + 3.0 * b[i] - a[i]).abs().to_bits())
         .collect();
-    let mid = d3.len() / 2;
-    let (_, median, _) = d3.select_nth_unstable(mid);
+    let (_, median, _) = d3.select_nth_unstable(n / 2);
     f64::from_bits(*median) / (0.6745 * 20f64.sqrt())
 }
 
