@@ -222,6 +222,21 @@ pub fn all(v: [bool; W]) -> bool {
     v.iter().fold(true, |a, b| a & b)
 }
 
+/// Σ a_i b_i in W independent partial sums (equal to the plain sum up to rounding).
+#[inline(always)]
+pub fn dot(a: &[f64], b: &[f64]) -> f64 {
+    let n = a.len().min(b.len());
+    let full = n - n % W;
+    let mut acc = [0.0; W];
+    for (x, y) in a[..full].chunks_exact(W).zip(b[..full].chunks_exact(W)) {
+        for l in 0..W {
+            acc[l] += x[l] * y[l];
+        }
+    }
+    let tail: f64 = (full..n).map(|i| a[i] * b[i]).sum();
+    acc.iter().sum::<f64>() + tail
+}
+
 /// Σ f(i) over i < n in W independent partial sums: a single running sum makes every
 /// addition wait for the one before it. Equal to the plain sum up to rounding.
 #[inline(always)]

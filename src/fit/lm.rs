@@ -133,17 +133,53 @@ pub fn minimise(
 }
 
 fn normal(res: &[f64], jac: &[f64], p: usize) -> (DMatrix<f64>, DVector<f64>) {
-    // Plain sums over rows (the matrices are a few parameters wide), each in independent
-    // partial sums (lanes::sum).
+    // Plain sums over rows (the matrices are a few parameters wide), in independent partial
+    // sums; one and two parameters, the common cases, in one pass over the rows.
     let mut jtj = vec![0.0; p * p];
-    let jtr: Vec<f64> = (0..p)
-        .map(|a| lanes::sum(res.len(), |i| jac[i * p + a] * res[i]))
-        .collect();
-    for a in 0..p {
-        for b in 0..=a {
-            let v = lanes::sum(res.len(), |i| jac[i * p + a] * jac[i * p + b]);
-            jtj[a * p + b] = v;
-            jtj[b * p + a] = v;
+    let mut jtr = vec![0.0; p];
+    match p {
+        1 => {
+            jtr[0] = lanes::dot(jac, res);
+            jtj[0] = lanes::dot(jac, jac);
+        }
+        2 => {
+            const R: usize = 4;
+            let mut acc = [[0.0; R]; 5];
+            let rows = res.len() - res.len() % R;
+            for (r, j) in res[..rows]
+                .chunks_exact(R)
+                .zip(jac[..2 * rows].chunks_exact(2 * R))
+            {
+                for l in 0..R {
+                    let (a, b) = (j[2 * l], j[2 * l + 1]);
+                    acc[0][l] += a * r[l];
+                    acc[1][l] += b * r[l];
+                    acc[2][l] += a * a;
+                    acc[3][l] += a * b;
+                    acc[4][l] += b * b;
+                }
+            }
+            let mut t: [f64; 5] = acc.map(|v| v.iter().sum());
+            for i in rows..res.len() {
+                let (a, b, r) = (jac[2 * i], jac[2 * i + 1], res[i]);
+                t[0] += a * r;
+                t[1] += b * r;
+                t[2] += a * a;
+                t[3] += a * b;
+                t[4] += b * b;
+            }
+            jtr.copy_from_slice(&t[..2]);
+            jtj.copy_from_slice(&[t[2], t[3], t[3], t[4]]);
+        }
+        _ => {
+            for a in 0..p {
+                jtr[a] = lanes::sum(res.len(), |i| jac[i * p + a] * res[i]);
+                for b in 0..=a {
+                    let v = lanes::sum(res.len(), |i| jac[i * p + a] * jac[i * p + b]);
+                    jtj[a * p + b] = v;
+                    jtj[b * p + a] = v;
+                }
+            }
         }
     }
     (DMatrix::from_vec(p, p, jtj), DVector::from_vec(jtr))

@@ -198,7 +198,17 @@ impl Problem for Lsq<'_> {
         // kept from one evaluation to the next.
         let mut scratch = self.scratch.borrow_mut();
         let (r_all, g_all) = &mut *scratch;
-        if smeared.is_none() {
+        // Every layer fitted, in order, nothing else: the Jacobian is dR/dd itself.
+        let plain = smeared.is_none()
+            && !self.setup.scale
+            && !self.setup.tilt
+            && self.setup.fitted.iter().copied().eq(0..nl);
+        if plain {
+            r_all.resize(self.pixels.len(), 0.0);
+            self.setup
+                .prep
+                .reflectance_grad_many(self.pixels, &d, r_all, jac);
+        } else if smeared.is_none() {
             r_all.resize(self.pixels.len(), 0.0);
             g_all.resize(self.pixels.len() * nl, 0.0);
             self.setup
@@ -207,13 +217,18 @@ impl Problem for Lsq<'_> {
         }
         if smeared.is_none() && !self.setup.scale && !self.setup.tilt {
             // The model is R itself: residuals and Jacobian rows straight from the lanes.
-            let m = self.setup.measured;
-            for (i, &j) in self.pixels.iter().enumerate() {
-                res[i] = r_all[i] - m[j];
-            }
-            if self.setup.fitted.iter().copied().eq(0..nl) {
-                jac.copy_from_slice(g_all);
+            let (m, r_all): (&[f64], &[f64]) = (self.setup.measured, r_all);
+            if self.pixels.len() == m.len() {
+                // Every pixel, in order.
+                for ((res, r), m) in res.iter_mut().zip(r_all).zip(m) {
+                    *res = r - m;
+                }
             } else {
+                for ((res, r), &j) in res.iter_mut().zip(r_all).zip(self.pixels) {
+                    *res = r - m[j];
+                }
+            }
+            if !plain {
                 for (row, g) in jac.chunks_exact_mut(p).zip(g_all.chunks_exact(nl)) {
                     for (a, l) in self.setup.fitted.iter().enumerate() {
                         row[a] = g[*l];
@@ -366,17 +381,28 @@ impl Grid {
     /// Grid points lower than every axis neighbour, best first.
     fn local_minima(&self) -> Vec<usize> {
         let strides = self.strides();
-        let mut out: Vec<usize> = (0..self.chi2.len())
-            .filter(|&f| {
-                let v = self.chi2[f];
-                strides.iter().zip(&self.counts).all(|(&st, &count)| {
-                    let i = (f / st) % count;
-                    let lower_ok = i == 0 || self.chi2[f - st] >= v;
-                    let upper_ok = i + 1 == count || self.chi2[f + st] > v;
-                    lower_ok && upper_ok
-                })
-            })
-            .collect();
+        let dims = self.counts.len();
+        // The grid index of f, kept by counting (the last axis fastest), not by division.
+        let mut idx = vec![0usize; dims];
+        let mut out = Vec::new();
+        for (f, &v) in self.chi2.iter().enumerate() {
+            let minimum = (0..dims).all(|a| {
+                let (st, i) = (strides[a], idx[a]);
+                let lower_ok = i == 0 || self.chi2[f - st] >= v;
+                let upper_ok = i + 1 == self.counts[a] || self.chi2[f + st] > v;
+                lower_ok && upper_ok
+            });
+            if minimum {
+                out.push(f);
+            }
+            for a in (0..dims).rev() {
+                idx[a] += 1;
+                if idx[a] < self.counts[a] {
+                    break;
+                }
+                idx[a] = 0;
+            }
+        }
         out.sort_by(|a, b| self.chi2[*a].total_cmp(&self.chi2[*b]));
         out
     }

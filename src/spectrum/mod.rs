@@ -115,9 +115,11 @@ impl Spectrum {
         // One pass without branches for the usual, valid spectrum; the pixel to blame only
         // when it is not.
         let w = &self.wavelength_nm;
-        let fine = (0..self.len()).fold(true, |ok, i| {
-            ok & w[i].is_finite() & (w[i] > 0.0) & self.reflectance[i].is_finite()
-        }) & w.windows(2).fold(true, |ok, p| ok & (p[1] > p[0]));
+        let finite = w.iter().zip(&self.reflectance).fold(true, |ok, (w, r)| {
+            ok & w.is_finite() & (*w > 0.0) & r.is_finite()
+        });
+        let rising = w[1..].iter().zip(w).fold(true, |ok, (b, a)| ok & (b > a));
+        let fine = finite & rising;
         if fine {
             return Ok(());
         }
