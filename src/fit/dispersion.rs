@@ -358,6 +358,7 @@ pub fn fit_site(
         max_iterations: 100,
         rel_tol: 1e-12,
         x_tol: 1e-9,
+        ..Settings::default()
     };
     let s = lm::minimise(&problem, &x0, &lo, &hi, settings);
     let nl = local0.len();

@@ -40,6 +40,11 @@ pub struct Settings {
     pub rel_tol: f64,
     /// Stop when no parameter moves by more than this.
     pub x_tol: f64,
+    /// Marquardt's damping λ at the start: 10⁻³ (Marquardt's own choice) from a rough
+    /// start; far less from a start already near the minimum, where the undamped
+    /// Gauss–Newton step is the one to take (a damped one falls short and costs another
+    /// evaluation).
+    pub initial_damping: f64,
 }
 
 impl Default for Settings {
@@ -48,6 +53,7 @@ impl Default for Settings {
             max_iterations: 60,
             rel_tol: 1e-10,
             x_tol: 1e-5,
+            initial_damping: 1e-3,
         }
     }
 }
@@ -75,7 +81,7 @@ pub fn minimise(
     let mut evaluations = 1;
     let mut trial_res = vec![0.0; m];
     let mut trial_jac = vec![0.0; m * p];
-    let mut lambda = 1e-3;
+    let mut lambda = settings.initial_damping;
     let mut iterations = 0;
     let (mut jtj, mut jtr) = normal(&res, &jac, p);
     while iterations < settings.max_iterations {

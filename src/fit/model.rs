@@ -503,6 +503,7 @@ pub fn fit(setup: &Setup, search: &SearchPixels) -> Option<ModelFit> {
         max_iterations: 15,
         rel_tol: 1e-6,
         x_tol: 0.01,
+        ..Settings::default()
     };
     let sub = Lsq {
         setup,
@@ -554,8 +555,10 @@ pub fn fit(setup: &Setup, search: &SearchPixels) -> Option<ModelFit> {
             refined.sort_by(|a, b| a.chi2.total_cmp(&b.chi2));
         }
     }
+    // The polish starts at a minimum already refined on the search pixels.
     let fine = Settings {
         x_tol: 1e-4,
+        initial_damping: 1e-6,
         ..Settings::default()
     };
     let polish = |s: &lm::Solution| {
