@@ -129,7 +129,7 @@ impl Prepared {
         let l_n = self.layers;
         let stride = 2 * l_n + 1;
         let first = chunk[0];
-        let whole = first % W == 0
+        let whole = first.is_multiple_of(W)
             && chunk[chunk.len() - 1] == first + chunk.len() - 1
             && (chunk.len() == W || first + chunk.len() == self.len());
         if whole {
@@ -745,7 +745,9 @@ mod tests {
             weights: &weights,
             measured: &measured,
         };
-        let cases: [(&[usize], &[f64], &[f64], &[usize]); 5] = [
+        // (fitted layers, first thickness, step, count) of each grid axis.
+        type Axes<'a> = (&'a [usize], &'a [f64], &'a [f64], &'a [usize]);
+        let cases: [Axes; 5] = [
             (&[2], &[600.0], &[10.0], &[300]),
             (&[1], &[5.0], &[1.0], &[40]),
             (&[0, 2], &[100.0, 850.0], &[25.0, 7.0], &[4, 30]),
