@@ -26,7 +26,7 @@ pub mod verdict;
 pub mod xy_plot;
 
 pub use error::MapError;
-pub use render::{render_png, render_svg, MapInput, RenderOptions, ValueRange};
+pub use render::{render_png, render_svg, render_svg_and_png, MapInput, RenderOptions, ValueRange};
 pub use sites_table::SiteRow;
 pub use stats::{LayerSummary, Summary};
 pub use verdict::Verdict;

@@ -95,3 +95,20 @@ pub fn render_svg(input: &MapInput, opts: &RenderOptions) -> String {
 pub fn render_png(input: &MapInput, opts: &RenderOptions) -> Result<Vec<u8>, MapError> {
     png::write(&layout::page(input, opts), opts.png_scale)
 }
+
+/// The map page as SVG text and as PNG bytes, from one layout (the interpolation is the
+/// costly part, done once), the two encodings written on two threads.
+pub fn render_svg_and_png(
+    input: &MapInput,
+    opts: &RenderOptions,
+) -> Result<(String, Vec<u8>), MapError> {
+    let page = layout::page(input, opts);
+    std::thread::scope(|scope| {
+        let png = scope.spawn(|| png::write(&page, opts.png_scale));
+        let svg = svg::write(&page);
+        let png = png
+            .join()
+            .unwrap_or_else(|e| std::panic::resume_unwind(e))?;
+        Ok((svg, png))
+    })
+}

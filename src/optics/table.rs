@@ -152,8 +152,24 @@ pub fn csv_record(raw: &str) -> Option<(&str, Vec<&str>)> {
 /// The trimmed line under the rules of [`csv_records`], `None` for a blank or comment line
 /// (for readers that split the cells themselves).
 pub fn csv_content(raw: &str) -> Option<&str> {
-    let t = raw.trim().trim_start_matches('\u{feff}');
-    (!t.is_empty() && !t.starts_with('#')).then_some(t)
+    let t = trim(raw);
+    // The byte-order mark (EF BB BF) is looked for only where a line starts with its byte.
+    let t = if t.as_bytes().first() == Some(&0xEF) {
+        t.trim_start_matches('\u{feff}')
+    } else {
+        t
+    };
+    (!t.is_empty() && t.as_bytes()[0] != b'#').then_some(t)
+}
+
+/// `str::trim`, with the common case (printable ASCII at both ends: nothing to trim)
+/// decided from two bytes.
+pub fn trim(s: &str) -> &str {
+    let b = s.as_bytes();
+    match (b.first(), b.last()) {
+        (Some(f), Some(l)) if f.is_ascii_graphic() && l.is_ascii_graphic() => s,
+        _ => s.trim(),
+    }
 }
 
 /// Rows of a refractiveindex.info `tabulated nk` block (wavelength in µm) as nm rows, with

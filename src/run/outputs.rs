@@ -7,7 +7,7 @@
 
 use super::files::write_atomic;
 use super::folder::{RunFolder, RunToml};
-use crate::map::render::{render_png, render_svg, MapInput, RenderOptions};
+use crate::map::render::{render_svg_and_png, MapInput, RenderOptions};
 use crate::map::sites_table::{self, SiteRow};
 use crate::map::stats::Summary;
 use crate::map::MapError;
@@ -136,8 +136,9 @@ pub fn write_run_maps(
     for layer in 0..layers {
         let input = run_map_input(rows, meta, layer);
         let (svg, png) = map_paths(folder, layer);
-        put(&svg, render_svg(&input, opts).as_bytes())?;
-        put(&png, &render_png(&input, opts)?)?;
+        let (svg_text, png_bytes) = render_svg_and_png(&input, opts)?;
+        put(&svg, svg_text.as_bytes())?;
+        put(&png, &png_bytes)?;
         written.extend([svg, png]);
     }
     Ok(written)
