@@ -340,6 +340,8 @@ fn decimal(cell: &str) -> Option<f64> {
     let (mut mantissa, mut count, mut fraction, mut point) = (0u64, 0usize, 0usize, false);
     for &c in digits {
         match c {
+            // 19 digits always fit in a u64; more are the library's.
+            b'0'..=b'9' if count == 19 => return None,
             b'0'..=b'9' => {
                 mantissa = mantissa * 10 + u64::from(c - b'0');
                 count += 1;
@@ -347,10 +349,6 @@ fn decimal(cell: &str) -> Option<f64> {
             }
             b'.' if !point => point = true,
             _ => return None,
-        }
-        if count > 19 {
-            // 19 digits always fit in a u64; more are the library's.
-            return None;
         }
     }
     if count == 0 || mantissa > 1 << 53 {
@@ -472,6 +470,11 @@ mod tests {
         assert_eq!(decimal("-0"), Some(-0.0));
         // Beyond 2^53 as one integer: the library's.
         assert_eq!(decimal("9007199254740993"), None);
+        assert_eq!(
+            decimal("0.00000000000000000001"),
+            None,
+            "more than 19 digits"
+        );
     }
 
     #[test]
