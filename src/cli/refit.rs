@@ -130,10 +130,13 @@ pub fn run(args: Args) -> anyhow::Result<u8> {
         attempts.len(),
         attempts.len() as f64 / took.max(1e-9)
     );
-    let summary = derive::rebuild(&folder)?;
-    if let Some(note) = super::history_arg::block_on(history_entry::record(&history, &folder))? {
+    let rebuilt = derive::rebuild(&folder)?;
+    if let Some(note) =
+        super::history_arg::block_on(history_entry::record(&history, &folder, &rebuilt.events))?
+    {
         eprintln!("warning: {note}");
     }
+    let summary = rebuilt.summary;
     let f = &summary.first;
     outln!(
         "refitted {} spectra of run {}: {}",

@@ -153,6 +153,7 @@ impl Field {
         Sampler {
             field: self,
             nn: self.tri.natural_neighbor(),
+            weights: Default::default(),
         }
     }
 
@@ -379,20 +380,49 @@ impl GridSpec {
 pub struct Sampler<'a> {
     field: &'a Field,
     nn: spade::NaturalNeighbor<'a, DelaunayTriangulation<Node>>,
+    weights: std::cell::RefCell<Vec<(spade::handles::FixedVertexHandle, f64)>>,
 }
 
 impl Sampler<'_> {
     /// The interpolated value at (x, y); NaN outside the ghost ring.
+    ///
+    /// Sibson's C¹ interpolant (Sibson 1981; Flötotto's thesis, ch. 4): the natural-neighbour
+    /// blend of the sites' values (`c0`) and of their first-order Taylor extrapolations
+    /// weighted by natural-neighbour weight over distance (`c1`), mixed by
+    /// `(α c0 + β c1)/(α + β)` with α = Σ(wᵢ/rᵢ)rᵢ² / Σ(wᵢ/rᵢ) and β = Σ wᵢ rᵢ². The same
+    /// formula as spade's `interpolate_gradient` with flatness ½, with a square root where
+    /// spade raises to the power ½ (the profile's largest single cost).
     pub fn at(&self, x: f64, y: f64) -> f64 {
+        let tri = &self.field.tri;
         let grads = &self.field.grads;
-        self.nn
-            .interpolate_gradient(
-                |v| v.data().value,
-                |v| grads[v.fix().index()],
-                0.5,
-                Point2::new(x, y),
-            )
-            .unwrap_or(f64::NAN)
+        let position = Point2::new(x, y);
+        let weights = &mut *self.weights.borrow_mut();
+        self.nn.get_weights(position, weights);
+        if weights.is_empty() {
+            return f64::NAN;
+        }
+        let (mut sum_c0, mut sum_c1, mut sum_c1_weights) = (0.0, 0.0, 0.0);
+        let (mut alpha, mut beta) = (0.0, 0.0);
+        for &(handle, weight) in weights.iter() {
+            let vertex = tri.vertex(handle);
+            let (p, h) = (vertex.position(), vertex.data().value);
+            let (dx, dy) = (x - p.x, y - p.y);
+            let r2 = dx * dx + dy * dy;
+            if r2 == 0.0 {
+                return h;
+            }
+            let c1_weight = weight / r2.sqrt();
+            let g = grads[handle.index()];
+            let zeta = h + dx * g[0] + dy * g[1];
+            alpha += c1_weight * r2;
+            beta += weight * r2;
+            sum_c1_weights += c1_weight;
+            sum_c1 += zeta * c1_weight;
+            sum_c0 += h * weight;
+        }
+        alpha /= sum_c1_weights;
+        sum_c1 /= sum_c1_weights;
+        (alpha * sum_c0 + beta * sum_c1) / (alpha + beta)
     }
 }
 

@@ -24,6 +24,7 @@ pub mod stats;
 pub mod svg;
 pub mod verdict;
 pub mod xy_plot;
+pub mod zlib_pieces;
 
 pub use error::MapError;
 pub use render::{render_png, render_svg, render_svg_and_png, MapInput, RenderOptions, ValueRange};

@@ -241,7 +241,7 @@ fn dashes(line: &[(f64, f64)], on: f64, off: f64) -> Vec<Vec<(f64, f64)>> {
 }
 
 /// Fills the banded colour map into the buffer: even-odd scanline spans of the clip polygon,
-/// each pixel coloured by its band.
+/// each pixel coloured by its band. The rows are shared among the available cores.
 fn fill_field(buf: &mut [u8], bw: u32, bh: u32, f: &FieldFill, k: f64) {
     let clip: Vec<(f64, f64)> = f.clip.iter().map(|&(x, y)| (x * k, y * k)).collect();
     if clip.len() < 3 {
@@ -250,11 +250,32 @@ fn fill_field(buf: &mut [u8], bw: u32, bh: u32, f: &FieldFill, k: f64) {
     let (ymin, ymax) = clip
         .iter()
         .fold((f64::MAX, f64::MIN), |(a, b), p| (a.min(p.1), b.max(p.1)));
-    let y_start = ymin.floor().max(0.0) as u32;
-    let y_end = (ymax.ceil() as u32).min(bh);
+    let y_start = ymin.floor().max(0.0) as usize;
+    let y_end = (ymax.ceil().max(0.0) as usize).min(bh as usize);
+    if y_start >= y_end {
+        return;
+    }
+    let row_bytes = bw as usize * 3;
+    let threads = std::thread::available_parallelism()
+        .map(|t| t.get())
+        .unwrap_or(1)
+        .clamp(1, 8);
+    let per = (y_end - y_start).div_ceil(threads);
+    let rows = &mut buf[y_start * row_bytes..y_end * row_bytes];
+    std::thread::scope(|scope| {
+        for (band, chunk) in rows.chunks_mut(per * row_bytes).enumerate() {
+            let clip = &clip;
+            let first = y_start + band * per;
+            scope.spawn(move || fill_rows(chunk, first, bw, f, k, clip));
+        }
+    });
+}
+
+/// Fills the field into `rows`, whole pixel rows starting at row `first` of the image.
+fn fill_rows(rows: &mut [u8], first: usize, bw: u32, f: &FieldFill, k: f64, clip: &[(f64, f64)]) {
     let mut xs: Vec<f64> = Vec::new();
-    for py in y_start..y_end {
-        let yc = py as f64 + 0.5;
+    for (r, row) in rows.chunks_exact_mut(bw as usize * 3).enumerate() {
+        let yc = (first + r) as f64 + 0.5;
         xs.clear();
         for (i, &a) in clip.iter().enumerate() {
             let b = clip[(i + 1) % clip.len()];
@@ -273,8 +294,8 @@ fn fill_field(buf: &mut [u8], bw: u32, bh: u32, f: &FieldFill, k: f64) {
                     continue;
                 }
                 let c = f.colours[f.band(v).min(f.colours.len() - 1)];
-                let o = ((py * bw) as usize + pxl as usize) * 3;
-                buf[o..o + 3].copy_from_slice(&[c.0, c.1, c.2]);
+                let o = pxl as usize * 3;
+                row[o..o + 3].copy_from_slice(&[c.0, c.1, c.2]);
             }
         }
     }
@@ -302,20 +323,36 @@ fn downsample(buf: &[u8], bw: u32, bh: u32) -> Vec<u8> {
     out
 }
 
-/// Encodes 8-bit RGB pixels as PNG.
+/// Encodes 8-bit RGB pixels as PNG: every row Sub-filtered (each byte less the same channel
+/// of the pixel to its left, PNG's filter type 1), the zlib stream compressed on the
+/// available cores ([`super::zlib_pieces`]) and written as one image-data chunk.
 pub fn encode(w: u32, h: u32, data: &[u8]) -> Result<Vec<u8>, MapError> {
-    let mut out = Vec::new();
+    let png_err = |e: &dyn std::fmt::Display| MapError::Png(e.to_string());
+    let row = w as usize * 3;
+    if data.len() != row * h as usize {
+        return Err(png_err(&format!(
+            "{} bytes of pixels for a {w} × {h} RGB image",
+            data.len()
+        )));
+    }
+    let mut filtered = Vec::with_capacity((row + 1) * h as usize);
+    for line in data.chunks_exact(row.max(1)).take(h as usize) {
+        filtered.push(1u8);
+        filtered.extend_from_slice(&line[..3.min(line.len())]);
+        filtered.extend(line.windows(4).map(|p| p[3].wrapping_sub(p[0])));
+    }
+    let threads = std::thread::available_parallelism().map_or(1, |t| t.get());
+    let zlib = super::zlib_pieces::compress(&filtered, threads).map_err(|e| png_err(&e))?;
+    let mut out = Vec::with_capacity(zlib.len() + 64);
     {
         let mut enc = ::png::Encoder::new(&mut out, w, h);
         enc.set_color(::png::ColorType::Rgb);
         enc.set_depth(::png::BitDepth::Eight);
-        enc.set_compression(::png::Compression::Default);
-        let mut writer = enc
-            .write_header()
-            .map_err(|e| MapError::Png(e.to_string()))?;
+        let mut writer = enc.write_header().map_err(|e| png_err(&e))?;
         writer
-            .write_image_data(data)
-            .map_err(|e| MapError::Png(e.to_string()))?;
+            .write_chunk(::png::chunk::IDAT, &zlib)
+            .map_err(|e| png_err(&e))?;
+        writer.finish().map_err(|e| png_err(&e))?;
     }
     Ok(out)
 }
@@ -323,6 +360,23 @@ pub fn encode(w: u32, h: u32, data: &[u8]) -> Result<Vec<u8>, MapError> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn encoded_pixels_decode_with_the_library_decoder() {
+        // A gradient with noise, wide enough that the stream is compressed in pieces.
+        let (w, h) = (700u32, 500u32);
+        let pixels: Vec<u8> = (0..w * h * 3)
+            .map(|i| ((i / 3 % w) / 3 + (i / 3 / w) / 2 + (i * 7919 % 13)) as u8)
+            .collect();
+        let bytes = encode(w, h, &pixels).unwrap();
+        let mut reader = ::png::Decoder::new(&bytes[..]).read_info().unwrap();
+        let mut back = vec![0; reader.output_buffer_size()];
+        let info = reader.next_frame(&mut back).unwrap();
+        assert_eq!((info.width, info.height), (w, h));
+        assert_eq!(info.color_type, ::png::ColorType::Rgb);
+        assert_eq!(&back[..info.buffer_size()], &pixels[..]);
+        assert!(encode(w, h, &pixels[1..]).is_err());
+    }
 
     #[test]
     fn dashes_alternate_on_and_off() {

@@ -116,7 +116,7 @@ impl Wafer {
 
     /// Distance from (x, y) inwards to the wafer's physical edge, mm; negative outside.
     pub fn edge_distance(&self, x: f64, y: f64) -> f64 {
-        let mut d = self.radius() - x.hypot(y);
+        let mut d = self.radius() - (x * x + y * y).sqrt();
         if let (Some(h), Some((ux, uy))) = (self.flat_distance(), self.mark_direction()) {
             d = d.min(h - (x * ux + y * uy));
         }

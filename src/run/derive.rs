@@ -100,8 +100,15 @@ pub fn rows(states: &[SiteState], layers: usize) -> Vec<SiteRow> {
         .collect()
 }
 
-/// Rewrites every derived file of the run from its journal; returns the summary.
-pub fn rebuild(folder: &RunFolder) -> anyhow::Result<Summary> {
+/// What a rebuild wrote, and the journal's events it was made from (read once, for the
+/// run's history entry too).
+pub struct Rebuilt {
+    pub summary: Summary,
+    pub events: Vec<Event>,
+}
+
+/// Rewrites every derived file of the run from its journal.
+pub fn rebuild(folder: &RunFolder) -> anyhow::Result<Rebuilt> {
     let meta = folder.read_run_toml()?;
     let (events, states) = read_states(folder, &meta)?;
     let layers = fitted_layer_names(&meta.recipe).len().max(1);
@@ -114,7 +121,7 @@ pub fn rebuild(folder: &RunFolder) -> anyhow::Result<Summary> {
     let summary = write_run_outputs_with(folder, &rows, &meta, &fitted)?;
     // A gauge study's own figures are derived files too.
     super::gauge::write_gauge_outputs(folder)?;
-    Ok(summary)
+    Ok(Rebuilt { summary, events })
 }
 
 /// `MATERIAL.NAME` and `MATERIAL.NAME_sigma` of every fitted coefficient, one value per

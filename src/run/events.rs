@@ -252,6 +252,23 @@ pub fn settled(events: &[Event]) -> (Vec<&Event>, Option<&Event>) {
     (out, refit.map(|(started, _)| started))
 }
 
+/// Whether a journal line is an event that [`settled`] turns on (`run-started`,
+/// `refit-started`, `refit-finished`): [`settled`] over the events from the last such line
+/// to the end finds the same unfinished refit as over the whole journal. Reads only the tag.
+pub fn settles_refits(line: &[u8]) -> bool {
+    #[derive(Deserialize)]
+    struct Tag<'a> {
+        #[serde(borrow)]
+        event: Option<std::borrow::Cow<'a, str>>,
+    }
+    serde_json::from_slice::<Tag>(line).is_ok_and(|t| {
+        matches!(
+            t.event.as_deref(),
+            Some("run-started" | "refit-started" | "refit-finished")
+        )
+    })
+}
+
 /// The shared dispersion the counting fits were made with: journalled in the last finished
 /// refit (a finished refit without one clears it; an unfinished one does not count).
 pub fn current_dispersion(events: &[Event]) -> Option<&SharedDispersion> {
@@ -480,5 +497,20 @@ mod tests {
         killed.push(fitted(2, 1, 300.0, 0.99));
         assert!(settled(&killed).1.is_none());
         assert_eq!(thicknesses(&killed), vec![100.0, 300.0, 100.0]);
+        // The end of the journal from its last boundary tells the same unfinished refit.
+        for journal in (1..=events.len())
+            .map(|cut| events[..cut].to_vec())
+            .chain([killed])
+        {
+            let lines: Vec<String> = journal
+                .iter()
+                .map(|e| serde_json::to_string(e).unwrap())
+                .collect();
+            let from = lines
+                .iter()
+                .rposition(|l| settles_refits(l.as_bytes()))
+                .unwrap_or(0);
+            assert_eq!(settled(&journal[from..]).1, settled(&journal).1);
+        }
     }
 }

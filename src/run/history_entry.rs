@@ -90,14 +90,19 @@ pub fn entry(
 /// The history record of the run in `folder`, read from its files (what a session wrote, what
 /// a rebuild reads: both give the same record).
 pub fn read_entry(folder: &Path) -> anyhow::Result<RunRecord> {
-    let o = read_outputs(folder)?;
     let journal = RunFolder::new(folder).journal();
     let events = if journal.exists() {
         journal::read(&journal)?.events
     } else {
         Vec::new()
     };
-    Ok(entry(folder, &o.meta, &events, &o.rows, &o.summary))
+    read_entry_with(folder, &events)
+}
+
+/// [`read_entry`] with the journal's events already read.
+fn read_entry_with(folder: &Path, events: &[Event]) -> anyhow::Result<RunRecord> {
+    let o = read_outputs(folder)?;
+    Ok(entry(folder, &o.meta, events, &o.rows, &o.summary))
 }
 
 /// The runs folder that holds `folder`.
@@ -108,10 +113,15 @@ pub fn runs_dir_of(folder: &Path) -> &Path {
     }
 }
 
-/// Records (or re-records) the run in `folder`, then any run of the same runs folder whose
-/// earlier write failed. On failure the run stays marked pending and the returned text says
-/// so; the run itself is never failed by its history.
-pub async fn record(location: &HistoryLocation, folder: &RunFolder) -> Option<String> {
+/// Records (or re-records) the run in `folder`, whose journal's `events` the caller has just
+/// read (rebuilding its derived files), then any run of the same runs folder whose earlier
+/// write failed. On failure the run stays marked pending and the returned text says so; the
+/// run itself is never failed by its history.
+pub async fn record(
+    location: &HistoryLocation,
+    folder: &RunFolder,
+    events: &[Event],
+) -> Option<String> {
     let runs_dir = runs_dir_of(&folder.root);
     let run_id = folder
         .root
@@ -120,7 +130,7 @@ pub async fn record(location: &HistoryLocation, folder: &RunFolder) -> Option<St
         .unwrap_or_default();
     // Marked first: a writer killed mid-write leaves the mark, and the next write sends it.
     mark_pending(runs_dir, &run_id);
-    match send_pending(location, runs_dir).await {
+    match send_pending(location, runs_dir, Some((&run_id, events))).await {
         Ok(_) => None,
         Err(e) => {
             let text = format!(
@@ -133,8 +143,13 @@ pub async fn record(location: &HistoryLocation, folder: &RunFolder) -> Option<St
     }
 }
 
-/// Sends every pending run of `runs_dir`; returns how many were sent.
-pub async fn send_pending(location: &HistoryLocation, runs_dir: &Path) -> anyhow::Result<usize> {
+/// Sends every pending run of `runs_dir`; returns how many were sent. `current`: a run whose
+/// journal's events are already read (its id and events).
+pub async fn send_pending(
+    location: &HistoryLocation,
+    runs_dir: &Path,
+    current: Option<(&str, &[Event])>,
+) -> anyhow::Result<usize> {
     let ids = pending(runs_dir);
     if ids.is_empty() {
         return Ok(0);
@@ -148,7 +163,11 @@ pub async fn send_pending(location: &HistoryLocation, runs_dir: &Path) -> anyhow
             clear_pending(runs_dir, &id);
             continue;
         }
-        history.record(&read_entry(&folder)?).await?;
+        let entry = match current {
+            Some((current_id, events)) if current_id == id => read_entry_with(&folder, events)?,
+            _ => read_entry(&folder)?,
+        };
+        history.record(&entry).await?;
         clear_pending(runs_dir, &id);
         sent += 1;
     }

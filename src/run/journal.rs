@@ -85,10 +85,12 @@ impl Journal {
         if let Some(t) = &torn {
             tracing::warn!("{t}");
         }
-        let mut file =
-            open_no_follow(OpenOptions::new().create(true).append(true), path).map_err(io)?;
-        let bytes = std::fs::read(path).map_err(io)?;
-        if bytes.last().is_some_and(|b| *b != b'\n') {
+        let mut file = open_no_follow(
+            OpenOptions::new().create(true).read(true).append(true),
+            path,
+        )
+        .map_err(io)?;
+        if last_byte(&file).map_err(io)?.is_some_and(|b| b != b'\n') {
             file.write_all(b"\n").map_err(io)?;
             file.sync_data().map_err(io)?;
         }
@@ -136,6 +138,18 @@ impl Journal {
         self.file.write_all(lines).map_err(io)?;
         self.file.sync_data().map_err(io)
     }
+}
+
+/// The last byte of a file (`None` when it is empty).
+fn last_byte(file: &File) -> std::io::Result<Option<u8>> {
+    use std::os::unix::fs::FileExt;
+    let len = file.metadata()?.len();
+    if len == 0 {
+        return Ok(None);
+    }
+    let mut byte = [0u8];
+    file.read_exact_at(&mut byte, len - 1)?;
+    Ok(Some(byte[0]))
 }
 
 /// Start of the name of a file that keeps a torn tail (`journal.torn-<time>`).
@@ -229,21 +243,31 @@ fn is_blank(bytes: &[u8]) -> bool {
 }
 
 /// The torn tail of a journal's bytes: everything after the last complete line, when it holds
-/// anything but whitespace.
+/// anything but whitespace. Found from the end: only the lines after the last complete one
+/// are looked at (the lines before it are checked when they are read).
 pub fn torn_tail(bytes: &[u8]) -> Option<TornTail> {
     let mut good_end = 0;
-    let mut good_lines = 0;
-    for (number, range) in lines(bytes) {
-        if is_complete(&bytes[range.clone()]) {
-            good_end = (range.end + 1).min(bytes.len());
-            good_lines = number;
+    let mut end = bytes.len();
+    loop {
+        let start = bytes[..end]
+            .iter()
+            .rposition(|b| *b == b'\n')
+            .map_or(0, |i| i + 1);
+        if is_complete(&bytes[start..end]) {
+            good_end = (end + 1).min(bytes.len());
+            break;
         }
+        if start == 0 {
+            break;
+        }
+        end = start - 1;
     }
     let rest = &bytes[good_end..];
     if is_blank(rest) {
         return None;
     }
-    // The tail's first line: skip blank lines between the last good line and the tear.
+    // Lines up to the last complete one, then blank lines between it and the tear.
+    let good_lines = bytes[..good_end].iter().filter(|b| **b == b'\n').count();
     let blank_lines = lines(rest)
         .take_while(|(_, r)| is_blank(&rest[r.clone()]))
         .count();
@@ -269,9 +293,52 @@ pub fn read<E: DeserializeOwned>(path: &Path) -> Result<ReadBack<E>, JournalErro
 pub fn parse<E: DeserializeOwned>(path: &Path, bytes: &[u8]) -> Result<ReadBack<E>, JournalError> {
     let torn = torn_tail(bytes);
     let good = &bytes[..torn.as_ref().map_or(bytes.len(), |t| t.offset as usize)];
+    parse_lines(path, good, 0, torn)
+}
+
+/// Reads the events from the last line that `starts` accepts to the end (every event when
+/// no line does), as [`read`] reads them: the lines before it are not read, so this costs
+/// what the end of the journal holds, not the whole of it. `starts` sees each whole line
+/// before the torn tail, from the last one back.
+pub fn read_since<E: DeserializeOwned>(
+    path: &Path,
+    starts: impl Fn(&[u8]) -> bool,
+) -> Result<ReadBack<E>, JournalError> {
+    let bytes = std::fs::read(path).map_err(|source| JournalError::Io {
+        path: path.into(),
+        source,
+    })?;
+    let torn = torn_tail(&bytes);
+    let good = &bytes[..torn.as_ref().map_or(bytes.len(), |t| t.offset as usize)];
+    let mut from = 0;
+    let mut end = good.len();
+    while end > 0 {
+        let start = good[..end]
+            .iter()
+            .rposition(|b| *b == b'\n')
+            .map_or(0, |i| i + 1);
+        if starts(&good[start..end]) {
+            from = start;
+            break;
+        }
+        end = start.saturating_sub(1);
+    }
+    let lines_before = good[..from].iter().filter(|b| **b == b'\n').count();
+    parse_lines(path, &good[from..], lines_before, torn)
+}
+
+/// Reads the events of whole lines (`bytes` ends before any torn tail); `lines_before` is the
+/// number of journal lines before `bytes`, for the line numbers of errors.
+fn parse_lines<E: DeserializeOwned>(
+    path: &Path,
+    good: &[u8],
+    lines_before: usize,
+    torn: Option<TornTail>,
+) -> Result<ReadBack<E>, JournalError> {
     let mut events = Vec::new();
     let mut skipped_lines = Vec::new();
     for (number, range) in lines(good) {
+        let number = number + lines_before;
         let line = &good[range];
         if is_blank(line) {
             continue;
@@ -327,6 +394,57 @@ mod tests {
             [1, 2, 3, 4, 5]
         );
         assert!(r.skipped_lines.is_empty());
+    }
+
+    /// The definition, line by line from the start: the tail follows the last complete line.
+    fn torn_tail_forwards(bytes: &[u8]) -> Option<TornTail> {
+        let (mut good_end, mut good_lines) = (0, 0);
+        for (number, range) in lines(bytes) {
+            if is_complete(&bytes[range.clone()]) {
+                good_end = (range.end + 1).min(bytes.len());
+                good_lines = number;
+            }
+        }
+        let rest = &bytes[good_end..];
+        if is_blank(rest) {
+            return None;
+        }
+        let blank_lines = lines(rest)
+            .take_while(|(_, r)| is_blank(&rest[r.clone()]))
+            .count();
+        Some(TornTail {
+            line: good_lines + blank_lines + 1,
+            offset: good_end as u64,
+            bytes: rest.len() as u64,
+        })
+    }
+
+    #[test]
+    fn torn_tail_found_from_the_end_is_the_one_found_from_the_start() {
+        let pieces: [&[u8]; 8] = [
+            b"{\"n\":1}\n",
+            b"{\"n\":2}",
+            b"\n",
+            b"  \n",
+            b"{\"n\":",
+            b"\0\0\0",
+            b"\xe2\x82",
+            b"[1,2]\n",
+        ];
+        // Every sequence of up to five pieces: complete, cut, blank and NUL lines in any order.
+        let mut checked = 0;
+        let mut stack: Vec<Vec<usize>> = vec![vec![]];
+        while let Some(seq) = stack.pop() {
+            let bytes: Vec<u8> = seq.iter().flat_map(|&k| pieces[k].to_vec()).collect();
+            assert_eq!(torn_tail(&bytes), torn_tail_forwards(&bytes), "{bytes:?}");
+            checked += 1;
+            if seq.len() < 5 {
+                for k in 0..pieces.len() {
+                    stack.push([seq.clone(), vec![k]].concat());
+                }
+            }
+        }
+        assert_eq!(checked, (0..=5).map(|n| 8usize.pow(n)).sum::<usize>());
     }
 
     #[test]

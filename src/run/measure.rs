@@ -305,16 +305,16 @@ pub async fn session(
         seq.log(Event::RunFinished { time: now() })?;
     }
     seq.flush()?;
-    let summary = derive::rebuild(folder)?;
+    let rebuilt = derive::rebuild(folder)?;
     // Written by the rebuild with the other derived files.
     let gauge = match plan.gauge {
         Some(_) => Some(super::gauge::read_gauge(folder)?),
         None => None,
     };
-    let history_note = super::history_entry::record(history, folder).await;
+    let history_note = super::history_entry::record(history, folder, &rebuilt.events).await;
     Ok(SessionReport {
         outcome,
-        summary,
+        summary: rebuilt.summary,
         states,
         measured: todo.sites().map(|s| s.site.number).collect(),
         history_note,

@@ -253,7 +253,9 @@ pub fn discard_unfinished(folder: &RunFolder) -> anyhow::Result<Option<String>> 
     if !folder.journal().exists() {
         return Ok(None);
     }
-    let events = journal::read::<Event>(&folder.journal())?.events;
+    // Only the end of the journal: from its last session or refit boundary on.
+    let events =
+        journal::read_since::<Event>(&folder.journal(), super::events::settles_refits)?.events;
     let Some(Event::RefitStarted {
         time,
         recipe,

@@ -65,33 +65,94 @@ pub fn read_csv(path: &Path) -> Result<SpectrumFile, SpectrumError> {
 }
 
 /// Parses spectrum CSV text; `path` is used in messages.
+///
+/// Data rows of plain decimals (`[+-]digits[.digits]` cells, no spaces, a `\n` after the last)
+/// are read in one pass over their bytes ([`plain_row`]); any other line, and any row that
+/// pass does not take, goes through the general line reader, which names what is wrong.
 pub fn parse_csv(text: &str, path: &Path) -> Result<SpectrumFile, SpectrumError> {
+    parse_with(text, path, true)
+}
+
+/// [`parse_csv`], with or without the one-pass reading of plain rows (the tests check that
+/// both give the same spectrum or the same error).
+fn parse_with(text: &str, path: &Path, plain_rows: bool) -> Result<SpectrumFile, SpectrumError> {
     let mut parser = Parser::new(path);
-    for (i, raw) in lines(text).enumerate() {
-        parser.line(i + 1, raw)?;
+    let mut rest = text;
+    let mut number = 0;
+    while !rest.is_empty() {
+        number += 1;
+        if let Some(ncol) = parser.columns.filter(|_| plain_rows) {
+            if let Some((row, used)) = plain_row(rest.as_bytes(), ncol) {
+                parser.push(number, row)?;
+                rest = &rest[used..];
+                continue;
+            }
+        }
+        let mut split = lines(rest);
+        let raw = split.next().unwrap_or_default();
+        // What the line reader left: the text after this line's `\n` (a suffix of `rest`).
+        let after = rest.len() - split.remaining();
+        rest = &rest[after..];
+        parser.line(number, raw)?;
     }
     parser.finish()
+}
+
+/// A data row of `ncol` plain decimal cells at the start of `bytes`, ending in `\n` or the
+/// end of the text: the row's values (as [`decimal`] reads each cell) and the bytes it takes,
+/// newline included. `None` for anything else (the line reader then takes the line).
+fn plain_row(bytes: &[u8], ncol: usize) -> Option<([f64; 4], usize)> {
+    let mut row = [0.0; 4];
+    let mut at = 0;
+    for (j, value) in row.iter_mut().enumerate().take(ncol) {
+        let (v, used) = decimal_prefix(&bytes[at..])?;
+        *value = v;
+        at += used;
+        match bytes.get(at) {
+            Some(b',') if j + 1 < ncol => at += 1,
+            Some(b'\n') if j + 1 == ncol => return Some((row, at + 1)),
+            None if j + 1 == ncol => return Some((row, at)),
+            _ => return None,
+        }
+    }
+    None
 }
 
 /// The lines of `text` as `str::lines` gives them (split after each `\n`, a `\r` before it
 /// dropped), found by a plain byte scan: cheaper than the library's searcher on lines of a
 /// few dozen bytes, and a refit reads a thousand files of a thousand lines.
-fn lines(text: &str) -> impl Iterator<Item = &str> {
-    let mut rest = text;
-    std::iter::from_fn(move || {
-        if rest.is_empty() {
+fn lines(text: &str) -> Lines<'_> {
+    Lines { rest: text }
+}
+
+/// The iterator of [`lines`].
+struct Lines<'a> {
+    rest: &'a str,
+}
+
+impl<'a> Lines<'a> {
+    /// Bytes not yet split into lines.
+    fn remaining(&self) -> usize {
+        self.rest.len()
+    }
+}
+
+impl<'a> Iterator for Lines<'a> {
+    type Item = &'a str;
+    fn next(&mut self) -> Option<&'a str> {
+        if self.rest.is_empty() {
             return None;
         }
-        let line = match rest.bytes().position(|b| b == b'\n') {
+        let line = match self.rest.bytes().position(|b| b == b'\n') {
             Some(end) => {
-                let line = &rest[..end];
-                rest = &rest[end + 1..];
+                let line = &self.rest[..end];
+                self.rest = &self.rest[end + 1..];
                 line.strip_suffix('\r').unwrap_or(line)
             }
-            None => std::mem::take(&mut rest),
+            None => std::mem::take(&mut self.rest),
         };
         Some(line)
-    })
+    }
 }
 
 /// The state of a spectrum file read one line at a time: the columns parsed so far.
@@ -152,12 +213,6 @@ impl<'a> Parser<'a> {
         if fields != ncol {
             return Err(self.at(line, format!("{fields} fields, the header has {ncol}")));
         }
-        if self.lines.len() == MAX_PIXELS {
-            return Err(self.at(
-                line,
-                format!("more than {MAX_PIXELS} data rows: a spectrum has one row per detector pixel and no spectrometer has this many; is this a spectrum file?"),
-            ));
-        }
         let mut row = [0.0; 4];
         for (j, c) in cells[..ncol].iter().map(|c| trim(c)).enumerate() {
             let v = match decimal(c) {
@@ -176,6 +231,18 @@ impl<'a> Parser<'a> {
                 ));
             }
             row[j] = v;
+        }
+        self.push(line, row)
+    }
+
+    /// Takes the values of data row `line` (the first `columns` of `row`, each finite).
+    fn push(&mut self, line: usize, row: [f64; 4]) -> Result<(), SpectrumError> {
+        let ncol = self.columns.unwrap_or(4);
+        if self.lines.len() == MAX_PIXELS {
+            return Err(self.at(
+                line,
+                format!("more than {MAX_PIXELS} data rows: a spectrum has one row per detector pixel and no spectrometer has this many; is this a spectrum file?"),
+            ));
         }
         let w = row[0];
         if w <= 0.0 {
@@ -320,44 +387,130 @@ fn check_fraction(
     Ok(())
 }
 
-/// The first 40 characters of a cell, for messages.
-/// A plain decimal (`[+-]digits[.digits]` whose digits, read as one integer, stay within
-/// 2⁵³, as a spectrometer writes its numbers) by Clinger's fast path: that integer, exact as
-/// a double, and one division by an exact power of ten, which IEEE arithmetic rounds correctly
-/// (W. D. Clinger, "How to read floating point numbers accurately", PLDI 1990). `None` for
-/// anything else, which the library's parser then reads.
+/// A plain decimal (`[+-]digits[.digits]`, at least one digit), as the library's parser
+/// reads it, bit for bit. When its digits, read as one integer, stay within 2⁵³ (as most of
+/// a spectrometer's numbers do), by Clinger's fast path: that integer, exact as a double, and
+/// one division by an exact power of ten, which IEEE arithmetic rounds correctly (W. D.
+/// Clinger, "How to read floating point numbers accurately", PLDI 1990); longer ones by the
+/// library's parser. `None` for anything else, which the library's parser then reads (or
+/// refuses).
 fn decimal(cell: &str) -> Option<f64> {
+    match decimal_prefix(cell.as_bytes())? {
+        (v, used) if used == cell.len() => Some(v),
+        _ => None,
+    }
+}
+
+/// The plain decimal at the start of `b` as [`decimal`] reads it, and how many bytes it
+/// takes (it ends before the first byte that cannot continue it).
+fn decimal_prefix(b: &[u8]) -> Option<(f64, usize)> {
     const POW10: [f64; 20] = [
         1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15, 1e16,
         1e17, 1e18, 1e19,
     ];
-    let b = cell.as_bytes();
-    let (negative, digits) = match b.first()? {
-        b'-' => (true, &b[1..]),
-        b'+' => (false, &b[1..]),
-        _ => (false, b),
+    let (negative, sign) = match b.first()? {
+        b'-' => (true, 1),
+        b'+' => (false, 1),
+        _ => (false, 0),
     };
-    let (mut mantissa, mut count, mut fraction, mut point) = (0u64, 0usize, 0usize, false);
-    for &c in digits {
-        match c {
-            // 19 digits always fit in a u64; more are the library's.
-            b'0'..=b'9' if count == 19 => return None,
-            b'0'..=b'9' => {
-                mantissa = mantissa * 10 + u64::from(c - b'0');
-                count += 1;
-                fraction += usize::from(point);
-            }
-            b'.' if !point => point = true,
-            _ => return None,
+    let (whole, whole_value) = digit_run(&b[sign..]);
+    let mut used = sign + whole;
+    let (mut fraction, mut mantissa) = (0, whole_value);
+    if b.get(used) == Some(&b'.') {
+        let (n, value) = digit_run(&b[used + 1..]);
+        used += 1 + n;
+        fraction = n;
+        if whole + n <= 19 {
+            mantissa = mantissa * POW10_U64[n] + value;
         }
     }
-    if count == 0 || mantissa > 1 << 53 {
+    let count = whole + fraction;
+    if count == 0 {
         return None;
     }
+    if count > 19 || mantissa > 1 << 53 {
+        // An ASCII span the library reads whole.
+        let v = std::str::from_utf8(&b[..used]).ok()?.parse().ok()?;
+        return Some((v, used));
+    }
     let v = mantissa as f64 / POW10[fraction];
-    Some(if negative { -v } else { v })
+    Some((if negative { -v } else { v }, used))
 }
 
+/// 10⁰ to 10¹⁹, the powers of ten a u64 holds.
+const POW10_U64: [u64; 20] = {
+    let mut p = [1u64; 20];
+    let mut k = 1;
+    while k < 20 {
+        p[k] = p[k - 1] * 10;
+        k += 1;
+    }
+    p
+};
+
+/// The run of ASCII digits at the start of `b`: how many, and their value when there are at
+/// most 19 (beyond that the value is meaningless). Eight bytes at a time while eight remain
+/// (a word's digits found and converted with a few integer operations), then byte by byte.
+#[inline]
+fn digit_run(b: &[u8]) -> (usize, u64) {
+    const ZEROS: u64 = 0x3030_3030_3030_3030;
+    let (mut n, mut value) = (0usize, 0u64);
+    while let Some(chunk) = b[n..].first_chunk::<8>() {
+        let word = u64::from_le_bytes(*chunk);
+        let k = leading_digits(word);
+        if k > 0 {
+            // The k digits, less '0', moved to the top of the word: the zero bytes below
+            // them are leading zeros (the first character is the lowest byte).
+            let digits = word.wrapping_sub(ZEROS) << (8 * (8 - k));
+            value = value
+                .wrapping_mul(POW10_U64[k])
+                .wrapping_add(eight_digits(digits));
+        }
+        n += k;
+        if k < 8 {
+            return (n, value);
+        }
+    }
+    for &c in &b[n..] {
+        if !c.is_ascii_digit() {
+            break;
+        }
+        value = value.wrapping_mul(10).wrapping_add(u64::from(c - b'0'));
+        n += 1;
+    }
+    (n, value)
+}
+
+/// How many of a little-endian word's bytes, from the lowest, are ASCII digits (0 to 8).
+#[inline]
+fn leading_digits(word: u64) -> usize {
+    const HIGH_NIBBLES: u64 = 0xF0F0_F0F0_F0F0_F0F0;
+    const ZEROS: u64 = 0x3030_3030_3030_3030;
+    // A byte is a digit when its high nibble is 3, and still is after adding 6 (0x3A-0x3F
+    // are not). A carry out of a byte (≥ 0xFA) reaches only later bytes: past a non-digit.
+    let not_digit = ((word & HIGH_NIBBLES) ^ ZEROS)
+        | ((word.wrapping_add(0x0606_0606_0606_0606) & HIGH_NIBBLES) ^ ZEROS);
+    // The top bit of every non-zero byte of `not_digit`.
+    let low7 = 0x7F7F_7F7F_7F7F_7F7F;
+    let flags = (((not_digit & low7) + low7) | not_digit) & !low7;
+    (flags.trailing_zeros() / 8) as usize
+}
+
+/// The number written by eight digit values (0-9) in a little-endian word, the first
+/// (most significant) in the lowest byte: pairs, then fours, then the eight combined by
+/// multiplications (the method of Lemire's fast_float).
+#[inline]
+fn eight_digits(v: u64) -> u64 {
+    const MASK: u64 = 0x0000_00FF_0000_00FF;
+    const MUL1: u64 = 0x000F_4240_0000_0064; // 10⁶ and 100
+    const MUL2: u64 = 0x0000_2710_0000_0001; // 10⁴ and 1
+    let v = v.wrapping_mul(10).wrapping_add(v >> 8);
+    let v1 = (v & MASK).wrapping_mul(MUL1);
+    let v2 = ((v >> 16) & MASK).wrapping_mul(MUL2);
+    u64::from((v1.wrapping_add(v2) >> 32) as u32)
+}
+
+/// The first 40 characters of a cell, for messages.
 fn short(s: &str) -> String {
     crate::error_text::excerpt(s, 40)
 }
@@ -458,6 +611,50 @@ mod tests {
         }
     }
 
+    proptest! {
+        /// Rows read in one pass give what the line reader gives: the same spectrum, or the
+        /// same error on the same line, whatever the cells and line ends.
+        #[test]
+        fn plain_rows_read_as_the_line_reader_reads_them(
+            counts in any::<bool>(),
+            rows in prop::collection::vec(
+                (
+                    prop::collection::vec(
+                        prop::sample::select(vec![
+                            "400", "401.5", "-3", "+7", "0.25", "1e2", " 12", "12 ", "",
+                            ".5", "5.", "x", "1.2.3", "382.42424242424244",
+                            "0.000000000000000000001", "123456789012345678901",
+                            "9007199254740993", "-0", "\u{e9}",
+                        ]),
+                        1..6,
+                    ),
+                    prop::sample::select(vec!["\n", "\r\n", "\n\n", "\n# c\n", "\n  \n"]),
+                ),
+                0..12,
+            ),
+            ramp in any::<bool>(),
+        ) {
+            let header = if counts {
+                "wavelength_nm,sample,dark,reference\n"
+            } else {
+                "wavelength_nm,reflectance\n"
+            };
+            let mut text = header.to_string();
+            for (k, (cells, end)) in rows.iter().enumerate() {
+                let mut cells: Vec<String> = cells.iter().map(|c| c.to_string()).collect();
+                if ramp {
+                    // Rising wavelengths with small values after them: rows that parse.
+                    cells[0] = format!("{}.{k}", 400 + k);
+                }
+                text.push_str(&cells.join(","));
+                text.push_str(end);
+            }
+            let path = Path::new("s.csv");
+            let (fast, general) = (parse_with(&text, path, true), parse_with(&text, path, false));
+            prop_assert_eq!(format!("{fast:?}"), format!("{general:?}"), "{:?}", text);
+        }
+    }
+
     #[test]
     fn decimal_takes_plain_numbers_only() {
         for c in [
@@ -468,13 +665,15 @@ mod tests {
         assert_eq!(decimal("380.6060606060606"), Some(380.6060606060606));
         assert_eq!(decimal(".5"), Some(0.5));
         assert_eq!(decimal("-0"), Some(-0.0));
-        // Beyond 2^53 as one integer: the library's.
-        assert_eq!(decimal("9007199254740993"), None);
-        assert_eq!(
-            decimal("0.00000000000000000001"),
-            None,
-            "more than 19 digits"
-        );
+        // Beyond 2^53 as one integer, or more than 19 digits: read by the library's parser.
+        for c in [
+            "9007199254740993",
+            "382.42424242424244",
+            "0.00000000000000000001",
+            "-123456789012345678901234.5",
+        ] {
+            assert_eq!(decimal(c), Some(c.parse::<f64>().unwrap()), "{c}");
+        }
     }
 
     #[test]

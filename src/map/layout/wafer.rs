@@ -142,20 +142,21 @@ fn isoline_labels(
         for piece in pieces.iter().filter(|p| polyline_length(p) > 6.0 * half_w) {
             let stride = (piece.len() / 24).max(1);
             for &p in piece.iter().step_by(stride) {
-                let clear = sites_px
+                // Squared distances: the nearest is the same, without a square root each.
+                let clear2 = sites_px
                     .iter()
                     .chain(&placed)
-                    .map(|q| (q.0 - p.0).hypot(q.1 - p.1))
+                    .map(|q| (q.0 - p.0).powi(2) + (q.1 - p.1).powi(2))
                     .fold(f64::INFINITY, f64::min);
-                if best.is_none_or(|(b, _)| clear > b) {
-                    best = Some((clear, p));
+                if best.is_none_or(|(b, _)| clear2 > b) {
+                    best = Some((clear2, p));
                 }
             }
         }
-        let Some((clear, (x, y))) = best else {
+        let Some((clear2, (x, y))) = best else {
             continue;
         };
-        if clear < 16.0 + half_w {
+        if clear2.sqrt() < 16.0 + half_w {
             continue;
         }
         placed.push((x, y));
