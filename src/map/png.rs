@@ -366,7 +366,7 @@ mod tests {
         // A gradient with noise, wide enough that the stream is compressed in pieces.
         let (w, h) = (700u32, 500u32);
         let pixels: Vec<u8> = (0..w * h * 3)
-            .map(|i| ((i / 3 % w) / 3 + (i / 3 / w) / 2 + (i * 7919 % 13)) as u8)
+            .map(|i| ((i / 3 % w) / 3 + (i / 3 / w) / 2 + (i.wrapping_mul(7919) % 13)) as u8)
             .collect();
         let bytes = encode(w, h, &pixels).unwrap();
         let mut reader = ::png::Decoder::new(&bytes[..]).read_info().unwrap();
