@@ -13,6 +13,7 @@ use crate::optics::{reflectance, Material, MaterialLibrary, Stack};
 use crate::recipe::schema::{DispersionMode, FitMethod};
 use crate::recipe::LoadedRecipe;
 use crate::spectrum::{normalise_raw, RawSpectrum, SignalQuality, Spectrum};
+use std::borrow::Cow;
 use std::sync::{Arc, RwLock};
 
 /// One layer of the recipe's stack, resolved.
@@ -259,9 +260,15 @@ impl Fitter {
         }
     }
 
-    /// The part of a spectrum inside the fitting window, checked to be fit for fitting.
-    pub fn windowed(&self, spectrum: &Spectrum) -> Result<Spectrum, FitError> {
-        let w = spectrum.window(self.window[0], self.window[1]);
+    /// The part of a spectrum inside the fitting window, checked to be fit for fitting
+    /// (the spectrum itself when it lies inside the window).
+    pub fn windowed<'a>(&self, spectrum: &'a Spectrum) -> Result<Cow<'a, Spectrum>, FitError> {
+        let [from, to] = self.window;
+        let w = if spectrum.within(from, to) {
+            Cow::Borrowed(spectrum)
+        } else {
+            Cow::Owned(spectrum.window(from, to))
+        };
         w.validate(MIN_PIXELS).map_err(|e| match e {
             crate::spectrum::SpectrumError::Invalid(m) => crate::spectrum::SpectrumError::Invalid(
                 format!("window {}–{} nm: {m}", self.window[0], self.window[1]),

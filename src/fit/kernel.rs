@@ -55,6 +55,11 @@ pub struct Prepared {
     /// The same in vector lanes, W consecutive pixels at a time (the last block repeats the
     /// last pixel): block b, channel c at `(b·C + c)·(2L + 1)`.
     blocks: Vec<Cv>,
+    /// For one lossless layer (real β in every pixel and channel), the closed form of each
+    /// block and channel (at `b·C + c`); empty otherwise.
+    airy: Vec<Airy>,
+    /// 0, 1, …: every pixel, as the pixel list of a fit on all of them.
+    every: Vec<usize>,
 }
 
 /// Most layers a fitted stack may have (fixed-size buffers keep the inner loops allocation-free).
@@ -112,12 +117,23 @@ impl Prepared {
                 blocks.push(v);
             }
         }
+        let lossless_single = l == 1 && coeff.chunks_exact(stride).all(|c| c[2].im == 0.0);
+        let airy = if lossless_single {
+            blocks
+                .chunks_exact(stride)
+                .map(|b| Airy::new(b[0], b[1], b[2].re))
+                .collect()
+        } else {
+            Vec::new()
+        };
         Prepared {
             wavelength_nm: wavelength_nm.to_vec(),
             layers: l,
             channels: channels.iter().map(|c| c.weight).collect(),
             coeff,
             blocks,
+            airy,
+            every: (0..n).collect(),
         }
     }
 
@@ -128,12 +144,8 @@ impl Prepared {
     fn load_lanes(&self, chunk: &[usize], c: usize, rho: &mut [Cv], sub: &mut Cv, beta: &mut [Cv]) {
         let l_n = self.layers;
         let stride = 2 * l_n + 1;
-        let first = chunk[0];
-        let whole = first.is_multiple_of(W)
-            && chunk[chunk.len() - 1] == first + chunk.len() - 1
-            && (chunk.len() == W || first + chunk.len() == self.len());
-        if whole {
-            let start = ((first / W) * self.channels.len() + c) * stride;
+        if let Some(block) = self.whole_block(chunk) {
+            let start = (block * self.channels.len() + c) * stride;
             let b = &self.blocks[start..start + stride];
             rho[..l_n].copy_from_slice(&b[..l_n]);
             *sub = b[l_n];
@@ -148,6 +160,22 @@ impl Prepared {
                 beta[l].set(i, be[l]);
             }
         }
+    }
+
+    /// The block of lanes `chunk` is, if it is one (consecutive pixels from a multiple of
+    /// W, W of them or up to the last pixel).
+    #[inline(always)]
+    fn whole_block(&self, chunk: &[usize]) -> Option<usize> {
+        let first = chunk[0];
+        let whole = first.is_multiple_of(W)
+            && chunk[chunk.len() - 1] == first + chunk.len() - 1
+            && (chunk.len() == W || first + chunk.len() == self.len());
+        whole.then_some(first / W)
+    }
+
+    /// Every pixel's index, in order.
+    pub fn every_pixel(&self) -> &[usize] {
+        &self.every
     }
 
     /// Number of pixels.
@@ -254,6 +282,7 @@ impl Prepared {
                 // One and two layers, the usual stacks, with loops of known length that
                 // the compiler unrolls into registers.
                 match l_n {
+                    1 if !self.airy.is_empty() => self.airy_lanes(pixels, d[0], r, grad),
                     1 => self.grad_lanes::<1, true>(pixels, d, r, grad),
                     2 => self.grad_lanes::<2, true>(pixels, d, r, grad),
                     3 | 4 => self.grad_lanes::<4, false>(pixels, d, r, grad),
@@ -329,6 +358,54 @@ impl Prepared {
                 for (l, g) in out.iter_mut().enumerate() {
                     *g = grad[l][i];
                 }
+            }
+        }
+    }
+
+    /// [`Prepared::reflectance_grad_many`] for one lossless layer, by its closed form
+    /// ([`Airy`]): one sine/cosine, a few products and one division per pixel and channel.
+    #[inline(always)]
+    fn airy_lanes(&self, pixels: &[usize], d: f64, r_out: &mut [f64], grad_out: &mut [f64]) {
+        let channels = self.channels.len();
+        let (mut rho, mut beta) = ([Cv::ZERO; 1], [Cv::ZERO; 1]);
+        for ((chunk, r_out), g_out) in pixels
+            .chunks(W)
+            .zip(r_out.chunks_mut(W))
+            .zip(grad_out.chunks_mut(W))
+        {
+            let mut total = [0.0; W];
+            let mut grad = [0.0; W];
+            let block = self.whole_block(chunk);
+            for (c, &weight) in self.channels.iter().enumerate() {
+                let gathered;
+                let airy = match block {
+                    Some(b) => &self.airy[b * channels + c],
+                    None => {
+                        let mut sub = Cv::ZERO;
+                        self.load_lanes(chunk, c, &mut rho, &mut sub, &mut beta);
+                        gathered = Airy::new(rho[0], sub, beta[0].re);
+                        &gathered
+                    }
+                };
+                let (r, g) = airy.value_grad(d);
+                for i in 0..W {
+                    total[i] += weight * r[i];
+                    grad[i] += weight * g[i];
+                }
+            }
+            if let (Ok(r_out), Ok(g_out)) = (
+                <&mut [f64; W]>::try_from(&mut *r_out),
+                <&mut [f64; W]>::try_from(&mut *g_out),
+            ) {
+                // A whole block: fixed-size stores, lane by lane (a whole-array assignment
+                // compiled to a call of memcpy here).
+                for i in 0..W {
+                    r_out[i] = total[i];
+                    g_out[i] = grad[i];
+                }
+            } else {
+                r_out.copy_from_slice(&total[..chunk.len()]);
+                g_out.copy_from_slice(&grad[..chunk.len()]);
             }
         }
     }
@@ -510,6 +587,47 @@ impl Prepared {
             srr: if SCALED { reduce(1) } else { Vec::new() },
             srm: if SCALED { reduce(2) } else { Vec::new() },
         }
+    }
+}
+
+/// One lossless layer (β real) between the ambient and a substrate, for W pixels of one
+/// channel: with z = e^{iβd} on the unit circle, r = (ρ + s z)/(1 + ρ s z) gives
+/// R = (k_n + Re(P z))/(k_d + Re(Q z)), k_n = |ρ|² + |s|², k_d = 1 + |ρ s|², P = 2 ρ̄ s,
+/// Q = 2 ρ s (|a + b|² = |a|² + |b|² + 2 Re(ā b)), and
+/// dR/dd = β (R Im(Q z) − Im(P z)) / (k_d + Re(Q z)).
+#[derive(Debug, Clone, Copy)]
+struct Airy {
+    kn: Fv,
+    kd: Fv,
+    p: Cv,
+    q: Cv,
+    beta: Fv,
+}
+
+impl Airy {
+    /// From the ambient–layer coefficient ρ, the layer–substrate one s, and β.
+    #[inline(always)]
+    fn new(rho: Cv, sub: Cv, beta: Fv) -> Airy {
+        let (rr, ss) = (rho.norm_sqr(), sub.norm_sqr());
+        Airy {
+            kn: map_add(rr, ss),
+            kd: std::array::from_fn(|i| 1.0 + rr[i] * ss[i]),
+            p: (rho.conj() * sub).scale([2.0; W]),
+            q: (rho * sub).scale([2.0; W]),
+            beta,
+        }
+    }
+
+    /// R and dR/dd at thickness `d` in each lane.
+    #[inline(always)]
+    fn value_grad(&self, d: f64) -> (Fv, Fv) {
+        let (sin, cos) = lanes::sin_cos(self.beta.map(|b| b * d));
+        let z = Cv { re: cos, im: sin };
+        let (pz, qz) = (self.p * z, self.q * z);
+        let inv = map_add(self.kd, qz.re).map(|v| 1.0 / v);
+        let r = map_mul(map_add(self.kn, pz.re), inv);
+        let slope: Fv = std::array::from_fn(|i| (r[i] * qz.im[i] - pz.im[i]) * inv[i]);
+        (r, map_mul(self.beta, slope))
     }
 }
 
@@ -726,6 +844,39 @@ mod tests {
                 }
             }
         }
+    }
+
+    #[test]
+    fn one_lossless_layer_closed_form_matches_the_recursion() {
+        // SiO2 on Si (the closed form) against the recursion written out for one pixel
+        // (`reflectance_grad`), at normal, oblique and conical light, over every pixel
+        // (blocks from the table) and a subset (lanes gathered pixel by pixel); an absorbing
+        // layer (Si) keeps a stack off the closed form.
+        let lib = MaterialLibrary::builtin();
+        let m = |n: &str| lib.get(n).unwrap().clone();
+        let w: Vec<f64> = (0..61).map(|i| 400.0 + 10.0 * i as f64).collect();
+        for (theta, na) in [(0.0, 0.0), (10.0, 0.0), (8.0, 0.2)] {
+            let ch = channels(&cone_samples(theta, na, 6));
+            let p = Prepared::new(&m("air"), &[m("sio2")], &m("si"), &ch, &w);
+            assert!(!p.airy.is_empty(), "SiO2 is lossless here");
+            for d in [0.0, 1.0, 437.5, 1234.0, 14_000.0] {
+                for pixels in [(0..w.len()).collect::<Vec<_>>(), vec![3, 17, 18, 40, 60]] {
+                    let mut r = vec![0.0; pixels.len()];
+                    let mut g = vec![0.0; pixels.len()];
+                    p.reflectance_grad_many(&pixels, &[d], &mut r, &mut g);
+                    for (i, &j) in pixels.iter().enumerate() {
+                        let mut want = [0.0];
+                        let rj = p.reflectance_grad(j, &[d], &mut want);
+                        assert!((r[i] - rj).abs() < 1e-13, "θ={theta} d={d} j={j}");
+                        let tol = 1e-11 * want[0].abs().max(1e-3);
+                        assert!((g[i] - want[0]).abs() < tol, "{}: {} {}", j, g[i], want[0]);
+                    }
+                }
+            }
+        }
+        let ch = channels(&cone_samples(0.0, 0.0, 6));
+        let absorbing = Prepared::new(&m("air"), &[m("si")], &m("sio2"), &ch, &w);
+        assert!(absorbing.airy.is_empty());
     }
 
     #[test]

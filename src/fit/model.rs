@@ -475,7 +475,7 @@ pub const AMBIGUITY_DCHI2: f64 = 9.0;
 /// `None` when the grid holds no finite χ² (a material whose index is not finite over the
 /// window).
 pub fn fit(setup: &Setup, search: &SearchPixels) -> Option<ModelFit> {
-    let all: Vec<usize> = (0..setup.prep.len()).collect();
+    let all = setup.prep.every_pixel();
     let search_pixels = &search.index[..];
     let grid = grid_search(setup, search);
     let nf = setup.fitted.len();
@@ -513,7 +513,7 @@ pub fn fit(setup: &Setup, search: &SearchPixels) -> Option<ModelFit> {
     };
     let full = Lsq {
         setup,
-        pixels: &all,
+        pixels: all,
         root: None,
         scratch: RefCell::default(),
     };
@@ -621,10 +621,10 @@ pub fn fit(setup: &Setup, search: &SearchPixels) -> Option<ModelFit> {
 /// The residuals and Jacobian of the model at `x` on all pixels, for tests of the analytic
 /// derivatives: (residuals, row-major Jacobian).
 pub fn residuals_and_jacobian(setup: &Setup, x: &[f64]) -> (Vec<f64>, Vec<f64>) {
-    let all: Vec<usize> = (0..setup.prep.len()).collect();
+    let all = setup.prep.every_pixel();
     let p = Lsq {
         setup,
-        pixels: &all,
+        pixels: all,
         root: None,
         scratch: RefCell::default(),
     };

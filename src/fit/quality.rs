@@ -58,11 +58,22 @@ pub const STRUCTURE_AUTOCORRELATION: f64 = 0.5;
 /// (third difference of white noise has variance 20σ²; median |x| = 0.6745σ for a Gaussian).
 /// Signal that varies within a few pixels inflates it.
 pub fn scatter_sigma(values: &[f64]) -> f64 {
-    if values.len() < 8 {
-        return f64::NAN;
+    match abs_third_differences(values) {
+        Some(mut d3) => {
+            let k = d3.len() / 2;
+            as_sigma(*d3.select_nth_unstable(k).1)
+        }
+        None => f64::NAN,
     }
-    // |x| as its bit pattern: for non-negative doubles the integer order is the numeric
-    // order (NaN last, as total_cmp has it), and integers compare faster.
+}
+
+/// |third differences| of a series (at least 8 values) as bit patterns: for non-negative
+/// doubles the integer order is the numeric order (NaN last, as total_cmp has it), and
+/// integers compare faster.
+fn abs_third_differences(values: &[f64]) -> Option<Vec<u64>> {
+    if values.len() < 8 {
+        return None;
+    }
     let n = values.len() - 3;
     let (a, b, c, e) = (
         &values[..n],
@@ -70,22 +81,66 @@ pub fn scatter_sigma(values: &[f64]) -> f64 {
         &values[2..n + 2],
         &values[3..],
     );
-    let mut d3: Vec<u64> = (0..n)
-        .map(|i| (e[i] - 3.0 * c[i] + 3.0 * b[i] - a[i]).abs().to_bits())
-        .collect();
-    let (_, median, _) = d3.select_nth_unstable(n / 2);
-    f64::from_bits(*median) / (0.6745 * 20f64.sqrt())
+    Some(
+        (0..n)
+            .map(|i| (e[i] - 3.0 * c[i] + 3.0 * b[i] - a[i]).abs().to_bits())
+            .collect(),
+    )
+}
+
+/// A median |third difference| (as bits) scaled to a Gaussian σ.
+fn as_sigma(median_bits: u64) -> f64 {
+    f64::from_bits(median_bits) / (0.6745 * 20f64.sqrt())
 }
 
 /// The noise σ of a measured spectrum, estimated from the spectrum itself: the smaller of
 /// the scatter of the spectrum and the scatter of the fit's residual (the model takes out
 /// fringes too dense for differences to remove), never below [`NOISE_FLOOR`].
 pub fn noise_sigma(measured: &[f64], residuals: &[f64]) -> f64 {
-    let s = scatter_sigma(measured).min(scatter_sigma(residuals));
+    let s = smaller_scatter(measured, residuals);
     if s.is_nan() {
         NOISE_FLOOR
     } else {
         s.max(NOISE_FLOOR)
+    }
+}
+
+/// `scatter_sigma(measured).min(scatter_sigma(residuals))`, with the spectrum's median
+/// sought near the residual's: a fit's residual differs from the spectrum by the smooth
+/// model, whose third differences are small, so the two medians are usually close. Counting
+/// the spectrum's values below and inside a bracket of ±1 % around the residual's median
+/// settles the smaller one, selecting only among the few inside (or among all of them, when
+/// the spectrum's median lies below the bracket).
+fn smaller_scatter(measured: &[f64], residuals: &[f64]) -> f64 {
+    let (Some(mut m), Some(mut r)) = (
+        abs_third_differences(measured),
+        abs_third_differences(residuals),
+    ) else {
+        return scatter_sigma(measured).min(scatter_sigma(residuals));
+    };
+    let k = m.len() / 2;
+    let r_mid = r.len() / 2;
+    let r_median = *r.select_nth_unstable(r_mid).1;
+    let a = f64::from_bits(r_median);
+    let with_residual = |m_median: u64| as_sigma(m_median).min(as_sigma(r_median));
+    if !a.is_finite() || m.len() != r.len() {
+        return with_residual(*m.select_nth_unstable(k).1);
+    }
+    let (lo, hi) = ((a * 0.99).to_bits(), (a * 1.01).to_bits());
+    let below: usize = m.iter().map(|x| usize::from(*x < lo)).sum();
+    let inside: usize = m.iter().map(|x| usize::from((*x >= lo) & (*x <= hi))).sum();
+    if k < below {
+        with_residual(*m.select_nth_unstable(k).1)
+    } else if k >= below + inside {
+        // The spectrum's median lies above the bracket, so above the residual's.
+        as_sigma(r_median)
+    } else {
+        let mut few: Vec<u64> = m
+            .iter()
+            .copied()
+            .filter(|x| (lo..=hi).contains(x))
+            .collect();
+        with_residual(*few.select_nth_unstable(k - below).1)
     }
 }
 
@@ -155,5 +210,34 @@ mod tests {
         let trend: Vec<f64> = smooth.iter().map(|v| v - 0.3).collect();
         assert!(lag1_autocorrelation(&trend) > 0.99);
         assert!((reduced_chi2(0.009 * 0.009 * 101.0, 102, 1, 0.009) - 1.0).abs() < 1e-12);
+    }
+
+    proptest::proptest! {
+        /// The bracketed search gives the smaller of the two scatters exactly, whether the
+        /// residual is the spectrum less a smooth model (medians close), a rougher or a
+        /// smoother series than the spectrum, or holds NaN.
+        #[test]
+        fn noise_is_the_smaller_scatter_exactly(
+            seed in 0u64..1_000_000,
+            n in 8usize..400,
+            model_scale in proptest::sample::select(vec![0.0, 1e-4, 0.05, 1.0]),
+            residual_noise in proptest::sample::select(vec![0.5, 0.999, 1.0, 1.001, 2.0]),
+            nan_at in proptest::option::of(0usize..400),
+        ) {
+            use rand::SeedableRng;
+            use rand_distr::{Distribution, Normal};
+            let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+            let unit = Normal::new(0.0, 1.0).unwrap();
+            let model: Vec<f64> = (0..n).map(|i| model_scale * (i as f64 / 7.0).sin()).collect();
+            let mut noise: Vec<f64> = (0..n).map(|_| 0.003 * unit.sample(&mut rng)).collect();
+            if let Some(j) = nan_at.filter(|j| *j < n) {
+                noise[j] = f64::NAN;
+            }
+            let measured: Vec<f64> = model.iter().zip(&noise).map(|(m, e)| 0.3 + m + e).collect();
+            let residuals: Vec<f64> = noise.iter().map(|e| residual_noise * e).collect();
+            let want = scatter_sigma(&measured).min(scatter_sigma(&residuals));
+            let got = smaller_scatter(&measured, &residuals);
+            proptest::prop_assert!(got.to_bits() == want.to_bits() || (got.is_nan() && want.is_nan()), "{} {}", got, want);
+        }
     }
 }

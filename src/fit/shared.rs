@@ -329,7 +329,7 @@ pub fn fit_spectra(
     let mut sites = Vec::new();
     let mut locals0 = Vec::new();
     for (s, seed) in spectra.iter().zip(seeds) {
-        let w = fitter.windowed(s)?;
+        let w = fitter.windowed(s)?.into_owned();
         let mut model = fitter.site_model(c, &w.wavelength_nm, fitter.stack_thickness(seed));
         let mut limits = fitter.search_limits(&w);
         if let Some(d) = known_nm {

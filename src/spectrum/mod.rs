@@ -88,6 +88,12 @@ impl Spectrum {
         }
     }
 
+    /// Whether every pixel has `from ≤ λ ≤ to` (a NaN wavelength has not).
+    pub fn within(&self, from: f64, to: f64) -> bool {
+        let w = &self.wavelength_nm;
+        failures(w, w, |w, _| (w >= from) & (w <= to)) == 0
+    }
+
     /// The spectrum smoothed by a quadratic Savitzky–Golay filter of `2·half + 1` points.
     pub fn smoothed(&self, half: usize) -> Spectrum {
         Spectrum {
@@ -115,12 +121,13 @@ impl Spectrum {
         // One pass without branches for the usual, valid spectrum; the pixel to blame only
         // when it is not.
         let w = &self.wavelength_nm;
-        let finite = w.iter().zip(&self.reflectance).fold(true, |ok, (w, r)| {
-            ok & w.is_finite() & (*w > 0.0) & r.is_finite()
+        // x − x is 0 for a finite x and NaN for ±∞ and NaN.
+        let finite = |x: f64| x - x == 0.0;
+        let bad = failures(w, &self.reflectance, |w, r| {
+            finite(w) & (w > 0.0) & finite(r)
         });
-        let rising = w[1..].iter().zip(w).fold(true, |ok, (b, a)| ok & (b > a));
-        let fine = finite & rising;
-        if fine {
+        let falling = failures(&w[1..], w, |b, a| b > a);
+        if bad == 0 && falling == 0 {
             return Ok(());
         }
         for (i, (w, r)) in self.wavelength_nm.iter().zip(&self.reflectance).enumerate() {
@@ -137,5 +144,51 @@ impl Spectrum {
             }
         }
         Ok(())
+    }
+}
+
+/// How many pairs `(a[i], b[i])` fail `test`: counted without an early exit or a branch, so
+/// that the loop runs in vector lanes (a valid spectrum is the usual case; only a failing one
+/// needs the pixel to blame).
+fn failures(a: &[f64], b: &[f64], test: impl Fn(f64, f64) -> bool) -> usize {
+    a.iter()
+        .zip(b)
+        .map(|(x, y)| usize::from(!test(*x, *y)))
+        .sum()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+
+    /// Mostly ordinary values, with the ones the checks exist for mixed in.
+    fn value() -> impl Strategy<Value = f64> {
+        prop_oneof![
+            8 => 380.0f64..1000.0,
+            1 => prop::sample::select(vec![f64::NAN, f64::INFINITY, f64::NEG_INFINITY, 0.0, -5.0, 500.0]),
+        ]
+    }
+
+    proptest! {
+        /// The branch-free checks say what checking pixel by pixel says.
+        #[test]
+        fn fast_checks_agree_with_pixel_by_pixel(
+            mut w in prop::collection::vec(value(), 1..40),
+            r in prop::collection::vec(value(), 40),
+            sorted in any::<bool>(),
+            from in 300.0f64..600.0,
+            to in 600.0f64..1100.0,
+        ) {
+            if sorted {
+                w.sort_by(f64::total_cmp);
+            }
+            let s = Spectrum { reflectance: r[..w.len()].to_vec(), wavelength_nm: w.clone() };
+            let valid = w.iter().zip(&s.reflectance).all(|(w, r)| w.is_finite() && *w > 0.0 && r.is_finite())
+                && w.windows(2).all(|p| p[1] > p[0]);
+            prop_assert_eq!(s.validate(1).is_ok(), valid);
+            let inside = w.iter().all(|w| *w >= from && *w <= to);
+            prop_assert_eq!(s.within(from, to), inside);
+        }
     }
 }
