@@ -398,7 +398,8 @@ impl Prepared {
                 <&mut [f64; W]>::try_from(&mut *g_out),
             ) {
                 // A whole block: fixed-size stores, lane by lane (a whole-array assignment
-                // compiled to a call of memcpy here).
+                // compiled to a call of memcpy here, once per block).
+                #[allow(clippy::manual_memcpy)]
                 for i in 0..W {
                     r_out[i] = total[i];
                     g_out[i] = grad[i];
