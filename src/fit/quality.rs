@@ -82,8 +82,11 @@ fn abs_third_differences(values: &[f64]) -> Option<Vec<u64>> {
         &values[3..],
     );
     Some(
-        (0..n)
-            .map(|i| (e[i] - 3.0 * c[i] + 3.0 * b[i] - a[i]).abs().to_bits())
+        a.iter()
+            .zip(b)
+            .zip(c)
+            .zip(e)
+            .map(|(((a, b), c), e)| (e - 3.0 * c + 3.0 * b - a).abs().to_bits())
             .collect(),
     )
 }
@@ -126,9 +129,16 @@ fn smaller_scatter(measured: &[f64], residuals: &[f64]) -> f64 {
     if !a.is_finite() || m.len() != r.len() {
         return with_residual(*m.select_nth_unstable(k).1);
     }
-    let (lo, hi) = ((a * 0.99).to_bits(), (a * 1.01).to_bits());
-    let below: usize = m.iter().map(|x| usize::from(*x < lo)).sum();
-    let inside: usize = m.iter().map(|x| usize::from((*x >= lo) & (*x <= hi))).sum();
+    // Compared as doubles: the same order for these non-negative values (NaN above all, as
+    // its bits are), and baseline x86-64 compares doubles in vector lanes but not u64s.
+    let (lo, hi) = (a * 0.99, a * 1.01);
+    let value = |x: &u64| f64::from_bits(*x);
+    let below: usize = m.iter().map(|x| usize::from(value(x) < lo)).sum();
+    let inside: usize = m
+        .iter()
+        .map(|x| usize::from((value(x) >= lo) & (value(x) <= hi)))
+        .sum();
+    let (lo, hi) = (lo.to_bits(), hi.to_bits());
     if k < below {
         with_residual(*m.select_nth_unstable(k).1)
     } else if k >= below + inside {
