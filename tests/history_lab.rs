@@ -59,6 +59,16 @@ impl Lab {
         }
     }
 
+    /// Slows bench `k` (1-based) to `time_scale` × real time, so that a run outlasts
+    /// whatever the test does while it measures.
+    fn slow_down(&self, k: usize, time_scale: u32) {
+        let path = &self.machines[k - 1];
+        let text = std::fs::read_to_string(path).unwrap();
+        let slowed = text.replacen("time_scale = 50", &format!("time_scale = {time_scale}"), 1);
+        assert_ne!(slowed, text, "the machine file sets its time scale");
+        std::fs::write(path, slowed).unwrap();
+    }
+
     fn runs_dir(&self, bench: usize) -> PathBuf {
         self.dir.path().join(format!("runs-{bench}"))
     }
@@ -314,6 +324,9 @@ fn a_server_stopped_mid_run_lets_the_run_finish_and_it_lands_with_the_next_write
     pg.create_db("lab").unwrap();
     let url = pg.url("lab");
     let lab = Lab::new();
+    // At the tests' usual 50× a run lasts about half a second, which a loaded machine's
+    // `pg_ctl stop` can outlast; at 10× it measures for a few seconds.
+    lab.slow_down(1, 10);
     let mut child = lab.spawn_run(1, "DOWN", &url);
     pg.stop_server();
     assert!(
