@@ -113,6 +113,23 @@ fn remeasure_of_a_site_not_in_the_plan_exits_2() {
 }
 
 #[test]
+fn remeasure_with_a_bare_site_number_exits_2_with_a_tip() {
+    // Needs no run: the command line is refused before anything is read.
+    let o = isopach(&["remeasure", "runs/20261202-090507-W07", "12"]);
+    assert_exit(&o, 2, "remeasure RUN 12");
+    let err = text(&o.stderr);
+    assert!(err.contains("unexpected argument '12'"), "{err}");
+    assert!(
+        err.contains("to measure site 12 again, write '--site 12'"),
+        "{err}"
+    );
+    // A stray word that is no site number gets no such tip.
+    let o = isopach(&["remeasure", "runs/20261202-090507-W07", "twelve"]);
+    assert_exit(&o, 2, "remeasure RUN twelve");
+    assert!(!text(&o.stderr).contains("to measure site"));
+}
+
+#[test]
 fn render_out_with_an_unsupported_extension_exits_2_before_drawing() {
     let dir = tempfile::tempdir().unwrap();
     let run = oxide_run(dir.path(), "W1", true);

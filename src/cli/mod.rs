@@ -97,7 +97,15 @@ enum Command {
 
 /// Parses the command line and runs the command.
 pub fn main() -> ExitCode {
-    let cli = Cli::parse();
+    let cli = Cli::try_parse().unwrap_or_else(|mut e| {
+        if let Some(tip) = remeasure::tip_for(&e) {
+            e.insert(
+                clap::error::ContextKind::Suggested,
+                clap::error::ContextValue::StyledStrs(vec![tip.into()]),
+            );
+        }
+        e.exit()
+    });
     let result = match cli.command {
         Command::Run(a) => run::run(a),
         Command::Resume(a) => resume::run(a),

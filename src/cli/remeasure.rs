@@ -31,6 +31,20 @@ pub struct Args {
     history: super::history_arg::HistoryArg,
 }
 
+/// A tip for `isopach remeasure RUN 12`: site numbers go after `--site`.
+pub fn tip_for(e: &clap::Error) -> Option<String> {
+    use clap::error::{ContextKind, ContextValue, ErrorKind};
+    if e.kind() != ErrorKind::UnknownArgument {
+        return None;
+    }
+    let ContextValue::String(arg) = e.get(ContextKind::InvalidArg)? else {
+        return None;
+    };
+    let site: usize = arg.parse().ok()?;
+    let remeasure = std::env::args().nth(1).is_some_and(|c| c == "remeasure");
+    remeasure.then(|| format!("to measure site {site} again, write '--site {site}'"))
+}
+
 /// Runs the command.
 pub fn run(args: Args) -> anyhow::Result<u8> {
     let history = args.history.location_of_run(&args.run)?;
